@@ -1,0 +1,14 @@
+#!/usr/bin/env bash
+# Runs Sutura's whole test suite: builds the reference Python venv (numpy, scipy, nibabel,
+# tifffile, statsmodels) and fetches the reference files if missing, then cargo's tests.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+PY=${SUTURA_PYTHON:-.venv/bin/python}
+if [ ! -x "$PY" ]; then
+  python3 -m venv .venv
+  PY=.venv/bin/python
+fi
+"$PY" -m pip install -q --disable-pip-version-check -r tests/python/requirements.txt
+export SUTURA_PYTHON=$(readlink -f "$PY")
+bash scripts/fetch_refdata.sh "$SUTURA_PYTHON"
+cargo test --all-targets "$@"

@@ -1,0 +1,83 @@
+//! Lengths typed by a user: `12um`, `12µm`, `0.012mm`, `1.2e-5m`. Stored in millimetres.
+
+/// Why a length could not be read.
+#[derive(Debug, thiserror::Error, PartialEq)]
+pub enum LengthError {
+    #[error("'{0}' is not a length: write a number and a unit, e.g. 12um or 0.012mm")]
+    Syntax(String),
+    #[error("'{0}': unknown unit '{1}' (use m, mm, um or µm, nm)")]
+    Unit(String, String),
+    #[error("'{0}': a length must be positive and finite")]
+    NotPositive(String),
+}
+
+/// Parses a length with a unit into millimetres. A bare number is refused: voxel sizes in µm and
+/// mm differ by a factor of 1000 and guessing wrong silently ruins every measurement.
+pub fn parse_length_mm(text: &str) -> Result<f64, LengthError> {
+    let t = text.trim();
+    let split = t
+        .find(|c: char| !(c.is_ascii_digit() || matches!(c, '.' | '+' | '-' | 'e' | 'E')))
+        .ok_or_else(|| LengthError::Syntax(text.to_owned()))?;
+    // an exponent 'e' directly followed by a unit letter is not an exponent ("5em" is no unit anyway)
+    let (num, unit) = t.split_at(split);
+    let value: f64 = num
+        .parse()
+        .map_err(|_| LengthError::Syntax(text.to_owned()))?;
+    let factor = match unit.trim() {
+        "m" => 1e3,
+        "mm" => 1.0,
+        "um" | "µm" | "μm" | "micron" | "microns" => 1e-3,
+        "nm" => 1e-6,
+        other => return Err(LengthError::Unit(text.to_owned(), other.to_owned())),
+    };
+    let mm = value * factor;
+    if !(mm.is_finite() && mm > 0.0) {
+        return Err(LengthError::NotPositive(text.to_owned()));
+    }
+    Ok(mm)
+}
+
+/// Formats a length in the unit a reader of CT scans expects: µm below 1 mm, else mm.
+#[must_use]
+pub fn format_length_mm(mm: f64) -> String {
+    if mm.abs() < 1.0 {
+        format!("{} µm", trim_float(mm * 1e3))
+    } else {
+        format!("{} mm", trim_float(mm))
+    }
+}
+
+fn trim_float(v: f64) -> String {
+    let s = format!("{v:.4}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    s.to_owned()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parses_units() {
+        assert!((parse_length_mm("12um").unwrap() - 0.012).abs() < 1e-15);
+        assert!((parse_length_mm("12 µm").unwrap() - 0.012).abs() < 1e-15);
+        assert!((parse_length_mm("0.012mm").unwrap() - 0.012).abs() < 1e-15);
+        assert!((parse_length_mm("1.2e-5m").unwrap() - 0.012).abs() < 1e-15);
+        assert!((parse_length_mm("1.5e1um").unwrap() - 0.015).abs() < 1e-15);
+    }
+
+    #[test]
+    fn refuses_bad_lengths() {
+        assert!(matches!(parse_length_mm("12"), Err(LengthError::Syntax(_))));
+        assert!(matches!(parse_length_mm("12 parsecs"), Err(LengthError::Unit(..))));
+        assert!(matches!(parse_length_mm("-3um"), Err(LengthError::NotPositive(_))));
+        assert!(matches!(parse_length_mm("0mm"), Err(LengthError::NotPositive(_))));
+        assert!(matches!(parse_length_mm("mm"), Err(LengthError::Syntax(_))));
+    }
+
+    #[test]
+    fn formats() {
+        assert_eq!(format_length_mm(0.012), "12 µm");
+        assert_eq!(format_length_mm(2.5), "2.5 mm");
+    }
+}

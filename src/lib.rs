@@ -1,0 +1,9 @@
+//! Sutura: measuring fossil specimens in CT scans on the CPU.
+//!
+//! The library holds all the science; the `sutura` binary's command line ([`cli`]) and the
+//! workstation GUI are front ends over it. Dependencies point one way:
+//! `geometry`, `volume` → `io` → `render`, `landmarks`, `measure`, `shape` → `cli`, `gui`.
+
+pub mod cli;
+pub mod geometry;
+pub mod volume;

@@ -1,0 +1,2 @@
+//! Intensity statistics.
+pub struct Stats; pub struct Histogram;
