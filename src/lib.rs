@@ -6,4 +6,5 @@
 
 pub mod cli;
 pub mod geometry;
+pub mod io;
 pub mod volume;

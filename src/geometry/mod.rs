@@ -211,7 +211,9 @@ impl Affine3 {
     /// `self ∘ other`: apply `other` first.
     #[must_use]
     pub fn compose(&self, other: &Self) -> Self {
-        Self { m: self.m * other.m }
+        Self {
+            m: self.m * other.m,
+        }
     }
 
     #[must_use]
@@ -270,9 +272,7 @@ impl Plane {
         normal: Vector3<f64>,
         up_hint: Vector3<f64>,
     ) -> Result<Self, PlaneError> {
-        let n = normal
-            .try_normalize(1e-12)
-            .ok_or(PlaneError::ZeroNormal)?;
+        let n = normal.try_normalize(1e-12).ok_or(PlaneError::ZeroNormal)?;
         let mut up = up_hint - n * n.dot(&up_hint);
         if up.norm() < 1e-9 {
             // the hint is parallel to the normal: take the least aligned axis
@@ -334,7 +334,10 @@ mod tests {
     fn refuses_singular_and_non_affine() {
         let mut rows = Affine3::identity().rows();
         rows[2][2] = 0.0;
-        assert!(matches!(Affine3::from_rows(rows), Err(AffineError::Singular(_))));
+        assert!(matches!(
+            Affine3::from_rows(rows),
+            Err(AffineError::Singular(_))
+        ));
         let mut rows = Affine3::identity().rows();
         rows[3][0] = 1.0;
         assert_eq!(Affine3::from_rows(rows), Err(AffineError::NotAffine));
@@ -354,9 +357,15 @@ mod tests {
     #[test]
     fn nearest_index_bounds() {
         let d = [4, 3, 2];
-        assert_eq!(VoxelPoint::new(-0.49, 0.0, 0.0).nearest_index(d), Some(VoxelIndex::new(0, 0, 0)));
+        assert_eq!(
+            VoxelPoint::new(-0.49, 0.0, 0.0).nearest_index(d),
+            Some(VoxelIndex::new(0, 0, 0))
+        );
         assert_eq!(VoxelPoint::new(-0.51, 0.0, 0.0).nearest_index(d), None);
-        assert_eq!(VoxelPoint::new(3.49, 2.2, 1.4).nearest_index(d), Some(VoxelIndex::new(3, 2, 1)));
+        assert_eq!(
+            VoxelPoint::new(3.49, 2.2, 1.4).nearest_index(d),
+            Some(VoxelIndex::new(3, 2, 1))
+        );
         assert_eq!(VoxelPoint::new(3.5, 0.0, 0.0).nearest_index(d), None);
         assert_eq!(VoxelPoint::new(f64::NAN, 0.0, 0.0).nearest_index(d), None);
     }
@@ -378,10 +387,15 @@ mod tests {
             epsilon = 1e-12
         );
         // hint parallel to the normal still gives a basis
-        let q = Plane::from_normal(WorldPoint::new(0.0, 0.0, 0.0), Vector3::z(), Vector3::z()).unwrap();
+        let q =
+            Plane::from_normal(WorldPoint::new(0.0, 0.0, 0.0), Vector3::z(), Vector3::z()).unwrap();
         assert_relative_eq!(q.normal(), Vector3::z(), epsilon = 1e-12);
         assert_eq!(
-            Plane::from_normal(WorldPoint::new(0.0, 0.0, 0.0), Vector3::zeros(), Vector3::z()),
+            Plane::from_normal(
+                WorldPoint::new(0.0, 0.0, 0.0),
+                Vector3::zeros(),
+                Vector3::z()
+            ),
             Err(PlaneError::ZeroNormal)
         );
     }

@@ -69,9 +69,18 @@ mod tests {
     #[test]
     fn refuses_bad_lengths() {
         assert!(matches!(parse_length_mm("12"), Err(LengthError::Syntax(_))));
-        assert!(matches!(parse_length_mm("12 parsecs"), Err(LengthError::Unit(..))));
-        assert!(matches!(parse_length_mm("-3um"), Err(LengthError::NotPositive(_))));
-        assert!(matches!(parse_length_mm("0mm"), Err(LengthError::NotPositive(_))));
+        assert!(matches!(
+            parse_length_mm("12 parsecs"),
+            Err(LengthError::Unit(..))
+        ));
+        assert!(matches!(
+            parse_length_mm("-3um"),
+            Err(LengthError::NotPositive(_))
+        ));
+        assert!(matches!(
+            parse_length_mm("0mm"),
+            Err(LengthError::NotPositive(_))
+        ));
         assert!(matches!(parse_length_mm("mm"), Err(LengthError::Syntax(_))));
     }
 

@@ -235,7 +235,12 @@ impl Volume {
     where
         VoxelBuffer<T>: IntoVoxels,
     {
-        Self::new(dims, world_from_voxel, VoxelBuffer::from_vec(data).into_voxels(), None)
+        Self::new(
+            dims,
+            world_from_voxel,
+            VoxelBuffer::from_vec(data).into_voxels(),
+            None,
+        )
     }
 
     #[must_use]
@@ -386,9 +391,13 @@ mod tests {
     #[test]
     fn builds_and_indexes() {
         let data: Vec<u16> = (0..24).collect();
-        let v = Volume::from_vec([4, 3, 2], Affine3::from_spacing([0.01, 0.01, 0.02]), data).unwrap();
+        let v =
+            Volume::from_vec([4, 3, 2], Affine3::from_spacing([0.01, 0.01, 0.02]), data).unwrap();
         assert_eq!(v.dtype(), DType::U16);
-        assert_eq!(v.value(VoxelIndex::new(1, 2, 1)), Some(f64::from(1 + 4 * (2 + 3))));
+        assert_eq!(
+            v.value(VoxelIndex::new(1, 2, 1)),
+            Some(f64::from(1 + 4 * (2 + 3)))
+        );
         assert_eq!(v.value(VoxelIndex::new(4, 0, 0)), None);
         assert_eq!(v.voxel_bytes(), 48);
     }
@@ -396,7 +405,10 @@ mod tests {
     #[test]
     fn refuses_wrong_length() {
         let r = Volume::from_vec([4, 3, 2], Affine3::identity(), vec![0u8; 23]);
-        assert_eq!(r.unwrap_err(), VolumeError::LengthMismatch([4, 3, 2], 24, 23));
+        assert_eq!(
+            r.unwrap_err(),
+            VolumeError::LengthMismatch([4, 3, 2], 24, 23)
+        );
         let r = Volume::from_vec([0, 3, 2], Affine3::identity(), Vec::<u8>::new());
         assert_eq!(r.unwrap_err(), VolumeError::BadDims([0, 3, 2]));
     }

@@ -108,7 +108,12 @@ mod tests {
     #[test]
     fn trilinear_reproduces_linear_functions() {
         let v = linear_volume();
-        for &(x, y, z) in &[(0.0, 0.0, 0.0), (1.25, 2.5, 0.75), (4.0, 3.0, 2.0), (3.9, 0.1, 1.99)] {
+        for &(x, y, z) in &[
+            (0.0, 0.0, 0.0),
+            (1.25, 2.5, 0.75),
+            (4.0, 3.0, 2.0),
+            (3.9, 0.1, 1.99),
+        ] {
             let got = v.sample_trilinear_voxel(VoxelPoint::new(x, y, z)).unwrap();
             assert_relative_eq!(got, 2.0 * x + 3.0 * y - 5.0 * z, epsilon = 1e-5);
         }
@@ -121,26 +126,57 @@ mod tests {
     fn edges_are_defined() {
         let v = linear_volume();
         // half-voxel rim holds the edge value
-        assert_relative_eq!(v.sample_trilinear_voxel(VoxelPoint::new(-0.4, 0.0, 0.0)).unwrap(), 0.0);
-        assert_relative_eq!(v.sample_trilinear_voxel(VoxelPoint::new(4.4, 0.0, 0.0)).unwrap(), 8.0);
-        assert_eq!(v.sample_trilinear_voxel(VoxelPoint::new(-0.6, 0.0, 0.0)), None);
-        assert_eq!(v.sample_trilinear_voxel(VoxelPoint::new(4.5, 0.0, 0.0)), None);
-        assert_eq!(v.sample_trilinear_voxel(VoxelPoint::new(f64::NAN, 0.0, 0.0)), None);
-        assert_eq!(v.sample_nearest_voxel(VoxelPoint::new(1.6, 0.4, 0.0)), Some(4.0));
+        assert_relative_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(-0.4, 0.0, 0.0))
+                .unwrap(),
+            0.0
+        );
+        assert_relative_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(4.4, 0.0, 0.0))
+                .unwrap(),
+            8.0
+        );
+        assert_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(-0.6, 0.0, 0.0)),
+            None
+        );
+        assert_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(4.5, 0.0, 0.0)),
+            None
+        );
+        assert_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(f64::NAN, 0.0, 0.0)),
+            None
+        );
+        assert_eq!(
+            v.sample_nearest_voxel(VoxelPoint::new(1.6, 0.4, 0.0)),
+            Some(4.0)
+        );
         assert_eq!(v.sample_nearest_voxel(VoxelPoint::new(5.0, 0.0, 0.0)), None);
     }
 
     #[test]
     fn single_voxel_axis() {
         let v = Volume::from_vec([2, 1, 1], Affine3::identity(), vec![10u8, 20]).unwrap();
-        assert_relative_eq!(v.sample_trilinear_voxel(VoxelPoint::new(0.5, 0.2, -0.3)).unwrap(), 15.0);
+        assert_relative_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(0.5, 0.2, -0.3))
+                .unwrap(),
+            15.0
+        );
     }
 
     #[test]
     fn sampling_applies_rescale() {
         let mut v = Volume::from_vec([2, 1, 1], Affine3::identity(), vec![10u8, 20]).unwrap();
         v.set_rescale(Rescale::new(2.0, 1.0));
-        assert_relative_eq!(v.sample_trilinear_voxel(VoxelPoint::new(0.5, 0.0, 0.0)).unwrap(), 31.0);
-        assert_eq!(v.sample_nearest_voxel(VoxelPoint::new(0.0, 0.0, 0.0)), Some(21.0));
+        assert_relative_eq!(
+            v.sample_trilinear_voxel(VoxelPoint::new(0.5, 0.0, 0.0))
+                .unwrap(),
+            31.0
+        );
+        assert_eq!(
+            v.sample_nearest_voxel(VoxelPoint::new(0.0, 0.0, 0.0)),
+            Some(21.0)
+        );
     }
 }

@@ -1,2 +1,3 @@
 //! Intensity statistics.
-pub struct Stats; pub struct Histogram;
+pub struct Stats;
+pub struct Histogram;
