@@ -1,3 +1,426 @@
-//! Intensity statistics.
-pub struct Stats;
-pub struct Histogram;
+//! Intensity statistics of a volume: min, max, mean, sum, percentiles and a histogram.
+//!
+//! All figures are of the *rescaled* values (`slope · stored + intercept`), so they compare
+//! directly with other tools that apply the scaling. NaN voxels (float scans) are counted and
+//! left out of every other figure. Sums are accumulated in f64 per chunk and then added, which
+//! is exact for integer scans up to 2^53 in total.
+//!
+//! Percentiles follow numpy's default (`method="linear"`): for the fraction `p`, the value at
+//! rank `p·(n-1)` in sorted order, interpolated between neighbours. For integer types they are
+//! exact, from a full-range count table; for floats they are exact too, from a coarse histogram
+//! that locates the rank followed by a selection among the few values in that bin.
+
+use super::{Volume, Voxel, Voxels};
+use rayon::prelude::*;
+use serde::Serialize;
+
+const CHUNK: usize = 1 << 20;
+
+/// Summary statistics of the rescaled voxel values.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct Stats {
+    pub min: f64,
+    pub max: f64,
+    pub mean: f64,
+    pub sum: f64,
+    /// Voxels that hold a number (all but NaN).
+    pub count: u64,
+    pub nan_count: u64,
+}
+
+#[derive(Clone, Copy)]
+struct Partial {
+    min: f64,
+    max: f64,
+    sum: f64,
+    count: u64,
+    nan: u64,
+}
+
+impl Partial {
+    const EMPTY: Self = Self {
+        min: f64::INFINITY,
+        max: f64::NEG_INFINITY,
+        sum: 0.0,
+        count: 0,
+        nan: 0,
+    };
+
+    fn merge(self, o: Self) -> Self {
+        Self {
+            min: self.min.min(o.min),
+            max: self.max.max(o.max),
+            sum: self.sum + o.sum,
+            count: self.count + o.count,
+            nan: self.nan + o.nan,
+        }
+    }
+}
+
+fn partial_of<T: Voxel>(chunk: &[T]) -> Partial {
+    let mut p = Partial::EMPTY;
+    for &v in chunk {
+        let x = v.to_f64();
+        if x.is_nan() {
+            p.nan += 1;
+            continue;
+        }
+        p.min = p.min.min(x);
+        p.max = p.max.max(x);
+        p.sum += x;
+        p.count += 1;
+    }
+    p
+}
+
+fn raw_partial(voxels: &Voxels) -> Partial {
+    crate::with_voxels!(voxels, |s| s
+        .par_chunks(CHUNK)
+        .map(partial_of)
+        .reduce(|| Partial::EMPTY, Partial::merge))
+}
+
+impl Volume {
+    /// Min, max, mean and sum of the rescaled values; NaN voxels are counted apart.
+    #[must_use]
+    pub fn stats(&self) -> Stats {
+        let p = raw_partial(self.voxels());
+        if p.count == 0 {
+            return Stats {
+                min: f64::NAN,
+                max: f64::NAN,
+                mean: f64::NAN,
+                sum: 0.0,
+                count: 0,
+                nan_count: p.nan,
+            };
+        }
+        let (mut lo, mut hi) = (self.apply_rescale(p.min), self.apply_rescale(p.max));
+        if lo > hi {
+            std::mem::swap(&mut lo, &mut hi);
+        }
+        let sum = match self.rescale() {
+            Some(r) => r.slope * p.sum + r.intercept * p.count as f64,
+            None => p.sum,
+        };
+        Stats {
+            min: lo,
+            max: hi,
+            mean: sum / p.count as f64,
+            sum,
+            count: p.count,
+            nan_count: p.nan,
+        }
+    }
+
+    /// Percentiles (each in `0..=100`) of the rescaled values, numpy's linear method.
+    /// Returns NaN for each when the volume holds no number.
+    #[must_use]
+    pub fn percentiles(&self, pcts: &[f64]) -> Vec<f64> {
+        // a negative slope reverses the order: the p-th of the result is the (100-p)-th raw
+        let raw = if self.rescale().is_some_and(|r| r.slope < 0.0) {
+            let flipped: Vec<f64> = pcts.iter().map(|p| 100.0 - p).collect();
+            self.percentiles_raw(&flipped)
+        } else {
+            self.percentiles_raw(pcts)
+        };
+        raw.into_iter().map(|v| self.apply_rescale(v)).collect()
+    }
+
+    fn percentiles_raw(&self, pcts: &[f64]) -> Vec<f64> {
+        match self.voxels() {
+            Voxels::U8(b) => integer_percentiles(b.as_slice(), 0, 255, pcts),
+            Voxels::U16(b) => integer_percentiles(b.as_slice(), 0, 65535, pcts),
+            Voxels::I16(b) => integer_percentiles(b.as_slice(), -32768, 32767, pcts),
+            Voxels::F32(b) => float_percentiles(b.as_slice(), pcts),
+        }
+    }
+
+    /// A histogram of the rescaled values over `[lo, hi]` in `bins` equal bins; values outside
+    /// the range and NaN are counted apart.
+    #[must_use]
+    pub fn histogram(&self, bins: usize, lo: f64, hi: f64) -> Histogram {
+        let bins = bins.max(1);
+        let (slope, intercept) = self
+            .rescale()
+            .map_or((1.0, 0.0), |r| (r.slope, r.intercept));
+        let scale = bins as f64 / (hi - lo);
+        let count = |h: &mut Histogram, raw: f64| {
+            let x = slope * raw + intercept;
+            if x.is_nan() {
+                h.nan += 1;
+            } else if x < lo || x > hi || !scale.is_finite() {
+                if x < lo { h.below += 1 } else { h.above += 1 }
+            } else {
+                let b = (((x - lo) * scale) as usize).min(bins - 1);
+                h.counts[b] += 1;
+            }
+        };
+        let empty = || Histogram {
+            lo,
+            hi,
+            counts: vec![0; bins],
+            below: 0,
+            above: 0,
+            nan: 0,
+        };
+        crate::with_voxels!(self.voxels(), |s| s
+            .par_chunks(CHUNK)
+            .map(|c| {
+                let mut h = empty();
+                for &v in c {
+                    count(&mut h, v.to_f64());
+                }
+                h
+            })
+            .reduce(empty, Histogram::merge))
+    }
+}
+
+/// Counts of values in equal bins over `[lo, hi]`.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Histogram {
+    pub lo: f64,
+    pub hi: f64,
+    pub counts: Vec<u64>,
+    pub below: u64,
+    pub above: u64,
+    pub nan: u64,
+}
+
+impl Histogram {
+    fn merge(mut self, o: Self) -> Self {
+        for (a, b) in self.counts.iter_mut().zip(&o.counts) {
+            *a += b;
+        }
+        self.below += o.below;
+        self.above += o.above;
+        self.nan += o.nan;
+        self
+    }
+
+    /// The centre of bin `b`.
+    #[must_use]
+    pub fn bin_centre(&self, b: usize) -> f64 {
+        self.lo + (b as f64 + 0.5) * (self.hi - self.lo) / self.counts.len() as f64
+    }
+}
+
+/// The rank positions for numpy's linear method: `(lower index, fraction)`.
+fn rank(p: f64, n: u64) -> (u64, f64) {
+    let r = (p.clamp(0.0, 100.0) / 100.0) * (n - 1) as f64;
+    let lo = r.floor();
+    (lo as u64, r - lo)
+}
+
+fn integer_percentiles<T: Voxel>(data: &[T], min: i64, max: i64, pcts: &[f64]) -> Vec<f64> {
+    let span = (max - min + 1) as usize;
+    let table = data
+        .par_chunks(CHUNK)
+        .map(|c| {
+            let mut t = vec![0u64; span];
+            for &v in c {
+                t[(v.to_f64() as i64 - min) as usize] += 1;
+            }
+            t
+        })
+        .reduce(
+            || vec![0u64; span],
+            |mut a, b| {
+                for (x, y) in a.iter_mut().zip(&b) {
+                    *x += y;
+                }
+                a
+            },
+        );
+    let n: u64 = table.iter().sum();
+    if n == 0 {
+        return vec![f64::NAN; pcts.len()];
+    }
+    // k-th order statistic (0-based) from the cumulative table
+    let kth = |k: u64| -> f64 {
+        let mut acc = 0u64;
+        for (i, &c) in table.iter().enumerate() {
+            acc += c;
+            if acc > k {
+                return (i as i64 + min) as f64;
+            }
+        }
+        max as f64
+    };
+    pcts.iter()
+        .map(|&p| {
+            let (lo, f) = rank(p, n);
+            let a = kth(lo);
+            if f == 0.0 {
+                a
+            } else {
+                a + f * (kth((lo + 1).min(n - 1)) - a)
+            }
+        })
+        .collect()
+}
+
+fn float_percentiles(data: &[f32], pcts: &[f64]) -> Vec<f64> {
+    let p = partial_of_par(data);
+    if p.count == 0 {
+        return vec![f64::NAN; pcts.len()];
+    }
+    let n = p.count;
+    let kth = |k: u64| -> f64 { float_kth(data, p.min, p.max, k) };
+    pcts.iter()
+        .map(|&pc| {
+            let (lo, f) = rank(pc, n);
+            let a = kth(lo);
+            if f == 0.0 {
+                a
+            } else {
+                a + f * (kth((lo + 1).min(n - 1)) - a)
+            }
+        })
+        .collect()
+}
+
+fn partial_of_par(data: &[f32]) -> Partial {
+    data.par_chunks(CHUNK)
+        .map(partial_of)
+        .reduce(|| Partial::EMPTY, Partial::merge)
+}
+
+/// The k-th smallest non-NaN value: locate its bin in a 4096-bin histogram, then select among
+/// the values of that bin.
+fn float_kth(data: &[f32], min: f64, max: f64, k: u64) -> f64 {
+    const BINS: usize = 4096;
+    if min == max {
+        return min;
+    }
+    let scale = BINS as f64 / (max - min);
+    let bin_of = |x: f64| (((x - min) * scale) as usize).min(BINS - 1);
+    let counts = data
+        .par_chunks(CHUNK)
+        .map(|c| {
+            let mut t = vec![0u64; BINS];
+            for &v in c {
+                if !v.is_nan() {
+                    t[bin_of(f64::from(v))] += 1;
+                }
+            }
+            t
+        })
+        .reduce(
+            || vec![0u64; BINS],
+            |mut a, b| {
+                for (x, y) in a.iter_mut().zip(&b) {
+                    *x += y;
+                }
+                a
+            },
+        );
+    let mut acc = 0u64;
+    let mut bin = BINS - 1;
+    for (i, &c) in counts.iter().enumerate() {
+        if acc + c > k {
+            bin = i;
+            break;
+        }
+        acc += c;
+    }
+    let mut members: Vec<f32> = data
+        .par_iter()
+        .copied()
+        .filter(|v| !v.is_nan() && bin_of(f64::from(*v)) == bin)
+        .collect();
+    let idx = ((k - acc) as usize).min(members.len().saturating_sub(1));
+    let (_, v, _) = members.select_nth_unstable_by(idx, f32::total_cmp);
+    f64::from(*v)
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::geometry::Affine3;
+    use crate::volume::{Rescale, Volume};
+
+    /// numpy.percentile(a, q) (method "linear"), computed by sorting: the definition itself.
+    fn numpy_linear(sorted: &[f64], q: f64) -> f64 {
+        let r = q / 100.0 * (sorted.len() - 1) as f64;
+        let lo = r.floor() as usize;
+        let hi = (lo + 1).min(sorted.len() - 1);
+        sorted[lo] + (r - lo as f64) * (sorted[hi] - sorted[lo])
+    }
+
+    #[test]
+    fn stats_of_rescaled_integers() {
+        let data: Vec<i16> = vec![-3, 0, 5, 10, 7, 2];
+        let mut v = Volume::from_vec([3, 2, 1], Affine3::identity(), data).unwrap();
+        v.set_rescale(Rescale::new(-2.0, 1.0));
+        let s = v.stats();
+        assert_eq!(s.count, 6);
+        assert_eq!(s.min, -19.0);
+        assert_eq!(s.max, 7.0);
+        assert_eq!(s.sum, -2.0 * 21.0 + 6.0);
+        assert!((s.mean - s.sum / 6.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn float_stats_skip_nan() {
+        let data = vec![1.0f32, f32::NAN, 3.0, -2.0];
+        let v = Volume::from_vec([4, 1, 1], Affine3::identity(), data).unwrap();
+        let s = v.stats();
+        assert_eq!(
+            (s.count, s.nan_count, s.min, s.max, s.sum),
+            (3, 1, -2.0, 3.0, 2.0)
+        );
+        let all_nan = Volume::from_vec([2, 1, 1], Affine3::identity(), vec![f32::NAN; 2]).unwrap();
+        assert!(all_nan.stats().mean.is_nan());
+        assert!(all_nan.percentiles(&[50.0])[0].is_nan());
+    }
+
+    #[test]
+    fn percentiles_match_the_linear_definition() {
+        let mut state = 12345u64;
+        let mut next = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 33) as u32
+        };
+        let ints: Vec<u16> = (0..5000).map(|_| (next() % 3000) as u16).collect();
+        let floats: Vec<f32> = (0..5000)
+            .map(|_| (next() % 100_000) as f32 / 7.0 - 500.0)
+            .collect();
+        let qs = [0.0, 0.5, 1.0, 25.0, 50.0, 73.3, 99.0, 99.5, 100.0];
+        let vi = Volume::from_vec([50, 100, 1], Affine3::identity(), ints.clone()).unwrap();
+        let vf = Volume::from_vec([50, 100, 1], Affine3::identity(), floats.clone()).unwrap();
+        let mut si: Vec<f64> = ints.iter().map(|&v| f64::from(v)).collect();
+        si.sort_by(f64::total_cmp);
+        let mut sf: Vec<f64> = floats.iter().map(|&v| f64::from(v)).collect();
+        sf.sort_by(f64::total_cmp);
+        for (q, got) in qs.iter().zip(vi.percentiles(&qs)) {
+            assert!((got - numpy_linear(&si, *q)).abs() < 1e-9, "u16 q={q}");
+        }
+        for (q, got) in qs.iter().zip(vf.percentiles(&qs)) {
+            assert!((got - numpy_linear(&sf, *q)).abs() < 1e-6, "f32 q={q}");
+        }
+    }
+
+    #[test]
+    fn percentiles_under_negative_slope() {
+        let mut v =
+            Volume::from_vec([4, 1, 1], Affine3::identity(), vec![0u8, 10, 20, 30]).unwrap();
+        v.set_rescale(Rescale::new(-1.0, 0.0));
+        let p = v.percentiles(&[0.0, 100.0, 25.0]);
+        assert_eq!(p, vec![-30.0, 0.0, -22.5]);
+    }
+
+    #[test]
+    fn histogram_counts_everything_once() {
+        let data: Vec<f32> = vec![0.0, 0.5, 1.0, 9.99, 10.0, -1.0, 11.0, f32::NAN];
+        let v = Volume::from_vec([8, 1, 1], Affine3::identity(), data).unwrap();
+        let h = v.histogram(10, 0.0, 10.0);
+        assert_eq!(h.counts.iter().sum::<u64>(), 5);
+        assert_eq!((h.below, h.above, h.nan), (1, 1, 1));
+        assert_eq!(h.counts[0], 2);
+        assert_eq!(h.counts[9], 2);
+        assert!((h.bin_centre(0) - 0.5).abs() < 1e-12);
+    }
+}
