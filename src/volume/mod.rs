@@ -13,6 +13,7 @@
 //! Must not import `io`, `render` or `gui`.
 
 pub mod buffer;
+pub mod resize;
 pub mod sample;
 pub mod stats;
 
