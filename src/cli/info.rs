@@ -1,0 +1,102 @@
+//! `sutura info`: what a scan is, in a form that compares with other tools.
+
+use super::ScanArgs;
+use anyhow::Result;
+use clap::Args;
+use serde::Serialize;
+
+#[derive(Debug, Args)]
+pub struct InfoArgs {
+    #[command(flatten)]
+    scan: ScanArgs,
+
+    /// Print JSON instead of text (dims, dtype, voxel_size_mm, world_from_voxel as 4x4
+    /// row-major, min, max, mean, sum over rescaled values, percentiles, notes).
+    #[arg(long)]
+    json: bool,
+}
+
+/// The fields of `info --json`.
+#[derive(Debug, Serialize)]
+pub struct InfoReport {
+    pub path: String,
+    pub dims: [usize; 3],
+    pub dtype: String,
+    pub voxel_size_mm: [f64; 3],
+    pub world_from_voxel: [[f64; 4]; 4],
+    pub rescale_slope: f64,
+    pub rescale_intercept: f64,
+    pub min: f64,
+    pub max: f64,
+    pub mean: f64,
+    pub sum: f64,
+    pub nan_count: u64,
+    /// 0.5th, 50th and 99.5th percentiles: the range of an automatic window.
+    pub p0_5: f64,
+    pub p50: f64,
+    pub p99_5: f64,
+    pub voxel_bytes: usize,
+    pub notes: Vec<String>,
+}
+
+pub fn run(a: &InfoArgs) -> Result<()> {
+    let v = a.scan.open()?;
+    let s = v.stats();
+    let p = v.percentiles(&[0.5, 50.0, 99.5]);
+    let r = v.rescale();
+    let report = InfoReport {
+        path: a.scan.scan.display().to_string(),
+        dims: v.dims(),
+        dtype: v.dtype().name().to_owned(),
+        voxel_size_mm: v.spacing_mm(),
+        world_from_voxel: v.world_from_voxel().rows(),
+        rescale_slope: r.map_or(1.0, |r| r.slope),
+        rescale_intercept: r.map_or(0.0, |r| r.intercept),
+        min: s.min,
+        max: s.max,
+        mean: s.mean,
+        sum: s.sum,
+        nan_count: s.nan_count,
+        p0_5: p[0],
+        p50: p[1],
+        p99_5: p[2],
+        voxel_bytes: v.voxel_bytes(),
+        notes: v.notes.clone(),
+    };
+    if a.json {
+        println!("{}", serde_json::to_string_pretty(&report)?);
+        return Ok(());
+    }
+    let [nx, ny, nz] = report.dims;
+    let [sx, sy, sz] = report.voxel_size_mm;
+    println!("scan         {}", report.path);
+    println!("dimensions   {nx} x {ny} x {nz} voxels ({} MiB of {})", report.voxel_bytes >> 20, report.dtype);
+    println!(
+        "voxel size   {} x {} x {}",
+        crate::geometry::format_length_mm(sx),
+        crate::geometry::format_length_mm(sy),
+        crate::geometry::format_length_mm(sz)
+    );
+    println!(
+        "extent       {:.3} x {:.3} x {:.3} mm",
+        sx * nx as f64,
+        sy * ny as f64,
+        sz * nz as f64
+    );
+    println!("world_from_voxel (mm)");
+    for row in &report.world_from_voxel {
+        println!("  {:>12.6} {:>12.6} {:>12.6} {:>12.6}", row[0], row[1], row[2], row[3]);
+    }
+    if r.is_some() {
+        println!("rescale      value = {} * stored + {}", report.rescale_slope, report.rescale_intercept);
+    }
+    println!("intensity    min {}  max {}  mean {:.4}", report.min, report.max, report.mean);
+    println!("percentiles  0.5%: {}  50%: {}  99.5%: {}", report.p0_5, report.p50, report.p99_5);
+    if report.nan_count > 0 {
+        println!("NaN voxels   {}", report.nan_count);
+    }
+    for n in &report.notes {
+        println!("note         {n}");
+    }
+    Ok(())
+}
