@@ -8,7 +8,11 @@ dest=target/refdata
 mkdir -p "$dest"
 if [ ! -d "$dest/pillow/Tests/images" ]; then
   tmp=$(mktemp -d)
-  "$PY" -m pip download -q --disable-pip-version-check --no-deps --no-binary :all: -d "$tmp" pillow
+  # pip prepares an sdist's metadata before it keeps the file; with build isolation that would
+  # build Pillow's build tools from source, so use the venv's own setuptools instead.
+  "$PY" -m pip install -q --disable-pip-version-check "setuptools>=77" pybind11
+  "$PY" -m pip download -q --disable-pip-version-check --no-deps --no-binary :all: \
+    --no-build-isolation -d "$tmp" "pillow==13.0.0"
   mkdir -p "$dest/pillow"
   tar -xzf "$tmp"/pillow-*.tar.gz -C "$dest/pillow" --strip-components=1 --wildcards '*/Tests/images/*'
   rm -rf "$tmp"
