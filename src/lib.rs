@@ -5,6 +5,7 @@
 //! `geometry`, `volume` → `io` → `render`, `landmarks`, `measure`, `shape` → `cli`, `gui`.
 
 pub mod cli;
+pub mod export;
 pub mod geometry;
 pub mod io;
 pub mod volume;

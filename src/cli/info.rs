@@ -70,7 +70,11 @@ pub fn run(a: &InfoArgs) -> Result<()> {
     let [nx, ny, nz] = report.dims;
     let [sx, sy, sz] = report.voxel_size_mm;
     println!("scan         {}", report.path);
-    println!("dimensions   {nx} x {ny} x {nz} voxels ({} MiB of {})", report.voxel_bytes >> 20, report.dtype);
+    println!(
+        "dimensions   {nx} x {ny} x {nz} voxels ({} MiB of {})",
+        report.voxel_bytes >> 20,
+        report.dtype
+    );
     println!(
         "voxel size   {} x {} x {}",
         crate::geometry::format_length_mm(sx),
@@ -85,13 +89,25 @@ pub fn run(a: &InfoArgs) -> Result<()> {
     );
     println!("world_from_voxel (mm)");
     for row in &report.world_from_voxel {
-        println!("  {:>12.6} {:>12.6} {:>12.6} {:>12.6}", row[0], row[1], row[2], row[3]);
+        println!(
+            "  {:>12.6} {:>12.6} {:>12.6} {:>12.6}",
+            row[0], row[1], row[2], row[3]
+        );
     }
     if r.is_some() {
-        println!("rescale      value = {} * stored + {}", report.rescale_slope, report.rescale_intercept);
+        println!(
+            "rescale      value = {} * stored + {}",
+            report.rescale_slope, report.rescale_intercept
+        );
     }
-    println!("intensity    min {}  max {}  mean {:.4}", report.min, report.max, report.mean);
-    println!("percentiles  0.5%: {}  50%: {}  99.5%: {}", report.p0_5, report.p50, report.p99_5);
+    println!(
+        "intensity    min {}  max {}  mean {:.4}",
+        report.min, report.max, report.mean
+    );
+    println!(
+        "percentiles  0.5%: {}  50%: {}  99.5%: {}",
+        report.p0_5, report.p50, report.p99_5
+    );
     if report.nan_count > 0 {
         println!("NaN voxels   {}", report.nan_count);
     }

@@ -110,9 +110,9 @@ impl ScanArgs {
                 }
                 let t = volume.world_from_voxel().translation();
                 volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
-                volume
-                    .notes
-                    .push(format!("voxel size overridden from the command line: {s:?} mm"));
+                volume.notes.push(format!(
+                    "voxel size overridden from the command line: {s:?} mm"
+                ));
             }
         }
         Ok(volume)

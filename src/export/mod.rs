@@ -1,0 +1,180 @@
+//! Open, documented file formats in and out: CSV (long and wide), JSON, NumPy `.npy`.
+//!
+//! Every file is written atomically ([`write_atomic`]): to a temporary file in the same folder,
+//! flushed to disk, then renamed over the target, so a crash never leaves half a file where a
+//! good one stood. The README documents every column written here.
+//!
+//! [`table`] reads and writes landmark tables (the long CSV that every other tool can make).
+//!
+//! Must not import `gui`.
+
+pub mod table;
+
+use npyz::WriterBuilder;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// Why an export or import failed. Every variant names the file.
+#[derive(Debug, thiserror::Error)]
+pub enum ExportError {
+    #[error("{}: {source}", path.display())]
+    Os {
+        path: PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+    #[error("{}: {what}", path.display())]
+    Format { path: PathBuf, what: String },
+}
+
+impl ExportError {
+    pub(crate) fn os(path: &Path, source: std::io::Error) -> Self {
+        Self::Os {
+            path: path.to_owned(),
+            source,
+        }
+    }
+
+    pub(crate) fn format(path: &Path, what: impl Into<String>) -> Self {
+        Self::Format {
+            path: path.to_owned(),
+            what: what.into(),
+        }
+    }
+}
+
+/// Writes a file atomically: temp file in the same folder, fsync, rename, fsync of the folder.
+/// The content is produced by `fill`, which may fail; then the target is left untouched.
+pub fn write_atomic(
+    path: &Path,
+    fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> Result<(), ExportError> {
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d.to_owned(),
+        _ => PathBuf::from("."),
+    };
+    let name = path
+        .file_name()
+        .ok_or_else(|| ExportError::format(path, "not a file name"))?;
+    let tmp = dir.join(format!(
+        ".{}.tmp-{}",
+        name.to_string_lossy(),
+        std::process::id()
+    ));
+    let result = (|| {
+        let file = std::fs::File::create(&tmp)?;
+        let mut w = std::io::BufWriter::with_capacity(1 << 20, file);
+        fill(&mut w)?;
+        let file = w
+            .into_inner()
+            .map_err(std::io::IntoInnerError::into_error)?;
+        file.sync_all()?;
+        std::fs::rename(&tmp, path)?;
+        if let Ok(d) = std::fs::File::open(&dir) {
+            let _ = d.sync_all(); // best effort: not every file system syncs folders
+        }
+        Ok(())
+    })();
+    if result.is_err() {
+        let _ = std::fs::remove_file(&tmp);
+    }
+    result.map_err(|e| ExportError::os(path, e))
+}
+
+/// Writes an f64 array of the given shape (C order) as a NumPy `.npy` file.
+pub fn write_npy_f64(path: &Path, shape: &[u64], data: &[f64]) -> Result<(), ExportError> {
+    let n: u64 = shape.iter().product();
+    if n != data.len() as u64 {
+        return Err(ExportError::format(
+            path,
+            format!(
+                "shape {shape:?} holds {n} values but {} were given",
+                data.len()
+            ),
+        ));
+    }
+    write_atomic(path, |w| {
+        let mut writer = npyz::WriteOptions::<f64>::new()
+            .default_dtype()
+            .shape(shape)
+            .writer(w)
+            .begin_nd()?;
+        writer.extend(data.iter().copied())?;
+        writer.finish()
+    })
+}
+
+/// Writes pretty JSON atomically.
+pub fn write_json<T: serde::Serialize>(path: &Path, value: &T) -> Result<(), ExportError> {
+    write_atomic(path, |w| {
+        serde_json::to_writer_pretty(&mut *w, value).map_err(std::io::Error::other)?;
+        w.write_all(b"\n")
+    })
+}
+
+/// Writes rows as CSV atomically, with a header row.
+pub fn write_csv(path: &Path, header: &[&str], rows: &[Vec<String>]) -> Result<(), ExportError> {
+    write_atomic(path, |w| {
+        let mut c = csv::Writer::from_writer(w);
+        c.write_record(header).map_err(std::io::Error::other)?;
+        for r in rows {
+            c.write_record(r).map_err(std::io::Error::other)?;
+        }
+        c.flush()
+    })
+}
+
+/// Formats a float for CSV: shortest representation that reads back exactly; empty for NaN.
+#[must_use]
+pub fn num(v: f64) -> String {
+    if v.is_nan() {
+        String::new()
+    } else {
+        format!("{v}")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn atomic_write_leaves_old_file_on_failure() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("a.json");
+        std::fs::write(&p, "old").unwrap();
+        let r = write_atomic(&p, |w| {
+            w.write_all(b"half")?;
+            Err(std::io::Error::other("disk on fire"))
+        });
+        assert!(r.is_err());
+        assert_eq!(std::fs::read_to_string(&p).unwrap(), "old");
+        assert_eq!(
+            std::fs::read_dir(dir.path()).unwrap().count(),
+            1,
+            "temp file removed"
+        );
+        write_atomic(&p, |w| w.write_all(b"new")).unwrap();
+        assert_eq!(std::fs::read_to_string(&p).unwrap(), "new");
+    }
+
+    #[test]
+    fn npy_header_is_numpy_v1() {
+        // NumPy format spec (numpy.lib.format, "NPY format version 1.0"): magic, version,
+        // little-endian header length, then a dict with descr '<f8', C order, shape.
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("a.npy");
+        write_npy_f64(&p, &[2, 3], &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0]).unwrap();
+        let b = std::fs::read(&p).unwrap();
+        assert_eq!(&b[..6], b"\x93NUMPY");
+        let hlen = u16::from_le_bytes([b[8], b[9]]) as usize;
+        let header = std::str::from_utf8(&b[10..10 + hlen]).unwrap();
+        assert!(header.contains("'descr': '<f8'"), "{header}");
+        assert!(header.contains("'fortran_order': False"), "{header}");
+        assert!(header.replace(' ', "").contains("'shape':(2,3"), "{header}");
+        assert_eq!((10 + hlen) % 16, 0, "data aligned to 16 bytes");
+        let last = f64::from_le_bytes(b[b.len() - 8..].try_into().unwrap());
+        assert_eq!(last, 6.0);
+        assert!(write_npy_f64(&p, &[4], &[1.0]).is_err());
+    }
+}
