@@ -1,0 +1,38 @@
+#!/usr/bin/env bash
+# Scan-loading benchmark against the Python stack, measured in the same run on the same files.
+# Usage: scripts/bench_io.sh [N]   (volume N x N x N u16; default 1024 = 2 GiB; needs ~12 GB disk)
+# Makes the volumes with ../shared/bench/make_volumes.py (once), times tifffile/nibabel with
+# ../shared/bench/py_baseline.py, then Sutura's loader, each in a fresh process, and prints ratios.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+N=${1:-1024}
+TAG=${N}x${N}x${N}
+KIT=${SUTURA_BENCH_KIT:-../shared/bench}
+DIR=target/bench-volumes
+PY=${SUTURA_PYTHON:-.venv/bin/python}
+[ -f "$DIR/vol_$TAG.json" ] || "$PY" "$KIT/make_volumes.py" --shape "$N" "$N" "$N" --out "$DIR"
+cargo build --release --example bench_load -q
+OUT=target/bench-io-$TAG.jsonl
+: > "$OUT"
+env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "$PY" "$KIT/py_baseline.py" --dir "$DIR" --tag "$TAG" \
+  --repeats 3 --only 'load' --jsonl "$OUT.py" >/dev/null || true
+declare -A FILES=( [slices]="$DIR/slices_$TAG" [bigtiff]="$DIR/vol_${TAG}_bigtiff.tif"
+                   [deflate]="$DIR/vol_${TAG}_deflate.tif" [nii]="$DIR/vol_$TAG.nii" [niigz]="$DIR/vol_$TAG.nii.gz" )
+for k in slices bigtiff deflate nii niigz; do
+  reps=3; [ "$k" = niigz ] && reps=1
+  ./target/release/examples/bench_load "${FILES[$k]}" "$reps" | sed "s/^{/{\"form\":\"$k\",/" >> "$OUT"
+done
+"$PY" - "$OUT" "$OUT.py" <<'PYEOF'
+import json, sys
+ours = [json.loads(l) for l in open(sys.argv[1])]
+py = [json.loads(l) for l in open(sys.argv[2]) if l.strip()]
+py = [p for p in py if p.get("name") != "env" and "median_s" in p]
+print(f"{'form':8} {'sutura s':>9} {'GB/s':>6} {'RSS MiB':>8}   python reference (best of its load figures for the form)")
+for o in ours:
+    f = o["form"]
+    key = {"slices": "slices", "bigtiff": "bigtiff", "deflate": "deflate", "nii": "nii", "niigz": "niigz"}[f]
+    cands = [p for p in py if key in p["name"] and not p["name"].endswith("_cold") and (key != "nii" or "niigz" not in p["name"])]
+    ref = min(cands, key=lambda p: p["median_s"]) if cands else None
+    r = f"{ref['name']} {ref['median_s']:.3f} s -> ratio {ref['median_s']/o['median_s']:.2f}x" if ref else "no reference"
+    print(f"{f:8} {o['median_s']:9.3f} {o['gbps']:6.2f} {o['peak_rss_mib']:8.0f}   {r}")
+PYEOF
