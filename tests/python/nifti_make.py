@@ -86,12 +86,14 @@ img.set_qform(oblique, code=1)
 img.set_sform(None, code=0)
 save(img, "qform_only.nii", "qform only (oblique, qfac -1)")
 
-# no transform at all: both codes 0 (nibabel's base affine differs from method 1, see test)
-img = nib.Nifti1Image(rng.integers(0, 9, size=shape).astype(np.int16), None)
-img.set_qform(None, code=0)
-img.set_sform(None, code=0)
-img.header.set_zooms((0.5, 0.25, 2.0))
+# no transform at all: both codes 0 (nibabel's base affine differs from method 1, see test);
+# nibabel sets codes on save, so they are patched to 0 afterwards (reference: nifti1.h,
+# qform_code int16 at byte 252, sform_code at 254)
+img = nib.Nifti1Image(rng.integers(0, 9, size=shape).astype(np.int16), np.diag([0.5, 0.25, 2.0, 1.0]))
 save(img, "no_xform.nii", "sform_code = qform_code = 0 (method 1)")
+with open(os.path.join(out, "no_xform.nii"), "r+b") as f:
+    f.seek(252)
+    f.write(np.array([0, 0], dtype="<i2").tobytes())
 
 # units: micrometres and metres (nibabel ignores xyzt_units; we scale to mm)
 for unit in ("micron", "meter"):
