@@ -36,10 +36,25 @@ impl Distance {
     }
 }
 
-/// ρ for two flat centred configurations with their norms.
-fn angle_flat(x: &[f64], y: &[f64], nx: f64, ny: f64, m: usize) -> Result<f64, ShapeError> {
-    let (_, trace) = proper_rotation(&cross(x, y, m), m)?;
-    Ok((trace / (nx * ny)).clamp(-1.0, 1.0).acos())
+/// ρ for two flat centred configurations with their norms. Computed as `2 asin(d_P / 2)` from
+/// the residual `d_P = ‖x̂R − ŷ‖` of the unit-size preshapes rather than `acos(tr)`, which
+/// cannot resolve angles below ~1.5e-8.
+pub(crate) fn angle_flat(
+    x: &[f64],
+    y: &[f64],
+    nx: f64,
+    ny: f64,
+    m: usize,
+) -> Result<f64, ShapeError> {
+    let (r, _) = proper_rotation(&cross(x, y, m), m)?;
+    let mut ss = 0.0;
+    for (p, q) in x.chunks_exact(m).zip(y.chunks_exact(m)) {
+        for b in 0..m {
+            let rot: f64 = (0..m).map(|a| p[a] * r[a * m + b]).sum();
+            ss += (rot / nx - q[b] / ny).powi(2);
+        }
+    }
+    Ok(2.0 * (ss.sqrt() / 2.0).min(1.0).asin())
 }
 
 fn prepared(c: &DMatrix<f64>, which: usize) -> Result<(Vec<f64>, f64), ShapeError> {
@@ -151,9 +166,7 @@ mod tests {
         let rho = procrustes_angle(&eq, &refl).unwrap();
         assert!((rho - PI / 2.0).abs() < 1e-12, "{rho}");
         assert!((full_procrustes_distance(&eq, &refl).unwrap() - 1.0).abs() < 1e-12);
-        assert!(
-            (partial_procrustes_distance(&eq, &refl).unwrap() - 2f64.sqrt()).abs() < 1e-12
-        );
+        assert!((partial_procrustes_distance(&eq, &refl).unwrap() - 2f64.sqrt()).abs() < 1e-12);
         // A degenerate (collinear) triangle lies on the equator: ρ = π/4 from the equilateral
         // pole (same sphere picture, from memory of Kendall's spherical representation;
         // checked independently by the complex formula test in tests/shape_reference.rs).
@@ -168,7 +181,10 @@ mod tests {
             3,
             3,
             2,
-            vec![0.0, 0.0, 1.0, 0.0, 0.3, 0.9, 0.0, 0.0, 2.0, 0.1, 1.0, 1.0, 1.0, 1.0, 0.0, 3.0, 0.5, -0.2],
+            vec![
+                0.0, 0.0, 1.0, 0.0, 0.3, 0.9, 0.0, 0.0, 2.0, 0.1, 1.0, 1.0, 1.0, 1.0, 0.0, 3.0,
+                0.5, -0.2,
+            ],
         )
         .unwrap();
         for kind in [Distance::Angle, Distance::Partial, Distance::Full] {

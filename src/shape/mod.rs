@@ -36,7 +36,9 @@ pub enum ShapeError {
     #[error("landmarks have {0} coordinates; only 2D and 3D configurations are supported")]
     UnsupportedDimension(usize),
     /// `data.len()` does not equal `n * k * m` (or the product overflows).
-    #[error("sample of {n} specimens x {k} landmarks x {m} coordinates needs {expected} values, got {got}")]
+    #[error(
+        "sample of {n} specimens x {k} landmarks x {m} coordinates needs {expected} values, got {got}"
+    )]
     LengthMismatch {
         n: usize,
         k: usize,
@@ -63,7 +65,9 @@ pub enum ShapeError {
         got_m: usize,
     },
     /// A coordinate is NaN or infinite.
-    #[error("specimen {specimen}, landmark {landmark}: coordinate is not finite (estimate missing landmarks first)")]
+    #[error(
+        "specimen {specimen}, landmark {landmark}: coordinate is not finite (estimate missing landmarks first)"
+    )]
     NonFinite { specimen: usize, landmark: usize },
     /// All landmarks of a configuration coincide, so it has no shape.
     #[error("specimen {0}: all landmarks coincide (centroid size 0)")]
@@ -229,17 +233,6 @@ pub fn centroid_size(config: &DMatrix<f64>) -> f64 {
     ss.sqrt()
 }
 
-/// Centroid size of a flat row-major `k × m` configuration.
-pub(crate) fn centroid_size_flat(x: &[f64], m: usize) -> f64 {
-    let k = x.len() / m;
-    let mut ss = 0.0;
-    for c in 0..m {
-        let mean = (0..k).map(|j| x[j * m + c]).sum::<f64>() / k as f64;
-        ss += (0..k).map(|j| (x[j * m + c] - mean).powi(2)).sum::<f64>();
-    }
-    ss.sqrt()
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -280,6 +273,5 @@ mod tests {
         // CS = sqrt(4 * 1/2) = sqrt(2) (definition, Dryden & Mardia 2016 eq. 2.1).
         let sq = DMatrix::from_row_slice(4, 2, &[0.0, 0.0, 1.0, 0.0, 1.0, 1.0, 0.0, 1.0]);
         assert!((centroid_size(&sq) - 2f64.sqrt()).abs() < 1e-15);
-        assert!((centroid_size_flat(sq.transpose().as_slice(), 2) - 2f64.sqrt()).abs() < 1e-15);
     }
 }
