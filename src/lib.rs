@@ -8,4 +8,5 @@ pub mod cli;
 pub mod export;
 pub mod geometry;
 pub mod io;
+pub mod shape;
 pub mod volume;
