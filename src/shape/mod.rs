@@ -1,0 +1,3 @@
+//! Shape statistics (placeholder until the GPA half lands from branch `shape`).
+
+pub mod tps;
