@@ -24,6 +24,11 @@ pub mod pca;
 pub mod tangent;
 
 // Second half (branch shape2): splines, missing landmarks, sliding, measurement error, symmetry.
+mod align;
+pub mod anova;
+pub mod missing;
+pub mod sliding;
+pub mod symmetry;
 pub mod tps;
 
 use nalgebra::DMatrix;
