@@ -42,7 +42,9 @@ pub enum AnovaError {
     #[error("{0} individual(s): at least 2 are needed")]
     TooFewIndividuals(usize),
     /// No individual was measured twice, so there is no error term.
-    #[error("{measurements} measurements of {individuals} individuals: no replicates, no error term")]
+    #[error(
+        "{measurements} measurements of {individuals} individuals: no replicates, no error term"
+    )]
     NoReplicates {
         measurements: usize,
         individuals: usize,
@@ -104,7 +106,11 @@ fn groups(labels: &[usize]) -> (Vec<usize>, Vec<usize>) {
 
 /// One-way ANOVA of the rows of `data` (`N × p`, every column a variable) grouped by `labels`,
 /// with sums of squares summed over the columns and degrees of freedom multiplied by `dims`.
-pub fn one_way(data: &DMatrix<f64>, labels: &[usize], dims: usize) -> Result<AnovaTable, AnovaError> {
+pub fn one_way(
+    data: &DMatrix<f64>,
+    labels: &[usize],
+    dims: usize,
+) -> Result<AnovaTable, AnovaError> {
     let n = data.nrows();
     if labels.len() != n {
         return Err(AnovaError::LabelCount {
@@ -189,7 +195,11 @@ pub fn one_way(data: &DMatrix<f64>, labels: &[usize], dims: usize) -> Result<Ano
 
 /// One-way ANOVA and repeatability (ICC) of a single linear measurement.
 pub fn linear_anova(values: &[f64], labels: &[usize]) -> Result<AnovaTable, AnovaError> {
-    one_way(&DMatrix::from_column_slice(values.len(), 1, values), labels, 1)
+    one_way(
+        &DMatrix::from_column_slice(values.len(), 1, values),
+        labels,
+        1,
+    )
 }
 
 /// Dimension of shape space after Procrustes superimposition: `k·m − m − m(m−1)/2 − 1`
@@ -230,7 +240,9 @@ pub fn procrustes_anova(
     let g = gpa(sample, opts)?;
     let dims = shape_dims(sample.k(), sample.m()).max(1);
     let shape = one_way(&g.aligned.to_rows(), individuals, dims)?;
-    let sizes: Vec<f64> = (0..sample.n()).map(|i| centroid_size(&sample.config(i))).collect();
+    let sizes: Vec<f64> = (0..sample.n())
+        .map(|i| centroid_size(&sample.config(i)))
+        .collect();
     let size = linear_anova(&sizes, individuals)?;
     Ok(ProcrustesAnova {
         shape,

@@ -23,9 +23,9 @@
 use std::collections::BTreeMap;
 
 use nalgebra::DMatrix;
+use rand::Rng;
 use rand::SeedableRng;
 use rand::seq::{SliceRandom, index};
-use rand::Rng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::Serialize;
@@ -98,7 +98,12 @@ impl Prepared {
     }
 }
 
-fn check_indices(rows: &DMatrix<f64>, idx: &[usize], need: usize, what: &'static str) -> Result<(), ShapeError> {
+fn check_indices(
+    rows: &DMatrix<f64>,
+    idx: &[usize],
+    need: usize,
+    what: &'static str,
+) -> Result<(), ShapeError> {
     if idx.len() < need {
         return Err(ShapeError::TooFewSpecimens {
             what,
@@ -134,7 +139,11 @@ pub fn sum_of_variances(rows: &DMatrix<f64>, indices: &[usize]) -> Result<f64, S
     Ok((0..rows.ncols())
         .map(|c| {
             let mean = indices.iter().map(|&i| rows[(i, c)]).sum::<f64>() / n;
-            indices.iter().map(|&i| (rows[(i, c)] - mean).powi(2)).sum::<f64>() / (n - 1.0)
+            indices
+                .iter()
+                .map(|&i| (rows[(i, c)] - mean).powi(2))
+                .sum::<f64>()
+                / (n - 1.0)
         })
         .sum())
 }
@@ -221,7 +230,9 @@ fn check_level(level: f64, resamples: usize) -> Result<(), ShapeError> {
         )));
     }
     if resamples == 0 {
-        return Err(ShapeError::InvalidOption("at least one resample is needed".into()));
+        return Err(ShapeError::InvalidOption(
+            "at least one resample is needed".into(),
+        ));
     }
     Ok(())
 }
@@ -305,7 +316,10 @@ pub fn rarefy(
             || (vec![0.0; p], vec![0; size]),
             |(buf, pick), r| {
                 let mut rng = rng_for(seed, r);
-                for (slot, j) in pick.iter_mut().zip(index::sample(&mut rng, indices.len(), size)) {
+                for (slot, j) in pick
+                    .iter_mut()
+                    .zip(index::sample(&mut rng, indices.len(), size))
+                {
                     *slot = indices[j];
                 }
                 pr.disparity(pick, divisor, buf)
@@ -339,7 +353,9 @@ pub fn permutation_test(
     check_indices(rows, a, 2, "permutation test (group A)")?;
     check_indices(rows, b, 2, "permutation test (group B)")?;
     if permutations == 0 {
-        return Err(ShapeError::InvalidOption("at least one permutation is needed".into()));
+        return Err(ShapeError::InvalidOption(
+            "at least one permutation is needed".into(),
+        ));
     }
     let pr = Prepared::new(rows)?;
     let p = rows.ncols();
@@ -430,7 +446,11 @@ mod tests {
         assert!((pvn - sv * 19.0 / 20.0).abs() < 1e-12 * sv);
         // Direct definition.
         let mean = x.row_mean();
-        let direct: f64 = x.row_iter().map(|r| (r - &mean).norm_squared()).sum::<f64>() / 19.0;
+        let direct: f64 = x
+            .row_iter()
+            .map(|r| (r - &mean).norm_squared())
+            .sum::<f64>()
+            / 19.0;
         assert!((pv - direct).abs() < 1e-12 * direct);
     }
 
@@ -458,7 +478,10 @@ mod tests {
         assert!(bs.lower < bs.estimate && bs.estimate < bs.upper);
         // Rarefying to the full size without replacement always returns the whole group.
         let full = rarefy(&x, &a, 10, Divisor::NMinusOne, 20, 0.9, 1).unwrap();
-        assert!((full.lower - full.estimate).abs() < 1e-12 && (full.upper - full.estimate).abs() < 1e-12);
+        assert!(
+            (full.lower - full.estimate).abs() < 1e-12
+                && (full.upper - full.estimate).abs() < 1e-12
+        );
         let small = rarefy(&x, &b, 5, Divisor::NMinusOne, 200, 0.9, 1).unwrap();
         assert!(small.lower < small.upper);
         // Group B is 3× the spread of A: 9× the variance, a clear difference.

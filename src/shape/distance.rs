@@ -151,9 +151,7 @@ mod tests {
         let rho = procrustes_angle(&eq, &refl).unwrap();
         assert!((rho - PI / 2.0).abs() < 1e-12, "{rho}");
         assert!((full_procrustes_distance(&eq, &refl).unwrap() - 1.0).abs() < 1e-12);
-        assert!(
-            (partial_procrustes_distance(&eq, &refl).unwrap() - 2f64.sqrt()).abs() < 1e-12
-        );
+        assert!((partial_procrustes_distance(&eq, &refl).unwrap() - 2f64.sqrt()).abs() < 1e-12);
         // A degenerate (collinear) triangle lies on the equator: ρ = π/4 from the equilateral
         // pole (same sphere picture, from memory of Kendall's spherical representation;
         // checked independently by the complex formula test in tests/shape_reference.rs).
@@ -168,7 +166,10 @@ mod tests {
             3,
             3,
             2,
-            vec![0.0, 0.0, 1.0, 0.0, 0.3, 0.9, 0.0, 0.0, 2.0, 0.1, 1.0, 1.0, 1.0, 1.0, 0.0, 3.0, 0.5, -0.2],
+            vec![
+                0.0, 0.0, 1.0, 0.0, 0.3, 0.9, 0.0, 0.0, 2.0, 0.1, 1.0, 1.0, 1.0, 1.0, 0.0, 3.0,
+                0.5, -0.2,
+            ],
         )
         .unwrap();
         for kind in [Distance::Angle, Distance::Partial, Distance::Full] {

@@ -112,7 +112,9 @@ pub(crate) fn proper_rotation(h: &[f64], m: usize) -> Result<([f64; 9], f64), Sh
         let hm = Matrix2::from_row_slice(&h[..4]);
         let svd = hm
             .try_svd(true, true, f64::EPSILON, 1000)
-            .ok_or(ShapeError::NoConvergence("2x2 singular value decomposition"))?;
+            .ok_or(ShapeError::NoConvergence(
+                "2x2 singular value decomposition",
+            ))?;
         let (u, vt) = (svd.u.expect("u requested"), svd.v_t.expect("v requested"));
         let s = svd.singular_values;
         let (mut u, d) = correct_sign(u, u.determinant() * vt.determinant());
@@ -131,7 +133,9 @@ pub(crate) fn proper_rotation(h: &[f64], m: usize) -> Result<([f64; 9], f64), Sh
         let hm = Matrix3::from_row_slice(&h[..9]);
         let svd = hm
             .try_svd(true, true, f64::EPSILON, 1000)
-            .ok_or(ShapeError::NoConvergence("3x3 singular value decomposition"))?;
+            .ok_or(ShapeError::NoConvergence(
+                "3x3 singular value decomposition",
+            ))?;
         let (u, vt) = (svd.u.expect("u requested"), svd.v_t.expect("v requested"));
         let s = svd.singular_values;
         let (mut u, d) = correct_sign(u, u.determinant() * vt.determinant());
@@ -246,7 +250,10 @@ pub(crate) fn flat(c: &DMatrix<f64>) -> Vec<f64> {
 /// The proper rotation `R` (`m × m`, `det R = +1`) minimising `‖x · R − y‖_F` for `k × m`
 /// configurations, with no centring or scaling (the orthogonal Procrustes problem restricted to
 /// rotations), and the attained `tr(Rᵀ xᵀ y)`.
-pub fn rotation_onto(x: &DMatrix<f64>, y: &DMatrix<f64>) -> Result<(DMatrix<f64>, f64), ShapeError> {
+pub fn rotation_onto(
+    x: &DMatrix<f64>,
+    y: &DMatrix<f64>,
+) -> Result<(DMatrix<f64>, f64), ShapeError> {
     let (k, m) = y.shape();
     if m != 2 && m != 3 {
         return Err(ShapeError::UnsupportedDimension(m));
@@ -456,8 +463,8 @@ mod tests {
         assert!((fit.scale - 0.4).abs() < 1e-12);
         assert!((fit.rotation.determinant() - 1.0).abs() < 1e-12);
         // aligned = s · x · R + t
-        let again = &x * &fit.rotation * fit.scale
-            + DMatrix::from_fn(5, 3, |_, d| fit.translation[d]);
+        let again =
+            &x * &fit.rotation * fit.scale + DMatrix::from_fn(5, 3, |_, d| fit.translation[d]);
         assert!((again - &fit.aligned).norm() < 1e-12);
     }
 
@@ -468,7 +475,10 @@ mod tests {
         mirror.column_mut(0).neg_mut();
         let fit = opa(&y, &mirror, true).unwrap();
         assert!((fit.rotation.determinant() - 1.0).abs() < 1e-12);
-        assert!(fit.distance > 0.1, "a chiral shape cannot match its mirror image");
+        assert!(
+            fit.distance > 0.1,
+            "a chiral shape cannot match its mirror image"
+        );
         let planar = DMatrix::from_row_slice(3, 2, &[0.0, 0.0, 1.0, 0.0, 0.2, 1.0]);
         let mut pm = planar.clone();
         pm.column_mut(1).neg_mut();
@@ -485,7 +495,14 @@ mod tests {
             .collect();
         let s = Sample::from_configs(&configs).unwrap();
         for fit in [Fit::Partial, Fit::Full] {
-            let g = gpa(&s, &GpaOptions { fit, ..GpaOptions::default() }).unwrap();
+            let g = gpa(
+                &s,
+                &GpaOptions {
+                    fit,
+                    ..GpaOptions::default()
+                },
+            )
+            .unwrap();
             assert!(g.converged);
             assert!(g.iterations <= 3, "{}", g.iterations);
             assert!((crate::shape::centroid_size(&g.mean) - 1.0).abs() < 1e-12);
@@ -500,10 +517,26 @@ mod tests {
     #[test]
     fn gpa_rejects_bad_input() {
         let s = Sample::new(1, 3, 2, vec![0.0, 0.0, 1.0, 0.0, 0.0, 1.0]).unwrap();
-        assert!(matches!(gpa(&s, &GpaOptions::default()), Err(ShapeError::TooFewSpecimens { .. })));
-        let z = Sample::new(2, 3, 2, vec![0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0]).unwrap();
-        assert_eq!(gpa(&z, &GpaOptions::default()).unwrap_err(), ShapeError::ZeroSize(1));
-        let opts = GpaOptions { fit: Fit::Full, scale: false, ..GpaOptions::default() };
+        assert!(matches!(
+            gpa(&s, &GpaOptions::default()),
+            Err(ShapeError::TooFewSpecimens { .. })
+        ));
+        let z = Sample::new(
+            2,
+            3,
+            2,
+            vec![0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0],
+        )
+        .unwrap();
+        assert_eq!(
+            gpa(&z, &GpaOptions::default()).unwrap_err(),
+            ShapeError::ZeroSize(1)
+        );
+        let opts = GpaOptions {
+            fit: Fit::Full,
+            scale: false,
+            ..GpaOptions::default()
+        };
         assert!(matches!(gpa(&z, &opts), Err(ShapeError::InvalidOption(_))));
     }
 }

@@ -73,14 +73,18 @@ pub enum MissingError {
     #[error("missing-landmark mask has {got} entries, expected {expected} (specimens × landmarks)")]
     MaskLength { expected: usize, got: usize },
     /// Not enough complete specimens to build a reference.
-    #[error("{method} estimation needs at least {needed} complete specimen(s), the sample has {got}")]
+    #[error(
+        "{method} estimation needs at least {needed} complete specimen(s), the sample has {got}"
+    )]
     TooFewComplete {
         method: &'static str,
         needed: usize,
         got: usize,
     },
     /// A specimen has too few present landmarks to fit the map.
-    #[error("specimen {specimen}: {present} landmarks present, at least {needed} are needed to estimate the rest")]
+    #[error(
+        "specimen {specimen}: {present} landmarks present, at least {needed} are needed to estimate the rest"
+    )]
     TooFewPresent {
         specimen: usize,
         present: usize,
@@ -118,7 +122,14 @@ pub fn sample_with_missing(
     mut data: Vec<f64>,
 ) -> Result<(Sample, Vec<bool>), MissingError> {
     let cells = n.checked_mul(k).unwrap_or(usize::MAX);
-    let mut missing = vec![false; if data.len() == cells.saturating_mul(m) { cells } else { 0 }];
+    let mut missing = vec![
+        false;
+        if data.len() == cells.saturating_mul(m) {
+            cells
+        } else {
+            0
+        }
+    ];
     if !missing.is_empty() {
         for (cell, flag) in missing.iter_mut().enumerate() {
             let vals = &mut data[cell * m..(cell + 1) * m];
@@ -170,8 +181,12 @@ pub fn estimate_missing(
         return Err(MissingError::BadRidge(ridge));
     }
     let is_missing = |i: usize, j: usize| missing[i * k + j];
-    let complete: Vec<usize> = (0..n).filter(|&i| (0..k).all(|j| !is_missing(i, j))).collect();
-    let incomplete: Vec<usize> = (0..n).filter(|&i| (0..k).any(|j| is_missing(i, j))).collect();
+    let complete: Vec<usize> = (0..n)
+        .filter(|&i| (0..k).all(|j| !is_missing(i, j)))
+        .collect();
+    let incomplete: Vec<usize> = (0..n)
+        .filter(|&i| (0..k).any(|j| is_missing(i, j)))
+        .collect();
     let mut configs: Vec<DMatrix<f64>> = (0..n).map(|i| sample.config(i)).collect();
     if incomplete.is_empty() {
         return Ok(Filled {
@@ -208,10 +223,16 @@ pub fn estimate_missing(
                 let present: Vec<usize> = (0..k).filter(|&j| !is_missing(i, j)).collect();
                 let absent: Vec<usize> = (0..k).filter(|&j| is_missing(i, j)).collect();
                 let tps = Tps::fit(&rows(&reference, &present), &rows(&configs[i], &present))
-                    .map_err(|source| MissingError::Tps { specimen: i, source })?;
-                let est = tps
-                    .warp(&rows(&reference, &absent))
-                    .map_err(|source| MissingError::Tps { specimen: i, source })?;
+                    .map_err(|source| MissingError::Tps {
+                        specimen: i,
+                        source,
+                    })?;
+                let est =
+                    tps.warp(&rows(&reference, &absent))
+                        .map_err(|source| MissingError::Tps {
+                            specimen: i,
+                            source,
+                        })?;
                 for (r, &j) in absent.iter().enumerate() {
                     configs[i].row_mut(j).copy_from(&est.row(r));
                 }
@@ -304,7 +325,11 @@ impl RegressionModel {
         let smax = svd.singular_values.max();
         let mut uty = u.transpose() * &y;
         for (r, &s) in svd.singular_values.iter().enumerate() {
-            let f = if s > 1e-10 * smax { s / (s * s + ridge) } else { 0.0 };
+            let f = if s > 1e-10 * smax {
+                s / (s * s + ridge)
+            } else {
+                0.0
+            };
             let mut row = uty.row_mut(r);
             row *= f;
         }
@@ -326,7 +351,8 @@ impl RegressionModel {
         let p = rows(config, &self.present);
         let o = opa(&self.mean_present, &p, self.scale)?;
         let t = from_opa(&o);
-        let xs = RowDVector::from_row_slice(&flat_rows(&o.aligned, &(0..p.nrows()).collect::<Vec<_>>()));
+        let xs =
+            RowDVector::from_row_slice(&flat_rows(&o.aligned, &(0..p.nrows()).collect::<Vec<_>>()));
         let ys = &self.y_mean + (xs - &self.x_mean) * &self.beta;
         let est = DMatrix::from_row_slice(self.absent_count, m, ys.as_slice());
         let back = t.inverse().ok_or(ShapeError::ZeroSize(0))?;
@@ -459,7 +485,13 @@ mod tests {
     #[test]
     fn tps_recovers_an_interior_landmark_under_a_smooth_warp() {
         // Dense grid of 25 landmarks, bent smoothly; landmark 12 (the centre) removed.
-        let base = DMatrix::from_fn(25, 2, |i, d| if d == 0 { (i % 5) as f64 } else { (i / 5) as f64 });
+        let base = DMatrix::from_fn(25, 2, |i, d| {
+            if d == 0 {
+                (i % 5) as f64
+            } else {
+                (i / 5) as f64
+            }
+        });
         let truth = sample(&base, 8, 0.05, 3);
         let holes = [(0, 12)];
         let (s, mask) = remove(&truth, &holes);

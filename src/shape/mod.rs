@@ -44,7 +44,9 @@ pub enum ShapeError {
     #[error("landmarks have {0} coordinates; only 2D and 3D configurations are supported")]
     UnsupportedDimension(usize),
     /// `data.len()` does not equal `n * k * m` (or the product overflows).
-    #[error("sample of {n} specimens x {k} landmarks x {m} coordinates needs {expected} values, got {got}")]
+    #[error(
+        "sample of {n} specimens x {k} landmarks x {m} coordinates needs {expected} values, got {got}"
+    )]
     LengthMismatch {
         n: usize,
         k: usize,
@@ -71,7 +73,9 @@ pub enum ShapeError {
         got_m: usize,
     },
     /// A coordinate is NaN or infinite.
-    #[error("specimen {specimen}, landmark {landmark}: coordinate is not finite (estimate missing landmarks first)")]
+    #[error(
+        "specimen {specimen}, landmark {landmark}: coordinate is not finite (estimate missing landmarks first)"
+    )]
     NonFinite { specimen: usize, landmark: usize },
     /// All landmarks of a configuration coincide, so it has no shape.
     #[error("specimen {0}: all landmarks coincide (centroid size 0)")]

@@ -66,18 +66,22 @@ pub fn pca(data: &DMatrix<f64>) -> Result<Pca, ShapeError> {
             .try_svd(false, true, 1e-15, 10_000)
             .ok_or(ShapeError::NoConvergence("SVD of the scatter matrix"))?;
         let vt = svd.v_t.expect("v requested");
-        (vt.transpose(), svd.singular_values.iter().map(|s| s / denom).collect())
+        (
+            vt.transpose(),
+            svd.singular_values.iter().map(|s| s / denom).collect(),
+        )
     } else {
         let svd = x
             .clone()
             .try_svd(false, true, 1e-15, 10_000)
             .ok_or(ShapeError::NoConvergence("SVD of the tangent coordinates"))?;
         let vt = svd.v_t.expect("v requested");
-        (vt.transpose(), svd.singular_values.iter().map(|s| s * s / denom).collect())
+        (
+            vt.transpose(),
+            svd.singular_values.iter().map(|s| s * s / denom).collect(),
+        )
     };
-    let total_variance: f64 = (0..p)
-        .map(|c| x.column(c).norm_squared() / denom)
-        .sum();
+    let total_variance: f64 = (0..p).map(|c| x.column(c).norm_squared() / denom).sum();
     let mut order: Vec<usize> = (0..var.len()).collect();
     order.sort_by(|&a, &b| var[b].total_cmp(&var[a]));
     let max_c = (n - 1).min(p);
@@ -100,7 +104,13 @@ pub fn pca(data: &DMatrix<f64>) -> Result<Pca, ShapeError> {
     let variances: Vec<f64> = keep.iter().map(|&i| var[i]).collect();
     let proportions = variances
         .iter()
-        .map(|v| if total_variance > 0.0 { v / total_variance } else { 0.0 })
+        .map(|v| {
+            if total_variance > 0.0 {
+                v / total_variance
+            } else {
+                0.0
+            }
+        })
         .collect();
     Ok(Pca {
         center,
@@ -274,7 +284,9 @@ mod tests {
     fn both_decomposition_paths_agree() {
         // 30 × 5 takes the scatter-matrix path; the first 12 rows the direct SVD. Compare the
         // scatter path against a direct SVD of the same data by slicing columns to force n ≤ 4p.
-        let tall = DMatrix::from_fn(30, 5, |i, j| ((i * 7 + j * 3) as f64 * 0.37).sin() * (j + 1) as f64);
+        let tall = DMatrix::from_fn(30, 5, |i, j| {
+            ((i * 7 + j * 3) as f64 * 0.37).sin() * (j + 1) as f64
+        });
         let a = pca(&tall).unwrap();
         let wide = DMatrix::from_fn(30, 8, |i, j| if j < 5 { tall[(i, j)] } else { 0.0 });
         let b = pca(&wide).unwrap();

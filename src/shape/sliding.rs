@@ -50,7 +50,9 @@ pub enum SlideCriterion {
 #[derive(Debug, Error, Clone, PartialEq)]
 pub enum SlidingError {
     /// A curve with fewer than three entries has nothing to slide.
-    #[error("curve {curve}: {len} landmarks, at least 3 are needed (two fixed ends and a semilandmark)")]
+    #[error(
+        "curve {curve}: {len} landmarks, at least 3 are needed (two fixed ends and a semilandmark)"
+    )]
     CurveTooShort { curve: usize, len: usize },
     /// A curve names a landmark beyond the configuration.
     #[error("curve {curve}: landmark {landmark} does not exist (configurations have {landmarks})")]
@@ -196,7 +198,10 @@ fn project_onto_polyline(p: &RowDVector<f64>, poly: &DMatrix<f64>) -> RowDVector
 /// (already in `x`'s frame for the Procrustes criterion; any frame for bending energy, whose
 /// matrix `b` is that of the reference). `outline`, when given, is the configuration whose
 /// curve points define the polylines to project onto.
-#[allow(clippy::too_many_arguments, reason = "internal step shared by the public entry points")]
+#[allow(
+    clippy::too_many_arguments,
+    reason = "internal step shared by the public entry points"
+)]
 pub(crate) fn slide_step(
     semis: &Semis,
     curves: &[Curve],
@@ -364,7 +369,9 @@ pub fn slide_semilandmarks(
         iterations += 1;
         let mean = g.mean.clone();
         let b = match opts.criterion {
-            SlideCriterion::BendingEnergy => Some(tps::bending_energy_matrix(&mean).map_err(SlidingError::from)?),
+            SlideCriterion::BendingEnergy => {
+                Some(tps::bending_energy_matrix(&mean).map_err(SlidingError::from)?)
+            }
             SlideCriterion::ProcrustesDistance => None,
         };
         for (i, cur) in current.iter_mut().enumerate() {
@@ -452,7 +459,10 @@ mod tests {
         let (reference, curves) = arc(&even(s));
         let (x, _) = arc(&uneven(s));
         let before = angle_errors(&x, s);
-        for criterion in [SlideCriterion::ProcrustesDistance, SlideCriterion::BendingEnergy] {
+        for criterion in [
+            SlideCriterion::ProcrustesDistance,
+            SlideCriterion::BendingEnergy,
+        ] {
             let y = slide_to_reference(&x, &reference, &curves, criterion, 30, true).unwrap();
             let after = angle_errors(&y, s);
             assert!(
@@ -535,7 +545,10 @@ mod tests {
     fn curve_validation() {
         let k = 6;
         let bad = |l: Vec<usize>| Semis::new(&[Curve { landmarks: l }], k).unwrap_err();
-        assert_eq!(bad(vec![0, 1]), SlidingError::CurveTooShort { curve: 0, len: 2 });
+        assert_eq!(
+            bad(vec![0, 1]),
+            SlidingError::CurveTooShort { curve: 0, len: 2 }
+        );
         assert!(matches!(bad(vec![0, 1, 9]), SlidingError::BadIndex { .. }));
         assert_eq!(bad(vec![0, 1, 1, 2]), SlidingError::Duplicate(1));
         let two = [

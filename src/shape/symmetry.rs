@@ -42,7 +42,9 @@ pub struct SymmetryDesign {
 #[derive(Debug, Error, Clone, PartialEq)]
 pub enum SymmetryError {
     /// A landmark is named twice, or not at all, by the pairs and midline.
-    #[error("symmetry design: landmark {landmark} appears {count} times in the pairs and midline (expected once)")]
+    #[error(
+        "symmetry design: landmark {landmark} appears {count} times in the pairs and midline (expected once)"
+    )]
     Coverage { landmark: usize, count: usize },
     /// A landmark index is beyond the configuration.
     #[error("symmetry design names landmark {landmark}, but configurations have {landmarks}")]
@@ -179,7 +181,9 @@ mod tests {
         let x3 = DMatrix::from_row_slice(
             5,
             3,
-            &[-1., 0., 0., 1., 0., 0., -0.5, 1., 0.3, 0.5, 1., 0.3, 0., 0.5, 1.2],
+            &[
+                -1., 0., 0., 1., 0., 0., -0.5, 1., 0.3, 0.5, 1., 0.3, 0., 0.5, 1.2,
+            ],
         );
         let d3 = SymmetryDesign {
             pairs: vec![(0, 1), (2, 3)],
@@ -187,7 +191,11 @@ mod tests {
         };
         let s3 = Sample::from_configs(&[x3.clone(), &x3 * 2.0]).unwrap();
         let r3 = object_symmetry(&s3, &d3, &GpaOptions::default()).unwrap();
-        assert!(r3.asymmetry.iter().all(|&a| a < 1e-12), "{:?}", r3.asymmetry);
+        assert!(
+            r3.asymmetry.iter().all(|&a| a < 1e-12),
+            "{:?}",
+            r3.asymmetry
+        );
     }
 
     #[test]

@@ -39,7 +39,9 @@ pub enum TpsError {
     #[error("thin-plate spline: configurations must have 2 or 3 columns, got {0}")]
     Dimension(usize),
     /// Source and target (or points) disagree in shape.
-    #[error("thin-plate spline: source is {source_rows}×{source_cols} but target is {target_rows}×{target_cols}")]
+    #[error(
+        "thin-plate spline: source is {source_rows}×{source_cols} but target is {target_rows}×{target_cols}"
+    )]
     ShapeMismatch {
         source_rows: usize,
         source_cols: usize,
@@ -57,7 +59,9 @@ pub enum TpsError {
     #[error("thin-plate spline: landmark {0} has a non-finite coordinate")]
     NonFinite(usize),
     /// `L` is singular: coincident landmarks, or all landmarks on a line (2D) / plane (3D).
-    #[error("thin-plate spline: the source configuration is degenerate (coincident landmarks, or all on a line in 2D / a plane in 3D)")]
+    #[error(
+        "thin-plate spline: the source configuration is degenerate (coincident landmarks, or all on a line in 2D / a plane in 3D)"
+    )]
     Degenerate,
 }
 
@@ -148,7 +152,11 @@ pub fn l_matrix(source: &DMatrix<f64>) -> Result<DMatrix<f64>, TpsError> {
 fn l_inverse(source: &DMatrix<f64>) -> Result<DMatrix<f64>, TpsError> {
     let l = l_matrix(source)?;
     let n = l.nrows();
-    let inv = l.clone().full_piv_lu().try_inverse().ok_or(TpsError::Degenerate)?;
+    let inv = l
+        .clone()
+        .full_piv_lu()
+        .try_inverse()
+        .ok_or(TpsError::Degenerate)?;
     // A matrix that LU deems invertible may still be singular to working precision (e.g. three
     // exactly collinear points in 2D give a zero pivot only up to rounding): check L·L⁻¹ = I.
     let resid = (&l * &inv - DMatrix::<f64>::identity(n, n)).abs().max();
@@ -289,11 +297,7 @@ mod tests {
 
     fn grid_2d() -> DMatrix<f64> {
         // Five landmarks: square corners and centre, plus one off-grid point.
-        DMatrix::from_row_slice(
-            6,
-            2,
-            &[0., 0., 1., 0., 1., 1., 0., 1., 0.5, 0.5, 0.2, 0.7],
-        )
+        DMatrix::from_row_slice(6, 2, &[0., 0., 1., 0., 1., 1., 0., 1., 0.5, 0.5, 0.2, 0.7])
     }
 
     fn tetra_3d() -> DMatrix<f64> {
