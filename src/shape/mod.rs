@@ -23,6 +23,14 @@ pub mod gpa;
 pub mod pca;
 pub mod tangent;
 
+// Second half (branch shape2): splines, missing landmarks, sliding, measurement error, symmetry.
+mod align;
+pub mod anova;
+pub mod missing;
+pub mod sliding;
+pub mod symmetry;
+pub mod tps;
+
 use nalgebra::DMatrix;
 use serde::Serialize;
 use thiserror::Error;

@@ -4,7 +4,10 @@
 //! The reference checks never skip: `scripts/test.sh` builds the venv first, and a missing
 //! interpreter is a test failure with a message saying how to make it.
 
-#![allow(dead_code, reason = "each test binary uses a different subset of the helpers")]
+#![allow(
+    dead_code,
+    reason = "each test binary uses a different subset of the helpers"
+)]
 
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -58,7 +61,11 @@ pub fn sutura() -> Command {
 
 /// Runs the binary and returns (success, stdout, stderr).
 pub fn run_sutura(args: &[&str], cwd: &Path) -> (bool, String, String) {
-    let out = sutura().args(args).current_dir(cwd).output().expect("start sutura");
+    let out = sutura()
+        .args(args)
+        .current_dir(cwd)
+        .output()
+        .expect("start sutura");
     (
         out.status.success(),
         String::from_utf8_lossy(&out.stdout).into_owned(),
