@@ -7,4 +7,5 @@
 pub mod cli;
 pub mod geometry;
 pub mod io;
+pub mod synth;
 pub mod volume;
