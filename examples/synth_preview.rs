@@ -77,7 +77,8 @@ fn main() -> anyhow::Result<()> {
     Ok(())
 }
 
-/// Axial (k), coronal (j) and sagittal (i) mid slices side by side, nearest-neighbour, with z
+/// Axial (k), sagittal (j) and coronal (i) slices through the landmarks' centre, then a dorsal
+/// maximum-intensity projection, side by side, nearest-neighbour, with z
 /// stretched by the voxel aspect so the skull is not squashed; window 0..32000.
 fn write_png(s: &SyntheticSpecimen, path: &std::path::Path) -> anyhow::Result<()> {
     let [nx, ny, nz] = s.volume.dims();
@@ -96,7 +97,7 @@ fn write_png(s: &SyntheticSpecimen, path: &std::path::Path) -> anyhow::Result<()
     let zs = sp[2] / sp[0];
     let hz = (nz as f64 * zs).round() as usize;
     let scale = 3;
-    let w = (nx + nx + ny + 2) * scale;
+    let w = (nx + nx + ny + 2 + 1 + nx) * scale;
     let h = (ny.max(hz)) * scale;
     let mut img = GrayImage::new(w as u32, h as u32);
     let val = |i: usize, j: usize, k: usize| -> u8 {
@@ -123,8 +124,16 @@ fn write_png(s: &SyntheticSpecimen, path: &std::path::Path) -> anyhow::Result<()
                 } else {
                     0
                 }
-            } else if px == 2 * nx + 1 {
+            } else if px == 2 * nx + 1 || px == 2 * nx + ny + 2 {
                 255
+            } else if px > 2 * nx + ny + 2 {
+                // dorsal view: maximum along k
+                let i = px - (2 * nx + ny + 3);
+                if py < ny && i < nx {
+                    (0..nz).map(|k| val(i, ny - 1 - py, k)).max().unwrap_or(0)
+                } else {
+                    0
+                }
             } else {
                 // coronal: j across, k down at i = ci
                 let j = px - 2 * nx - 2;
