@@ -9,4 +9,5 @@ pub mod export;
 pub mod geometry;
 pub mod io;
 pub mod shape;
+pub mod synth;
 pub mod volume;
