@@ -1,0 +1,338 @@
+//! One TIFF page: what its directory says ([`probe`]) and its pixels ([`decode`]).
+//!
+//! The `tiff` crate parses directories and decodes compressed data. Its errors are mapped onto
+//! [`IoError`] categories; as a last resort every call into it runs under `catch_unwind`, so that
+//! a panic inside the crate on a malformed file becomes a `Corrupt` error instead of taking the
+//! program down (a guard, not a known bug: no panic is known in tiff 0.11).
+
+use super::FileDecoder;
+use crate::io::IoError;
+use crate::volume::DType;
+use std::fs::File;
+use std::io::BufReader;
+use std::os::unix::fs::FileExt;
+use std::panic::{AssertUnwindSafe, catch_unwind};
+use std::path::Path;
+use tiff::decoder::{ChunkType, Decoder};
+use tiff::tags::Tag;
+use tiff::{TiffError, TiffResult};
+
+/// Width, height and sample type: what every page of one scan must share.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(super) struct Shape {
+    pub width: u32,
+    pub height: u32,
+    pub dtype: DType,
+}
+
+impl Shape {
+    /// Bytes of one decoded page (fits: the caller's limits check ran on the same numbers, and
+    /// a u32 × u32 × 4 product fits in u64 and, on 64-bit targets, in usize).
+    pub fn bytes(&self) -> usize {
+        self.width as usize * self.height as usize * self.dtype.size_bytes()
+    }
+}
+
+impl std::fmt::Display for Shape {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}x{} {}", self.width, self.height, self.dtype)
+    }
+}
+
+/// XResolution / YResolution (pixels per unit) and ResolutionUnit (TIFF 6.0 tags 282, 283, 296).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(super) struct Resolution {
+    pub x: f64,
+    pub y: f64,
+    pub unit: u16,
+}
+
+/// What one page's directory says.
+#[derive(Clone, Debug)]
+pub(super) struct PageInfo {
+    pub shape: Shape,
+    /// For uncompressed strips without predictor: `(file offset, byte count)` of each strip,
+    /// in order, covering the page exactly. `None`: use the generic decoder.
+    pub raw_strips: Option<Vec<(u64, usize)>>,
+    pub resolution: Option<Resolution>,
+}
+
+/// Runs a call into the `tiff` crate, mapping its errors and any panic.
+pub(super) fn catch<T>(path: &Path, f: impl FnOnce() -> TiffResult<T>) -> Result<T, IoError> {
+    match catch_unwind(AssertUnwindSafe(f)) {
+        Ok(Ok(v)) => Ok(v),
+        Ok(Err(e)) => Err(map_err(path, e)),
+        Err(_) => Err(IoError::corrupt(
+            path,
+            "the TIFF decoder failed on malformed data",
+        )),
+    }
+}
+
+fn map_err(path: &Path, e: TiffError) -> IoError {
+    match e {
+        TiffError::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
+            IoError::corrupt(path, "truncated: data runs past the end of the file")
+        }
+        TiffError::IoError(io) => IoError::corrupt(path, format!("cannot decode: {io}")),
+        TiffError::UnsupportedError(u) => IoError::unsupported(path, u.to_string()),
+        TiffError::LimitsExceeded => IoError::LimitExceeded {
+            path: path.to_owned(),
+            what: "a TIFF directory value or strip".into(),
+            limit: "the decoder's internal buffer limit".into(),
+        },
+        other => IoError::corrupt(path, other.to_string()),
+    }
+}
+
+/// Prefixes an error's description with the page index.
+pub(super) fn with_page(e: IoError, path: &Path, index: usize) -> IoError {
+    match e {
+        IoError::Corrupt { what, .. } => IoError::corrupt(path, format!("page {index}: {what}")),
+        IoError::Unsupported { what, .. } => {
+            IoError::unsupported(path, format!("page {index}: {what}"))
+        }
+        IoError::Inconsistent { what, .. } => {
+            IoError::inconsistent(path, format!("page {index}: {what}"))
+        }
+        other => other,
+    }
+}
+
+/// Opens a file and reads its first directory.
+pub(super) fn open_decoder(path: &Path) -> Result<FileDecoder, IoError> {
+    let file = File::open(path).map_err(|e| IoError::os(path, e))?;
+    let mut limits = tiff::decoder::Limits::default();
+    // Decoding goes into the caller's buffer, which our own limits have sized; the crate's
+    // other limits (directory values, intermediate buffers) stay at their defaults.
+    limits.decoding_buffer_size = usize::MAX;
+    catch(path, || {
+        Decoder::new(BufReader::new(file)).map(|d| d.with_limits(limits))
+    })
+}
+
+fn first_u16(dec: &mut FileDecoder, path: &Path, tag: Tag, default: u16) -> Result<u16, IoError> {
+    let v: Option<Vec<u16>> = catch(path, || dec.find_tag_unsigned_vec(tag))?;
+    Ok(v.and_then(|v| v.first().copied()).unwrap_or(default))
+}
+
+fn rational(v: tiff::decoder::ifd::Value) -> Option<f64> {
+    use tiff::decoder::ifd::Value;
+    match v {
+        Value::Rational(n, d) if d != 0 => Some(f64::from(n) / f64::from(d)),
+        Value::Float(f) => Some(f64::from(f)),
+        Value::Double(f) => Some(f),
+        Value::Short(s) => Some(f64::from(s)),
+        Value::Unsigned(s) => Some(f64::from(s)),
+        Value::List(mut l) if !l.is_empty() => rational(l.swap_remove(0)),
+        _ => None,
+    }
+}
+
+fn compression_name(code: u16) -> String {
+    // TIFF 6.0 section 3 and the TIFF tag registry
+    let name = match code {
+        2 => "CCITT modified Huffman",
+        3 => "CCITT group 3 fax",
+        4 => "CCITT group 4 fax",
+        6 => "old-style JPEG",
+        7 => "JPEG",
+        34712 => "JPEG 2000",
+        34925 => "LZMA",
+        50000 | 34926 => "Zstandard",
+        50001 | 34927 => "WebP",
+        _ => "code",
+    };
+    format!("compression {name} ({code}); Sutura reads uncompressed, LZW, Deflate and PackBits")
+}
+
+/// Reads the current page's directory and checks that Sutura can store its samples.
+pub(super) fn probe(dec: &mut FileDecoder, path: &Path) -> Result<PageInfo, IoError> {
+    let (width, height) = catch(path, || dec.dimensions())?;
+    if width == 0 || height == 0 {
+        return Err(IoError::corrupt(
+            path,
+            format!("page is {width}x{height} pixels"),
+        ));
+    }
+    let spp = first_u16(dec, path, Tag::SamplesPerPixel, 1)?;
+    if spp != 1 {
+        return Err(IoError::unsupported(
+            path,
+            format!(
+                "{spp} samples per pixel (a colour or multi-channel image); only single-channel scans are read"
+            ),
+        ));
+    }
+    // TIFF 6.0 PhotometricInterpretation: 0 white-is-zero, 1 black-is-zero, 3 palette, ...
+    let photometric = first_u16(dec, path, Tag::PhotometricInterpretation, 1)?;
+    if photometric > 1 {
+        let what = match photometric {
+            2 => "RGB colour",
+            3 => "palette colour",
+            4 => "transparency mask",
+            5 => "separated (CMYK) colour",
+            6 => "YCbCr colour",
+            _ => "non-greyscale",
+        };
+        return Err(IoError::unsupported(
+            path,
+            format!(
+                "{what} image (photometric interpretation {photometric}); only greyscale scans are read"
+            ),
+        ));
+    }
+    let bits = first_u16(dec, path, Tag::BitsPerSample, 1)?;
+    // TIFF 6.0 SampleFormat: 1 unsigned, 2 signed, 3 IEEE float
+    let format = first_u16(dec, path, Tag::SampleFormat, 1)?;
+    let dtype = match (bits, format) {
+        (8, 1) => DType::U8,
+        (16, 1) => DType::U16,
+        (16, 2) => DType::I16,
+        (32, 3) => DType::F32,
+        _ => {
+            let kind = match format {
+                1 => "unsigned integer",
+                2 => "signed integer",
+                3 => "floating-point",
+                _ => "untyped",
+            };
+            return Err(IoError::unsupported(
+                path,
+                format!(
+                    "{bits}-bit {kind} samples; Sutura stores 8/16-bit unsigned, 16-bit signed and 32-bit float"
+                ),
+            ));
+        }
+    };
+    let compression = first_u16(dec, path, Tag::Compression, 1)?;
+    // 1 none, 5 LZW, 8 Adobe Deflate, 32773 PackBits, 32946 Deflate (TIFF tag registry)
+    if ![1, 5, 8, 32773, 32946].contains(&compression) {
+        return Err(IoError::unsupported(path, compression_name(compression)));
+    }
+    let predictor = first_u16(dec, path, Tag::Predictor, 1)?;
+    let shape = Shape {
+        width,
+        height,
+        dtype,
+    };
+    let raw_strips =
+        if compression == 1 && predictor == 1 && dec.get_chunk_type() == ChunkType::Strip {
+            raw_strips(dec, path, shape)?
+        } else {
+            None
+        };
+    let resolution = {
+        let x = catch(path, || dec.find_tag(Tag::XResolution))?.and_then(rational);
+        let y = catch(path, || dec.find_tag(Tag::YResolution))?.and_then(rational);
+        // TIFF 6.0: ResolutionUnit defaults to 2 (inch) when absent
+        let unit = first_u16(dec, path, Tag::ResolutionUnit, 2)?;
+        match (x, y) {
+            (Some(x), Some(y)) => Some(Resolution { x, y, unit }),
+            _ => None,
+        }
+    };
+    Ok(PageInfo {
+        shape,
+        raw_strips,
+        resolution,
+    })
+}
+
+/// Byte ranges of uncompressed strips, or `None` when they do not tile the page simply (left to
+/// the generic decoder, which reports what is wrong).
+fn raw_strips(
+    dec: &mut FileDecoder,
+    path: &Path,
+    shape: Shape,
+) -> Result<Option<Vec<(u64, usize)>>, IoError> {
+    let offsets: Option<Vec<u64>> = catch(path, || dec.find_tag_unsigned_vec(Tag::StripOffsets))?;
+    let counts: Option<Vec<u64>> = catch(path, || dec.find_tag_unsigned_vec(Tag::StripByteCounts))?;
+    let (Some(offsets), Some(counts)) = (offsets, counts) else {
+        return Ok(None);
+    };
+    let rows_per_strip: u32 = catch(path, || dec.find_tag_unsigned(Tag::RowsPerStrip))?
+        .unwrap_or(shape.height)
+        .clamp(1, shape.height);
+    let row_bytes = shape.width as usize * shape.dtype.size_bytes();
+    let n_strips = shape.height.div_ceil(rows_per_strip) as usize;
+    if offsets.len() < n_strips || counts.len() < n_strips {
+        return Ok(None);
+    }
+    let mut strips = Vec::with_capacity(n_strips);
+    for s in 0..n_strips {
+        let first_row = s as u32 * rows_per_strip;
+        let rows = rows_per_strip.min(shape.height - first_row) as usize;
+        let len = rows * row_bytes;
+        if counts[s] < len as u64 {
+            return Ok(None);
+        }
+        strips.push((offsets[s], len));
+    }
+    Ok(Some(strips))
+}
+
+/// Reads uncompressed strips straight into `dst` and converts them to native byte order.
+pub(super) fn read_raw(
+    file: &File,
+    info: &PageInfo,
+    dtype: DType,
+    big_endian: bool,
+    path: &Path,
+    dst: &mut [u8],
+) -> Result<(), IoError> {
+    let strips = info.raw_strips.as_deref().unwrap_or_default();
+    let mut pos = 0;
+    for (s, &(offset, len)) in strips.iter().enumerate() {
+        let end = pos + len;
+        let Some(part) = dst.get_mut(pos..end) else {
+            return Err(IoError::corrupt(
+                path,
+                "strips hold more data than the page",
+            ));
+        };
+        file.read_exact_at(part, offset).map_err(|e| {
+            if e.kind() == std::io::ErrorKind::UnexpectedEof {
+                IoError::corrupt(
+                    path,
+                    format!("truncated: strip {s} ({len} bytes at offset {offset}) runs past the end of the file"),
+                )
+            } else {
+                IoError::os(path, e)
+            }
+        })?;
+        pos = end;
+    }
+    if pos != dst.len() {
+        return Err(IoError::corrupt(path, "strips do not cover the page"));
+    }
+    to_native(dst, dtype, big_endian);
+    Ok(())
+}
+
+/// Converts samples from the file's byte order to the machine's, in place.
+fn to_native(dst: &mut [u8], dtype: DType, big_endian: bool) {
+    if big_endian == cfg!(target_endian = "big") {
+        return;
+    }
+    match dtype.size_bytes() {
+        2 => dst.chunks_exact_mut(2).for_each(|c| c.swap(0, 1)),
+        4 => dst.chunks_exact_mut(4).for_each(|c| c.reverse()),
+        _ => {}
+    }
+}
+
+/// Decodes the decoder's current page (described by `info`) into `dst`, native byte order.
+pub(super) fn decode(
+    dec: &mut FileDecoder,
+    info: &PageInfo,
+    path: &Path,
+    dst: &mut [u8],
+) -> Result<(), IoError> {
+    if info.raw_strips.is_some() {
+        let big_endian = matches!(dec.byte_order(), tiff::tags::ByteOrder::BigEndian);
+        let file = dec.inner().get_ref();
+        return read_raw(file, info, info.shape.dtype, big_endian, path, dst);
+    }
+    catch(path, || dec.read_image_bytes(dst))
+}

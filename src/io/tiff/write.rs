@@ -1,0 +1,190 @@
+//! Writing volumes as TIFF: a folder of single-page slices, or one multi-page file (BigTIFF when
+//! it would pass 4 GiB). Samples keep their stored type (`u8`, `u16`, `i16`, `f32`), so the
+//! voxels read back exactly. The voxel size goes into the resolution tags in pixels per
+//! centimetre (x and y only; TIFF has no slice spacing), so it reads back to about 7 significant
+//! digits. TIFF has no field for an intensity rescale: the stored values are written and a note
+//! saying so is returned.
+
+use crate::io::IoError;
+use crate::volume::{Volume, Voxels};
+use rayon::prelude::*;
+use std::fs::File;
+use std::io::{BufWriter, Seek, Write};
+use std::ops::Range;
+use std::path::Path;
+use tiff::TiffResult;
+use tiff::encoder::colortype::{ColorType, Gray8, Gray16, Gray32Float, GrayI16};
+use tiff::encoder::{Compression, DeflateLevel, Rational, TiffEncoder, TiffKind, TiffValue};
+use tiff::tags::ResolutionUnit;
+
+/// How to write.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct WriteOptions {
+    /// Deflate-compress the pixel data (smaller files, slower); otherwise uncompressed.
+    pub deflate: bool,
+}
+
+/// Writes `slice_0000.tif`, `slice_0001.tif`, … (at least four digits) into `dir`, uncompressed.
+/// `dir` is created if missing and must not hold TIFF files already (stale slices would join the
+/// stack on reading). Returns notes for the user (a rescale that could not be written).
+pub fn write_stack(volume: &Volume, dir: &Path) -> Result<Vec<String>, IoError> {
+    write_stack_with(volume, dir, WriteOptions::default())
+}
+
+/// [`write_stack`] with options.
+pub fn write_stack_with(
+    volume: &Volume,
+    dir: &Path,
+    options: WriteOptions,
+) -> Result<Vec<String>, IoError> {
+    std::fs::create_dir_all(dir).map_err(|e| IoError::os(dir, e))?;
+    let has_tiffs = std::fs::read_dir(dir)
+        .map_err(|e| IoError::os(dir, e))?
+        .filter_map(Result::ok)
+        .any(|e| {
+            let n = e.file_name().to_string_lossy().to_lowercase();
+            n.ends_with(".tif") || n.ends_with(".tiff")
+        });
+    if has_tiffs {
+        return Err(IoError::usage(
+            dir,
+            "the folder already holds TIFF files; write the slices into an empty folder",
+        ));
+    }
+    let (w, h) = page_size(volume, dir)?;
+    let nz = volume.dims()[2];
+    let digits = nz.saturating_sub(1).to_string().len().max(4);
+    (0..nz).into_par_iter().try_for_each(|k| {
+        let path = dir.join(format!("slice_{k:0digits$}.tif"));
+        let file = File::create(&path).map_err(|e| IoError::os(&path, e))?;
+        let mut enc = TiffEncoder::new(BufWriter::new(file))
+            .map_err(|e| encode_err(&path, &e))?
+            .with_compression(compression(options));
+        write_pages(&mut enc, volume, w, h, k..k + 1).map_err(|e| encode_err(&path, &e))?;
+        drop(enc);
+        Ok::<_, IoError>(())
+    })?;
+    Ok(notes(volume))
+}
+
+/// Writes all slices as the pages of one file (BigTIFF when the data pass 4 GiB).
+pub fn write_multipage(
+    volume: &Volume,
+    path: &Path,
+    options: WriteOptions,
+) -> Result<Vec<String>, IoError> {
+    let (w, h) = page_size(volume, path)?;
+    let nz = volume.dims()[2];
+    let file = File::create(path).map_err(|e| IoError::os(path, e))?;
+    let writer = BufWriter::with_capacity(1 << 20, file);
+    // room for each page's directory and tags beside the pixel data (common practice: a few
+    // hundred bytes per directory; 4 KiB is generous)
+    let needed = volume.voxel_bytes() as u64 + nz as u64 * 4096;
+    let result = if needed > u64::from(u32::MAX) {
+        let mut enc = TiffEncoder::new_big(writer)
+            .map_err(|e| encode_err(path, &e))?
+            .with_compression(compression(options));
+        write_pages(&mut enc, volume, w, h, 0..nz)
+    } else {
+        let mut enc = TiffEncoder::new(writer)
+            .map_err(|e| encode_err(path, &e))?
+            .with_compression(compression(options));
+        write_pages(&mut enc, volume, w, h, 0..nz)
+    };
+    result.map_err(|e| encode_err(path, &e))?;
+    Ok(notes(volume))
+}
+
+fn compression(options: WriteOptions) -> Compression {
+    if options.deflate {
+        Compression::Deflate(DeflateLevel::Fast)
+    } else {
+        Compression::Uncompressed
+    }
+}
+
+fn encode_err(path: &Path, e: &tiff::TiffError) -> IoError {
+    match e {
+        tiff::TiffError::IoError(io) => {
+            IoError::os(path, std::io::Error::new(io.kind(), io.to_string()))
+        }
+        other => IoError::corrupt(path, format!("cannot encode: {other}")),
+    }
+}
+
+fn page_size(volume: &Volume, path: &Path) -> Result<(u32, u32), IoError> {
+    let [nx, ny, _] = volume.dims();
+    match (u32::try_from(nx), u32::try_from(ny)) {
+        (Ok(w), Ok(h)) => Ok((w, h)),
+        _ => Err(IoError::usage(
+            path,
+            format!("slices of {nx}x{ny} voxels are too large for TIFF"),
+        )),
+    }
+}
+
+fn notes(volume: &Volume) -> Vec<String> {
+    volume.rescale().map_or_else(Vec::new, |r| {
+        vec![format!(
+            "TIFF cannot store an intensity rescale: stored values were written, without the slope {} and intercept {}",
+            r.slope, r.intercept
+        )]
+    })
+}
+
+/// Pixels per centimetre as a rational with as many digits as fit in u32.
+fn per_cm(spacing_mm: f64) -> Option<Rational> {
+    let px = 10.0 / spacing_mm;
+    if !px.is_finite() || px <= 0.0 || px >= f64::from(u32::MAX) {
+        return None;
+    }
+    let mut d: u32 = 1;
+    while d < 1_000_000_000 && px * f64::from(d) * 10.0 < f64::from(u32::MAX) {
+        d *= 10;
+    }
+    Some(Rational {
+        n: (px * f64::from(d)).round() as u32,
+        d,
+    })
+}
+
+fn write_pages<W: Write + Seek, K: TiffKind>(
+    enc: &mut TiffEncoder<W, K>,
+    volume: &Volume,
+    w: u32,
+    h: u32,
+    pages: Range<usize>,
+) -> TiffResult<()> {
+    let s = volume.spacing_mm();
+    let res = per_cm(s[0]).zip(per_cm(s[1]));
+    match volume.voxels() {
+        Voxels::U8(b) => pages_of::<W, K, Gray8>(enc, b.as_slice(), w, h, pages, res),
+        Voxels::U16(b) => pages_of::<W, K, Gray16>(enc, b.as_slice(), w, h, pages, res),
+        Voxels::I16(b) => pages_of::<W, K, GrayI16>(enc, b.as_slice(), w, h, pages, res),
+        Voxels::F32(b) => pages_of::<W, K, Gray32Float>(enc, b.as_slice(), w, h, pages, res),
+    }
+}
+
+fn pages_of<W: Write + Seek, K: TiffKind, C: ColorType>(
+    enc: &mut TiffEncoder<W, K>,
+    data: &[C::Inner],
+    w: u32,
+    h: u32,
+    pages: Range<usize>,
+    res: Option<(Rational, Rational)>,
+) -> TiffResult<()>
+where
+    [C::Inner]: TiffValue,
+{
+    let n = w as usize * h as usize;
+    for k in pages {
+        let mut image = enc.new_image::<C>(w, h)?;
+        if let Some((x, y)) = &res {
+            image.resolution_unit(ResolutionUnit::Centimeter);
+            image.x_resolution(Rational { n: x.n, d: x.d });
+            image.y_resolution(Rational { n: y.n, d: y.d });
+        }
+        image.write_data(&data[k * n..(k + 1) * n])?;
+    }
+    Ok(())
+}
