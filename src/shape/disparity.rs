@@ -72,7 +72,9 @@ impl Prepared {
                 x.column_mut(c).add_scalar_mut(-mean);
             }
         }
-        let norms2 = x.row_iter().map(|r| r.norm_squared()).collect();
+        // Stored transposed (p × n, column-major) so that each specimen is contiguous.
+        let x = x.transpose();
+        let norms2 = x.column_iter().map(|c| c.norm_squared()).collect();
         Ok(Self { x, norms2 })
     }
 
@@ -80,12 +82,13 @@ impl Prepared {
     /// the grand mean, which keeps the cancellation small).
     fn sum_sq(&self, idx: &[usize], buf: &mut [f64]) -> f64 {
         buf.iter_mut().for_each(|v| *v = 0.0);
-        let p = self.x.ncols();
+        let p = self.x.nrows();
+        let data = self.x.as_slice();
         let mut s2 = 0.0;
         for &i in idx {
             s2 += self.norms2[i];
-            for c in 0..p {
-                buf[c] += self.x[(i, c)];
+            for (b, v) in buf.iter_mut().zip(&data[i * p..(i + 1) * p]) {
+                *b += v;
             }
         }
         let n = idx.len() as f64;
