@@ -20,7 +20,7 @@ fn from_json(v: &serde_json::Value, cols: usize) -> DMatrix<f64> {
     DMatrix::from_fn(rows.len(), cols, |i, j| rows[i][j].as_f64().unwrap())
 }
 
-/// Warp values against scipy's RBFInterpolator (thin_plate_spline in 2D, linear = −r in 3D,
+/// Warp values against scipy's `RBFInterpolator` (`thin_plate_spline` in 2D, linear = −r in 3D,
 /// degree 1, no smoothing), and bending energy against numpy's own inverse of Bookstein's L.
 /// Reference: scipy.interpolate.RBFInterpolator (scipy 1.x); Bookstein 1989 eqs. 3–4.
 #[test]
@@ -70,7 +70,7 @@ fn tps_matches_scipy_rbf_interpolator() {
 }
 
 /// Repeated digitisations: `individuals` shapes, each digitised `reps[i]` times with small
-/// landmark noise. Deterministic (ChaCha8 seeded).
+/// landmark noise. Deterministic (`ChaCha8` seeded).
 fn replicates(
     reps: &[usize],
     k: usize,
@@ -110,9 +110,9 @@ fn replicates(
 }
 
 /// Procrustes ANOVA sums of squares equal the per-coordinate one-way ANOVA sums of squares of
-/// statsmodels (ols + anova_lm) on the same aligned coordinates, summed; and for one linear
+/// statsmodels (`ols` + `anova_lm`) on the same aligned coordinates, summed; and for one linear
 /// variable (centroid size) F and p equal statsmodels' (reference: statsmodels 0.14+,
-/// statsmodels/stats/anova.py; Klingenberg & McIntyre 1998 for the summation over coordinates).
+/// `statsmodels/stats/anova.py`; Klingenberg and `McIntyre` 1998 for the summation over coordinates).
 #[test]
 fn procrustes_anova_matches_statsmodels() {
     use sutura::shape::anova::{procrustes_anova, shape_dims};
@@ -135,11 +135,8 @@ fn procrustes_anova_matches_statsmodels() {
         // Shape degrees of freedom: statsmodels' per-coordinate df times D (2k−4 or 3k−7).
         let d = shape_dims(7, m) as f64;
         let col0 = &py["columns"][0];
-        assert_eq!(
-            r.shape.individual.df,
-            col0["df_individual"].as_f64().unwrap() * d
-        );
-        assert_eq!(r.shape.error.df, col0["df_error"].as_f64().unwrap() * d);
+        assert!((r.shape.individual.df - col0["df_individual"].as_f64().unwrap() * d).abs() < 1e-9);
+        assert!((r.shape.error.df - col0["df_error"].as_f64().unwrap() * d).abs() < 1e-9);
         assert!(
             r.shape.p < 1e-6,
             "individuals differ by design: p = {}",
@@ -194,7 +191,7 @@ fn arcs(n: usize, seed: u64) -> (sutura::shape::Sample, Vec<sutura::shape::slidi
         })
         .collect();
     let curve = sutura::shape::sliding::Curve {
-        landmarks: (2..3 + s + 1).collect(),
+        landmarks: (2..=3 + s).collect(),
     };
     (
         sutura::shape::Sample::from_configs(&configs).unwrap(),
@@ -220,7 +217,8 @@ fn total_energy(g: &sutura::shape::Gpa) -> f64 {
 fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
     use sutura::shape::sliding::{SlideCriterion, SlideOptions, slide_semilandmarks};
     let (sample, curves) = arcs(8, 5);
-    let before = total_energy(&sutura::shape::gpa(&sample, &Default::default()).unwrap());
+    let before =
+        total_energy(&sutura::shape::gpa(&sample, &sutura::shape::GpaOptions::default()).unwrap());
     let slid = slide_semilandmarks(&sample, &curves, &SlideOptions::default()).unwrap();
     let after = total_energy(&slid.gpa);
     assert!(
@@ -251,7 +249,7 @@ fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
         }
         worst
     };
-    let r0 = residual(&sutura::shape::gpa(&sample, &Default::default()).unwrap());
+    let r0 = residual(&sutura::shape::gpa(&sample, &sutura::shape::GpaOptions::default()).unwrap());
     {
         let rounds = 60;
         let opts = SlideOptions {

@@ -8,7 +8,7 @@
 //! SS_ind = Σᵢ rᵢ ‖x̄ᵢ − x̄‖²        SS_err = Σᵢ Σⱼ ‖xᵢⱼ − x̄ᵢ‖²
 //! ```
 //!
-//! summed over every coordinate of the Procrustes-aligned configurations (Klingenberg & McIntyre
+//! summed over every coordinate of the Procrustes-aligned configurations (Klingenberg and `McIntyre`
 //! 1998, "Geometric morphometrics of developmental instability", Evolution 52(5), the
 //! individual + error part of their Procrustes ANOVA; Goodall 1991 for the F test).
 //!
@@ -73,7 +73,7 @@ pub struct AnovaTable {
     pub total_ss: f64,
     /// `MS_ind / MS_err` (infinite when the error is exactly zero and individuals differ).
     pub f: f64,
-    /// Upper tail of F(df_ind, df_err) at `f`.
+    /// Upper tail of `F(df_ind, df_err)` at `f`.
     pub p: f64,
     /// Number of individuals `a`.
     pub individuals: usize,

@@ -121,7 +121,7 @@ pub fn sample_with_missing(
     m: usize,
     mut data: Vec<f64>,
 ) -> Result<(Sample, Vec<bool>), MissingError> {
-    let cells = n.checked_mul(k).unwrap_or(usize::MAX);
+    let cells = n.saturating_mul(k);
     let mut missing = vec![
         false;
         if data.len() == cells.saturating_mul(m) {
