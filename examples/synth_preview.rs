@@ -80,6 +80,7 @@ fn main() -> anyhow::Result<()> {
 /// Axial (k), sagittal (j) and coronal (i) slices through the landmarks' centre, then a dorsal
 /// maximum-intensity projection, side by side, nearest-neighbour, with z
 /// stretched by the voxel aspect so the skull is not squashed; window 0..32000.
+#[allow(clippy::needless_range_loop, reason = "axis index used on two arrays")]
 fn write_png(s: &SyntheticSpecimen, path: &std::path::Path) -> anyhow::Result<()> {
     let [nx, ny, nz] = s.volume.dims();
     let sp = s.voxel_size_mm;

@@ -267,6 +267,10 @@ pub fn skull_for(spec: &SpecimenSpec) -> Result<Skull, SynthError> {
 }
 
 /// Generates one specimen.
+#[allow(
+    clippy::too_many_lines,
+    reason = "one linear recipe: shape, pose, fit check, landmarks, bubbles, ripple, render"
+)]
 pub fn generate(spec: &SpecimenSpec) -> Result<SyntheticSpecimen, SynthError> {
     let id = spec.id.clone();
     if spec

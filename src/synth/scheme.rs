@@ -58,6 +58,7 @@ const fn lm(
 /// The landmarks, midline first, then left/right pairs (left = the animal's left, `+y` in the
 /// specimen frame).
 #[must_use]
+#[allow(clippy::too_many_lines, reason = "one literal entry per landmark")]
 pub fn scheme() -> Vec<LandmarkDef> {
     vec![
         lm(

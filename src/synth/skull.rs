@@ -509,11 +509,11 @@ mod tests {
                 p.size = size;
                 let sk = Skull::new(&p);
                 let (lo, hi) = sk.bounds();
-                let n = 24;
+                let n: u32 = 24;
                 for a in 0..n {
                     for b in 0..n {
-                        let u = a as f64 / (n - 1) as f64;
-                        let v = b as f64 / (n - 1) as f64;
+                        let u = f64::from(a) / f64::from(n - 1);
+                        let v = f64::from(b) / f64::from(n - 1);
                         let x = lo.x + (hi.x - lo.x) * u;
                         let y = lo.y + (hi.y - lo.y) * v;
                         let z = lo.z + (hi.z - lo.z) * v;
