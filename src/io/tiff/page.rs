@@ -39,7 +39,7 @@ impl std::fmt::Display for Shape {
     }
 }
 
-/// XResolution / YResolution (pixels per unit) and ResolutionUnit (TIFF 6.0 tags 282, 283, 296).
+/// `XResolution` / `YResolution` (pixels per unit) and `ResolutionUnit` (TIFF 6.0 tags 282, 283, 296).
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub(super) struct Resolution {
     pub x: f64,
@@ -54,7 +54,7 @@ pub(super) struct PageInfo {
     /// For uncompressed strips without predictor: `(file offset, byte count)` of each strip,
     /// in order, covering the page exactly. `None`: use the generic decoder.
     pub raw_strips: Option<Vec<(u64, usize)>>,
-    /// FillOrder 2 (TIFF 6.0 tag 266): bits of each byte stored lowest first; undone on read
+    /// `FillOrder` 2 (TIFF 6.0 tag 266): bits of each byte stored lowest first; undone on read
     /// of uncompressed strips, refused otherwise.
     pub reverse_bits: bool,
     pub resolution: Option<Resolution>,
@@ -324,7 +324,9 @@ pub(super) fn read_raw(
         return Err(IoError::corrupt(path, "strips do not cover the page"));
     }
     if info.reverse_bits {
-        dst.iter_mut().for_each(|b| *b = b.reverse_bits());
+        for b in dst.iter_mut() {
+            *b = b.reverse_bits();
+        }
     }
     to_native(dst, dtype, big_endian);
     Ok(())
@@ -337,7 +339,7 @@ fn to_native(dst: &mut [u8], dtype: DType, big_endian: bool) {
     }
     match dtype.size_bytes() {
         2 => dst.chunks_exact_mut(2).for_each(|c| c.swap(0, 1)),
-        4 => dst.chunks_exact_mut(4).for_each(|c| c.reverse()),
+        4 => dst.chunks_exact_mut(4).for_each(<[u8]>::reverse),
         _ => {}
     }
 }
