@@ -9,9 +9,11 @@ Every file under IMAGES_DIR named *.tif/*.tiff, or starting with a TIFF signatur
                type, or another compression: Sutura must refuse it as unsupported
   inconsistent pages of different shape or type
   error        tifffile cannot read it (a damaged or deliberately malformed file)
+and "damaged": the warnings tifffile logged while working around a damaged structure.
 Prints a JSON list. Reference: tifffile (TiffFile.pages, TiffPage.asarray).
 """
 import json
+import logging
 import os
 import sys
 import warnings
@@ -52,9 +54,25 @@ def page_kind(page):
     return None, ""
 
 
+class Complaints(logging.Handler):
+    """Collects what tifffile logs about a file (damaged structure it worked around)."""
+
+    def __init__(self):
+        super().__init__(logging.WARNING)
+        self.seen = []
+
+    def emit(self, record):
+        self.seen.append(record.getMessage()[:200])
+
+
+complaints = Complaints()
+logging.getLogger("tifffile").addHandler(complaints)
+logging.getLogger("tifffile").propagate = False
+
 result = []
 for i, p in enumerate(files):
     entry = {"path": p}
+    complaints.seen = []
     try:
         with tifffile.TiffFile(p) as tif:
             pages = list(tif.pages)
@@ -81,6 +99,8 @@ for i, p in enumerate(files):
             entry.update(kind=kind, why=why)
     except Exception as e:  # any failure of the reference reader counts as "cannot read"
         entry.update(kind="error", why=f"{type(e).__name__}: {e}"[:200])
+    # tifffile read it but logged that the structure is damaged (wrong counts, IFD cycles)
+    entry["damaged"] = complaints.seen
     result.append(entry)
 
 json.dump(result, sys.stdout)

@@ -17,6 +17,10 @@ pub fn list_slices(dir: &Path, max_slices: u64) -> Result<Vec<PathBuf>, IoError>
             continue;
         }
         let lower = name.to_lowercase();
+        #[allow(
+            clippy::case_sensitive_file_extension_comparisons,
+            reason = "`lower` is already lowercased"
+        )]
         if !(lower.ends_with(".tif") || lower.ends_with(".tiff")) {
             continue;
         }

@@ -7,7 +7,7 @@
 //! byte ranges of the pixel data. Then every page is decoded in parallel straight into its own
 //! disjoint part of one [`VoxelBuffer`](crate::volume::VoxelBuffer): uncompressed strips are
 //! read with positioned reads into the destination and byte-swapped in place; everything else
-//! (LZW, Deflate, PackBits, predictors, tiles) goes through the crate's decoder, which writes
+//! (LZW, Deflate, `PackBits`, predictors, tiles) goes through the crate's decoder, which writes
 //! native-endian samples into the same destination.
 //!
 //! Every page must match the first in width, height and sample type. Voxel size: the caller's,

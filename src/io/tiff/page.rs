@@ -26,8 +26,8 @@ pub(super) struct Shape {
 }
 
 impl Shape {
-    /// Bytes of one decoded page (fits: the caller's limits check ran on the same numbers, and
-    /// a u32 × u32 × 4 product fits in u64 and, on 64-bit targets, in usize).
+    /// Bytes of one decoded page. Call only after the limits check has passed on the same
+    /// numbers (which bounds the product); before it, the product may overflow.
     pub fn bytes(&self) -> usize {
         self.width as usize * self.height as usize * self.dtype.size_bytes()
     }
@@ -39,7 +39,7 @@ impl std::fmt::Display for Shape {
     }
 }
 
-/// XResolution / YResolution (pixels per unit) and ResolutionUnit (TIFF 6.0 tags 282, 283, 296).
+/// `XResolution` / `YResolution` (pixels per unit) and `ResolutionUnit` (TIFF 6.0 tags 282, 283, 296).
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub(super) struct Resolution {
     pub x: f64,
@@ -54,6 +54,9 @@ pub(super) struct PageInfo {
     /// For uncompressed strips without predictor: `(file offset, byte count)` of each strip,
     /// in order, covering the page exactly. `None`: use the generic decoder.
     pub raw_strips: Option<Vec<(u64, usize)>>,
+    /// `FillOrder` 2 (TIFF 6.0 tag 266): bits of each byte stored lowest first; undone on read
+    /// of uncompressed strips, refused otherwise.
+    pub reverse_bits: bool,
     pub resolution: Option<Resolution>,
 }
 
@@ -72,7 +75,7 @@ pub(super) fn catch<T>(path: &Path, f: impl FnOnce() -> TiffResult<T>) -> Result
 fn map_err(path: &Path, e: TiffError) -> IoError {
     match e {
         TiffError::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
-            IoError::corrupt(path, "truncated: data runs past the end of the file")
+            IoError::corrupt(path, format!("truncated or incomplete data: {io}"))
         }
         TiffError::IoError(io) => IoError::corrupt(path, format!("cannot decode: {io}")),
         TiffError::UnsupportedError(u) => IoError::unsupported(path, u.to_string()),
@@ -102,10 +105,12 @@ pub(super) fn with_page(e: IoError, path: &Path, index: usize) -> IoError {
 /// Opens a file and reads its first directory.
 pub(super) fn open_decoder(path: &Path) -> Result<FileDecoder, IoError> {
     let file = File::open(path).map_err(|e| IoError::os(path, e))?;
+    // Pixels are decoded into the caller's buffer (sized by our own limits), never into a
+    // crate-allocated result, so the crate's `decoding_buffer_size` only bounds the arrays it
+    // allocates for tag values (strip offsets etc.): 16 MiB is ample for 65,536 strips and
+    // keeps a corrupt count from asking for exabytes. The other limits stay at their defaults.
     let mut limits = tiff::decoder::Limits::default();
-    // Decoding goes into the caller's buffer, which our own limits have sized; the crate's
-    // other limits (directory values, intermediate buffers) stay at their defaults.
-    limits.decoding_buffer_size = usize::MAX;
+    limits.decoding_buffer_size = 16 << 20;
     catch(path, || {
         Decoder::new(BufReader::new(file)).map(|d| d.with_limits(limits))
     })
@@ -222,6 +227,13 @@ pub(super) fn probe(dec: &mut FileDecoder, path: &Path) -> Result<PageInfo, IoEr
         } else {
             None
         };
+    let reverse_bits = first_u16(dec, path, Tag::FillOrder, 1)? == 2;
+    if reverse_bits && raw_strips.is_none() {
+        return Err(IoError::unsupported(
+            path,
+            "fill order 2 (bit-reversed bytes) with compression, a predictor or tiles",
+        ));
+    }
     let resolution = {
         let x = catch(path, || dec.find_tag(Tag::XResolution))?.and_then(rational);
         let y = catch(path, || dec.find_tag(Tag::YResolution))?.and_then(rational);
@@ -235,6 +247,7 @@ pub(super) fn probe(dec: &mut FileDecoder, path: &Path) -> Result<PageInfo, IoEr
     Ok(PageInfo {
         shape,
         raw_strips,
+        reverse_bits,
         resolution,
     })
 }
@@ -263,7 +276,11 @@ fn raw_strips(
     for s in 0..n_strips {
         let first_row = s as u32 * rows_per_strip;
         let rows = rows_per_strip.min(shape.height - first_row) as usize;
-        let len = rows * row_bytes;
+        // the header may claim anything: overflow means "not a simple page", and the caller's
+        // limits check refuses the size before anything is decoded
+        let Some(len) = rows.checked_mul(row_bytes) else {
+            return Ok(None);
+        };
         if counts[s] < len as u64 {
             return Ok(None);
         }
@@ -306,6 +323,11 @@ pub(super) fn read_raw(
     if pos != dst.len() {
         return Err(IoError::corrupt(path, "strips do not cover the page"));
     }
+    if info.reverse_bits {
+        for b in dst.iter_mut() {
+            *b = b.reverse_bits();
+        }
+    }
     to_native(dst, dtype, big_endian);
     Ok(())
 }
@@ -317,7 +339,7 @@ fn to_native(dst: &mut [u8], dtype: DType, big_endian: bool) {
     }
     match dtype.size_bytes() {
         2 => dst.chunks_exact_mut(2).for_each(|c| c.swap(0, 1)),
-        4 => dst.chunks_exact_mut(4).for_each(|c| c.reverse()),
+        4 => dst.chunks_exact_mut(4).for_each(<[u8]>::reverse),
         _ => {}
     }
 }
