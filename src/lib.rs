@@ -7,4 +7,5 @@
 pub mod cli;
 pub mod geometry;
 pub mod io;
+pub mod render;
 pub mod volume;
