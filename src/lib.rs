@@ -10,4 +10,5 @@ pub mod geometry;
 pub mod io;
 pub mod shape;
 pub mod synth;
+pub mod render;
 pub mod volume;

@@ -1,0 +1,152 @@
+//! Rendering on the CPU: slices, window/level, ray casting, overlays and PNG export.
+//!
+//! Owns turning a [`Volume`](crate::volume::Volume) into pictures:
+//! - [`slice`]: resampling a plane (axis-aligned, oblique, or a thick slab) into an
+//!   [`F32Image`] of rescaled values, `NaN` outside the volume;
+//! - [`window`]: window/level to grey, colour maps to RGBA;
+//! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
+//! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
+//! - [`png`]: PNG encoding of an [`RgbaImage`].
+//!
+//! Image conventions, shared by every function here:
+//! - pixel `(0, 0)` is the top-left; `pixels[col + width·row]`;
+//! - for a slice, columns run along the plane's `u` and rows along its `v`; pixels are square
+//!   in world units, `pixel_mm` on a side, whatever the voxel spacing;
+//! - for a 3D view, columns run along the camera's right vector and rows along its down vector
+//!   (`-up`), so the picture looks the way the camera's `up` says;
+//! - RGBA is 8-bit, straight (not premultiplied) alpha, the layout PNG stores.
+//!
+//! Only this module imports tiny-skia. Must not import `gui`.
+
+pub mod overlay;
+pub mod png;
+pub mod raycast;
+pub mod slice;
+pub mod window;
+
+mod font;
+
+pub use raycast::{Camera, MipOptions, Quality, SurfaceImage, SurfaceOptions};
+pub use slice::{AxisPlane, Interpolation, Slab, SlabMode, SliceGeometry};
+pub use window::{ColourMap, WindowLevel};
+
+/// Why a render request cannot be carried out. These are caller mistakes (sizes, parameters)
+/// or I/O failures when writing a file.
+#[derive(Debug, thiserror::Error)]
+pub enum RenderError {
+    #[error("image size {width}x{height} is empty or too large")]
+    BadSize { width: usize, height: usize },
+    #[error("axis {0} is not 0, 1 or 2")]
+    BadAxis(usize),
+    #[error("slice index {index} is outside 0..{len} on axis {axis}")]
+    IndexOutOfRange {
+        axis: usize,
+        index: usize,
+        len: usize,
+    },
+    #[error("{name} must be finite and positive, got {value}")]
+    NotPositive { name: &'static str, value: f64 },
+    #[error("{name} must be finite, got {value}")]
+    NotFinite { name: &'static str, value: f64 },
+    #[error("direction {0} has zero length or is parallel to the up vector")]
+    BadDirection(&'static str),
+    #[error("pixel buffer holds {got} bytes, expected {expected} for {width}x{height} RGBA")]
+    BufferSize {
+        width: usize,
+        height: usize,
+        expected: usize,
+        got: usize,
+    },
+    #[error("{path}: cannot write PNG: {source}")]
+    Png {
+        path: String,
+        #[source]
+        source: image::ImageError,
+    },
+}
+
+/// The largest image side accepted, so that a bad parameter cannot ask for terabytes.
+pub const MAX_SIDE: usize = 1 << 15;
+
+pub(crate) fn check_size(width: usize, height: usize) -> Result<usize, RenderError> {
+    if width == 0 || height == 0 || width > MAX_SIDE || height > MAX_SIDE {
+        return Err(RenderError::BadSize { width, height });
+    }
+    Ok(width * height)
+}
+
+pub(crate) fn check_positive(name: &'static str, value: f64) -> Result<f64, RenderError> {
+    if value.is_finite() && value > 0.0 {
+        Ok(value)
+    } else {
+        Err(RenderError::NotPositive { name, value })
+    }
+}
+
+/// A single-channel image of rescaled voxel values; `NaN` marks pixels outside the volume
+/// (or rays that missed it).
+#[derive(Clone, Debug, PartialEq)]
+pub struct F32Image {
+    pub width: usize,
+    pub height: usize,
+    /// Row-major, `pixels[col + width·row]`.
+    pub pixels: Vec<f32>,
+    /// Side of a pixel in millimetres (square pixels).
+    pub pixel_mm: f64,
+}
+
+impl F32Image {
+    #[must_use]
+    pub fn get(&self, col: usize, row: usize) -> f32 {
+        self.pixels[col + self.width * row]
+    }
+
+    /// The finite values, for percentiles and statistics.
+    pub fn finite_values(&self) -> impl Iterator<Item = f32> + '_ {
+        self.pixels.iter().copied().filter(|v| v.is_finite())
+    }
+}
+
+/// An 8-bit grey image (window/level output without a colour map).
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct GreyImage {
+    pub width: usize,
+    pub height: usize,
+    pub pixels: Vec<u8>,
+}
+
+/// An 8-bit RGBA image, straight alpha, row-major, 4 bytes per pixel.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct RgbaImage {
+    pub width: usize,
+    pub height: usize,
+    pub pixels: Vec<u8>,
+}
+
+impl RgbaImage {
+    /// An image filled with one colour.
+    pub fn filled(width: usize, height: usize, rgba: [u8; 4]) -> Result<Self, RenderError> {
+        let n = check_size(width, height)?;
+        Ok(Self {
+            width,
+            height,
+            pixels: rgba.repeat(n),
+        })
+    }
+
+    #[must_use]
+    pub fn get(&self, col: usize, row: usize) -> [u8; 4] {
+        let o = 4 * (col + self.width * row);
+        [
+            self.pixels[o],
+            self.pixels[o + 1],
+            self.pixels[o + 2],
+            self.pixels[o + 3],
+        ]
+    }
+
+    /// Saves as PNG (see [`png::save_png`]).
+    pub fn save_png(&self, path: &std::path::Path) -> Result<(), RenderError> {
+        png::save_png(path, self.width, self.height, &self.pixels)
+    }
+}
