@@ -20,7 +20,10 @@ fn peak_rss_mib() -> f64 {
 
 fn main() -> anyhow::Result<()> {
     let mut args = std::env::args().skip(1);
-    let path = std::path::PathBuf::from(args.next().ok_or_else(|| anyhow::anyhow!("usage: bench_load PATH [REPEATS]"))?);
+    let path = std::path::PathBuf::from(
+        args.next()
+            .ok_or_else(|| anyhow::anyhow!("usage: bench_load PATH [REPEATS]"))?,
+    );
     let reps: usize = args.next().map_or(Ok(3), |s| s.parse())?;
     let opts = sutura::io::OpenOptions {
         voxel_size_mm: Some([0.01; 3]),
@@ -34,7 +37,13 @@ fn main() -> anyhow::Result<()> {
         let v = sutura::io::open(&path, &opts, &sutura::io::Progress::none())?;
         times.push(t.elapsed().as_secs_f64());
         bytes = v.voxel_bytes();
-        checksum = v.value(sutura::geometry::VoxelIndex::new(v.dims()[0] / 2, v.dims()[1] / 2, v.dims()[2] / 2)).unwrap_or(f64::NAN);
+        checksum = v
+            .value(sutura::geometry::VoxelIndex::new(
+                v.dims()[0] / 2,
+                v.dims()[1] / 2,
+                v.dims()[2] / 2,
+            ))
+            .unwrap_or(f64::NAN);
         drop(v);
     }
     times.sort_by(f64::total_cmp);

@@ -4,11 +4,12 @@
 //! workstation GUI are front ends over it. Dependencies point one way:
 //! `geometry`, `volume` → `io` → `render`, `landmarks`, `measure`, `shape` → `cli`, `gui`.
 
+pub mod chart;
 pub mod cli;
 pub mod export;
 pub mod geometry;
 pub mod io;
+pub mod render;
 pub mod shape;
 pub mod synth;
-pub mod render;
 pub mod volume;

@@ -5,6 +5,7 @@
 //! returning `anyhow::Result`. No science lives here: each figure printed comes from a library
 //! call the GUI makes too.
 
+mod convert;
 mod info;
 
 use anyhow::{Context, Result};
@@ -31,6 +32,8 @@ pub struct Cli {
 enum Command {
     /// Print a scan's dimensions, voxel type and size, placement and intensity statistics.
     Info(info::InfoArgs),
+    /// Write a scan, optionally cropped and downsampled, as NIfTI-1 or a folder of TIFF slices.
+    Convert(convert::ConvertArgs),
 }
 
 /// How to read a scan; shared by every command that opens one.
@@ -136,6 +139,7 @@ pub fn main() -> ExitCode {
 pub fn run(cli: Cli) -> Result<()> {
     match cli.command {
         Command::Info(a) => info::run(&a),
+        Command::Convert(a) => convert::run(&a),
     }
 }
 

@@ -231,36 +231,13 @@ impl Overlay {
         }
     }
 
-    /// Draws `text` with its top-left at `at`, each font pixel `scale`×`scale` image pixels.
+    /// Draws `text` with its top-left at `at`, each font pixel `scale`×`scale` image pixels,
+    /// over a dark shadow so it reads on any image.
     pub fn text(&mut self, at: (f32, f32), text: &str, scale: usize, colour: Colour) {
         let s = scale.max(1) as f32;
-        for (dx, c) in [(s.min(2.0), SHADOW), (0.0, colour)] {
-            let p = paint(c);
-            let mut pb = PathBuilder::new();
-            for (i, ch) in text.chars().enumerate() {
-                let x0 = at.0 + (i * ADVANCE) as f32 * s + dx;
-                for (row, bits) in glyph(ch).iter().enumerate() {
-                    for col in 0..GLYPH_W {
-                        if bits & (1 << (GLYPH_W - 1 - col)) != 0 {
-                            if let Some(r) = Rect::from_xywh(
-                                x0 + col as f32 * s,
-                                at.1 + row as f32 * s + dx,
-                                s,
-                                s,
-                            ) {
-                                pb.push_rect(r);
-                            }
-                        }
-                    }
-                }
-            }
-            if let Some(path) = pb.finish() {
-                let mut p = p.clone();
-                p.anti_alias = false;
-                self.pixmap
-                    .fill_path(&path, &p, FillRule::Winding, Transform::identity(), None);
-            }
-        }
+        let d = s.min(2.0);
+        draw_text(&mut self.pixmap, at.0 + d, at.1 + d, text, scale, SHADOW);
+        draw_text(&mut self.pixmap, at.0, at.1, text, scale, colour);
     }
 
     /// The text scale used for labels: 1 below 400 pixels wide, 2 up to 1200, then 3.
@@ -405,5 +382,36 @@ mod tests {
         );
         let out2 = o.finish();
         assert!(count(&out2, [255, 255, 255, 255]) > 20);
+    }
+}
+
+/// Width in pixels of `text` in the bitmap font at `scale`.
+#[must_use]
+pub fn text_width_px(text: &str, scale: u32) -> u32 {
+    (text_width(text) as u32) * scale.max(1)
+}
+
+/// Draws `text` (no shadow) with its top-left at `(x, y)` onto a pixmap, each font pixel
+/// `scale`×`scale` image pixels.
+pub fn draw_text(pixmap: &mut Pixmap, x: f32, y: f32, text: &str, scale: usize, colour: Colour) {
+    let s = scale.max(1) as f32;
+    let mut pb = PathBuilder::new();
+    for (i, ch) in text.chars().enumerate() {
+        let x0 = x + (i * ADVANCE) as f32 * s;
+        for (row, bits) in glyph(ch).iter().enumerate() {
+            for col in 0..GLYPH_W {
+                if bits & (1 << (GLYPH_W - 1 - col)) != 0 {
+                    if let Some(r) = Rect::from_xywh(x0 + col as f32 * s, y + row as f32 * s, s, s)
+                    {
+                        pb.push_rect(r);
+                    }
+                }
+            }
+        }
+    }
+    if let Some(path) = pb.finish() {
+        let mut p = paint(colour);
+        p.anti_alias = false;
+        pixmap.fill_path(&path, &p, FillRule::Winding, Transform::identity(), None);
     }
 }
