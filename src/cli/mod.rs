@@ -7,6 +7,8 @@
 
 mod convert;
 mod info;
+mod sample;
+mod view;
 
 use anyhow::{Context, Result};
 use clap::{Args, Parser, Subcommand};
@@ -34,6 +36,12 @@ enum Command {
     Info(info::InfoArgs),
     /// Write a scan, optionally cropped and downsampled, as NIfTI-1 or a folder of TIFF slices.
     Convert(convert::ConvertArgs),
+    /// Render a plane (voxel plane, oblique, or thick slab) of a scan to PNG.
+    Slice(view::SliceArgs),
+    /// Render a 3D view (projection or shaded surface) of a scan to PNG.
+    View3d(view::View3dArgs),
+    /// Write the synthetic sample specimens with their true landmarks.
+    Sample(sample::SampleArgs),
 }
 
 /// How to read a scan; shared by every command that opens one.
@@ -140,6 +148,9 @@ pub fn run(cli: Cli) -> Result<()> {
     match cli.command {
         Command::Info(a) => info::run(&a),
         Command::Convert(a) => convert::run(&a),
+        Command::Slice(a) => view::run_slice(&a),
+        Command::View3d(a) => view::run_view3d(&a),
+        Command::Sample(a) => sample::run(&a),
     }
 }
 

@@ -1,0 +1,85 @@
+//! `sutura sample`: write the synthetic sample specimens, their true landmarks and the scheme.
+
+use anyhow::{Context, Result};
+use clap::Args;
+use rayon::prelude::*;
+use std::path::{Path, PathBuf};
+
+use crate::export::table::{LandmarkTable, Observation, State};
+use crate::synth;
+
+#[derive(Debug, Args)]
+pub struct SampleArgs {
+    /// Output folder (created if missing).
+    #[arg(short, long)]
+    output: PathBuf,
+
+    /// How many of the series' specimens to write (default: all).
+    #[arg(long)]
+    count: Option<usize>,
+}
+
+/// The file a specimen's scan is written to: the first as a folder of TIFF slices, the rest
+/// as `.nii.gz`.
+fn scan_name(index: usize, id: &str) -> String {
+    if index == 0 { format!("{id}_slices") } else { format!("{id}.nii.gz") }
+}
+
+pub fn run(a: &SampleArgs) -> Result<()> {
+    std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;
+    let mut specs = synth::default_series();
+    if let Some(n) = a.count {
+        specs.truncate(n.max(1));
+    }
+    let written: Vec<(String, String, Vec<(String, crate::geometry::WorldPoint)>)> = specs
+        .par_iter()
+        .enumerate()
+        .map(|(i, spec)| -> Result<_> {
+            let s = synth::generate(spec).with_context(|| format!("specimen {}", spec.id))?;
+            let path = a.output.join(scan_name(i, &s.id));
+            write_scan(&s.volume, &path)?;
+            crate::export::write_json(&a.output.join(format!("{}.landmarks.json", s.id)), &synth::landmarks_json(&s))?;
+            eprintln!("wrote {}", path.display());
+            Ok((s.id.clone(), s.group.clone(), s.landmarks.clone()))
+        })
+        .collect::<Result<_>>()?;
+    let scheme = synth::scheme::scheme();
+    let table = LandmarkTable {
+        dim: 3,
+        landmarks: scheme.iter().map(|l| l.id.to_owned()).collect(),
+        observations: written
+            .iter()
+            .map(|(id, group, lms)| Observation {
+                specimen: id.clone(),
+                trial: "truth".into(),
+                group: Some(group.clone()),
+                coords: scheme
+                    .iter()
+                    .map(|d| lms.iter().find(|(n, _)| n == d.id).map(|(_, p)| [p.0.x, p.0.y, p.0.z]))
+                    .collect(),
+                states: scheme
+                    .iter()
+                    .map(|d| if lms.iter().any(|(n, _)| n == d.id) { State::Placed } else { State::Missing })
+                    .collect(),
+            })
+            .collect(),
+    };
+    table.write_long_csv(&a.output.join("true_landmarks.csv"))?;
+    crate::export::write_json(
+        &a.output.join("scheme.json"),
+        &serde_json::json!({
+            "scheme": synth::scheme::SCHEME_ID,
+            "landmarks": scheme,
+            "curves": synth::scheme::curves(),
+        }),
+    )?;
+    eprintln!("wrote {} specimens, true_landmarks.csv and scheme.json to {}", written.len(), a.output.display());
+    Ok(())
+}
+
+fn write_scan(v: &crate::volume::Volume, path: &Path) -> Result<()> {
+    if path.exists() && path.is_dir() {
+        std::fs::remove_dir_all(path).with_context(|| path.display().to_string())?;
+    }
+    super::convert::write_volume(v, path)
+}

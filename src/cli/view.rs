@@ -1,0 +1,310 @@
+//! `sutura slice` and `sutura view3d`: plane images and CPU 3D views to PNG.
+
+use super::ScanArgs;
+use anyhow::{Context, Result, bail};
+use clap::{Args, ValueEnum};
+use nalgebra::Vector3;
+use std::path::PathBuf;
+
+use crate::geometry::{Plane, WorldPoint};
+use crate::render::overlay::{AxisNames, Overlay};
+use crate::render::{
+    AxisPlane, Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RgbaImage, Slab,
+    SlabMode, SurfaceOptions, WindowLevel, raycast, slice,
+};
+use crate::volume::Volume;
+
+/// Colour maps for slices and projections.
+#[derive(Clone, Copy, Debug, ValueEnum)]
+pub enum Colours {
+    Grey,
+    InvertedGrey,
+    Viridis,
+}
+
+impl From<Colours> for ColourMap {
+    fn from(c: Colours) -> Self {
+        match c {
+            Colours::Grey => Self::Grey,
+            Colours::InvertedGrey => Self::InvertedGrey,
+            Colours::Viridis => Self::Viridis,
+        }
+    }
+}
+
+/// How to map intensities to brightness; shared by slice and projection images.
+#[derive(Debug, Args)]
+pub struct ToneArgs {
+    /// Window as `CENTRE,WIDTH` in the scan's (rescaled) intensity units. Default: from the
+    /// 0.5th to the 99.5th percentile of the image.
+    #[arg(long, value_name = "CENTRE,WIDTH", allow_hyphen_values = true)]
+    window: Option<String>,
+
+    /// Colour map.
+    #[arg(long, value_enum, default_value = "grey")]
+    colours: Colours,
+
+    /// Leave out the scale bar and orientation labels.
+    #[arg(long)]
+    bare: bool,
+}
+
+impl ToneArgs {
+    fn window_for(&self, img: &F32Image) -> Result<WindowLevel> {
+        if let Some(w) = &self.window {
+            let v = parse_floats(w, 2).with_context(|| format!("--window {w}"))?;
+            return WindowLevel::new(v[0], v[1]).with_context(|| format!("--window {w}: the width must be positive"));
+        }
+        WindowLevel::from_image_percentiles(img, 0.5, 99.5).context("the image holds no voxel values to set a window from")
+    }
+}
+
+fn parse_floats(text: &str, n: usize) -> Result<Vec<f64>> {
+    let v: Vec<f64> = text
+        .split(',')
+        .map(|s| s.trim().parse::<f64>().with_context(|| format!("'{s}' is not a number")))
+        .collect::<Result<_>>()?;
+    if v.len() != n || v.iter().any(|x| !x.is_finite()) {
+        bail!("expected {n} comma-separated numbers");
+    }
+    Ok(v)
+}
+
+fn point3(text: &str) -> Result<Vector3<f64>> {
+    let v = parse_floats(text, 3)?;
+    Ok(Vector3::new(v[0], v[1], v[2]))
+}
+
+/// Voxel axes by the names a user gives them.
+#[derive(Clone, Copy, Debug, ValueEnum)]
+pub enum Axis {
+    /// The plane of constant i (columns j, rows k).
+    I,
+    /// The plane of constant j (columns i, rows k).
+    J,
+    /// The plane of constant k, the slice plane of a TIFF stack (columns i, rows j).
+    K,
+}
+
+#[derive(Debug, Args)]
+pub struct SliceArgs {
+    #[command(flatten)]
+    scan: ScanArgs,
+
+    /// Output PNG.
+    #[arg(short, long)]
+    output: PathBuf,
+
+    /// Voxel plane: normal to voxel axis i, j or k.
+    #[arg(long, value_enum, default_value = "k", conflicts_with_all = ["normal", "through"])]
+    plane: Axis,
+
+    /// Slice index along that axis (default: the middle).
+    #[arg(long)]
+    index: Option<usize>,
+
+    /// Oblique plane by its normal `NX,NY,NZ` in world coordinates, through `--centre`.
+    #[arg(long, value_name = "NX,NY,NZ", allow_hyphen_values = true)]
+    normal: Option<String>,
+
+    /// Centre of an oblique plane `X,Y,Z` in world mm (default: the centre of the scan).
+    #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
+    centre: Option<String>,
+
+    /// Oblique plane through three world points (mm): `X,Y,Z;X,Y,Z;X,Y,Z`.
+    #[arg(long, value_name = "P;Q;R", allow_hyphen_values = true)]
+    through: Option<String>,
+
+    /// Thick slab: thickness along the normal, e.g. `0.2mm` or `150um`.
+    #[arg(long, value_name = "LEN")]
+    slab: Option<String>,
+
+    /// How a slab combines its samples.
+    #[arg(long, value_enum, default_value = "max")]
+    slab_mode: SlabModeArg,
+
+    /// Output pixel size, e.g. `10um` (default: the smallest voxel spacing).
+    #[arg(long, value_name = "LEN")]
+    pixel: Option<String>,
+
+    /// Nearest-voxel sampling instead of trilinear.
+    #[arg(long)]
+    nearest: bool,
+
+    #[command(flatten)]
+    tone: ToneArgs,
+}
+
+#[derive(Clone, Copy, Debug, ValueEnum)]
+pub enum SlabModeArg {
+    Mean,
+    Max,
+}
+
+pub fn run_slice(a: &SliceArgs) -> Result<()> {
+    let v = a.scan.open()?;
+    let pixel_mm = a.pixel.as_deref().map(crate::geometry::parse_length_mm).transpose()?;
+    let plane = oblique_plane(a, &v)?;
+    let geometry = match plane {
+        Some(p) => slice::SliceGeometry::covering(&v, &p, pixel_mm)?,
+        None => {
+            let axis = match a.plane {
+                Axis::I => 0,
+                Axis::J => 1,
+                Axis::K => 2,
+            };
+            let index = a.index.unwrap_or(v.dims()[axis] / 2);
+            if index >= v.dims()[axis] {
+                bail!("--index {index}: the scan has {} slices along that axis", v.dims()[axis]);
+            }
+            slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
+        }
+    };
+    let slab = a
+        .slab
+        .as_deref()
+        .map(|s| -> Result<Slab> {
+            Ok(Slab {
+                thickness_mm: crate::geometry::parse_length_mm(s)?,
+                mode: match a.slab_mode {
+                    SlabModeArg::Mean => SlabMode::Mean,
+                    SlabModeArg::Max => SlabMode::Max,
+                },
+            })
+        })
+        .transpose()?;
+    let interp = if a.nearest { Interpolation::Nearest } else { Interpolation::Trilinear };
+    let img = slice::render_slice(&v, &geometry, interp, slab)?;
+    let wl = a.tone.window_for(&img)?;
+    let mut rgba = wl.colourize(&img, a.tone.colours.into());
+    if !a.tone.bare {
+        rgba = annotate(&rgba, img.pixel_mm, Some((&geometry.u, &geometry.v)))?;
+    }
+    rgba.save_png(&a.output)?;
+    eprintln!(
+        "wrote {} ({}x{} px of {}, window {:.1}/{:.1})",
+        a.output.display(),
+        rgba.width,
+        rgba.height,
+        crate::geometry::format_length_mm(img.pixel_mm),
+        wl.centre,
+        wl.width
+    );
+    Ok(())
+}
+
+fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
+    if let Some(t) = &a.through {
+        let pts: Vec<Vector3<f64>> = t.split(';').map(point3).collect::<Result<_>>().with_context(|| format!("--through {t}"))?;
+        if pts.len() != 3 {
+            bail!("--through {t}: give three points separated by ';'");
+        }
+        let w = |p: &Vector3<f64>| WorldPoint::new(p.x, p.y, p.z);
+        return Ok(Some(Plane::through_points(w(&pts[0]), w(&pts[1]), w(&pts[2]))?));
+    }
+    if let Some(n) = &a.normal {
+        let n = point3(n).with_context(|| format!("--normal {n}"))?;
+        let c = match &a.centre {
+            Some(c) => {
+                let p = point3(c).with_context(|| format!("--centre {c}"))?;
+                WorldPoint::new(p.x, p.y, p.z)
+            }
+            None => v.centre_world(),
+        };
+        return Ok(Some(Plane::from_normal(c, n, Vector3::z())?));
+    }
+    Ok(None)
+}
+
+fn annotate(img: &RgbaImage, pixel_mm: f64, basis: Option<(&Vector3<f64>, &Vector3<f64>)>) -> Result<RgbaImage> {
+    let mut o = Overlay::new(img)?;
+    o.scale_bar(pixel_mm, [255, 255, 255, 255]);
+    if let Some((u, v)) = basis {
+        o.orientation_labels(u, v, &AxisNames::default(), [255, 220, 120, 255]);
+    }
+    Ok(o.finish())
+}
+
+/// What a 3D view shows.
+#[derive(Clone, Copy, Debug, ValueEnum)]
+pub enum ViewMode {
+    /// Maximum-intensity projection.
+    Projection,
+    /// Shaded surface at an intensity threshold.
+    Surface,
+}
+
+#[derive(Debug, Args)]
+pub struct View3dArgs {
+    #[command(flatten)]
+    scan: ScanArgs,
+
+    /// Output PNG.
+    #[arg(short, long)]
+    output: PathBuf,
+
+    #[arg(long, value_enum, default_value = "surface")]
+    mode: ViewMode,
+
+    /// Surface threshold in intensity units (default: halfway between the median and the
+    /// 99.5th percentile, a first guess for dense material in a lighter matrix).
+    #[arg(long, allow_hyphen_values = true)]
+    threshold: Option<f64>,
+
+    /// Viewing direction by azimuth (about world z, from +x) and elevation, in degrees.
+    #[arg(long, value_name = "AZ,EL", default_value = "30,25", allow_hyphen_values = true)]
+    orbit: String,
+
+    /// Image size in pixels (square).
+    #[arg(long, default_value_t = 512)]
+    size: usize,
+
+    /// A quick low-resolution image (what the workstation shows while dragging).
+    #[arg(long)]
+    coarse: bool,
+
+    #[command(flatten)]
+    tone: ToneArgs,
+}
+
+/// The viewing direction (from the camera into the scene) for azimuth/elevation in degrees.
+#[must_use]
+pub fn orbit_direction(az_deg: f64, el_deg: f64) -> Vector3<f64> {
+    let (az, el) = (az_deg.to_radians(), el_deg.to_radians());
+    -Vector3::new(el.cos() * az.cos(), el.cos() * az.sin(), el.sin())
+}
+
+pub fn run_view3d(a: &View3dArgs) -> Result<()> {
+    let v = a.scan.open()?;
+    let o = parse_floats(&a.orbit, 2).with_context(|| format!("--orbit {}", a.orbit))?;
+    let dir = orbit_direction(o[0], o[1]);
+    let up = if dir.cross(&Vector3::z()).norm() < 1e-6 { Vector3::y() } else { Vector3::z() };
+    let camera = Camera::fit(&v, dir, up, a.size, a.size)?;
+    let quality = if a.coarse { Quality::coarse() } else { Quality::full() };
+    let rgba = match a.mode {
+        ViewMode::Projection => {
+            let img = raycast::mip(&v, &camera, MipOptions { quality })?;
+            let wl = a.tone.window_for(&img)?;
+            wl.colourize(&img, a.tone.colours.into())
+        }
+        ViewMode::Surface => {
+            let threshold = match a.threshold {
+                Some(t) => t,
+                None => {
+                    let p = v.percentiles(&[50.0, 99.5]);
+                    0.5 * (p[0] + p[1])
+                }
+            };
+            let bricks = raycast::Bricks::new(&v);
+            let mut opts = SurfaceOptions::new(threshold);
+            opts.quality = quality;
+            let s = raycast::surface(&v, &camera, &opts, Some(&bricks))?;
+            eprintln!("surface threshold {threshold:.1}");
+            s.image
+        }
+    };
+    let rgba = if a.tone.bare { rgba } else { annotate(&rgba, camera.pixel_mm, None)? };
+    rgba.save_png(&a.output)?;
+    eprintln!("wrote {} ({}x{} px)", a.output.display(), rgba.width, rgba.height);
+    Ok(())
+}
