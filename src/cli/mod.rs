@@ -8,11 +8,12 @@
 mod convert;
 mod info;
 mod sample;
+mod superimpose;
 mod view;
 
 use anyhow::{Context, Result};
 use clap::{Args, Parser, Subcommand};
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::process::ExitCode;
 
 use crate::geometry::{Affine3, parse_length_mm};
@@ -42,6 +43,8 @@ enum Command {
     View3d(view::View3dArgs),
     /// Write the synthetic sample specimens with their true landmarks.
     Sample(sample::SampleArgs),
+    /// Superimpose a landmark table (GPA) into shape coordinates, morphospace and disparity.
+    Superimpose(superimpose::SuperimposeArgs),
 }
 
 /// How to read a scan; shared by every command that opens one.
@@ -151,6 +154,7 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Slice(a) => view::run_slice(&a),
         Command::View3d(a) => view::run_view3d(&a),
         Command::Sample(a) => sample::run(&a),
+        Command::Superimpose(a) => superimpose::run(&a),
     }
 }
 
@@ -164,13 +168,4 @@ fn one_line(e: &anyhow::Error) -> String {
         }
     }
     parts.join(": ").replace('\n', " ")
-}
-
-/// Writes `text` to `path`, or to stdout when `path` is `-`.
-pub(crate) fn write_text(path: &Path, text: &str) -> Result<()> {
-    if path == Path::new("-") {
-        print!("{text}");
-        return Ok(());
-    }
-    std::fs::write(path, text).with_context(|| format!("{}", path.display()))
 }
