@@ -11,4 +11,5 @@ fi
 "$PY" -m pip install -q --disable-pip-version-check -r tests/python/requirements.txt
 export SUTURA_PYTHON=$(readlink -f "$PY")
 bash scripts/fetch_refdata.sh "$SUTURA_PYTHON"
-cargo test --all-targets "$@"
+# benches (harness = false) are run by hand, not as tests: see the README's benchmark section
+cargo test --lib --bins --tests --examples "$@"
