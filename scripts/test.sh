@@ -9,7 +9,8 @@ if [ ! -x "$PY" ]; then
   PY=.venv/bin/python
 fi
 "$PY" -m pip install -q --disable-pip-version-check -r tests/python/requirements.txt
-export SUTURA_PYTHON=$(readlink -f "$PY")
+# absolute, but not resolved: the venv's python is a symlink and must stay inside the venv
+export SUTURA_PYTHON="$(cd "$(dirname "$PY")" && pwd)/$(basename "$PY")"
 bash scripts/fetch_refdata.sh "$SUTURA_PYTHON"
 # benches (harness = false) are run by hand, not as tests: see the README's benchmark section
 cargo test --lib --bins --tests --examples "$@"

@@ -22,7 +22,11 @@ pub struct SampleArgs {
 /// The file a specimen's scan is written to: the first as a folder of TIFF slices, the rest
 /// as `.nii.gz`.
 fn scan_name(index: usize, id: &str) -> String {
-    if index == 0 { format!("{id}_slices") } else { format!("{id}.nii.gz") }
+    if index == 0 {
+        format!("{id}_slices")
+    } else {
+        format!("{id}.nii.gz")
+    }
 }
 
 pub fn run(a: &SampleArgs) -> Result<()> {
@@ -38,7 +42,10 @@ pub fn run(a: &SampleArgs) -> Result<()> {
             let s = synth::generate(spec).with_context(|| format!("specimen {}", spec.id))?;
             let path = a.output.join(scan_name(i, &s.id));
             write_scan(&s.volume, &path)?;
-            crate::export::write_json(&a.output.join(format!("{}.landmarks.json", s.id)), &synth::landmarks_json(&s))?;
+            crate::export::write_json(
+                &a.output.join(format!("{}.landmarks.json", s.id)),
+                &synth::landmarks_json(&s),
+            )?;
             eprintln!("wrote {}", path.display());
             Ok((s.id.clone(), s.group.clone(), s.landmarks.clone()))
         })
@@ -55,11 +62,21 @@ pub fn run(a: &SampleArgs) -> Result<()> {
                 group: Some(group.clone()),
                 coords: scheme
                     .iter()
-                    .map(|d| lms.iter().find(|(n, _)| n == d.id).map(|(_, p)| [p.0.x, p.0.y, p.0.z]))
+                    .map(|d| {
+                        lms.iter()
+                            .find(|(n, _)| n == d.id)
+                            .map(|(_, p)| [p.0.x, p.0.y, p.0.z])
+                    })
                     .collect(),
                 states: scheme
                     .iter()
-                    .map(|d| if lms.iter().any(|(n, _)| n == d.id) { State::Placed } else { State::Missing })
+                    .map(|d| {
+                        if lms.iter().any(|(n, _)| n == d.id) {
+                            State::Placed
+                        } else {
+                            State::Missing
+                        }
+                    })
                     .collect(),
             })
             .collect(),
@@ -73,7 +90,11 @@ pub fn run(a: &SampleArgs) -> Result<()> {
             "curves": synth::scheme::curves(),
         }),
     )?;
-    eprintln!("wrote {} specimens, true_landmarks.csv and scheme.json to {}", written.len(), a.output.display());
+    eprintln!(
+        "wrote {} specimens, true_landmarks.csv and scheme.json to {}",
+        written.len(),
+        a.output.display()
+    );
     Ok(())
 }
 

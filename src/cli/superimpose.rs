@@ -69,7 +69,12 @@ fn first_trials(t: &LandmarkTable) -> Vec<usize> {
         .collect()
 }
 
-fn to_sample(t: &LandmarkTable, idx: &[usize], fill: FillArg, gopts: &GpaOptions) -> Result<(Sample, Vec<bool>)> {
+fn to_sample(
+    t: &LandmarkTable,
+    idx: &[usize],
+    fill: FillArg,
+    gopts: &GpaOptions,
+) -> Result<(Sample, Vec<bool>)> {
     let (k, m) = (t.landmarks.len(), t.dim);
     let mut data = Vec::with_capacity(idx.len() * k * m);
     let mut missing = Vec::with_capacity(idx.len() * k);
@@ -87,8 +92,15 @@ fn to_sample(t: &LandmarkTable, idx: &[usize], fill: FillArg, gopts: &GpaOptions
         FillArg::Tps => MissingMethod::ThinPlateSpline,
         FillArg::Regression => MissingMethod::Regression { ridge: 0.0 },
     };
-    let filled = estimate_missing(&sample, &missing, &MissingOptions { method, gpa: *gopts })
-        .context("estimating missing landmarks")?;
+    let filled = estimate_missing(
+        &sample,
+        &missing,
+        &MissingOptions {
+            method,
+            gpa: *gopts,
+        },
+    )
+    .context("estimating missing landmarks")?;
     Ok((filled.sample, filled.estimated))
 }
 
@@ -105,12 +117,19 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
     };
     let idx = first_trials(&table);
     if idx.len() < 3 {
-        bail!("{}: {} specimens; a superimposition needs at least 3", a.table.display(), idx.len());
+        bail!(
+            "{}: {} specimens; a superimposition needs at least 3",
+            a.table.display(),
+            idx.len()
+        );
     }
     let (sample, estimated) = to_sample(&table, &idx, a.fill, &gopts)?;
     let g = gpa(&sample, &gopts)?;
     let obs: Vec<&Observation> = idx.iter().map(|&i| &table.observations[i]).collect();
-    let groups: Vec<String> = obs.iter().map(|o| o.group.clone().unwrap_or_else(|| "all".into())).collect();
+    let groups: Vec<String> = obs
+        .iter()
+        .map(|o| o.group.clone().unwrap_or_else(|| "all".into()))
+        .collect();
     let (k, m) = (sample.k(), sample.m());
     let out = |name: &str| a.output.join(name);
 
@@ -134,14 +153,24 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
                     })
                     .collect(),
                 states: (0..k)
-                    .map(|l| if estimated[s * k + l] { State::Estimated } else { o.states[l] })
+                    .map(|l| {
+                        if estimated[s * k + l] {
+                            State::Estimated
+                        } else {
+                            o.states[l]
+                        }
+                    })
                     .collect(),
             })
             .collect(),
     };
     aligned.write_long_csv(&out("aligned_long.csv"))?;
     aligned.write_wide_csv(&out("aligned_wide.csv"))?;
-    write_npy_f64(&out("aligned.npy"), &[sample.n() as u64, k as u64, m as u64], g.aligned.data())?;
+    write_npy_f64(
+        &out("aligned.npy"),
+        &[sample.n() as u64, k as u64, m as u64],
+        g.aligned.data(),
+    )?;
     let id_rows: Vec<Vec<String>> = obs
         .iter()
         .zip(&g.centroid_sizes)
@@ -149,10 +178,28 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         .enumerate()
         .map(|(s, ((o, cs), gr))| {
             let n_est = (0..k).filter(|l| estimated[s * k + l]).count();
-            vec![s.to_string(), o.specimen.clone(), o.trial.clone(), gr.clone(), num(*cs), n_est.to_string()]
+            vec![
+                s.to_string(),
+                o.specimen.clone(),
+                o.trial.clone(),
+                gr.clone(),
+                num(*cs),
+                n_est.to_string(),
+            ]
         })
         .collect();
-    write_csv(&out("specimens.csv"), &["index", "specimen", "trial", "group", "centroid_size_mm", "estimated_landmarks"], &id_rows)?;
+    write_csv(
+        &out("specimens.csv"),
+        &[
+            "index",
+            "specimen",
+            "trial",
+            "group",
+            "centroid_size_mm",
+            "estimated_landmarks",
+        ],
+        &id_rows,
+    )?;
 
     // morphospace
     let tan = tangent::tangent_coordinates(&g);
@@ -162,30 +209,54 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
     header.extend((1..=ncomp).map(|c| format!("PC{c}")));
     let rows: Vec<Vec<String>> = (0..sample.n())
         .map(|s| {
-            let mut r = vec![obs[s].specimen.clone(), obs[s].trial.clone(), groups[s].clone()];
+            let mut r = vec![
+                obs[s].specimen.clone(),
+                obs[s].trial.clone(),
+                groups[s].clone(),
+            ];
             r.extend((0..ncomp).map(|c| num(p.scores[(s, c)])));
             r
         })
         .collect();
-    write_csv(&out("pc_scores.csv"), &header.iter().map(String::as_str).collect::<Vec<_>>(), &rows)?;
+    write_csv(
+        &out("pc_scores.csv"),
+        &header.iter().map(String::as_str).collect::<Vec<_>>(),
+        &rows,
+    )?;
     let mut cum = 0.0;
     let var_rows: Vec<Vec<String>> = (0..ncomp)
         .map(|c| {
             cum += p.proportions[c];
-            vec![format!("PC{}", c + 1), num(p.variances[c]), num(p.proportions[c]), num(cum)]
+            vec![
+                format!("PC{}", c + 1),
+                num(p.variances[c]),
+                num(p.proportions[c]),
+                num(cum),
+            ]
         })
         .collect();
-    write_csv(&out("pc_variance.csv"), &["component", "variance", "proportion", "cumulative"], &var_rows)?;
+    write_csv(
+        &out("pc_variance.csv"),
+        &["component", "variance", "proportion", "cumulative"],
+        &var_rows,
+    )?;
     let load_rows: Vec<Vec<String>> = (0..k * m)
         .map(|r| {
-            let mut row = vec![table.landmarks[r / m].clone(), ["x", "y", "z"][r % m].to_owned()];
+            let mut row = vec![
+                table.landmarks[r / m].clone(),
+                ["x", "y", "z"][r % m].to_owned(),
+            ];
             row.extend((0..ncomp).map(|c| num(p.loadings[(r, c)])));
             row
         })
         .collect();
     let mut lh: Vec<String> = vec!["landmark".into(), "axis".into()];
     lh.extend((1..=ncomp).map(|c| format!("PC{c}")));
-    write_csv(&out("pc_loadings.csv"), &lh.iter().map(String::as_str).collect::<Vec<_>>(), &load_rows)?;
+    write_csv(
+        &out("pc_loadings.csv"),
+        &lh.iter().map(String::as_str).collect::<Vec<_>>(),
+        &load_rows,
+    )?;
 
     // disparity per group with bootstrap intervals, partial disparity, group test
     let by_group = disparity::disparity_by_group(&tan, &groups, Divisor::NMinusOne)?;
@@ -194,7 +265,14 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
     let mut disp_rows = Vec::new();
     let (mut names, mut est, mut lo, mut hi) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
     for (d, pd) in by_group.iter().zip(&partials) {
-        let iv = disparity::bootstrap(&tan, &gi[&d.label], Divisor::NMinusOne, a.resamples, 0.95, a.seed)?;
+        let iv = disparity::bootstrap(
+            &tan,
+            &gi[&d.label],
+            Divisor::NMinusOne,
+            a.resamples,
+            0.95,
+            a.seed,
+        )?;
         disp_rows.push(vec![
             d.label.clone(),
             d.n.to_string(),
@@ -213,13 +291,33 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
     }
     write_csv(
         &out("disparity.csv"),
-        &["group", "n", "procrustes_variance", "ci95_lower", "ci95_upper", "resamples", "sum_of_variances", "partial_disparity", "partial_share"],
+        &[
+            "group",
+            "n",
+            "procrustes_variance",
+            "ci95_lower",
+            "ci95_upper",
+            "resamples",
+            "sum_of_variances",
+            "partial_disparity",
+            "partial_share",
+        ],
         &disp_rows,
     )?;
     let group_test = if gi.len() == 2 {
         let mut it = gi.values();
-        let (g1, g2) = (it.next().expect("two groups"), it.next().expect("two groups"));
-        Some(disparity::permutation_test(&tan, g1, g2, Divisor::NMinusOne, a.resamples, a.seed)?)
+        let (g1, g2) = (
+            it.next().expect("two groups"),
+            it.next().expect("two groups"),
+        );
+        Some(disparity::permutation_test(
+            &tan,
+            g1,
+            g2,
+            Divisor::NMinusOne,
+            a.resamples,
+            a.seed,
+        )?)
     } else {
         None
     };
@@ -236,7 +334,11 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
             r
         })
         .collect();
-    write_csv(&out("procrustes_distances.csv"), &dh.iter().map(String::as_str).collect::<Vec<_>>(), &drows)?;
+    write_csv(
+        &out("procrustes_distances.csv"),
+        &dh.iter().map(String::as_str).collect::<Vec<_>>(),
+        &drows,
+    )?;
 
     let allo = pca::allometry(&tan, &g.centroid_sizes, a.resamples, a.seed)?;
 
@@ -273,14 +375,31 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         );
         save_figure(&f, &out("morphospace"))?;
     }
-    save_figure(&plots::intervals(&names, &est, &lo, &hi, "Procrustes variance (95% bootstrap interval)", "Disparity by group"), &out("disparity"))?;
+    save_figure(
+        &plots::intervals(
+            &names,
+            &est,
+            &lo,
+            &hi,
+            "Procrustes variance (95% bootstrap interval)",
+            "Disparity by group",
+        ),
+        &out("disparity"),
+    )?;
     let mean = to_points(&g.mean, m);
     let sd = p.variances[0].sqrt();
     let minus = to_points(&p.shape_at(&g.mean, g.scaled, 0, -2.0)?, m);
     let plus = to_points(&p.shape_at(&g.mean, g.scaled, 0, 2.0)?, m);
     let edges = spanning_tree(&mean);
-    let shapes = vec![("mean".to_owned(), mean), ("PC1 -2 SD".to_owned(), minus), ("PC1 +2 SD".to_owned(), plus)];
-    save_figure(&plots::wireframes(&shapes, &edges, (0, 1), &format!("PC1 shapes (SD {sd:.4})")), &out("pc1_shapes"))?;
+    let shapes = vec![
+        ("mean".to_owned(), mean),
+        ("PC1 -2 SD".to_owned(), minus),
+        ("PC1 +2 SD".to_owned(), plus),
+    ];
+    save_figure(
+        &plots::wireframes(&shapes, &edges, (0, 1), &format!("PC1 shapes (SD {sd:.4})")),
+        &out("pc1_shapes"),
+    )?;
 
     eprintln!(
         "superimposed {} specimens x {} landmarks in {} iterations (converged: {}); results in {}",
@@ -293,7 +412,12 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
     Ok(())
 }
 
-fn measurement_error(t: &LandmarkTable, fill: FillArg, gopts: &GpaOptions, path: &Path) -> Result<serde_json::Value> {
+fn measurement_error(
+    t: &LandmarkTable,
+    fill: FillArg,
+    gopts: &GpaOptions,
+    path: &Path,
+) -> Result<serde_json::Value> {
     let mut ids: BTreeMap<&str, usize> = BTreeMap::new();
     for o in &t.observations {
         let n = ids.len();
@@ -304,18 +428,53 @@ fn measurement_error(t: &LandmarkTable, fill: FillArg, gopts: &GpaOptions, path:
         return Ok(serde_json::Value::Null);
     }
     let all: Vec<usize> = (0..t.observations.len()).collect();
-    let labels: Vec<usize> = t.observations.iter().map(|o| ids[o.specimen.as_str()]).collect();
+    let labels: Vec<usize> = t
+        .observations
+        .iter()
+        .map(|o| ids[o.specimen.as_str()])
+        .collect();
     let (sample, _) = to_sample(t, &all, fill, gopts)?;
     let pa = anova::procrustes_anova(&sample, &labels, gopts)?;
     let row = |term: &str, tab: &anova::AnovaTable| {
         vec![
-            vec![term.to_owned(), "individual".into(), num(tab.individual.ss), num(tab.individual.df), num(tab.individual.ms), num(tab.f), num(tab.p), num(tab.repeatability)],
-            vec![term.to_owned(), "error".into(), num(tab.error.ss), num(tab.error.df), num(tab.error.ms), String::new(), String::new(), String::new()],
+            vec![
+                term.to_owned(),
+                "individual".into(),
+                num(tab.individual.ss),
+                num(tab.individual.df),
+                num(tab.individual.ms),
+                num(tab.f),
+                num(tab.p),
+                num(tab.repeatability),
+            ],
+            vec![
+                term.to_owned(),
+                "error".into(),
+                num(tab.error.ss),
+                num(tab.error.df),
+                num(tab.error.ms),
+                String::new(),
+                String::new(),
+                String::new(),
+            ],
         ]
     };
     let mut rows = row("shape", &pa.shape);
     rows.extend(row("centroid_size", &pa.size));
-    write_csv(path, &["variable", "effect", "ss", "df", "ms", "f", "p", "repeatability"], &rows)?;
+    write_csv(
+        path,
+        &[
+            "variable",
+            "effect",
+            "ss",
+            "df",
+            "ms",
+            "f",
+            "p",
+            "repeatability",
+        ],
+        &rows,
+    )?;
     Ok(serde_json::json!({
         "shape_repeatability": pa.shape.repeatability,
         "size_repeatability": pa.size.repeatability,
@@ -371,7 +530,12 @@ fn spanning_tree(pts: &[[f64; 3]]) -> Vec<(usize, usize)> {
 fn save_figure(f: &crate::chart::Figure, stem: &Path) -> Result<()> {
     let svg = stem.with_extension("svg");
     crate::export::write_atomic(&svg, |w| w.write_all(f.to_svg().as_bytes()))?;
-    crate::render::png::save_png(&stem.with_extension("png"), f.width as usize, f.height as usize, &f.to_rgba())?;
+    crate::render::png::save_png(
+        &stem.with_extension("png"),
+        f.width as usize,
+        f.height as usize,
+        &f.to_rgba(),
+    )?;
     Ok(())
 }
 
@@ -381,9 +545,17 @@ mod tests {
 
     #[test]
     fn spanning_tree_links_every_landmark_once() {
-        let pts = [[0.0, 0.0, 0.0], [1.0, 0.0, 0.0], [5.0, 0.0, 0.0], [1.0, 1.0, 0.0]];
+        let pts = [
+            [0.0, 0.0, 0.0],
+            [1.0, 0.0, 0.0],
+            [5.0, 0.0, 0.0],
+            [1.0, 1.0, 0.0],
+        ];
         let e = spanning_tree(&pts);
         assert_eq!(e.len(), 3);
-        assert!(e.contains(&(0, 1)) && e.contains(&(1, 3)) && e.contains(&(1, 2)), "{e:?}");
+        assert!(
+            e.contains(&(0, 1)) && e.contains(&(1, 3)) && e.contains(&(1, 2)),
+            "{e:?}"
+        );
     }
 }

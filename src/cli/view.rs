@@ -53,16 +53,22 @@ impl ToneArgs {
     fn window_for(&self, img: &F32Image) -> Result<WindowLevel> {
         if let Some(w) = &self.window {
             let v = parse_floats(w, 2).with_context(|| format!("--window {w}"))?;
-            return WindowLevel::new(v[0], v[1]).with_context(|| format!("--window {w}: the width must be positive"));
+            return WindowLevel::new(v[0], v[1])
+                .with_context(|| format!("--window {w}: the width must be positive"));
         }
-        WindowLevel::from_image_percentiles(img, 0.5, 99.5).context("the image holds no voxel values to set a window from")
+        WindowLevel::from_image_percentiles(img, 0.5, 99.5)
+            .context("the image holds no voxel values to set a window from")
     }
 }
 
 fn parse_floats(text: &str, n: usize) -> Result<Vec<f64>> {
     let v: Vec<f64> = text
         .split(',')
-        .map(|s| s.trim().parse::<f64>().with_context(|| format!("'{s}' is not a number")))
+        .map(|s| {
+            s.trim()
+                .parse::<f64>()
+                .with_context(|| format!("'{s}' is not a number"))
+        })
         .collect::<Result<_>>()?;
     if v.len() != n || v.iter().any(|x| !x.is_finite()) {
         bail!("expected {n} comma-separated numbers");
@@ -143,7 +149,11 @@ pub enum SlabModeArg {
 
 pub fn run_slice(a: &SliceArgs) -> Result<()> {
     let v = a.scan.open()?;
-    let pixel_mm = a.pixel.as_deref().map(crate::geometry::parse_length_mm).transpose()?;
+    let pixel_mm = a
+        .pixel
+        .as_deref()
+        .map(crate::geometry::parse_length_mm)
+        .transpose()?;
     let plane = oblique_plane(a, &v)?;
     let geometry = match plane {
         Some(p) => slice::SliceGeometry::covering(&v, &p, pixel_mm)?,
@@ -155,7 +165,10 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
             };
             let index = a.index.unwrap_or(v.dims()[axis] / 2);
             if index >= v.dims()[axis] {
-                bail!("--index {index}: the scan has {} slices along that axis", v.dims()[axis]);
+                bail!(
+                    "--index {index}: the scan has {} slices along that axis",
+                    v.dims()[axis]
+                );
             }
             slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
         }
@@ -173,7 +186,11 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
             })
         })
         .transpose()?;
-    let interp = if a.nearest { Interpolation::Nearest } else { Interpolation::Trilinear };
+    let interp = if a.nearest {
+        Interpolation::Nearest
+    } else {
+        Interpolation::Trilinear
+    };
     let img = slice::render_slice(&v, &geometry, interp, slab)?;
     let wl = a.tone.window_for(&img)?;
     let mut rgba = wl.colourize(&img, a.tone.colours.into());
@@ -195,12 +212,20 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
 
 fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
     if let Some(t) = &a.through {
-        let pts: Vec<Vector3<f64>> = t.split(';').map(point3).collect::<Result<_>>().with_context(|| format!("--through {t}"))?;
+        let pts: Vec<Vector3<f64>> = t
+            .split(';')
+            .map(point3)
+            .collect::<Result<_>>()
+            .with_context(|| format!("--through {t}"))?;
         if pts.len() != 3 {
             bail!("--through {t}: give three points separated by ';'");
         }
         let w = |p: &Vector3<f64>| WorldPoint::new(p.x, p.y, p.z);
-        return Ok(Some(Plane::through_points(w(&pts[0]), w(&pts[1]), w(&pts[2]))?));
+        return Ok(Some(Plane::through_points(
+            w(&pts[0]),
+            w(&pts[1]),
+            w(&pts[2]),
+        )?));
     }
     if let Some(n) = &a.normal {
         let n = point3(n).with_context(|| format!("--normal {n}"))?;
@@ -216,7 +241,11 @@ fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
     Ok(None)
 }
 
-fn annotate(img: &RgbaImage, pixel_mm: f64, basis: Option<(&Vector3<f64>, &Vector3<f64>)>) -> Result<RgbaImage> {
+fn annotate(
+    img: &RgbaImage,
+    pixel_mm: f64,
+    basis: Option<(&Vector3<f64>, &Vector3<f64>)>,
+) -> Result<RgbaImage> {
     let mut o = Overlay::new(img)?;
     o.scale_bar(pixel_mm, [255, 255, 255, 255]);
     if let Some((u, v)) = basis {
@@ -252,7 +281,12 @@ pub struct View3dArgs {
     threshold: Option<f64>,
 
     /// Viewing direction by azimuth (about world z, from +x) and elevation, in degrees.
-    #[arg(long, value_name = "AZ,EL", default_value = "30,25", allow_hyphen_values = true)]
+    #[arg(
+        long,
+        value_name = "AZ,EL",
+        default_value = "30,25",
+        allow_hyphen_values = true
+    )]
     orbit: String,
 
     /// Image size in pixels (square).
@@ -278,9 +312,17 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
     let v = a.scan.open()?;
     let o = parse_floats(&a.orbit, 2).with_context(|| format!("--orbit {}", a.orbit))?;
     let dir = orbit_direction(o[0], o[1]);
-    let up = if dir.cross(&Vector3::z()).norm() < 1e-6 { Vector3::y() } else { Vector3::z() };
+    let up = if dir.cross(&Vector3::z()).norm() < 1e-6 {
+        Vector3::y()
+    } else {
+        Vector3::z()
+    };
     let camera = Camera::fit(&v, dir, up, a.size, a.size)?;
-    let quality = if a.coarse { Quality::coarse() } else { Quality::full() };
+    let quality = if a.coarse {
+        Quality::coarse()
+    } else {
+        Quality::full()
+    };
     let rgba = match a.mode {
         ViewMode::Projection => {
             let img = raycast::mip(&v, &camera, MipOptions { quality })?;
@@ -303,8 +345,17 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             s.image
         }
     };
-    let rgba = if a.tone.bare { rgba } else { annotate(&rgba, camera.pixel_mm, None)? };
+    let rgba = if a.tone.bare {
+        rgba
+    } else {
+        annotate(&rgba, camera.pixel_mm, None)?
+    };
     rgba.save_png(&a.output)?;
-    eprintln!("wrote {} ({}x{} px)", a.output.display(), rgba.width, rgba.height);
+    eprintln!(
+        "wrote {} ({}x{} px)",
+        a.output.display(),
+        rgba.width,
+        rgba.height
+    );
     Ok(())
 }
