@@ -13,9 +13,10 @@ PY=${SUTURA_PYTHON:-.venv/bin/python}
 [ -f "$DIR/vol_$TAG.json" ] || "$PY" "$KIT/make_volumes.py" --shape "$N" "$N" "$N" --out "$DIR"
 cargo build --release --example bench_load -q
 OUT=target/bench-io-$TAG.jsonl
+rm -f "$OUT.py"
 : > "$OUT"
 env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "$PY" "$KIT/py_baseline.py" --dir "$DIR" --tag "$TAG" \
-  --repeats 3 --only 'load' --jsonl "$OUT.py" >/dev/null || true
+  --repeats 3 --only '^load' --skip 'get_fdata' --reps load_niigz_dataobj_u16=1 --jsonl "$OUT.py" >/dev/null || true
 declare -A FILES=( [slices]="$DIR/slices_$TAG" [bigtiff]="$DIR/vol_${TAG}_bigtiff.tif"
                    [deflate]="$DIR/vol_${TAG}_deflate.tif" [nii]="$DIR/vol_$TAG.nii" [niigz]="$DIR/vol_$TAG.nii.gz" )
 for k in slices bigtiff deflate nii niigz; do

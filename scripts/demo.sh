@@ -15,9 +15,9 @@ for scan in sample_volumes/*_slices sample_volumes/*.nii.gz; do
   $S info --quiet "${vs[@]}" "$scan" | head -4
   $S slice --quiet "${vs[@]}" "$scan" --plane k -o "$OUT/$name-k.png"
   $S slice --quiet "${vs[@]}" "$scan" --plane j -o "$OUT/$name-j.png"
-  $S view3d --quiet "${vs[@]}" "$scan" --mode surface --orbit 35,30 -o "$OUT/$name-surface.png"
+  $S render --quiet "${vs[@]}" "$scan" --mode surface --orbit 35,30 -o "$OUT/$name-surface.png"
 done
-$S view3d --quiet sample_volumes/HDC-002.nii.gz --mode projection --orbit 90,60 -o "$OUT/HDC-002-projection.png"
+$S render --quiet sample_volumes/HDC-002.nii.gz --mode projection --orbit 90,60 -o "$OUT/HDC-002-projection.png"
 $S slice --quiet sample_volumes/HDC-002.nii.gz --normal 1,0.4,0.3 --slab 150um -o "$OUT/HDC-002-oblique-slab.png"
 $S superimpose sample_volumes/true_landmarks.csv -o "$OUT/shape"
 echo "results in $OUT (PNG views; shape/ holds CSV, JSON, NPY and morphospace.png/.svg)"

@@ -94,12 +94,12 @@ fn slice_view3d_and_convert_write_what_they_say() {
             "slab.png",
         ),
         (
-            vec!["view3d", s, "--mode", "surface", "--size", "128", "-o"],
+            vec!["render", s, "--mode", "surface", "--size", "128", "-o"],
             "surf.png",
         ),
         (
             vec![
-                "view3d",
+                "render",
                 s,
                 "--mode",
                 "projection",

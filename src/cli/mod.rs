@@ -40,7 +40,7 @@ enum Command {
     /// Render a plane (voxel plane, oblique, or thick slab) of a scan to PNG.
     Slice(view::SliceArgs),
     /// Render a 3D view (projection or shaded surface) of a scan to PNG.
-    View3d(view::View3dArgs),
+    Render(view::View3dArgs),
     /// Write the synthetic sample specimens with their true landmarks.
     Sample(sample::SampleArgs),
     /// Superimpose a landmark table (GPA) into shape coordinates, morphospace and disparity.
@@ -152,7 +152,7 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Info(a) => info::run(&a),
         Command::Convert(a) => convert::run(&a),
         Command::Slice(a) => view::run_slice(&a),
-        Command::View3d(a) => view::run_view3d(&a),
+        Command::Render(a) => view::run_view3d(&a),
         Command::Sample(a) => sample::run(&a),
         Command::Superimpose(a) => superimpose::run(&a),
     }

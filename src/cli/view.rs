@@ -1,4 +1,4 @@
-//! `sutura slice` and `sutura view3d`: plane images and CPU 3D views to PNG.
+//! `sutura slice` and `sutura render`: plane images and CPU 3D views to PNG.
 
 use super::ScanArgs;
 use anyhow::{Context, Result, bail};
