@@ -1,4 +1,4 @@
-//! NIfTI load speed: writes a synthetic u16 scan (`SUTURA_BENCH_MB`, default 512 MiB) as `.nii`
+//! `NIfTI` load speed: writes a synthetic u16 scan (`SUTURA_BENCH_MB`, default 512 MiB) as `.nii`
 //! and `.nii.gz`, then times `nifti::open` on each (best of 3) and, when `SUTURA_PYTHON` is set,
 //! nibabel's `np.asanyarray(nib.load(p).dataobj)` on the same files for comparison.
 //!
@@ -70,10 +70,10 @@ fn main() {
             "{name:<14} {gib:.2} GiB: sutura {secs:.3} s ({:.2} GiB/s)",
             gib / secs
         );
-        if let Some(py) = &python {
-            if let Some(nb) = nibabel_secs(py, &p) {
-                print!(", nibabel {nb:.3} s, speed-up {:.1}x", nb / secs);
-            }
+        if let Some(py) = &python
+            && let Some(nb) = nibabel_secs(py, &p)
+        {
+            print!(", nibabel {nb:.3} s, speed-up {:.1}x", nb / secs);
         }
         println!();
     }

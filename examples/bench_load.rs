@@ -1,5 +1,5 @@
 //! Times `sutura::io::open` on one scan, in this fresh process, and prints one JSON line:
-//! median/min/max seconds over the repeats, GB/s of voxel bytes, and peak RSS (VmHWM).
+//! median/min/max seconds over the repeats, GB/s of voxel bytes, and peak RSS (`VmHWM`).
 //!
 //! `cargo run --release --example bench_load -- PATH [REPEATS]`; `scripts/bench_io.sh` runs it
 //! for every file of the Python baseline kit and prints the ratios.

@@ -1,6 +1,6 @@
-//! Slicing and trilinear sampling checked against SciPy.
+//! Slicing and trilinear sampling checked against `SciPy`.
 //!
-//! Reference: `scipy.ndimage.map_coordinates(input, coords, order=1)` (SciPy ndimage,
+//! Reference: `scipy.ndimage.map_coordinates(input, coords, order=1)` (`SciPy` ndimage,
 //! first-order spline = trilinear interpolation between voxel centres), evaluated by
 //! `tests/python/render_map_coordinates.py` at the same voxel coordinates, inside the hull of
 //! voxel centres `[0, n - 1]` where the edge mode plays no part.

@@ -1,7 +1,7 @@
 //! TIFF reading checked against outside sources:
-//! (1) files written by tifffile in every combination that matters (tests/python/tiff_write_refs.py),
+//! (1) files written by tifffile in every combination that matters (`tests/python/tiff_write_refs.py`),
 //! (2) the TIFF test images of Pillow's source distribution, classified by tifffile
-//!     (tests/python/tiff_pillow_refs.py), including Pillow's deliberately malformed files,
+//!     (`tests/python/tiff_pillow_refs.py`), including Pillow's deliberately malformed files,
 //! and a mutation test: truncated and corrupted files must give an error, never a panic.
 
 mod common;

@@ -83,9 +83,14 @@ fn frame(f: &mut Figure, x: &Axis, y: &Axis, x_title: &str, y_title: &str, title
     ] {
         f.line(a, z, Rgba::GREY, 1.0);
     }
-    f.text(((l + r) / 2.0, b + 36.0), x_title, 7.0, Anchor::Middle);
+    f.text(
+        (f64::midpoint(l, r), b + 36.0),
+        x_title,
+        7.0,
+        Anchor::Middle,
+    );
     f.text((l, t - 10.0), y_title, 7.0, Anchor::Start);
-    f.text(((l + r) / 2.0, 18.0), title, 14.0, Anchor::Middle);
+    f.text((f64::midpoint(l, r), 18.0), title, 14.0, Anchor::Middle);
 }
 
 /// A scatter of two score columns coloured by group, each group's convex hull shaded, with a
@@ -179,7 +184,7 @@ pub fn intervals(
     }
     f.line((x.px_lo, bottom), (x.px_hi, bottom), Rgba::GREY, 1.0);
     f.text(
-        ((x.px_lo + x.px_hi) / 2.0, bottom + 36.0),
+        (f64::midpoint(x.px_lo, x.px_hi), bottom + 36.0),
         x_title,
         7.0,
         Anchor::Middle,
@@ -229,8 +234,8 @@ pub fn wireframes(
     let (y0, y1) = span(axes.1);
     let (pw, ph) = (f64::from(w) - 200.0, f64::from(h) - 120.0);
     let scale = (pw / (x1 - x0).max(1e-12)).min(ph / (y1 - y0).max(1e-12));
-    let cx = (x0 + x1) / 2.0;
-    let cy = (y0 + y1) / 2.0;
+    let cx = f64::midpoint(x0, x1);
+    let cy = f64::midpoint(y0, y1);
     let to_px = |p: &[f64; 3]| {
         (
             40.0 + pw / 2.0 + (p[axes.0] - cx) * scale,

@@ -10,7 +10,7 @@ pub struct InfoArgs {
     #[command(flatten)]
     scan: ScanArgs,
 
-    /// Print JSON instead of text (dims, dtype, voxel_size_mm, world_from_voxel as 4x4
+    /// Print JSON instead of text (dims, dtype, `voxel_size_mm`, `world_from_voxel` as 4x4
     /// row-major, min, max, mean, sum over rescaled values, percentiles, notes).
     #[arg(long)]
     json: bool,

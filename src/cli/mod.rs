@@ -50,7 +50,7 @@ enum Command {
 /// How to read a scan; shared by every command that opens one.
 #[derive(Debug, Args, Clone)]
 pub struct ScanArgs {
-    /// The scan: a folder of TIFF slices, a TIFF file, or a NIfTI file.
+    /// The scan: a folder of TIFF slices, a TIFF file, or a `NIfTI` file.
     pub scan: PathBuf,
 
     /// Voxel size for scans that do not record one (TIFF), overriding any resolution tags:
@@ -112,22 +112,22 @@ impl ScanArgs {
         if let Some(b) = &bar {
             b.finish_and_clear();
         }
-        if let Some(s) = voxel_size_mm {
-            if io::detect(&self.scan)? == io::Format::Nifti {
-                // NIfTI carries its own geometry; the override rescales its axes
-                let lin = volume.world_from_voxel().linear();
-                let cols = volume.spacing_mm();
-                let mut new = lin;
-                for a in 0..3 {
-                    let c = lin.column(a) * (s[a] / cols[a]);
-                    new.set_column(a, &c);
-                }
-                let t = volume.world_from_voxel().translation();
-                volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
-                volume.notes.push(format!(
-                    "voxel size overridden from the command line: {s:?} mm"
-                ));
+        if let Some(s) = voxel_size_mm
+            && io::detect(&self.scan)? == io::Format::Nifti
+        {
+            // NIfTI carries its own geometry; the override rescales its axes
+            let lin = volume.world_from_voxel().linear();
+            let cols = volume.spacing_mm();
+            let mut new = lin;
+            for a in 0..3 {
+                let c = lin.column(a) * (s[a] / cols[a]);
+                new.set_column(a, &c);
             }
+            let t = volume.world_from_voxel().translation();
+            volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
+            volume.notes.push(format!(
+                "voxel size overridden from the command line: {s:?} mm"
+            ));
         }
         Ok(volume)
     }

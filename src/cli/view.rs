@@ -155,23 +155,22 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
         .map(crate::geometry::parse_length_mm)
         .transpose()?;
     let plane = oblique_plane(a, &v)?;
-    let geometry = match plane {
-        Some(p) => slice::SliceGeometry::covering(&v, &p, pixel_mm)?,
-        None => {
-            let axis = match a.plane {
-                Axis::I => 0,
-                Axis::J => 1,
-                Axis::K => 2,
-            };
-            let index = a.index.unwrap_or(v.dims()[axis] / 2);
-            if index >= v.dims()[axis] {
-                bail!(
-                    "--index {index}: the scan has {} slices along that axis",
-                    v.dims()[axis]
-                );
-            }
-            slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
+    let geometry = if let Some(p) = plane {
+        slice::SliceGeometry::covering(&v, &p, pixel_mm)?
+    } else {
+        let axis = match a.plane {
+            Axis::I => 0,
+            Axis::J => 1,
+            Axis::K => 2,
+        };
+        let index = a.index.unwrap_or(v.dims()[axis] / 2);
+        if index >= v.dims()[axis] {
+            bail!(
+                "--index {index}: the scan has {} slices along that axis",
+                v.dims()[axis]
+            );
         }
+        slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
     };
     let slab = a
         .slab
@@ -330,12 +329,11 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             wl.colourize(&img, a.tone.colours.into())
         }
         ViewMode::Surface => {
-            let threshold = match a.threshold {
-                Some(t) => t,
-                None => {
-                    let p = v.percentiles(&[50.0, 99.5]);
-                    0.5 * (p[0] + p[1])
-                }
+            let threshold = if let Some(t) = a.threshold {
+                t
+            } else {
+                let p = v.percentiles(&[50.0, 99.5]);
+                0.5 * (p[0] + p[1])
             };
             let bricks = raycast::Bricks::new(&v);
             let mut opts = SurfaceOptions::new(threshold);

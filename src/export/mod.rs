@@ -1,4 +1,4 @@
-//! Open, documented file formats in and out: CSV (long and wide), JSON, NumPy `.npy`.
+//! Open, documented file formats in and out: CSV (long and wide), JSON, `NumPy` `.npy`.
 //!
 //! Every file is written atomically ([`write_atomic`]): to a temporary file in the same folder,
 //! flushed to disk, then renamed over the target, so a crash never leaves half a file where a
@@ -81,7 +81,7 @@ pub fn write_atomic(
     result.map_err(|e| ExportError::os(path, e))
 }
 
-/// Writes an f64 array of the given shape (C order) as a NumPy `.npy` file.
+/// Writes an f64 array of the given shape (C order) as a `NumPy` `.npy` file.
 pub fn write_npy_f64(path: &Path, shape: &[u64], data: &[f64]) -> Result<(), ExportError> {
     let n: u64 = shape.iter().product();
     if n != data.len() as u64 {

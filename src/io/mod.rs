@@ -188,11 +188,11 @@ impl<'a> Progress<'a> {
         if self.cancelled.load(Ordering::Relaxed) {
             return false;
         }
-        if let Some(cb) = self.callback {
-            if !cb(done, total) {
-                self.cancelled.store(true, Ordering::Relaxed);
-                return false;
-            }
+        if let Some(cb) = self.callback
+            && !cb(done, total)
+        {
+            self.cancelled.store(true, Ordering::Relaxed);
+            return false;
         }
         true
     }

@@ -304,6 +304,36 @@ impl Overlay {
     }
 }
 
+/// Width in pixels of `text` in the bitmap font at `scale`.
+#[must_use]
+pub fn text_width_px(text: &str, scale: u32) -> u32 {
+    (text_width(text) as u32) * scale.max(1)
+}
+
+/// Draws `text` (no shadow) with its top-left at `(x, y)` onto a pixmap, each font pixel
+/// `scale`×`scale` image pixels.
+pub fn draw_text(pixmap: &mut Pixmap, x: f32, y: f32, text: &str, scale: usize, colour: Colour) {
+    let s = scale.max(1) as f32;
+    let mut pb = PathBuilder::new();
+    for (i, ch) in text.chars().enumerate() {
+        let x0 = x + (i * ADVANCE) as f32 * s;
+        for (row, bits) in glyph(ch).iter().enumerate() {
+            for col in 0..GLYPH_W {
+                if bits & (1 << (GLYPH_W - 1 - col)) != 0
+                    && let Some(r) = Rect::from_xywh(x0 + col as f32 * s, y + row as f32 * s, s, s)
+                {
+                    pb.push_rect(r);
+                }
+            }
+        }
+    }
+    if let Some(path) = pb.finish() {
+        let mut p = paint(colour);
+        p.anti_alias = false;
+        pixmap.fill_path(&path, &p, FillRule::Winding, Transform::identity(), None);
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -382,36 +412,5 @@ mod tests {
         );
         let out2 = o.finish();
         assert!(count(&out2, [255, 255, 255, 255]) > 20);
-    }
-}
-
-/// Width in pixels of `text` in the bitmap font at `scale`.
-#[must_use]
-pub fn text_width_px(text: &str, scale: u32) -> u32 {
-    (text_width(text) as u32) * scale.max(1)
-}
-
-/// Draws `text` (no shadow) with its top-left at `(x, y)` onto a pixmap, each font pixel
-/// `scale`×`scale` image pixels.
-pub fn draw_text(pixmap: &mut Pixmap, x: f32, y: f32, text: &str, scale: usize, colour: Colour) {
-    let s = scale.max(1) as f32;
-    let mut pb = PathBuilder::new();
-    for (i, ch) in text.chars().enumerate() {
-        let x0 = x + (i * ADVANCE) as f32 * s;
-        for (row, bits) in glyph(ch).iter().enumerate() {
-            for col in 0..GLYPH_W {
-                if bits & (1 << (GLYPH_W - 1 - col)) != 0 {
-                    if let Some(r) = Rect::from_xywh(x0 + col as f32 * s, y + row as f32 * s, s, s)
-                    {
-                        pb.push_rect(r);
-                    }
-                }
-            }
-        }
-    }
-    if let Some(path) = pb.finish() {
-        let mut p = paint(colour);
-        p.anti_alias = false;
-        pixmap.fill_path(&path, &p, FillRule::Winding, Transform::identity(), None);
     }
 }

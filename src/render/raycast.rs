@@ -391,7 +391,7 @@ fn column_range(x0: f64, g: f64, lim: f64, width: usize) -> Option<(usize, usize
     };
     let lo = lo.max(0.0);
     let hi = hi.min(width as f64);
-    (lo < hi).then(|| (lo as usize, hi as usize))
+    (lo < hi).then_some((lo as usize, hi as usize))
 }
 
 /// Bilinear interpolation within one voxel plane, with the edge rules of trilinear sampling.

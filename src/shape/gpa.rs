@@ -118,7 +118,7 @@ pub(crate) fn proper_rotation(h: &[f64], m: usize) -> Result<([f64; 9], f64), Sh
         let (u, vt) = (svd.u.expect("u requested"), svd.v_t.expect("v requested"));
         let s = svd.singular_values;
         let (mut u, d) = correct_sign(u, u.determinant() * vt.determinant());
-        let last = if s[0] < s[1] { 0 } else { 1 };
+        let last = usize::from(s[0] >= s[1]);
         if d < 0.0 {
             u.column_mut(last).neg_mut();
         }

@@ -170,7 +170,7 @@ pub struct Allometry {
 /// Multivariate least-squares regression of `shape` (`n × p` tangent coordinates) on
 /// `ln(centroid_sizes)` (Monteiro 1999, *Syst. Biol.* 48:192–199; R² as the ratio of the model
 /// to the total sum of squares, Goodall 1991, *J. R. Stat. Soc. B* 53:285–339). With
-/// `permutations > 0` the sizes are permuted against the shapes (seeded ChaCha8, stream per
+/// `permutations > 0` the sizes are permuted against the shapes (seeded `ChaCha8`, stream per
 /// permutation, so results do not depend on the thread count) to give a p-value.
 pub fn allometry(
     shape: &DMatrix<f64>,

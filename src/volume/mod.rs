@@ -5,7 +5,7 @@
 //! applied on every read, never baked into a wider copy: a 2 GiB 16-bit scan takes 2 GiB.
 //!
 //! Memory order: `i` fastest, then `j`, then `k` (`index = i + nx·(j + ny·k)`), the order of
-//! NIfTI and of a TIFF stack of `k` slices of `ny` rows of `nx` pixels.
+//! `NIfTI` and of a TIFF stack of `k` slices of `ny` rows of `nx` pixels.
 //!
 //! Submodules: [`buffer`] (the storage), [`stats`] (min/max/mean/sum, percentiles, histogram),
 //! [`sample`] (nearest and trilinear sampling at world points).
@@ -162,7 +162,7 @@ pub struct Rescale {
 }
 
 impl Rescale {
-    /// `None` for the identity, or when the slope is 0 or not finite (NIfTI's "no scaling").
+    /// `None` for the identity, or when the slope is 0 or not finite (`NIfTI`'s "no scaling").
     #[must_use]
     pub fn new(slope: f64, intercept: f64) -> Option<Self> {
         if slope == 0.0 || !slope.is_finite() || !intercept.is_finite() {

@@ -98,7 +98,9 @@ mod tests {
         for k in 0..3 {
             for j in 0..4 {
                 for i in 0..5 {
-                    data.push((2.0 * i as f64 + 3.0 * j as f64 - 5.0 * k as f64) as f32);
+                    data.push(
+                        (2.0 * f64::from(i) + 3.0 * f64::from(j) - 5.0 * f64::from(k)) as f32,
+                    );
                 }
             }
         }

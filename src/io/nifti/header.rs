@@ -2,7 +2,7 @@
 //! serialising (little-endian), and the standard's three ways to place voxels in the world.
 //!
 //! Field offsets and meanings follow the NIfTI-1 standard's `nifti1.h` and the NIfTI-2
-//! `nifti2.h` (reference: NIfTI Data Format Working Group, nifti1.h / nifti2.h comments).
+//! `nifti2.h` (reference: `NIfTI` Data Format Working Group, nifti1.h / nifti2.h comments).
 //! Every value is widened to f64 / i64 so the rest of the loader does not care which
 //! version the file is.
 
@@ -55,7 +55,7 @@ pub struct Header {
     pub descrip: String,
 }
 
-/// Why header bytes are not a NIfTI header.
+/// Why header bytes are not a `NIfTI` header.
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum HeaderError {
     #[error("file is {0} bytes long, too short for a NIfTI header")]
@@ -409,7 +409,7 @@ pub fn quatern_to_linear(bcd: [f64; 3], spacing: [f64; 3], qfac: f64) -> Matrix3
 /// `(quaternion (b, c, d), spacing, qfac)`, or `None` when the columns are not orthogonal
 /// (relative tolerance 1e-6, common practice) or one has zero length.
 ///
-/// reference: nifti1_io.c `nifti_mat44_to_quatern`: spacing = column norms; a negative
+/// reference: `nifti1_io.c` `nifti_mat44_to_quatern`: spacing = column norms; a negative
 /// determinant gives `qfac = -1` and negates the third column; the quaternion comes from the
 /// rotation by the trace / largest-diagonal branches, with `a ≥ 0`.
 #[must_use]

@@ -201,7 +201,7 @@ fn read_prefix(path: &Path) -> Result<Vec<u8>, IoError> {
     Ok(buf)
 }
 
-/// Reads and parses the header of a NIfTI file (for a pair, give either file).
+/// Reads and parses the header of a `NIfTI` file (for a pair, give either file).
 pub fn read_header(path: &Path) -> Result<Header, IoError> {
     let files = locate(path);
     let bytes = read_prefix(&files.header)?;
@@ -357,7 +357,7 @@ fn plan(
         }
         (h.qform_matrix(), "qform")
     } else {
-        if h.pixdim[1..4].iter().any(|&d| d == 0.0) {
+        if h.pixdim[1..4].contains(&0.0) {
             notes.push(format!(
                 "pixdim {:?} has a zero voxel size; 1 used for it",
                 &h.pixdim[1..4]

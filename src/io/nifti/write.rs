@@ -3,7 +3,7 @@
 //! Header choices: `sform_code = qform_code = 1` (`NIFTI_XFORM_SCANNER_ANAT`: the scan's own
 //! world frame); the sform is `world_from_voxel`, the qform its rotation as a quaternion with
 //! `qfac = pixdim[0] = -1` for a left-handed grid, or `qform_code = 0` when the linear part has
-//! shear (reference: nifti1.h, METHOD 2/3; nifti1_io.c `nifti_mat44_to_quatern`);
+//! shear (reference: nifti1.h, METHOD 2/3; `nifti1_io.c` `nifti_mat44_to_quatern`);
 //! `xyzt_units = 2` (mm); `vox_offset = 352`; the rescale as `scl_slope` / `scl_inter`.
 //!
 //! Precision: NIfTI-1 stores srow, quaternion, pixdim and scl_* as float32, so the affine and
@@ -25,7 +25,7 @@ const WRITE_CHUNK_BYTES: usize = 8 << 20;
 #[must_use]
 pub fn header_for(volume: &Volume) -> Header {
     let dims = volume.dims();
-    let version = if dims.iter().all(|&d| d <= i16::MAX as usize) {
+    let version = if dims.iter().all(|&d| i16::try_from(d).is_ok()) {
         Version::Nifti1
     } else {
         Version::Nifti2
@@ -77,7 +77,7 @@ pub fn header_for(volume: &Volume) -> Header {
     }
 }
 
-/// Writes `volume` as a single-file NIfTI (`.nii`, or gzip-compressed when the name ends in
+/// Writes `volume` as a single-file `NIfTI` (`.nii`, or gzip-compressed when the name ends in
 /// `.gz`). See the module docs for the header it writes and its precision.
 pub fn write(volume: &Volume, path: &Path) -> Result<(), IoError> {
     let name = path

@@ -27,7 +27,7 @@ fn stack_round_trips_all_types_and_voxel_size() {
             dims,
             a,
             (0..n)
-                .map(|i| (((i * 97) % 60000) as i32 - 30000) as i16)
+                .map(|i| (((i * 97) % 60000) - 30000) as i16)
                 .collect(),
         )
         .unwrap(),

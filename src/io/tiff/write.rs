@@ -1,4 +1,4 @@
-//! Writing volumes as TIFF: a folder of single-page slices, or one multi-page file (BigTIFF when
+//! Writing volumes as TIFF: a folder of single-page slices, or one multi-page file (`BigTIFF` when
 //! it would pass 4 GiB). Samples keep their stored type (`u8`, `u16`, `i16`, `f32`), so the
 //! voxels read back exactly. The voxel size goes into the resolution tags in pixels per
 //! centimetre (x and y only; TIFF has no slice spacing), so it reads back to about 7 significant
@@ -67,7 +67,7 @@ pub fn write_stack_with(
     Ok(notes(volume))
 }
 
-/// Writes all slices as the pages of one file (BigTIFF when the data pass 4 GiB).
+/// Writes all slices as the pages of one file (`BigTIFF` when the data pass 4 GiB).
 pub fn write_multipage(
     volume: &Volume,
     path: &Path,
