@@ -10,6 +10,7 @@ pub mod export;
 pub mod geometry;
 pub mod io;
 pub mod landmarks;
+pub mod measure;
 pub mod render;
 pub mod shape;
 pub mod synth;

@@ -33,8 +33,13 @@ pub enum FillArg {
 
 #[derive(Debug, Args)]
 pub struct SuperimposeArgs {
-    /// Landmark table, long CSV: specimen, [trial], landmark, x, y, [z], [state], [group].
+    /// Landmark table, long CSV: specimen, [trial], landmark, x, y, [z], [state], [group];
+    /// or a Sutura project file (its landmarks; those not digitised count as missing).
     table: PathBuf,
+
+    /// With a project: the group label that names the groups compared.
+    #[arg(long, default_value = "group")]
+    group_key: String,
 
     /// Output folder.
     #[arg(short, long)]
@@ -104,8 +109,34 @@ fn to_sample(
     Ok((filled.sample, filled.estimated))
 }
 
+/// Reads the input: a project file (JSON, starts with `{`) or a long CSV.
+fn read_input(a: &SuperimposeArgs) -> Result<LandmarkTable> {
+    let mut head = [0u8; 64];
+    let n = {
+        use std::io::Read;
+        std::fs::File::open(&a.table)
+            .and_then(|mut f| f.read(&mut head))
+            .with_context(|| a.table.display().to_string())?
+    };
+    if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
+        return Ok(LandmarkTable::read_csv(&a.table)?);
+    }
+    let project = crate::landmarks::Project::load(&a.table)?;
+    let e = crate::export::project::flatten(&project, Some(&a.group_key), false);
+    if e.not_digitised > 0 {
+        eprintln!(
+            "note: {} landmarks are not digitised yet; they are treated as missing",
+            e.not_digitised
+        );
+    }
+    if e.table.observations.is_empty() {
+        bail!("{}: no trials to superimpose", a.table.display());
+    }
+    Ok(e.table)
+}
+
 pub fn run(a: &SuperimposeArgs) -> Result<()> {
-    let table = LandmarkTable::read_csv(&a.table)?;
+    let table = read_input(a)?;
     std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;
     let gopts = GpaOptions {
         fit: match a.fit {

@@ -4,10 +4,14 @@
 //! flushed to disk, then renamed over the target, so a crash never leaves half a file where a
 //! good one stood; [`write_atomic_keeping_backup`] also keeps the replaced file as a backup. The README documents every column written here.
 //!
-//! [`table`] reads and writes landmark tables (the long CSV that every other tool can make).
+//! [`table`] reads and writes landmark tables (the long CSV that every other tool can make);
+//! [`project`] flattens a project's landmarks into tables, JSON, `.npy` with an index file, and
+//! PLY point sets ([`ply`]).
 //!
 //! Must not import `gui`.
 
+pub mod ply;
+pub mod project;
 pub mod table;
 
 use npyz::WriterBuilder;

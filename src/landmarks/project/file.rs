@@ -74,6 +74,8 @@ pub enum ProjectError {
         #[source]
         source: SchemeError,
     },
+    #[error("{}: another program is changing this project (it holds {}); try again when it is done", path.display(), lock_path(path).display())]
+    Busy { path: PathBuf },
     #[error(transparent)]
     Write(#[from] ExportError),
 }
@@ -94,6 +96,46 @@ fn with_suffix(p: &Path, suffix: &str) -> PathBuf {
     let mut s = p.as_os_str().to_owned();
     s.push(suffix);
     PathBuf::from(s)
+}
+
+/// `.NAME.lock`: the file a writer holds locked while it reads, changes and saves the project.
+#[must_use]
+pub fn lock_path(project_file: &Path) -> PathBuf {
+    let name = project_file
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    super::project_dir(project_file).join(format!(".{name}.lock"))
+}
+
+/// An exclusive advisory lock on a project, held until dropped, so two programs (the command
+/// line and the GUI, or two scripts) cannot both read, change and save it and lose one's work.
+#[derive(Debug)]
+pub struct ProjectLock {
+    _file: std::fs::File,
+}
+
+impl ProjectLock {
+    /// Takes the lock, or fails at once if another program holds it.
+    pub fn acquire(project_file: &Path) -> Result<Self, ProjectError> {
+        let path = lock_path(project_file);
+        let file = std::fs::OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|source| ProjectError::Os {
+                path: path.clone(),
+                source,
+            })?;
+        match file.try_lock() {
+            Ok(()) => Ok(Self { _file: file }),
+            Err(std::fs::TryLockError::WouldBlock) => Err(ProjectError::Busy {
+                path: project_file.to_owned(),
+            }),
+            Err(std::fs::TryLockError::Error(source)) => Err(ProjectError::Os { path, source }),
+        }
+    }
 }
 
 /// What lies in the autosave file beside a project.

@@ -31,8 +31,8 @@ pub mod file;
 
 pub use edit::{Edit, EditError};
 pub use file::{
-    AutosaveStatus, FORMAT_NAME, FORMAT_VERSION, ProjectError, autosave_path, autosave_status,
-    backup_path,
+    AutosaveStatus, FORMAT_NAME, FORMAT_VERSION, ProjectError, ProjectLock, autosave_path,
+    autosave_status, backup_path, lock_path,
 };
 
 use serde::{Deserialize, Serialize};
@@ -40,9 +40,12 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 use super::curve;
-use super::fingerprint::Fingerprint;
+use super::fingerprint::{Fingerprint, Mismatch};
+use super::scan::open_scan;
 use super::scheme::{Scheme, SchemeError, is_valid_id, sha256_hex};
 use crate::geometry::{Affine3, VoxelPoint, WorldPoint};
+use crate::io::{self, Format, IoError, Progress};
+use crate::volume::Volume;
 
 /// The scheme a project was made with: its text verbatim, so the project file stands alone.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -82,6 +85,77 @@ pub struct ScanRecord {
 }
 
 impl ScanRecord {
+    /// Opens a scan for a new specimen and records it: path relative to `project_file`'s
+    /// folder (which must exist), voxel size (`voxel_size_mm` if given, else the file's own;
+    /// TIFF scans need it given, since TIFF records no slice spacing), placement, fingerprint.
+    pub fn create(
+        project_file: &Path,
+        scan: &Path,
+        voxel_size_mm: Option<[f64; 3]>,
+        progress: &Progress<'_>,
+    ) -> Result<(Self, Volume), IoError> {
+        if voxel_size_mm.is_none() && io::detect(scan)? != Format::Nifti {
+            return Err(IoError::usage(
+                scan,
+                "a TIFF scan records no reliable voxel size (and no slice spacing): give it, \
+                 e.g. 12um or 12um,12um,30um",
+            ));
+        }
+        let volume = open_scan(scan, voxel_size_mm, progress)?;
+        let fingerprint = Fingerprint::of(scan, &volume)?;
+        let path =
+            relative_path(&project_dir(project_file), scan).map_err(|e| IoError::os(scan, e))?;
+        let record = Self {
+            path,
+            voxel_size_mm: volume.spacing_mm(),
+            voxel_size_source: if voxel_size_mm.is_some() {
+                VoxelSizeSource::User
+            } else {
+                VoxelSizeSource::File
+            },
+            world_from_voxel: *volume.world_from_voxel(),
+            fingerprint,
+        };
+        Ok((record, volume))
+    }
+
+    /// Opens the recorded scan with the recorded voxel size and compares it with the record:
+    /// the fingerprint and the placement (`world_from_voxel`). Returns the volume and, if it is
+    /// not the scan that was recorded, what differs.
+    pub fn open(
+        &self,
+        project_file: &Path,
+        progress: &Progress<'_>,
+    ) -> Result<(Volume, Option<Mismatch>), IoError> {
+        let path = self.resolve(project_file);
+        let files = self.fingerprint.check_files(&path)?;
+        let volume = open_scan(&path, self.voxel_size_override(), progress)?;
+        let mut differences: Vec<String> = files.map(|m| m.differences).unwrap_or_default();
+        if let Some(m) = self.fingerprint.check_volume(&path, &volume) {
+            differences.extend(m.differences);
+        }
+        let (a, b) = (
+            volume.world_from_voxel().rows(),
+            self.world_from_voxel.rows(),
+        );
+        let worst = (0..4)
+            .flat_map(|r| (0..4).map(move |c| (r, c)))
+            .map(|(r, c)| (a[r][c] - b[r][c]).abs())
+            .fold(0.0, f64::max);
+        if worst > 1e-9 {
+            differences.push(format!(
+                "placement (world_from_voxel) differs from the record by up to {worst:.3e} mm"
+            ));
+        }
+        let mismatch = (!differences.is_empty()).then_some(Mismatch { path, differences });
+        Ok((volume, mismatch))
+    }
+
+    /// Compares the scan's files with the record without loading it (sizes and header hashes).
+    pub fn check_files(&self, project_file: &Path) -> Result<Option<Mismatch>, IoError> {
+        self.fingerprint.check_files(&self.resolve(project_file))
+    }
+
     /// The scan path resolved against the project file's folder.
     #[must_use]
     pub fn resolve(&self, project_file: &Path) -> PathBuf {
@@ -345,7 +419,7 @@ impl Specimen {
 
 /// How far a trial has got.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
-pub struct Progress {
+pub struct TrialProgress {
     pub landmarks_total: usize,
     pub placed: usize,
     pub estimated: usize,
@@ -355,7 +429,7 @@ pub struct Progress {
     pub curves_done: usize,
 }
 
-impl Progress {
+impl TrialProgress {
     /// Landmarks with a decision (placed, estimated or missing).
     #[must_use]
     pub const fn landmarks_done(&self) -> usize {
@@ -414,12 +488,12 @@ impl Project {
 
     /// How far a trial has got, or `None` if there is no such specimen or trial.
     #[must_use]
-    pub fn progress(&self, specimen: &str, trial: &str) -> Option<Progress> {
+    pub fn progress(&self, specimen: &str, trial: &str) -> Option<TrialProgress> {
         let t = self.specimen(specimen)?.trial(trial)?;
-        let mut p = Progress {
+        let mut p = TrialProgress {
             landmarks_total: self.scheme.landmarks.len(),
             curves_total: self.scheme.curves.len(),
-            ..Progress::default()
+            ..TrialProgress::default()
         };
         for l in &t.landmarks {
             match l.state {

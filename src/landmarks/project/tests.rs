@@ -635,3 +635,17 @@ fn relative_paths() {
         "{v:?}"
     );
 }
+
+#[test]
+fn a_second_writer_is_turned_away() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("p.json");
+    let first = ProjectLock::acquire(&path).unwrap();
+    let e = ProjectLock::acquire(&path).unwrap_err().to_string();
+    assert!(
+        e.contains("another program is changing this project"),
+        "{e}"
+    );
+    drop(first);
+    ProjectLock::acquire(&path).unwrap();
+}

@@ -1,0 +1,520 @@
+//! `sutura landmark …` and `sutura curve …`: digitise from the command line.
+//!
+//! Positions are given in world millimetres (`--world-mm X,Y,Z`, the frame every position is
+//! stored in) or in continuous voxel coordinates of the specimen's scan (`--voxel I,J,K`, voxel
+//! centres at integers), converted with the `world_from_voxel` the project recorded. A
+//! position outside the scan's grid is refused (a unit slip, µm for mm, lands far outside).
+//!
+//! The trial is `--trial ID`, else the specimen's last trial; a specimen with no trial gets
+//! trial `1` on its first landmark, by `--operator` (default: the `USER` environment variable).
+
+#![allow(
+    clippy::doc_markdown,
+    reason = "clap doc comments are --help text, where backticks would show literally"
+)]
+
+use std::fmt::Write as _;
+
+use anyhow::{Context, Result, bail};
+use clap::{Args, Subcommand, ValueEnum};
+use std::path::PathBuf;
+
+use super::project::{Session, TimeArgs, load};
+use crate::landmarks::project::{Edit, LandmarkState, Method, Project, Trial};
+
+#[derive(Debug, Subcommand)]
+pub enum LandmarkCommand {
+    /// Place a landmark at a position (world mm or voxel coordinates).
+    Set(SetArgs),
+    /// Mark a landmark missing on this specimen (absent or broken).
+    Missing(MissingArgs),
+    /// Forget a landmark (back to not digitised).
+    Clear(TargetArgs),
+    /// Set or remove (empty text) the note of a digitised landmark.
+    Note(NoteArgs),
+    /// List the landmarks of a project, a specimen or a trial, with voxel coordinates.
+    List(ListArgs),
+}
+
+#[derive(Debug, Subcommand)]
+pub enum CurveCommand {
+    /// Set the control points traced along a curve; its semilandmarks are resampled at equal
+    /// arc length between its anchor landmarks.
+    Trace(TraceArgs),
+    /// Forget a traced curve.
+    Clear(CurveTarget),
+}
+
+/// Which landmark of which trial.
+#[derive(Debug, Args)]
+pub struct TargetArgs {
+    /// The project file.
+    pub project: PathBuf,
+    /// The specimen id.
+    pub specimen: String,
+    /// The landmark id (as in the scheme).
+    pub landmark: String,
+    /// The trial (default: the specimen's last trial).
+    #[arg(long)]
+    pub trial: Option<String>,
+    /// Operator of the trial created when the specimen has none yet (default: $USER).
+    #[arg(long)]
+    pub operator: Option<String>,
+}
+
+/// A position: world mm or voxel coordinates.
+#[derive(Debug, Args)]
+#[group(required = true, multiple = false)]
+pub struct PositionArgs {
+    /// World position in millimetres, `X,Y,Z`.
+    #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
+    pub world_mm: Option<String>,
+    /// Continuous voxel coordinates `I,J,K` of the specimen's scan (voxel centres at integers).
+    #[arg(long, value_name = "I,J,K", allow_hyphen_values = true)]
+    pub voxel: Option<String>,
+}
+
+#[derive(Clone, Copy, Debug, ValueEnum)]
+pub enum MethodArg {
+    /// Typed coordinates.
+    Typed,
+    /// Read off a plane view.
+    Slice,
+    /// Found on the surface (see `landmark pick` for picking along a ray).
+    Surface,
+    /// Estimated, not seen (state `estimated`).
+    Estimated,
+}
+
+impl From<MethodArg> for Method {
+    fn from(m: MethodArg) -> Self {
+        match m {
+            MethodArg::Typed => Self::Typed,
+            MethodArg::Slice => Self::Slice,
+            MethodArg::Surface => Self::Surface,
+            MethodArg::Estimated => Self::Estimated,
+        }
+    }
+}
+
+#[derive(Debug, Args)]
+pub struct SetArgs {
+    #[command(flatten)]
+    pub target: TargetArgs,
+    #[command(flatten)]
+    pub position: PositionArgs,
+    /// How the position was obtained.
+    #[arg(long, value_enum, default_value = "typed")]
+    pub method: MethodArg,
+    /// A note to keep with the landmark.
+    #[arg(long)]
+    pub note: Option<String>,
+    #[command(flatten)]
+    pub time: TimeArgs,
+}
+
+#[derive(Debug, Args)]
+pub struct MissingArgs {
+    #[command(flatten)]
+    target: TargetArgs,
+    /// Why it is missing (kept as the landmark's note).
+    #[arg(long)]
+    note: Option<String>,
+    #[command(flatten)]
+    time: TimeArgs,
+}
+
+#[derive(Debug, Args)]
+pub struct NoteArgs {
+    #[command(flatten)]
+    target: TargetArgs,
+    /// The note; an empty text removes it.
+    text: String,
+}
+
+#[derive(Debug, Args)]
+pub struct ListArgs {
+    /// The project file.
+    project: PathBuf,
+    /// Only this specimen.
+    #[arg(long)]
+    specimen: Option<String>,
+    /// Only this trial.
+    #[arg(long)]
+    trial: Option<String>,
+}
+
+#[derive(Debug, Args)]
+pub struct CurveTarget {
+    /// The project file.
+    project: PathBuf,
+    /// The specimen id.
+    specimen: String,
+    /// The curve id (as in the scheme).
+    curve: String,
+    /// The trial (default: the specimen's last trial).
+    #[arg(long)]
+    trial: Option<String>,
+}
+
+#[derive(Debug, Args)]
+pub struct TraceArgs {
+    #[command(flatten)]
+    target: CurveTarget,
+    /// The control points of one segment (between two consecutive anchors), in tracing order,
+    /// as `X,Y,Z;X,Y,Z;…` (empty for a straight segment). Give it once per segment, in order.
+    #[arg(long = "segment", value_name = "POINTS", allow_hyphen_values = true)]
+    segments: Vec<String>,
+    /// The points are voxel coordinates `I,J,K` instead of world mm.
+    #[arg(long)]
+    voxel: bool,
+    #[command(flatten)]
+    time: TimeArgs,
+}
+
+/// Parses `A,B,C` into three finite numbers.
+pub fn triple(text: &str, what: &str) -> Result<[f64; 3]> {
+    let v: Vec<f64> = text
+        .split(',')
+        .map(|s| s.trim().parse::<f64>().ok().filter(|x| x.is_finite()))
+        .collect::<Option<_>>()
+        .with_context(|| format!("{what} '{text}': not three numbers"))?;
+    match v.as_slice() {
+        [a, b, c] => Ok([*a, *b, *c]),
+        _ => bail!("{what} '{text}': give three numbers separated by commas"),
+    }
+}
+
+/// The trial to work on: `--trial`, else the last one; a specimen without trials gets trial
+/// `1` (created here) when `create` is set.
+pub fn resolve_trial(
+    session: &mut Session,
+    specimen: &str,
+    trial: Option<&str>,
+    operator: Option<&str>,
+    create: bool,
+    time: &TimeArgs,
+) -> Result<String> {
+    let s = session
+        .project
+        .specimen(specimen)
+        .with_context(|| format!("no specimen '{specimen}' in {}", session.path.display()))?;
+    if let Some(t) = trial {
+        if s.trial(t).is_none() {
+            bail!(
+                "specimen {specimen} has no trial '{t}' (trials: {}); start one with `sutura trial new`",
+                list_or_none(s.trials.iter().map(|t| t.id.as_str()))
+            );
+        }
+        return Ok(t.to_owned());
+    }
+    if let Some(last) = s.trials.last() {
+        return Ok(last.id.clone());
+    }
+    if !create {
+        bail!("specimen {specimen} has no trials yet");
+    }
+    let operator = operator
+        .map(str::to_owned)
+        .or_else(|| std::env::var("USER").ok())
+        .unwrap_or_else(|| "unknown".to_owned());
+    session.apply(Edit::AddTrial {
+        specimen: specimen.to_owned(),
+        trial: Box::new(Trial::new("1", &operator, time.timestamp()?)),
+        index: None,
+    })?;
+    eprintln!("{specimen}: started trial 1 by {operator}");
+    Ok("1".to_owned())
+}
+
+fn list_or_none<'a>(items: impl Iterator<Item = &'a str>) -> String {
+    let v: Vec<&str> = items.collect();
+    if v.is_empty() {
+        "none".into()
+    } else {
+        v.join(", ")
+    }
+}
+
+/// The world position of `--world-mm` / `--voxel` for a specimen, refused outside its scan.
+pub fn position(project: &Project, specimen: &str, p: &PositionArgs) -> Result<[f64; 3]> {
+    let s = project
+        .specimen(specimen)
+        .with_context(|| format!("no specimen '{specimen}'"))?;
+    let world = match (&p.world_mm, &p.voxel) {
+        (Some(w), _) => triple(w, "--world-mm")?,
+        (None, Some(v)) => s.scan.world_from_voxel_point(triple(v, "--voxel")?),
+        (None, None) => bail!("give --world-mm X,Y,Z or --voxel I,J,K"),
+    };
+    if !s.scan.contains(world) {
+        let v = s.scan.voxel_from_world_point(world);
+        bail!(
+            "{specimen}: {world:?} mm is outside the scan (voxel {:.1}, {:.1}, {:.1} of {:?}); \
+             positions are world millimetres",
+            v[0],
+            v[1],
+            v[2],
+            s.scan.fingerprint.dims
+        );
+    }
+    Ok(world)
+}
+
+pub fn run_landmark(c: &LandmarkCommand) -> Result<()> {
+    match c {
+        LandmarkCommand::Set(a) => run_set(a),
+        LandmarkCommand::Missing(a) => run_missing(a),
+        LandmarkCommand::Clear(a) => run_clear(a),
+        LandmarkCommand::Note(a) => run_note(a),
+        LandmarkCommand::List(a) => run_list(a),
+    }
+}
+
+pub fn run_curve(c: &CurveCommand) -> Result<()> {
+    match c {
+        CurveCommand::Trace(a) => run_trace(a),
+        CurveCommand::Clear(a) => run_curve_clear(a),
+    }
+}
+
+/// Places a landmark at a world position in one session (shared with `landmark pick`).
+pub fn place(
+    t: &TargetArgs,
+    time: &TimeArgs,
+    world: impl FnOnce(&Project) -> Result<[f64; 3]>,
+    method: Method,
+    note: Option<&str>,
+) -> Result<[f64; 3]> {
+    let mut session = Session::open(&t.project)?;
+    let p = world(&session.project)?;
+    let trial = resolve_trial(
+        &mut session,
+        &t.specimen,
+        t.trial.as_deref(),
+        t.operator.as_deref(),
+        true,
+        time,
+    )?;
+    session.apply(Edit::SetLandmark {
+        specimen: t.specimen.clone(),
+        trial: trial.clone(),
+        landmark: t.landmark.clone(),
+        position_mm: p,
+        method,
+        at: time.timestamp()?,
+    })?;
+    if let Some(n) = note {
+        session.apply(Edit::SetNote {
+            specimen: t.specimen.clone(),
+            trial: trial.clone(),
+            landmark: t.landmark.clone(),
+            note: Some(n.to_owned()),
+        })?;
+    }
+    session.save()?;
+    eprintln!(
+        "{} trial {trial}: {} at {:?} mm ({})",
+        t.specimen,
+        t.landmark,
+        p,
+        method.name()
+    );
+    Ok(p)
+}
+
+fn run_set(a: &SetArgs) -> Result<()> {
+    place(
+        &a.target,
+        &a.time,
+        |project| position(project, &a.target.specimen, &a.position),
+        a.method.into(),
+        a.note.as_deref(),
+    )?;
+    Ok(())
+}
+
+fn run_missing(a: &MissingArgs) -> Result<()> {
+    let t = &a.target;
+    let mut session = Session::open(&t.project)?;
+    let trial = resolve_trial(
+        &mut session,
+        &t.specimen,
+        t.trial.as_deref(),
+        t.operator.as_deref(),
+        true,
+        &a.time,
+    )?;
+    session.apply(Edit::MarkMissing {
+        specimen: t.specimen.clone(),
+        trial: trial.clone(),
+        landmark: t.landmark.clone(),
+        at: a.time.timestamp()?,
+    })?;
+    if let Some(n) = &a.note {
+        session.apply(Edit::SetNote {
+            specimen: t.specimen.clone(),
+            trial,
+            landmark: t.landmark.clone(),
+            note: Some(n.clone()),
+        })?;
+    }
+    session.save()
+}
+
+fn run_clear(t: &TargetArgs) -> Result<()> {
+    let mut session = Session::open(&t.project)?;
+    let none = TimeArgs { time: None };
+    let trial = resolve_trial(
+        &mut session,
+        &t.specimen,
+        t.trial.as_deref(),
+        None,
+        false,
+        &none,
+    )?;
+    session.apply(Edit::ClearLandmark {
+        specimen: t.specimen.clone(),
+        trial,
+        landmark: t.landmark.clone(),
+    })?;
+    session.save()
+}
+
+fn run_note(a: &NoteArgs) -> Result<()> {
+    let t = &a.target;
+    let mut session = Session::open(&t.project)?;
+    let none = TimeArgs { time: None };
+    let trial = resolve_trial(
+        &mut session,
+        &t.specimen,
+        t.trial.as_deref(),
+        None,
+        false,
+        &none,
+    )?;
+    session.apply(Edit::SetNote {
+        specimen: t.specimen.clone(),
+        trial,
+        landmark: t.landmark.clone(),
+        note: Some(a.text.clone()),
+    })?;
+    session.save()
+}
+
+fn run_trace(a: &TraceArgs) -> Result<()> {
+    let t = &a.target;
+    let mut session = Session::open(&t.project)?;
+    let s = session
+        .project
+        .specimen(&t.specimen)
+        .with_context(|| format!("no specimen '{}'", t.specimen))?;
+    let mut traced = Vec::with_capacity(a.segments.len());
+    for seg in &a.segments {
+        let mut pts = Vec::new();
+        for p in seg.split(';').map(str::trim).filter(|p| !p.is_empty()) {
+            let q = triple(p, "--segment point")?;
+            let w = if a.voxel {
+                s.scan.world_from_voxel_point(q)
+            } else {
+                q
+            };
+            if !s.scan.contains(w) {
+                bail!("{}: traced point {w:?} mm is outside the scan", t.specimen);
+            }
+            pts.push(w);
+        }
+        traced.push(pts);
+    }
+    let trial = resolve_trial(
+        &mut session,
+        &t.specimen,
+        t.trial.as_deref(),
+        None,
+        true,
+        &a.time,
+    )?;
+    session.apply(Edit::SetCurve {
+        specimen: t.specimen.clone(),
+        trial,
+        curve: t.curve.clone(),
+        traced_mm: traced,
+        at: a.time.timestamp()?,
+    })?;
+    session.save()
+}
+
+fn run_curve_clear(t: &CurveTarget) -> Result<()> {
+    let mut session = Session::open(&t.project)?;
+    let none = TimeArgs { time: None };
+    let trial = resolve_trial(
+        &mut session,
+        &t.specimen,
+        t.trial.as_deref(),
+        None,
+        false,
+        &none,
+    )?;
+    session.apply(Edit::ClearCurve {
+        specimen: t.specimen.clone(),
+        trial,
+        curve: t.curve.clone(),
+    })?;
+    session.save()
+}
+
+fn run_list(a: &ListArgs) -> Result<()> {
+    let mut out = String::new();
+    let project = load(&a.project)?;
+    if let Some(s) = &a.specimen
+        && project.specimen(s).is_none()
+    {
+        bail!("no specimen '{s}' in {}", a.project.display());
+    }
+    _ = writeln!(
+        out,
+        "{:<12} {:<5} {:<22} {:<9} {:<9} {:>10} {:>10} {:>10} {:>8} {:>8} {:>8}  note",
+        "specimen", "trial", "landmark", "state", "method", "x_mm", "y_mm", "z_mm", "i", "j", "k"
+    );
+    for s in project.specimens() {
+        if a.specimen.as_ref().is_some_and(|x| *x != s.id) {
+            continue;
+        }
+        for t in &s.trials {
+            if a.trial.as_ref().is_some_and(|x| *x != t.id) {
+                continue;
+            }
+            for l in &project.scheme().landmarks {
+                let e = t.landmark(&l.id);
+                let (state, method) = match e {
+                    None => ("-", "-"),
+                    Some(e) => (e.state.name(), e.method.map_or("-", Method::name)),
+                };
+                let pos = match e.and_then(|e| e.position_mm) {
+                    Some(p) => {
+                        let v = s.scan.voxel_from_world_point(p);
+                        format!(
+                            "{:>10.4} {:>10.4} {:>10.4} {:>8.2} {:>8.2} {:>8.2}",
+                            p[0], p[1], p[2], v[0], v[1], v[2]
+                        )
+                    }
+                    None => format!(
+                        "{:>10} {:>10} {:>10} {:>8} {:>8} {:>8}",
+                        "", "", "", "", "", ""
+                    ),
+                };
+                let note = e.and_then(|e| e.note.as_deref()).unwrap_or("");
+                let state = if e.is_some_and(|e| e.state == LandmarkState::Missing) {
+                    "MISSING"
+                } else {
+                    state
+                };
+                _ = writeln!(
+                    out,
+                    "{:<12} {:<5} {:<22} {:<9} {:<9} {pos}  {note}",
+                    s.id, t.id, l.id, state, method
+                );
+            }
+        }
+    }
+    super::emit(&out)
+}
