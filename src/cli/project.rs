@@ -373,6 +373,12 @@ fn run_new(a: &NewArgs) -> Result<()> {
 fn run_add(a: &AddArgs) -> Result<()> {
     let mut session = Session::open(&a.project)?;
     let id = a.id.clone().unwrap_or_else(|| id_from_scan(&a.scan));
+    if session.project.specimen(&id).is_some() {
+        bail!(
+            "{}: specimen '{id}' already exists (give another with --id)",
+            a.project.display()
+        );
+    }
     let s = new_specimen(
         &a.project,
         &a.scan,

@@ -1,7 +1,8 @@
 //! A project's landmarks as tables and arrays: the long and wide CSV (through
 //! [`LandmarkTable`]), JSON, `NumPy` `.npy` with an index file, and PLY point sets.
 //!
-//! One observation per specimen × trial, in project order; landmarks in scheme order, then
+//! One observation per specimen × trial, in project order (trials with nothing digitised yet
+//! are left out); landmarks in scheme order, then
 //! (with semilandmarks) each curve's semilandmarks in curve order, named as
 //! `CurveDef::semilandmark_names` says. A landmark not yet digitised is written as missing (and
 //! counted in [`Export::not_digitised`] so the caller can say so); a curve not traced, or whose
@@ -51,7 +52,11 @@ pub fn flatten(project: &Project, group_key: Option<&str>, with_semilandmarks: b
     let (mut operators, mut groups) = (Vec::new(), Vec::new());
     let mut not_digitised = 0;
     for s in project.specimens() {
-        for t in &s.trials {
+        for t in s
+            .trials
+            .iter()
+            .filter(|t| !(t.landmarks.is_empty() && t.curves.is_empty()))
+        {
             let mut coords = Vec::with_capacity(names.len());
             let mut states = Vec::with_capacity(names.len());
             for l in &scheme.landmarks {

@@ -107,7 +107,7 @@ impl ScanRecord {
             relative_path(&project_dir(project_file), scan).map_err(|e| IoError::os(scan, e))?;
         let record = Self {
             path,
-            voxel_size_mm: volume.spacing_mm(),
+            voxel_size_mm: voxel_size_mm.unwrap_or_else(|| volume.spacing_mm()),
             voxel_size_source: if voxel_size_mm.is_some() {
                 VoxelSizeSource::User
             } else {
