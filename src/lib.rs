@@ -9,6 +9,7 @@ pub mod cli;
 pub mod export;
 pub mod geometry;
 pub mod io;
+pub mod landmarks;
 pub mod render;
 pub mod shape;
 pub mod synth;
