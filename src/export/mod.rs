@@ -191,6 +191,10 @@ pub fn num(v: f64) -> String {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "these tests check values that are exact by construction"
+)]
 mod tests {
     use super::*;
 

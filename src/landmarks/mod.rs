@@ -22,12 +22,15 @@
 //! - [`fingerprint`]: what identifies a scan (sizes, header hashes, a hash of sampled voxels).
 //! - [`curve`]: equal arc-length resampling of traced curves into semilandmarks.
 //! - [`scan`]: opening a specimen's scan with the voxel size the project recorded.
+//! - [`pick`]: finding the material boundary along a ray (3D view) or from a point on a slice,
+//!   at sub-voxel precision, and the ISO-50 default threshold.
 //!
 //! Depends on `geometry`, `volume`, `io` (to fingerprint and open scans) and `export` (atomic
 //! writes). Must not import `gui` or `render`.
 
 pub mod curve;
 pub mod fingerprint;
+pub mod pick;
 pub mod project;
 pub mod scan;
 pub mod scheme;
