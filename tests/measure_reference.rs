@@ -113,6 +113,7 @@ fn distances_match_nibabels_affine() {
                 landmark: (*lm).into(),
                 position_mm: *p,
                 method: Method::Typed,
+                pick: None,
                 at: t0.clone(),
             }
             .apply(&mut project)

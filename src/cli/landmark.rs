@@ -20,7 +20,13 @@ use clap::{Args, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
 use super::project::{Session, TimeArgs, load};
-use crate::landmarks::project::{Edit, LandmarkState, Method, Project, Trial};
+use crate::geometry::{WorldPoint, parse_length_mm};
+use crate::io::Progress;
+use crate::landmarks::pick;
+use crate::landmarks::project::{
+    Edit, LandmarkState, Method, PickCrossing, PickRecord, Project, Trial,
+};
+use nalgebra::Vector3;
 
 #[derive(Debug, Subcommand)]
 pub enum LandmarkCommand {
@@ -30,6 +36,9 @@ pub enum LandmarkCommand {
     Missing(MissingArgs),
     /// Forget a landmark (back to not digitised).
     Clear(TargetArgs),
+    /// Place a landmark where a ray first meets the specimen's surface (sub-voxel, at the
+    /// ISO-50 threshold unless given), as a click in a 3D view does.
+    Pick(PickArgs),
     /// Set or remove (empty text) the note of a digitised landmark.
     Note(NoteArgs),
     /// List the landmarks of a project, a specimen or a trial, with voxel coordinates.
@@ -106,6 +115,46 @@ pub struct SetArgs {
     /// How the position was obtained.
     #[arg(long, value_enum, default_value = "typed")]
     pub method: MethodArg,
+    /// A note to keep with the landmark.
+    #[arg(long)]
+    pub note: Option<String>,
+    #[command(flatten)]
+    pub time: TimeArgs,
+}
+
+#[derive(Debug, Args)]
+pub struct PickArgs {
+    #[command(flatten)]
+    pub target: TargetArgs,
+    /// Start of the ray, world mm `X,Y,Z` (with --voxel: voxel coordinates). Start it outside
+    /// the material: the first entry into material is taken.
+    #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
+    pub from: String,
+    /// A point the ray passes through (the ray runs from --from towards it).
+    #[arg(
+        long,
+        value_name = "X,Y,Z",
+        allow_hyphen_values = true,
+        conflicts_with = "direction",
+        required_unless_present = "direction"
+    )]
+    pub toward: Option<String>,
+    /// The ray's direction `DX,DY,DZ` in world (or voxel) axes; need not be unit length.
+    #[arg(long, value_name = "DX,DY,DZ", allow_hyphen_values = true)]
+    pub direction: Option<String>,
+    /// --from, --toward and --direction are voxel coordinates of the specimen's scan.
+    #[arg(long)]
+    pub voxel: bool,
+    /// The iso-value separating material from background, in the scan's grey values
+    /// (default: ISO-50, halfway between the histogram's background and material peaks).
+    #[arg(long)]
+    pub threshold: Option<f64>,
+    /// How far along the ray to search (default: through the whole scan), e.g. 2mm.
+    #[arg(long, value_name = "LEN")]
+    pub max_distance: Option<String>,
+    /// Move the crossing to the steepest point of the edge along the surface normal.
+    #[arg(long)]
+    pub refine: bool,
     /// A note to keep with the landmark.
     #[arg(long)]
     pub note: Option<String>,
@@ -265,6 +314,7 @@ pub fn run_landmark(c: &LandmarkCommand) -> Result<()> {
         LandmarkCommand::Set(a) => run_set(a),
         LandmarkCommand::Missing(a) => run_missing(a),
         LandmarkCommand::Clear(a) => run_clear(a),
+        LandmarkCommand::Pick(a) => run_pick(a),
         LandmarkCommand::Note(a) => run_note(a),
         LandmarkCommand::List(a) => run_list(a),
     }
@@ -281,12 +331,12 @@ pub fn run_curve(c: &CurveCommand) -> Result<()> {
 pub fn place(
     t: &TargetArgs,
     time: &TimeArgs,
-    world: impl FnOnce(&Project) -> Result<[f64; 3]>,
+    world: impl FnOnce(&Project) -> Result<([f64; 3], Option<PickRecord>)>,
     method: Method,
     note: Option<&str>,
 ) -> Result<[f64; 3]> {
     let mut session = Session::open(&t.project)?;
-    let p = world(&session.project)?;
+    let (p, pick) = world(&session.project)?;
     let trial = resolve_trial(
         &mut session,
         &t.specimen,
@@ -301,6 +351,7 @@ pub fn place(
         landmark: t.landmark.clone(),
         position_mm: p,
         method,
+        pick,
         at: time.timestamp()?,
     })?;
     if let Some(n) = note {
@@ -326,11 +377,118 @@ fn run_set(a: &SetArgs) -> Result<()> {
     place(
         &a.target,
         &a.time,
-        |project| position(project, &a.target.specimen, &a.position),
+        |project| Ok((position(project, &a.target.specimen, &a.position)?, None)),
         a.method.into(),
         a.note.as_deref(),
     )?;
     Ok(())
+}
+
+fn run_pick(a: &PickArgs) -> Result<()> {
+    place(
+        &a.target,
+        &a.time,
+        |project| pick_position(a, project),
+        Method::Surface,
+        a.note.as_deref(),
+    )?;
+    Ok(())
+}
+
+/// Opens the specimen's scan (refusing one that differs from its fingerprint) and picks along
+/// the ray `--from` → `--toward` / `--direction`.
+fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<PickRecord>)> {
+    let t = &a.target;
+    let s = project
+        .specimen(&t.specimen)
+        .with_context(|| format!("no specimen '{}'", t.specimen))?;
+    let scan = &s.scan;
+    let (volume, mismatch) = scan.open(&t.project, &Progress::none())?;
+    if let Some(m) = mismatch {
+        bail!("{m}; refusing to pick on it");
+    }
+    let voxel_point = |p: [f64; 3]| scan.world_from_voxel_point(p);
+    let from = triple(&a.from, "--from")?;
+    let origin = if a.voxel { voxel_point(from) } else { from };
+    let direction = match (&a.toward, &a.direction) {
+        (Some(to), _) => {
+            let to = triple(to, "--toward")?;
+            let to = if a.voxel { voxel_point(to) } else { to };
+            [to[0] - origin[0], to[1] - origin[1], to[2] - origin[2]]
+        }
+        (None, Some(d)) => {
+            let d = triple(d, "--direction")?;
+            if a.voxel {
+                let v = scan.world_from_voxel.apply_vector(Vector3::from(d));
+                [v.x, v.y, v.z]
+            } else {
+                d
+            }
+        }
+        (None, None) => bail!("give --toward X,Y,Z or --direction DX,DY,DZ"),
+    };
+    let threshold = match a.threshold {
+        Some(v) => v,
+        None => pick::iso50_threshold(&volume)?,
+    };
+    let max_distance_mm = match &a.max_distance {
+        Some(l) => parse_length_mm(l).with_context(|| format!("--max-distance {l}"))?,
+        None => f64::INFINITY,
+    };
+    let options = pick::PickOptions {
+        threshold,
+        max_distance_mm,
+        refine_to_edge: a.refine,
+    };
+    let hit = pick::pick_along_ray(
+        &volume,
+        WorldPoint::new(origin[0], origin[1], origin[2]),
+        Vector3::from(direction),
+        &options,
+    )?
+    .with_context(|| {
+        format!(
+            "{}: the ray from {origin:?} mm meets no surface at threshold {threshold} \
+             within the scan{}",
+            t.specimen,
+            a.max_distance
+                .as_ref()
+                .map(|l| format!(" and {l}"))
+                .unwrap_or_default()
+        )
+    })?;
+    let crossing = match hit.crossing {
+        pick::Crossing::Entry => PickCrossing::Entry,
+        pick::Crossing::Exit => {
+            eprintln!("note: the ray starts inside material; the point is where it leaves it");
+            PickCrossing::Exit
+        }
+        pick::Crossing::VolumeFace => bail!(
+            "{}: the ray enters the scan already inside material: no surface there",
+            t.specimen
+        ),
+    };
+    let unit = Vector3::from(direction).normalize();
+    let p = hit.point.0;
+    eprintln!(
+        "picked at {:.1} µm along the ray, threshold {threshold}{}",
+        hit.distance_mm * 1e3,
+        if hit.refined {
+            ", refined to the edge"
+        } else {
+            ""
+        }
+    );
+    Ok((
+        [p.x, p.y, p.z],
+        Some(PickRecord {
+            origin_mm: origin,
+            direction: [unit.x, unit.y, unit.z],
+            threshold,
+            refined: hit.refined,
+            crossing,
+        }),
+    ))
 }
 
 fn run_missing(a: &MissingArgs) -> Result<()> {

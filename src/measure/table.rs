@@ -252,6 +252,7 @@ mod tests {
                 landmark: lm.into(),
                 position_mm: pos,
                 method,
+                pick: None,
                 at: ts(32),
             }
             .apply(&mut p)

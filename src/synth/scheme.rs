@@ -186,16 +186,18 @@ pub fn scheme() -> Vec<LandmarkDef> {
         ),
         lm(
             "braincase_lateral_L",
-            "left braincase width",
-            "lateral-most point of the left braincase wall (end of the greatest width)",
+            "left endocranial wall",
+            "lateral-most point of the inner surface of the left braincase wall (end of the \
+             greatest endocranial width)",
             3,
             Some("braincase_lateral_R"),
             true,
         ),
         lm(
             "braincase_lateral_R",
-            "right braincase width",
-            "lateral-most point of the right braincase wall (end of the greatest width)",
+            "right endocranial wall",
+            "lateral-most point of the inner surface of the right braincase wall (end of the \
+             greatest endocranial width)",
             3,
             Some("braincase_lateral_L"),
             true,
@@ -210,8 +212,8 @@ pub fn curves() -> Vec<CurveDef> {
         id: "dorsal_midline",
         name: "dorsal midline",
         definition_text: "the dorsal outline of the skull in the midsagittal plane, from the snout \
-                          tip to the top of the crest; points equally spaced along the \
-                          anteroposterior axis",
+                          tip to the top of the crest, traced through control points; its \
+                          semilandmarks sit at equal arc length along the trace",
         start: "snout_tip",
         end: "crest_top",
         n_points: 8,
@@ -247,7 +249,7 @@ const fn ms(
 }
 
 /// The measurements of the sample scheme: lengths and widths that differ between the two
-/// groups (snout length, braincase width), two angles of the head's outline, and the dorsal
+/// groups (snout length, endocranial width), two angles of the head's outline, and the dorsal
 /// outline's length.
 #[must_use]
 pub fn measurements() -> Vec<MeasurementSpec> {
@@ -267,9 +269,9 @@ pub fn measurements() -> Vec<MeasurementSpec> {
             &["snout_tip", "orbit_anterior_L", "orbit_anterior_R"],
         ),
         ms(
-            "braincase_width",
-            "braincase width",
-            "greatest width of the braincase",
+            "endocranial_width",
+            "endocranial width",
+            "greatest width of the endocranial cavity, between the inner braincase walls",
             "distance",
             &["braincase_lateral_L", "braincase_lateral_R"],
         ),

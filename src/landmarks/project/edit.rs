@@ -10,8 +10,8 @@
 //! after other edits; removals return an insertion at the same index.
 
 use super::{
-    CurveEntry, LandmarkEntry, LandmarkState, Method, Project, ScanRecord, Specimen, Timestamp,
-    Trial, resample_curve, validate_specimen, validate_trial,
+    CurveEntry, LandmarkEntry, LandmarkState, Method, PickRecord, Project, ScanRecord, Specimen,
+    Timestamp, Trial, resample_curve, validate_specimen, validate_trial,
 };
 use crate::landmarks::scheme::is_valid_id;
 
@@ -48,13 +48,15 @@ pub enum Edit {
         trial: String,
     },
     /// Places a landmark (state `placed`, or `estimated` when `method` is `Estimated`), keeping
-    /// its note; recomputes the curves anchored at it.
+    /// its note; recomputes the curves anchored at it. `pick` records how a surface point was
+    /// found (method `Surface` only).
     SetLandmark {
         specimen: String,
         trial: String,
         landmark: String,
         position_mm: [f64; 3],
         method: Method,
+        pick: Option<PickRecord>,
         at: Timestamp,
     },
     /// Marks a landmark missing (no position), keeping its note.
@@ -237,12 +239,25 @@ impl Edit {
                 landmark,
                 position_mm,
                 method,
+                pick,
                 at,
             } => {
                 if !position_mm.iter().all(|v| v.is_finite()) {
                     return Err(EditError::Invalid(format!(
                         "position {position_mm:?} mm is not finite"
                     )));
+                }
+                if let Some(p) = &pick {
+                    let finite = |v: &[f64; 3]| v.iter().all(|x| x.is_finite());
+                    if method != Method::Surface {
+                        return Err(EditError::Invalid(format!(
+                            "a pick record goes with method surface, not {}",
+                            method.name()
+                        )));
+                    }
+                    if !(finite(&p.origin_mm) && finite(&p.direction) && p.threshold.is_finite()) {
+                        return Err(EditError::Invalid("the pick record is not finite".into()));
+                    }
                 }
                 let state = if method == Method::Estimated {
                     LandmarkState::Estimated
@@ -255,6 +270,7 @@ impl Edit {
                         state,
                         position_mm: Some(position_mm),
                         method: Some(method),
+                        pick,
                         at,
                         note: e.as_ref().and_then(|x| x.note.clone()),
                     });
@@ -272,6 +288,7 @@ impl Edit {
                     state: LandmarkState::Missing,
                     position_mm: None,
                     method: None,
+                    pick: None,
                     at,
                     note: e.as_ref().and_then(|x| x.note.clone()),
                 });

@@ -5,7 +5,7 @@
 //! ```json
 //! {
 //!   "format": "sutura-project",
-//!   "format_version": 1,
+//!   "format_version": 2,
 //!   "scheme": { "origin": "scheme.toml", "sha256": "…", "text": "…" },
 //!   "specimens": [ … ]
 //! }
@@ -41,14 +41,34 @@ use crate::landmarks::scheme::{Scheme, SchemeError, sha256_hex};
 /// The value of the `format` field.
 pub const FORMAT_NAME: &str = "sutura-project";
 /// The format version this build writes, and the newest it reads.
-pub const FORMAT_VERSION: u64 = 1;
+///
+/// - 1: the first release.
+/// - 2: a landmark entry may carry `pick`, the ray, threshold and refinement of a surface
+///   point picked along a ray.
+pub const FORMAT_VERSION: u64 = 2;
 
 /// An upgrade of the JSON value from version `n` to `n + 1` (`UPGRADES[n - 1]`).
 type Upgrade = fn(&mut serde_json::Value) -> Result<(), String>;
 
-/// The chain of upgrades from each older format version to the next; empty while version 1
-/// is the only one released.
-pub const UPGRADES: &[Upgrade] = &[];
+/// The chain of upgrades from each older format version to the next.
+pub const UPGRADES: &[Upgrade] = &[upgrade_1_to_2];
+
+/// Version 2 added the optional `pick` record to landmark entries; a version 1 file has none,
+/// so its content stands as it is. Checks that it holds no key version 2 would misread.
+fn upgrade_1_to_2(v: &mut serde_json::Value) -> Result<(), String> {
+    let entries = v["specimens"]
+        .as_array()
+        .into_iter()
+        .flatten()
+        .flat_map(|s| s["trials"].as_array().into_iter().flatten())
+        .flat_map(|t| t["landmarks"].as_array().into_iter().flatten());
+    for e in entries {
+        if e.get("pick").is_some() {
+            return Err("a version 1 landmark entry has a 'pick' key".into());
+        }
+    }
+    Ok(())
+}
 
 /// Why a project cannot be read or written. Every variant names the file.
 #[derive(Debug, thiserror::Error)]

@@ -9,7 +9,8 @@
 //!     │         world_from_voxel, fingerprint (see `landmarks::fingerprint`)
 //!     └── trials[]: id, operator, started (RFC 3339, UTC)
 //!         ├── landmarks[]: id, state (placed / missing / estimated), position_mm (world mm),
-//!         │                method (slice / surface / typed / estimated), at, note
+//!         │                method (slice / surface / typed / estimated), pick (for a surface
+//!         │                point found along a ray: the ray, threshold, refinement), at, note
 //!         └── curves[]: id, traced_mm (per segment, the control points between its anchors),
 //!                       semilandmarks_mm (per segment, equal arc-length resampling), at, note
 //! ```
@@ -309,6 +310,31 @@ impl Method {
     }
 }
 
+/// Which boundary a pick found (see `landmarks::pick::Crossing`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum PickCrossing {
+    /// From background into material.
+    Entry,
+    /// The search started in material; the point is where it leaves.
+    Exit,
+}
+
+/// How a surface point was picked: enough to repeat the pick on the same scan.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PickRecord {
+    /// Start of the ray, world mm.
+    pub origin_mm: [f64; 3],
+    /// Unit direction of the ray, world.
+    pub direction: [f64; 3],
+    /// The iso-value used, in the scan's rescaled units.
+    pub threshold: f64,
+    /// Whether the crossing was moved to the steepest point of the edge.
+    pub refined: bool,
+    pub crossing: PickCrossing,
+}
+
 /// One landmark of one trial.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -321,6 +347,9 @@ pub struct LandmarkEntry {
     /// `None` exactly when missing.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub method: Option<Method>,
+    /// For a point picked along a ray (method `surface`): how (format version 2 on).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pick: Option<PickRecord>,
     /// When the state or position was last set.
     pub at: Timestamp,
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -624,6 +653,18 @@ pub(crate) fn validate_trial(scheme: &Scheme, t: &Trial) -> Result<(), String> {
             (LandmarkState::Placed, Some(p), Some(m)) => m != Method::Estimated && finite(&p),
             _ => false,
         };
+        let pick_ok = l.pick.is_none_or(|p| {
+            l.method == Some(Method::Surface)
+                && finite(&p.origin_mm)
+                && finite(&p.direction)
+                && p.threshold.is_finite()
+        });
+        if !pick_ok {
+            return Err(format!(
+                "landmark '{}': a pick record needs method surface and finite numbers",
+                l.id
+            ));
+        }
         if !ok {
             return Err(format!(
                 "landmark '{}': state {} does not go with position {:?} and method {:?}",

@@ -92,6 +92,7 @@ pub fn sample_project() -> Project {
         landmark: lm.into(),
         position_mm: pos,
         method: Method::Surface,
+        pick: None,
         at: ts(s),
     };
     set("back", [0.1, 0.2, 0.3], 1).apply(&mut p).unwrap();
@@ -142,6 +143,7 @@ fn landmarks_stay_in_scheme_order_and_curves_follow_their_anchors() {
         landmark: "eye_L".into(),
         position_mm: [2.0, 1.0, 0.7],
         method: Method::Slice,
+        pick: None,
         at: ts(5),
     }
     .apply(&mut q)
@@ -204,6 +206,7 @@ fn edits_refuse_bad_input_and_leave_the_project_alone() {
             landmark: "nose".into(),
             position_mm: [0.0; 3],
             method: Method::Typed,
+            pick: None,
             at: ts(9),
         },
         Edit::SetLandmark {
@@ -212,6 +215,7 @@ fn edits_refuse_bad_input_and_leave_the_project_alone() {
             landmark: "tip".into(),
             position_mm: [f64::NAN, 0.0, 0.0],
             method: Method::Typed,
+            pick: None,
             at: ts(9),
         },
         Edit::SetLandmark {
@@ -220,6 +224,7 @@ fn edits_refuse_bad_input_and_leave_the_project_alone() {
             landmark: "tip".into(),
             position_mm: [0.0; 3],
             method: Method::Typed,
+            pick: None,
             at: ts(9),
         },
         Edit::ClearLandmark {
@@ -278,6 +283,28 @@ fn arb_edit() -> impl Strategy<Value = Edit> {
         ])
     };
     let traced = || prop::collection::vec(prop::collection::vec(pos(), 0..3), 1..3);
+    let pick = || {
+        (
+            pos(),
+            pos(),
+            1000.0f64..30000.0,
+            any::<bool>(),
+            any::<bool>(),
+        )
+            .prop_map(
+                |(origin_mm, direction, threshold, refined, exit)| PickRecord {
+                    origin_mm,
+                    direction,
+                    threshold,
+                    refined,
+                    crossing: if exit {
+                        PickCrossing::Exit
+                    } else {
+                        PickCrossing::Entry
+                    },
+                },
+            )
+    };
     prop_oneof![
         (spec(), prop::option::of(0usize..4)).prop_map(|(s, index)| Edit::AddSpecimen {
             specimen: Box::new(specimen(&s)),
@@ -308,16 +335,26 @@ fn arb_edit() -> impl Strategy<Value = Edit> {
             }
         ),
         (spec(), trial()).prop_map(|(specimen, trial)| Edit::RemoveTrial { specimen, trial }),
-        (spec(), trial(), lm(), pos(), method(), at()).prop_map(
-            |(specimen, trial, landmark, position_mm, method, at)| Edit::SetLandmark {
-                specimen,
-                trial,
-                landmark,
-                position_mm,
-                method,
-                at
-            }
-        ),
+        (
+            spec(),
+            trial(),
+            lm(),
+            pos(),
+            method(),
+            prop::option::of(pick()),
+            at()
+        )
+            .prop_map(
+                |(specimen, trial, landmark, position_mm, method, pick, at)| Edit::SetLandmark {
+                    specimen,
+                    trial,
+                    landmark,
+                    position_mm,
+                    method,
+                    pick,
+                    at
+                }
+            ),
         (spec(), trial(), lm(), at()).prop_map(|(specimen, trial, landmark, at)| {
             Edit::MarkMissing {
                 specimen,
@@ -405,11 +442,15 @@ proptest! {
         let pos = [x, y, z];
         Edit::SetLandmark {
             specimen: "A".into(), trial: "1".into(), landmark: "eye_R".into(),
-            position_mm: pos, method: Method::Typed, at: ts(7),
+            position_mm: pos, method: Method::Surface, at: ts(7),
+            pick: Some(PickRecord { origin_mm: [z, x, y], direction: [y, z, x], threshold: x, refined: true, crossing: PickCrossing::Entry }),
         }.apply(&mut p).unwrap();
         let back = Project::from_slice(&p.to_bytes(), Path::new("mem.json")).unwrap();
-        let got = back.specimen("A").unwrap().trial("1").unwrap().position("eye_R").unwrap();
+        let t = back.specimen("A").unwrap().trial("1").unwrap();
+        let got = t.position("eye_R").unwrap();
         prop_assert_eq!(got.map(f64::to_bits), pos.map(f64::to_bits));
+        let pk = t.landmark("eye_R").unwrap().pick.unwrap();
+        prop_assert_eq!((pk.origin_mm.map(f64::to_bits), pk.threshold.to_bits()), ([z, x, y].map(f64::to_bits), x.to_bits()));
     }
 }
 
@@ -434,7 +475,7 @@ fn file_round_trips_byte_identically_and_reads_well() {
         "backup of the first save"
     );
     let text = String::from_utf8(first).unwrap();
-    assert!(text.starts_with("{\n  \"format\": \"sutura-project\",\n  \"format_version\": 1,"));
+    assert!(text.starts_with("{\n  \"format\": \"sutura-project\",\n  \"format_version\": 2,"));
     assert!(text.contains("\"position_mm\": [3.0, 0.2, 0.3],"), "{text}");
     assert!(text.contains("\"world_from_voxel\": [\n"), "{text}");
     assert!(text.contains("[0.036, 0.0, 0.0, 0.0],"), "{text}");
@@ -507,12 +548,12 @@ fn newer_versions_are_refused_and_bad_files_named() {
     let p = sample_project();
     let text = String::from_utf8(p.to_bytes()).unwrap();
     let at = Path::new("x.json");
-    let newer = text.replace("\"format_version\": 1,", "\"format_version\": 2,");
+    let newer = text.replace("\"format_version\": 2,", "\"format_version\": 3,");
     let e = Project::from_slice(newer.as_bytes(), at)
         .unwrap_err()
         .to_string();
     assert!(
-        e.contains("x.json") && e.contains("newer Sutura") && e.contains("format_version 2"),
+        e.contains("x.json") && e.contains("newer Sutura") && e.contains("format_version 3"),
         "{e}"
     );
 
@@ -522,7 +563,7 @@ fn newer_versions_are_refused_and_bad_files_named() {
             "not a Sutura project",
         ),
         (
-            text.replace("\"format_version\": 1,", "\"format_version\": 0,"),
+            text.replace("\"format_version\": 2,", "\"format_version\": 0,"),
             "no valid format_version",
         ),
         ("{".to_owned(), "not a readable JSON"),
@@ -648,4 +689,55 @@ fn a_second_writer_is_turned_away() {
     );
     drop(first);
     ProjectLock::acquire(&path).unwrap();
+}
+
+/// The fixture was written by the command line at format version 1 (commit "tests: a project
+/// file in format version 1"): it reads, and saves as version 2 with nothing else changed.
+#[test]
+fn version_1_files_are_upgraded() {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/project_v1.json");
+    let text = std::fs::read_to_string(&path).unwrap();
+    assert!(text.contains("\"format_version\": 1,"));
+    let p = Project::load(&path).unwrap();
+    let s = p.specimen("HDC-002").unwrap();
+    assert_eq!(s.groups["locality"], "Harrowdene Clay pit, lower lens");
+    assert_eq!(s.trials.len(), 2);
+    let t = &s.trials[0];
+    assert_eq!(t.operator, "A. Reyes");
+    assert_eq!(
+        t.landmark("occipital_condyle").unwrap().state,
+        LandmarkState::Missing
+    );
+    assert_eq!(
+        t.landmark("crest_top").unwrap().note.as_deref(),
+        Some("crest worn; top taken at the highest remaining point")
+    );
+    assert_eq!(
+        t.landmark("endocranium_centre").unwrap().state,
+        LandmarkState::Estimated
+    );
+    assert!(t.landmarks.iter().all(|l| l.pick.is_none()));
+    assert_eq!(
+        t.curve("dorsal_midline").unwrap().semilandmarks_mm[0].len(),
+        8
+    );
+    let h1 = p.specimen("HDC-001").unwrap();
+    assert_eq!(h1.scan.voxel_size_source, VoxelSizeSource::User);
+    assert_eq!(
+        h1.scan.voxel_size_mm.map(f64::to_bits),
+        [0.036f64, 0.036, 0.05].map(f64::to_bits)
+    );
+    let upgraded = text.replacen("\"format_version\": 1,", "\"format_version\": 2,", 1);
+    assert_eq!(String::from_utf8(p.to_bytes()).unwrap(), upgraded);
+    // a version 1 file cannot hold a pick record
+    let bad = text.replacen(
+        "\"method\": \"surface\",",
+        "\"method\": \"surface\",\n              \"pick\": null,",
+        1,
+    );
+    assert_ne!(bad, text);
+    let e = Project::from_slice(bad.as_bytes(), &path)
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("upgrading from format_version 1 to 2"), "{e}");
 }
