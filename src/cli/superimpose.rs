@@ -122,7 +122,7 @@ fn read_input(a: &SuperimposeArgs) -> Result<LandmarkTable> {
         return Ok(LandmarkTable::read_csv(&a.table)?);
     }
     let project = crate::landmarks::Project::load(&a.table)?;
-    let e = crate::export::project::flatten(&project, Some(&a.group_key), false);
+    let e = crate::landmarks::project::points::flatten(&project, Some(&a.group_key), false);
     if e.not_digitised > 0 {
         eprintln!(
             "note: {} landmarks are not digitised yet; they are treated as missing",

@@ -2,16 +2,17 @@
 //!
 //! Every file is written atomically ([`write_atomic`]): to a temporary file in the same folder,
 //! flushed to disk, then renamed over the target, so a crash never leaves half a file where a
-//! good one stood; [`write_atomic_keeping_backup`] also keeps the replaced file as a backup. The README documents every column written here.
+//! good one stood; [`write_atomic_keeping_backup`] also keeps the replaced file as a backup.
+//! The README documents every column written here.
 //!
 //! [`table`] reads and writes landmark tables (the long CSV that every other tool can make);
-//! [`project`] flattens a project's landmarks into tables, JSON, `.npy` with an index file, and
-//! PLY point sets ([`ply`]).
+//! [`points`] writes named point sets (a project's landmarks) as JSON, `.npy` with an index
+//! file, and PLY point sets ([`ply`]).
 //!
-//! Must not import `gui`.
+//! Must not import `gui`, nor `landmarks` (which uses this module to write its files).
 
 pub mod ply;
-pub mod project;
+pub mod points;
 pub mod table;
 
 use npyz::WriterBuilder;

@@ -25,10 +25,12 @@
 //!
 //! The document's fields are private: every change goes through [`Edit::apply`], which returns
 //! the edit that undoes it exactly, so the command line and the GUI share one code path and the
-//! GUI's undo stack is a stack of inverses. The file format lives in [`file`].
+//! GUI's undo stack is a stack of inverses. The file format lives in [`file`]; [`points`]
+//! flattens the landmarks for export.
 
 mod edit;
 pub mod file;
+pub mod points;
 
 pub use edit::{Edit, EditError};
 pub use file::{

@@ -1,16 +1,11 @@
-//! A project's landmarks as tables and arrays: the long and wide CSV (through
+//! Named point sets (a project's landmarks) as files: the long and wide CSV (through
 //! [`LandmarkTable`]), JSON, `NumPy` `.npy` with an index file, and PLY point sets.
-//!
-//! One observation per specimen × trial, in project order (trials with nothing digitised yet
-//! are left out); landmarks in scheme order, then
-//! (with semilandmarks) each curve's semilandmarks in curve order, named as
-//! `CurveDef::semilandmark_names` says. A landmark not yet digitised is written as missing (and
-//! counted in [`Export::not_digitised`] so the caller can say so); a curve not traced, or whose
-//! anchors lack positions, gives missing semilandmarks.
+//! `landmarks::project::points::flatten` fills a [`PointSets`] from a project; this module only
+//! writes it, so `export` does not depend on `landmarks`.
 //!
 //! The `.npy` array is float64 of shape `(observations, points, 3)`, C order, NaN where a point
 //! has no position. Its index file (`NAME.index.json` beside `NAME.npy`) says what the axes are:
-//! `{"array", "shape", "axes", "units", "missing", "points", "observations": [{"index",
+//! `{"array", "shape", "axes", "units", "missing", "points", "semilandmark", "observations": [{"index",
 //! "specimen", "trial", "operator", "groups", "states"}]}`.
 
 use serde::Serialize;
@@ -18,13 +13,12 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 use super::ply::{NamedPoint, PointKind, write_ply};
-use super::table::{LandmarkTable, Observation, State};
+use super::table::{LandmarkTable, State};
 use super::{ExportError, write_json, write_npy_f64};
-use crate::landmarks::project::{LandmarkState, Project};
 
-/// A project's points, flattened.
+/// Observations of named points with their metadata, ready to write.
 #[derive(Clone, Debug, PartialEq)]
-pub struct Export {
+pub struct PointSets {
     pub table: LandmarkTable,
     /// Which points are semilandmarks (same order as `table.landmarks`).
     pub semilandmark: Vec<bool>,
@@ -33,85 +27,6 @@ pub struct Export {
     pub groups: Vec<BTreeMap<String, String>>,
     /// Landmarks (not semilandmarks) absent from their trial, written as missing.
     pub not_digitised: usize,
-}
-
-/// Flattens a project. `group_key`: the group label copied into the table's `group` column.
-#[must_use]
-pub fn flatten(project: &Project, group_key: Option<&str>, with_semilandmarks: bool) -> Export {
-    let scheme = project.scheme();
-    let mut names: Vec<String> = scheme.landmarks.iter().map(|l| l.id.clone()).collect();
-    let mut semilandmark = vec![false; names.len()];
-    if with_semilandmarks {
-        for c in &scheme.curves {
-            let n = c.semilandmark_names();
-            semilandmark.extend(std::iter::repeat_n(true, n.len()));
-            names.extend(n);
-        }
-    }
-    let mut observations = Vec::new();
-    let (mut operators, mut groups) = (Vec::new(), Vec::new());
-    let mut not_digitised = 0;
-    for s in project.specimens() {
-        for t in s
-            .trials
-            .iter()
-            .filter(|t| !(t.landmarks.is_empty() && t.curves.is_empty()))
-        {
-            let mut coords = Vec::with_capacity(names.len());
-            let mut states = Vec::with_capacity(names.len());
-            for l in &scheme.landmarks {
-                match t.landmark(&l.id) {
-                    None => {
-                        not_digitised += 1;
-                        coords.push(None);
-                        states.push(State::Missing);
-                    }
-                    Some(e) => {
-                        coords.push(e.position_mm);
-                        states.push(match e.state {
-                            LandmarkState::Placed => State::Placed,
-                            LandmarkState::Missing => State::Missing,
-                            LandmarkState::Estimated => State::Estimated,
-                        });
-                    }
-                }
-            }
-            if with_semilandmarks {
-                for c in &scheme.curves {
-                    let pts = t.curve(&c.id).and_then(|e| e.semilandmarks(c));
-                    for i in 0..c.total_semilandmarks() {
-                        let p = pts.as_ref().map(|v| v[i]);
-                        coords.push(p);
-                        states.push(if p.is_some() {
-                            State::Placed
-                        } else {
-                            State::Missing
-                        });
-                    }
-                }
-            }
-            observations.push(Observation {
-                specimen: s.id.clone(),
-                trial: t.id.clone(),
-                group: group_key.and_then(|k| s.groups.get(k).cloned()),
-                coords,
-                states,
-            });
-            operators.push(t.operator.clone());
-            groups.push(s.groups.clone());
-        }
-    }
-    Export {
-        table: LandmarkTable {
-            dim: 3,
-            landmarks: names,
-            observations,
-        },
-        semilandmark,
-        operators,
-        groups,
-        not_digitised,
-    }
 }
 
 #[derive(Serialize)]
@@ -132,7 +47,7 @@ struct JsonObservation<'a> {
     points: Vec<JsonPoint<'a>>,
 }
 
-impl Export {
+impl PointSets {
     /// Writes the JSON export: `{"scheme", "units", "observations": [{"specimen", "trial",
     /// "operator", "groups", "points": [{"point", "kind", "state", "position_mm"}]}]}`.
     pub fn write_json(&self, path: &Path, scheme_id: &str) -> Result<(), ExportError> {
@@ -265,32 +180,64 @@ pub fn index_path(npy: &Path) -> PathBuf {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::landmarks::project::tests::sample_project;
+    use crate::export::table::Observation;
+
+    fn sets() -> PointSets {
+        PointSets {
+            table: LandmarkTable {
+                dim: 3,
+                landmarks: vec!["tip".into(), "eye".into(), "c_s01".into()],
+                observations: vec![Observation {
+                    specimen: "A".into(),
+                    trial: "1".into(),
+                    group: None,
+                    coords: vec![Some([1.0, 2.0, 3.0]), None, Some([0.5, 0.25, 0.0])],
+                    states: vec![State::Placed, State::Missing, State::Placed],
+                }],
+            },
+            semilandmark: vec![false, false, true],
+            operators: vec!["ana".into()],
+            groups: vec![[("locality".to_owned(), "pit".to_owned())].into()],
+            not_digitised: 1,
+        }
+    }
 
     #[test]
-    fn flattens_in_scheme_order_with_semilandmarks() {
-        let p = sample_project();
-        let e = flatten(&p, Some("locality"), true);
-        // 4 landmarks, then outline's 3 + 2 semilandmarks
-        assert_eq!(e.table.landmarks.len(), 9);
-        assert_eq!(e.table.landmarks[4], "outline_s01");
-        assert_eq!(e.table.observations.len(), 1, "B has no trial");
-        let o = &e.table.observations[0];
-        assert_eq!(o.group.as_deref(), Some("north pit"));
-        assert_eq!(o.coords[0], Some([3.0, 0.2, 0.3]));
-        assert_eq!(o.states[2], State::Missing, "eye_R not digitised");
-        assert_eq!(e.not_digitised, 1);
-        assert!(o.coords[4..].iter().all(Option::is_some));
+    fn npy_index_json_and_ply() {
+        let e = sets();
         let dir = tempfile::tempdir().unwrap();
         let npy = dir.path().join("lm.npy");
         let idx = e.write_npy(&npy).unwrap();
         assert_eq!(idx, dir.path().join("lm.index.json"));
         let index: serde_json::Value =
             serde_json::from_slice(&std::fs::read(&idx).unwrap()).unwrap();
-        assert_eq!(index["shape"], serde_json::json!([1, 9, 3]));
-        assert_eq!(index["observations"][0]["states"][2], "missing");
+        assert_eq!(index["shape"], serde_json::json!([1, 3, 3]));
+        assert_eq!(index["observations"][0]["states"][1], "missing");
+        assert_eq!(index["observations"][0]["groups"]["locality"], "pit");
+        assert_eq!(
+            index["semilandmark"],
+            serde_json::json!([false, false, true])
+        );
+        let b = std::fs::read(&npy).unwrap();
+        let data: Vec<f64> = b[b.len() - 72..]
+            .chunks(8)
+            .map(|c| f64::from_le_bytes(c.try_into().unwrap()))
+            .collect();
+        assert_eq!(&data[..3], &[1.0, 2.0, 3.0]);
+        assert!(data[3..6].iter().all(|v| v.is_nan()));
+        let j = dir.path().join("lm.json");
+        e.write_json(&j, "s").unwrap();
+        let v: serde_json::Value = serde_json::from_slice(&std::fs::read(&j).unwrap()).unwrap();
+        assert_eq!(v["observations"][0]["points"][2]["kind"], "semilandmark");
+        assert!(
+            v["observations"][0]["points"][1]
+                .get("position_mm")
+                .is_none()
+        );
         let plys = e.write_ply_sets(&dir.path().join("ply")).unwrap();
         assert_eq!(plys.len(), 1);
         assert!(plys[0].ends_with("A_1.ply"));
+        let text = std::fs::read_to_string(&plys[0]).unwrap();
+        assert!(text.contains("element vertex 2\n") && text.contains("comment missing eye"));
     }
 }
