@@ -5,8 +5,8 @@
 //!
 //! The `.npy` array is float64 of shape `(observations, points, 3)`, C order, NaN where a point
 //! has no position. Its index file (`NAME.index.json` beside `NAME.npy`) says what the axes are:
-//! `{"array", "shape", "axes", "units", "missing", "points", "semilandmark", "observations": [{"index",
-//! "specimen", "trial", "operator", "groups", "states"}]}`.
+//! `{"array", "shape", "axes", "units", "missing", "points", "semilandmark", "observations":
+//! [{"index", "specimen", "trial", "operator", "groups", "states"}]}`.
 
 use serde::Serialize;
 use std::collections::BTreeMap;
