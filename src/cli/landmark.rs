@@ -276,6 +276,18 @@ pub fn resolve_trial(
     Ok("1".to_owned())
 }
 
+/// The trial to work on without creating one: `--trial`, else the specimen's last trial.
+fn existing_trial(session: &mut Session, specimen: &str, trial: Option<&str>) -> Result<String> {
+    resolve_trial(
+        session,
+        specimen,
+        trial,
+        None,
+        false,
+        &TimeArgs { time: None },
+    )
+}
+
 fn list_or_none<'a>(items: impl Iterator<Item = &'a str>) -> String {
     let v: Vec<&str> = items.collect();
     if v.is_empty() {
@@ -521,15 +533,7 @@ fn run_missing(a: &MissingArgs) -> Result<()> {
 
 fn run_clear(t: &TargetArgs) -> Result<()> {
     let mut session = Session::open(&t.project)?;
-    let none = TimeArgs { time: None };
-    let trial = resolve_trial(
-        &mut session,
-        &t.specimen,
-        t.trial.as_deref(),
-        None,
-        false,
-        &none,
-    )?;
+    let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
     session.apply(Edit::ClearLandmark {
         specimen: t.specimen.clone(),
         trial,
@@ -541,15 +545,7 @@ fn run_clear(t: &TargetArgs) -> Result<()> {
 fn run_note(a: &NoteArgs) -> Result<()> {
     let t = &a.target;
     let mut session = Session::open(&t.project)?;
-    let none = TimeArgs { time: None };
-    let trial = resolve_trial(
-        &mut session,
-        &t.specimen,
-        t.trial.as_deref(),
-        None,
-        false,
-        &none,
-    )?;
+    let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
     session.apply(Edit::SetNote {
         specimen: t.specimen.clone(),
         trial,
@@ -603,15 +599,7 @@ fn run_trace(a: &TraceArgs) -> Result<()> {
 
 fn run_curve_clear(t: &CurveTarget) -> Result<()> {
     let mut session = Session::open(&t.project)?;
-    let none = TimeArgs { time: None };
-    let trial = resolve_trial(
-        &mut session,
-        &t.specimen,
-        t.trial.as_deref(),
-        None,
-        false,
-        &none,
-    )?;
+    let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
     session.apply(Edit::ClearCurve {
         specimen: t.specimen.clone(),
         trial,
