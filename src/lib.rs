@@ -4,6 +4,7 @@
 //! workstation GUI are front ends over it. Dependencies point one way:
 //! `geometry`, `volume` → `io` → `render`, `landmarks`, `measure`, `shape` → `cli`, `gui`.
 
+pub mod analysis;
 pub mod chart;
 pub mod cli;
 pub mod export;
