@@ -313,8 +313,6 @@ impl Analysis {
         std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
         let out = |name: &str| dir.join(name);
         let (n, k, m) = (self.n(), self.landmarks.len(), self.dim);
-        let ncomp = self.components();
-        let p = &self.pca;
         let mut written = Vec::new();
 
         let aligned = self.aligned_table();
@@ -355,6 +353,109 @@ impl Analysis {
         )?;
         written.push(out("specimens.csv"));
 
+        written.extend(self.write_pca_tables(dir)?);
+
+        let disp_rows: Vec<Vec<String>> = self
+            .disparity
+            .iter()
+            .map(|d| {
+                vec![
+                    d.group.clone(),
+                    d.n.to_string(),
+                    num(d.procrustes_variance),
+                    num(d.interval.lower),
+                    num(d.interval.upper),
+                    d.interval.resamples.to_string(),
+                    num(d.sum_of_variances),
+                    num(d.partial),
+                    num(d.partial_share),
+                ]
+            })
+            .collect();
+        write_csv(
+            &out("disparity.csv"),
+            &[
+                "group",
+                "n",
+                "procrustes_variance",
+                "ci95_lower",
+                "ci95_upper",
+                "resamples",
+                "sum_of_variances",
+                "partial_disparity",
+                "partial_share",
+            ],
+            &disp_rows,
+        )?;
+        written.push(out("disparity.csv"));
+
+        written.push(self.write_distances(dir)?);
+
+        let anova_summary = match &self.measurement_error {
+            None => serde_json::Value::Null,
+            Some(pa) => {
+                write_anova(&out("anova.csv"), pa)?;
+                written.push(out("anova.csv"));
+                json!({
+                    "shape_repeatability": pa.shape.repeatability,
+                    "size_repeatability": pa.size.repeatability,
+                    "individuals": pa.shape.individuals,
+                    "measurements": pa.shape.measurements,
+                })
+            }
+        };
+        let g = &self.gpa;
+        let allo = &self.allometry;
+        write_json(
+            &out("summary.json"),
+            &json!({
+                "table": source,
+                "specimens": n, "landmarks": k, "dims": m,
+                "fit": format!("{:?}", self.options.gpa.fit).to_lowercase(),
+                "tolerance": self.options.gpa.tolerance,
+                "iterations": g.iterations, "converged": g.converged, "final_change": g.final_change,
+                "estimated_landmarks": self.estimated.iter().filter(|&&e| e).count(),
+                "total_procrustes_variance": self.total_variance,
+                "disparity_divisor": "n - 1",
+                "group_difference_test": self.group_test,
+                "allometry": {"r_squared": allo.r_squared, "p_value": allo.p_value, "permutations": allo.permutations},
+                "measurement_error": anova_summary,
+            }),
+        )?;
+        written.push(out("summary.json"));
+        Ok(written)
+    }
+
+    /// `procrustes_distances.csv`: the square matrix of Procrustes angles.
+    fn write_distances(&self, dir: &Path) -> Result<PathBuf, AnalysisError> {
+        let path = dir.join("procrustes_distances.csv");
+        let n = self.n();
+        let labels: Vec<String> = self
+            .observations
+            .iter()
+            .map(|o| o.specimen.clone())
+            .collect();
+        let mut dh: Vec<String> = vec!["specimen".into()];
+        dh.extend(labels.iter().cloned());
+        let drows: Vec<Vec<String>> = (0..n)
+            .map(|i| {
+                let mut r = vec![labels[i].clone()];
+                r.extend((0..n).map(|j| num(self.distances[(i, j)])));
+                r
+            })
+            .collect();
+        write_csv_owned(&path, &dh, &drows)?;
+
+        Ok(path)
+    }
+
+    /// `pc_scores.csv`, `pc_variance.csv` and `pc_loadings.csv`.
+    fn write_pca_tables(&self, dir: &Path) -> Result<[PathBuf; 3], AnalysisError> {
+        let out = |name: &str| dir.join(name);
+        let (n, m) = (self.n(), self.dim);
+        let k = self.landmarks.len();
+        let ncomp = self.components();
+        let p = &self.pca;
         let pcs: Vec<String> = (1..=ncomp).map(|c| format!("PC{c}")).collect();
         let with_pcs = |first: &[&str]| -> Vec<String> {
             first
@@ -408,92 +509,8 @@ impl Analysis {
             &with_pcs(&["landmark", "axis"]),
             &load_rows,
         )?;
-        written.extend(["pc_scores.csv", "pc_variance.csv", "pc_loadings.csv"].map(out));
 
-        let disp_rows: Vec<Vec<String>> = self
-            .disparity
-            .iter()
-            .map(|d| {
-                vec![
-                    d.group.clone(),
-                    d.n.to_string(),
-                    num(d.procrustes_variance),
-                    num(d.interval.lower),
-                    num(d.interval.upper),
-                    d.interval.resamples.to_string(),
-                    num(d.sum_of_variances),
-                    num(d.partial),
-                    num(d.partial_share),
-                ]
-            })
-            .collect();
-        write_csv(
-            &out("disparity.csv"),
-            &[
-                "group",
-                "n",
-                "procrustes_variance",
-                "ci95_lower",
-                "ci95_upper",
-                "resamples",
-                "sum_of_variances",
-                "partial_disparity",
-                "partial_share",
-            ],
-            &disp_rows,
-        )?;
-        written.push(out("disparity.csv"));
-
-        let labels: Vec<String> = self
-            .observations
-            .iter()
-            .map(|o| o.specimen.clone())
-            .collect();
-        let mut dh: Vec<String> = vec!["specimen".into()];
-        dh.extend(labels.iter().cloned());
-        let drows: Vec<Vec<String>> = (0..n)
-            .map(|i| {
-                let mut r = vec![labels[i].clone()];
-                r.extend((0..n).map(|j| num(self.distances[(i, j)])));
-                r
-            })
-            .collect();
-        write_csv_owned(&out("procrustes_distances.csv"), &dh, &drows)?;
-        written.push(out("procrustes_distances.csv"));
-
-        let anova_summary = match &self.measurement_error {
-            None => serde_json::Value::Null,
-            Some(pa) => {
-                write_anova(&out("anova.csv"), pa)?;
-                written.push(out("anova.csv"));
-                json!({
-                    "shape_repeatability": pa.shape.repeatability,
-                    "size_repeatability": pa.size.repeatability,
-                    "individuals": pa.shape.individuals,
-                    "measurements": pa.shape.measurements,
-                })
-            }
-        };
-        let g = &self.gpa;
-        let allo = &self.allometry;
-        write_json(
-            &out("summary.json"),
-            &json!({
-                "table": source,
-                "specimens": n, "landmarks": k, "dims": m,
-                "fit": format!("{:?}", self.options.gpa.fit).to_lowercase(),
-                "tolerance": self.options.gpa.tolerance,
-                "iterations": g.iterations, "converged": g.converged, "final_change": g.final_change,
-                "estimated_landmarks": self.estimated.iter().filter(|&&e| e).count(),
-                "total_procrustes_variance": self.total_variance,
-                "disparity_divisor": "n - 1",
-                "group_difference_test": self.group_test,
-                "allometry": {"r_squared": allo.r_squared, "p_value": allo.p_value, "permutations": allo.permutations},
-                "measurement_error": anova_summary,
-            }),
-        )?;
-        written.push(out("summary.json"));
-        Ok(written)
+        Ok(["pc_scores.csv", "pc_variance.csv", "pc_loadings.csv"].map(out))
     }
 
     /// The PC1–PC2 scatter with group hulls (`None` with fewer than two components).
