@@ -3,20 +3,22 @@
 //!
 //! Reading goes in two steps. [`page`] reads each page's directory (through the `tiff` crate's
 //! tag API) into a [`page::PageInfo`]: its size and sample type, checked against what Sutura
-//! stores (one sample per pixel of `u8`, `u16`, `i16` or `f32`), and for uncompressed strips the
-//! byte ranges of the pixel data. Then every page is decoded in parallel straight into its own
-//! disjoint part of one [`VoxelBuffer`](crate::volume::VoxelBuffer): uncompressed strips are
-//! read with positioned reads into the destination and byte-swapped in place; everything else
-//! (LZW, Deflate, `PackBits`, predictors, tiles) goes through the crate's decoder, which writes
+//! stores (one sample per pixel of `u8`, `u16`, `i16` or `f32`), and, for every layout
+//! [`chunks`] covers (uncompressed, LZW or Deflate strips and tiles, with or without a
+//! predictor), the byte ranges of its chunks. Then every page is decoded in parallel straight
+//! into its own disjoint part of one [`VoxelBuffer`](crate::volume::VoxelBuffer): by [`chunks`]
+//! (positioned reads, inflate or LZW into the destination, byte order and predictor undone in
+//! place), or, for the rest (`PackBits`, white-is-zero), by the crate's decoder, which writes
 //! native-endian samples into the same destination.
 //!
 //! Every page must match the first in width, height and sample type. Voxel size: the caller's,
 //! else the resolution tags if present and plausible (slice spacing taken equal to the pixel
 //! width, with a note), else 1 mm with a note.
 //!
-//! Submodules: [`page`] (one page: probe and decode), [`folder`] (listing and natural order),
-//! [`write`] (writers).
+//! Submodules: [`page`] (one page: probe and decode), [`chunks`] (our own strip and tile
+//! decoder), [`folder`] (listing and natural order), [`write`] (writers).
 
+mod chunks;
 mod folder;
 mod page;
 mod write;
@@ -27,6 +29,7 @@ pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 use super::{IoError, OpenOptions, Progress};
 use crate::geometry::Affine3;
 use crate::volume::{DType, Volume, VoxelBuffer, Voxels};
+use chunks::Scratch;
 use page::Resolution;
 use rayon::prelude::*;
 use std::fs::File;
@@ -59,7 +62,7 @@ pub fn open_folder(
     bytes_mut(&mut voxels)
         .par_chunks_mut(slice_bytes)
         .zip(files.par_iter())
-        .try_for_each(|(dst, file)| {
+        .try_for_each_init(Scratch::default, |scratch, (dst, file)| {
             if progress.is_cancelled() {
                 return Err(IoError::Cancelled {
                     path: path.to_owned(),
@@ -78,7 +81,7 @@ pub fn open_folder(
                     ),
                 ));
             }
-            page::decode(&mut dec, &info, file, dst)?;
+            page::decode(&mut dec, &info, file, dst, scratch)?;
             let n = done.fetch_add(1, Ordering::Relaxed) + 1;
             if progress.report(n, total) {
                 Ok(())
@@ -145,34 +148,35 @@ pub fn open_file(
         }
     };
     let dst_all = bytes_mut(&mut voxels);
-    if infos.iter().all(|i| i.raw_strips.is_some()) {
-        // Uncompressed: positioned reads from one shared handle, pages in parallel.
-        let big_endian = matches!(dec.byte_order(), tiff::tags::ByteOrder::BigEndian);
+    if infos.iter().all(|i| i.chunks.is_some()) {
+        // Every page decoded by us: positioned reads from one shared handle, pages in parallel.
         let file = dec.inner().get_ref();
         dst_all
             .par_chunks_mut(page_bytes)
             .zip(infos.par_iter())
             .enumerate()
-            .try_for_each(|(index, (dst, info))| {
+            .try_for_each_init(Scratch::default, |scratch, (index, (dst, info))| {
                 if progress.is_cancelled() {
                     return Err(IoError::Cancelled {
                         path: path.to_owned(),
                     });
                 }
-                page::read_raw(file, info, shape.dtype, big_endian, path, dst)
-                    .map_err(|e| page::with_page(e, path, index))?;
+                if let Some(plan) = &info.chunks {
+                    chunks::decode_page(file, plan, shape, path, dst, scratch)
+                        .map_err(|e| page::with_page(e, path, index))?;
+                }
                 report()
             })?;
     } else {
         drop(dec);
-        // Compressed: runs of consecutive pages, each run with its own handle and decoder that
-        // walks the chain once to its first page and then page by page.
+        // Some pages need the crate's decoder: runs of consecutive pages, each run with its own
+        // handle and decoder that walks the chain once to its first page and then page by page.
         let runs = (rayon::current_num_threads() * 4).clamp(1, infos.len());
         let per_run = infos.len().div_ceil(runs);
         dst_all
             .par_chunks_mut(page_bytes * per_run)
             .enumerate()
-            .try_for_each(|(run, dst_run)| {
+            .try_for_each_init(Scratch::default, |scratch, (run, dst_run)| {
                 let start = run * per_run;
                 let mut dec = page::open_decoder(path)?;
                 page::catch(path, || dec.seek_to_image(start))
@@ -188,7 +192,7 @@ pub fn open_file(
                         page::catch(path, || dec.next_image())
                             .map_err(|e| page::with_page(e, path, index))?;
                     }
-                    page::decode(&mut dec, &infos[index], path, dst)
+                    page::decode(&mut dec, &infos[index], path, dst, scratch)
                         .map_err(|e| page::with_page(e, path, index))?;
                     report()?;
                 }
