@@ -123,6 +123,16 @@ fn matches_files_written_by_tifffile() {
 }
 
 #[test]
+fn committed_slice_folder_carries_its_voxel_size() {
+    // written by our writer: the full 3D voxel size is in each slice's ImageDescription, so the
+    // folder opens with the right geometry without a caller-given size (sample: 36 x 36 x 50 µm)
+    let scan = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-001_slices");
+    let v = sutura::io::open(&scan, &OpenOptions::default(), &Progress::none()).unwrap();
+    assert_eq!(v.spacing_mm(), [0.036, 0.036, 0.05]);
+    assert!(v.notes.is_empty(), "{:?}", v.notes);
+}
+
+#[test]
 fn consistent_with_tifffile_on_pillow_test_images() {
     // reference: the TIFF images in Pillow's sdist (Tests/images), read by tifffile
     let images = common::reference_dir().join("pillow/Tests/images");

@@ -12,8 +12,9 @@
 //! native-endian samples into the same destination.
 //!
 //! Every page must match the first in width, height and sample type. Voxel size: the caller's,
-//! else the resolution tags if present and plausible (slice spacing taken equal to the pixel
-//! width, with a note), else 1 mm with a note.
+//! else the full 3D size that Sutura's writers record as JSON in the first page's
+//! `ImageDescription` (`{"voxel_size_mm":[x,y,z]}`), else the resolution tags if present and
+//! plausible (slice spacing taken equal to the pixel width, with a note), else 1 mm with a note.
 //!
 //! Submodules: [`page`] (one page: probe and decode), [`chunks`] (our own strip and tile
 //! decoder), [`folder`] (listing and natural order), [`write`] (writers).
@@ -48,6 +49,7 @@ pub fn open_folder(
     let first_path = &files[0];
     let mut first_dec = page::open_decoder(first_path)?;
     let first = page::probe(&mut first_dec, first_path)?;
+    let described = page::described_voxel_size(&mut first_dec, first_path)?;
     drop(first_dec);
     let dims = [
         u64::from(first.shape.width),
@@ -91,7 +93,7 @@ pub fn open_folder(
                 })
             }
         })?;
-    finish(path, options, dims, voxels, first.resolution)
+    finish(path, options, dims, voxels, described, first.resolution)
 }
 
 /// Opens a single- or multi-page (Big)TIFF file; each page is a z slice.
@@ -104,6 +106,7 @@ pub fn open_file(
     // uncompressed pages. The crate refuses cyclic chains; the count is capped by the limits.
     let mut dec = page::open_decoder(path)?;
     let first = page::probe(&mut dec, path)?;
+    let described = page::described_voxel_size(&mut dec, path)?;
     let mut infos = vec![first];
     while dec.more_images() {
         if infos.len() as u64 >= options.limits.max_axis {
@@ -200,7 +203,7 @@ pub fn open_file(
             })?;
     }
     let resolution = infos[0].resolution;
-    finish(path, options, dims, voxels, resolution)
+    finish(path, options, dims, voxels, described, resolution)
 }
 
 fn file_name(p: &Path) -> String {
@@ -241,14 +244,23 @@ fn finish(
     options: &OpenOptions,
     dims: [u64; 3],
     voxels: Voxels,
+    described: Result<Option<[f64; 3]>, String>,
     resolution: Option<Resolution>,
 ) -> Result<Volume, IoError> {
-    let (spacing, note) = voxel_size(path, options.voxel_size_mm, resolution)?;
+    // the caller's size, else the description's, else the resolution tags (`voxel_size`)
+    let (spacing, mut notes) = match (options.voxel_size_mm, described) {
+        (None, Ok(Some(s))) => (s, Vec::new()),
+        (given, described) => {
+            let (s, note) = voxel_size(path, given, resolution)?;
+            let why = described.err().filter(|_| given.is_none());
+            (s, why.into_iter().chain(note).collect())
+        }
+    };
     // dims passed the limits check, so they fit in usize
     let dims = dims.map(|d| usize::try_from(d).unwrap_or(usize::MAX));
     let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
         .map_err(|e| IoError::volume(path, &e))?;
-    vol.notes.extend(note);
+    vol.notes.append(&mut notes);
     Ok(vol)
 }
 

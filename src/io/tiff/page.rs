@@ -56,6 +56,44 @@ pub(super) struct PageInfo {
     pub resolution: Option<Resolution>,
 }
 
+/// The key of the JSON object in `ImageDescription` (TIFF 6.0 tag 270) that holds the full 3D
+/// voxel size, `{"voxel_size_mm":[x,y,z]}`, written by Sutura's TIFF writers.
+pub(super) const DESCRIPTION_KEY: &str = "voxel_size_mm";
+
+/// The voxel size in the current page's `ImageDescription`, if it is a JSON object with a
+/// [`DESCRIPTION_KEY`] of three positive finite numbers. Any other description (plain text,
+/// other programs' JSON) is no voxel size: `Ok(None)`; one with the key but unusable values
+/// is `Err` with what is wrong, for a note.
+pub(super) fn described_voxel_size(
+    dec: &mut FileDecoder,
+    path: &Path,
+) -> Result<Result<Option<[f64; 3]>, String>, IoError> {
+    let Some(tiff::decoder::ifd::Value::Ascii(text)) =
+        catch(path, || dec.find_tag(Tag::ImageDescription))?
+    else {
+        return Ok(Ok(None));
+    };
+    let Ok(serde_json::Value::Object(map)) = serde_json::from_str(text.trim_end_matches('\0'))
+    else {
+        return Ok(Ok(None));
+    };
+    let Some(value) = map.get(DESCRIPTION_KEY) else {
+        return Ok(Ok(None));
+    };
+    let sizes: Option<Vec<f64>> = value
+        .as_array()
+        .map(|a| a.iter().map(serde_json::Value::as_f64).collect())
+        .and_then(|v: Option<Vec<f64>>| v);
+    match sizes.as_deref() {
+        Some(&[x, y, z]) if [x, y, z].iter().all(|v| v.is_finite() && *v > 0.0) => {
+            Ok(Ok(Some([x, y, z])))
+        }
+        _ => Ok(Err(format!(
+            "the image description's {DESCRIPTION_KEY} {value} is not three positive sizes; ignored"
+        ))),
+    }
+}
+
 /// Runs a call into the `tiff` crate, mapping its errors and any panic.
 pub(super) fn catch<T>(path: &Path, f: impl FnOnce() -> TiffResult<T>) -> Result<T, IoError> {
     match catch_unwind(AssertUnwindSafe(f)) {
