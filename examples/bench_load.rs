@@ -82,7 +82,7 @@ fn main() -> anyhow::Result<()> {
             "path": path.display().to_string(), "n": reps, "median_s": med,
             "min_s": times[0], "max_s": times[times.len() - 1],
             "gbps": bytes as f64 / med / 1e9, "peak_rss_mib": peak_rss_mib(),
-            "voxel_mib": bytes as f64 / 1048576.0, "centre_value": checksum, "load1": load1(),
+            "voxel_mib": bytes as f64 / 1_048_576.0, "centre_value": checksum, "load1": load1(),
             "cpu_median_s": cpu[cpu.len() / 2],
         })
     );

@@ -123,6 +123,10 @@ fn matches_files_written_by_tifffile() {
 }
 
 #[test]
+#[allow(
+    clippy::float_cmp,
+    reason = "the written sizes must read back bit for bit"
+)]
 fn committed_slice_folder_carries_its_voxel_size() {
     // written by our writer: the full 3D voxel size is in each slice's ImageDescription, so the
     // folder opens with the right geometry without a caller-given size (sample: 36 x 36 x 50 µm)

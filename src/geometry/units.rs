@@ -55,6 +55,10 @@ fn trim_float(v: f64) -> String {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "whole µm must parse to the f64 nearest the decimal value, exactly"
+)]
 mod tests {
     use super::*;
 

@@ -127,10 +127,14 @@ fn partner(path: &Path, strip: usize, exts: &[&str]) -> Option<PathBuf> {
         .find(|p| p.is_file())
 }
 
+#[allow(
+    clippy::case_sensitive_file_extension_comparisons,
+    reason = "`name` is already lowercased"
+)]
 fn locate(path: &Path) -> Files {
-    let name = lower_name(path);
     const IMG: &[&str] = &[".img", ".IMG", ".img.gz", ".IMG.gz", ".IMG.GZ"];
     const HDR: &[&str] = &[".hdr", ".HDR", ".hdr.gz", ".HDR.gz", ".HDR.GZ"];
+    let name = lower_name(path);
     let own = || Files {
         header: path.to_owned(),
         data: path.to_owned(),
@@ -236,15 +240,14 @@ fn dim_axis(path: &Path, h: &Header) -> Result<([u64; 3], u64), IoError> {
     }
     let ndim = ndim as usize;
     let mut d = [1u64; 8];
-    for i in 1..=ndim {
-        let v = h.dim[i];
+    for (i, (di, &v)) in d.iter_mut().zip(&h.dim).enumerate().take(ndim + 1).skip(1) {
         if v < 1 {
             return Err(IoError::corrupt(
                 path,
                 format!("dim[{i}] is {v}, expected at least 1"),
             ));
         }
-        d[i] = v as u64;
+        *di = v as u64;
     }
     if let Some(i) = (5..=ndim).find(|&i| d[i] > 1) {
         return Err(IoError::unsupported(
@@ -260,6 +263,60 @@ fn dim_axis(path: &Path, h: &Header) -> Result<([u64; 3], u64), IoError> {
 
 fn finite_all(v: &[f64]) -> bool {
     v.iter().all(|x| x.is_finite())
+}
+
+/// `world_from_voxel` in mm: sform, else qform, else pixdim (nifti1.h's three methods).
+fn placement(
+    path: &Path,
+    h: &Header,
+    notes: &mut Vec<String>,
+) -> Result<crate::geometry::Affine3, IoError> {
+    // pixdim (reference: nifti1.h: pixdim[1..3] are the voxel sizes, pixdim[0] is qfac)
+    if !finite_all(&h.pixdim[1..4]) {
+        return Err(IoError::corrupt(
+            path,
+            format!("pixdim {:?} is not finite", &h.pixdim[1..4]),
+        ));
+    }
+    let mm_per_unit = h.mm_per_unit().unwrap_or_else(|| {
+        notes.push(format!(
+            "xyzt_units {} names no spatial unit; millimetres assumed",
+            h.xyzt_units
+        ));
+        1.0
+    });
+    let (m, method) = if h.sform_code > 0 {
+        let flat: Vec<f64> = h.srow.iter().flatten().copied().collect();
+        if !finite_all(&flat) {
+            return Err(IoError::corrupt(path, "sform (srow_x/y/z) is not finite"));
+        }
+        (h.sform_matrix(), "sform")
+    } else if h.qform_code > 0 {
+        if !finite_all(&h.quatern) || !finite_all(&h.qoffset) {
+            return Err(IoError::corrupt(
+                path,
+                "qform quaternion or offset is not finite",
+            ));
+        }
+        if h.pixdim[1..4].iter().any(|&d| d <= 0.0) {
+            notes.push(format!(
+                "pixdim {:?} has a non-positive voxel size; 1 used for it in the qform (nifti1_io rule)",
+                &h.pixdim[1..4]
+            ));
+        }
+        (h.qform_matrix(), "qform")
+    } else {
+        if h.pixdim[1..4].contains(&0.0) {
+            notes.push(format!(
+                "pixdim {:?} has a zero voxel size; 1 used for it",
+                &h.pixdim[1..4]
+            ));
+        }
+        notes.push("no sform or qform: voxels placed by pixdim scaling alone".into());
+        (h.pixdim_matrix(), "pixdim")
+    };
+    header::affine(header::to_mm(&m, mm_per_unit))
+        .map_err(|e| IoError::corrupt(path, format!("{method}: {e}")))
 }
 
 fn plan(
@@ -326,52 +383,7 @@ fn plan(
         }
     }
 
-    // pixdim (reference: nifti1.h: pixdim[1..3] are the voxel sizes, pixdim[0] is qfac)
-    if !finite_all(&h.pixdim[1..4]) {
-        return Err(IoError::corrupt(
-            path,
-            format!("pixdim {:?} is not finite", &h.pixdim[1..4]),
-        ));
-    }
-    let mm_per_unit = h.mm_per_unit().unwrap_or_else(|| {
-        notes.push(format!(
-            "xyzt_units {} names no spatial unit; millimetres assumed",
-            h.xyzt_units
-        ));
-        1.0
-    });
-    let (m, method) = if h.sform_code > 0 {
-        let flat: Vec<f64> = h.srow.iter().flatten().copied().collect();
-        if !finite_all(&flat) {
-            return Err(IoError::corrupt(path, "sform (srow_x/y/z) is not finite"));
-        }
-        (h.sform_matrix(), "sform")
-    } else if h.qform_code > 0 {
-        if !finite_all(&h.quatern) || !finite_all(&h.qoffset) {
-            return Err(IoError::corrupt(
-                path,
-                "qform quaternion or offset is not finite",
-            ));
-        }
-        if h.pixdim[1..4].iter().any(|&d| d <= 0.0) {
-            notes.push(format!(
-                "pixdim {:?} has a non-positive voxel size; 1 used for it in the qform (nifti1_io rule)",
-                &h.pixdim[1..4]
-            ));
-        }
-        (h.qform_matrix(), "qform")
-    } else {
-        if h.pixdim[1..4].contains(&0.0) {
-            notes.push(format!(
-                "pixdim {:?} has a zero voxel size; 1 used for it",
-                &h.pixdim[1..4]
-            ));
-        }
-        notes.push("no sform or qform: voxels placed by pixdim scaling alone".into());
-        (h.pixdim_matrix(), "pixdim")
-    };
-    let world_from_voxel = header::affine(header::to_mm(&m, mm_per_unit))
-        .map_err(|e| IoError::corrupt(path, format!("{method}: {e}")))?;
+    let world_from_voxel = placement(path, h, &mut notes)?;
 
     // scl_slope / scl_inter (reference: nifti1.h: slope 0 means no scaling; nibabel 5.x also
     // treats a non-finite slope as none)
@@ -735,6 +747,7 @@ fn convert_f64(raw: &[u8]) -> std::io::Result<(Voxels, String)> {
                 (true, true, f64::INFINITY, f64::NEG_INFINITY),
                 |(ai, af, lo, hi), b| {
                     let v = get_f64(b);
+                    #[allow(clippy::float_cmp, reason = "exactness in f32 is the question")]
                     let exact32 = v.is_nan() || f64::from(v as f32) == v;
                     (
                         ai && v.is_finite() && v.fract() == 0.0,

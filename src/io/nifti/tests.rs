@@ -1,3 +1,8 @@
+#![allow(
+    clippy::float_cmp,
+    reason = "round trips and exact decimal parsing must reproduce values bit for bit"
+)]
+
 use super::header::{Header, linear_to_quatern, quatern_to_linear};
 use super::*;
 use crate::geometry::Affine3;

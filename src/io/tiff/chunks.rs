@@ -286,7 +286,9 @@ fn decode_chunk(
         }
         read(out)?;
         if plan.reverse_bits {
-            out.iter_mut().for_each(|b| *b = b.reverse_bits());
+            for b in out.iter_mut() {
+                *b = b.reverse_bits();
+            }
         }
         return Ok(());
     }

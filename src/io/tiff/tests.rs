@@ -1,3 +1,8 @@
+#![allow(
+    clippy::float_cmp,
+    reason = "round trips and exact decimal parsing must reproduce values bit for bit"
+)]
+
 use super::*;
 use crate::io::Limits;
 use crate::volume::Rescale;

@@ -45,7 +45,12 @@ pub fn write_stack_with(
         .filter_map(Result::ok)
         .any(|e| {
             let n = e.file_name().to_string_lossy().to_lowercase();
-            n.ends_with(".tif") || n.ends_with(".tiff")
+            #[allow(
+                clippy::case_sensitive_file_extension_comparisons,
+                reason = "`n` is already lowercased"
+            )]
+            let tiff = n.ends_with(".tif") || n.ends_with(".tiff");
+            tiff
         });
     if has_tiffs {
         return Err(IoError::usage(
