@@ -40,13 +40,13 @@ import json, sys
 ours = [json.loads(l) for l in open(sys.argv[1])]
 py = [json.loads(l) for l in open(sys.argv[2]) if l.strip()]
 py = [p for p in py if p.get("name") != "env" and "median_s" in p]
-print(f"{'form':8} {'build':6} {'sutura s':>9} {'GB/s':>6} {'RSS MiB':>8} {'load':>5}   python reference (best of its load figures for the form)")
+print(f"{'form':8} {'build':6} {'sutura s':>9} {'CPU s':>6} {'GB/s':>6} {'RSS MiB':>8} {'load':>5}   python reference (best of its load figures for the form)")
 for o in ours:
     f = o["form"]
     key = {"slices": "slices", "bigtiff": "bigtiff", "deflate": "deflate", "nii": "nii_", "niigz": "niigz"}[f]
     cands = [p for p in py if key in p["name"] and not p["name"].endswith("_cold")]
     ref = min(cands, key=lambda p: p["median_s"]) if cands else None
-    r = (f"{ref['name']} {ref['median_s']:.3f} s (load {ref.get('load1', float('nan')):.1f})"
+    r = (f"{ref['name']} {ref['median_s']:.3f} s (load {ref.get('load1_end', float('nan')):.1f})"
          f" -> ratio {ref['median_s']/o['median_s']:.2f}x") if ref else "no reference"
-    print(f"{f:8} {o['build']:6} {o['median_s']:9.3f} {o['gbps']:6.2f} {o['peak_rss_mib']:8.0f} {o.get('load1', float('nan')):5.1f}   {r}")
+    print(f"{f:8} {o['build']:6} {o['median_s']:9.3f} {o.get('cpu_median_s', float('nan')):6.2f} {o['gbps']:6.2f} {o['peak_rss_mib']:8.0f} {o.get('load1', float('nan')):5.1f}   {r}")
 PYEOF
