@@ -299,7 +299,10 @@ fn decode_chunk(
         .unwrap_or(usize::MAX)
         .min(out.len().saturating_mul(2).saturating_add(4096));
     scratch.input.resize(want, 0);
-    read(&mut scratch.input)?;
+    // A byte count that runs past the end of the file is tolerated as long as the data there
+    // decode to the whole chunk (the check after decoding): read what the file has.
+    let got = read_upto(file, &mut scratch.input, offset).map_err(|e| IoError::os(path, e))?;
+    scratch.input.truncate(got);
     let filled = match plan.codec {
         Codec::Lzw => {
             let dec = scratch.lzw.get_or_insert_with(|| {
@@ -332,6 +335,20 @@ fn decode_chunk(
         ));
     }
     Ok(())
+}
+
+/// Reads from `offset` until `buf` is full or the file ends; returns the bytes read.
+fn read_upto(file: &File, buf: &mut [u8], offset: u64) -> std::io::Result<usize> {
+    let mut got = 0;
+    while got < buf.len() {
+        match file.read_at(&mut buf[got..], offset + got as u64) {
+            Ok(0) => break,
+            Ok(n) => got += n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+            Err(e) => return Err(e),
+        }
+    }
+    Ok(got)
 }
 
 /// Decodes LZW until `out` is full or the data end; returns the bytes written.
