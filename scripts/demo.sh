@@ -9,14 +9,13 @@ cargo build --release --quiet
 S=./target/release/sutura
 OUT=target/demo
 mkdir -p "$OUT"
-# the slice folder carries no voxel size of its own that we trust: give it (tens of µm, anisotropic)
+# the slice folder records its full voxel size (36 x 36 x 50 µm) in each slice's description
 for scan in sample_volumes/*_slices sample_volumes/*.nii.gz; do
   name=$(basename "$scan"); name=${name%.nii.gz}
-  vs=(); case "$scan" in *_slices) vs=(--voxel-size 36um,36um,50um);; esac
-  $S info --quiet "${vs[@]}" "$scan" | head -4
-  $S slice --quiet "${vs[@]}" "$scan" --plane k -o "$OUT/$name-k.png"
-  $S slice --quiet "${vs[@]}" "$scan" --plane j -o "$OUT/$name-j.png"
-  $S render --quiet "${vs[@]}" "$scan" --mode surface --orbit 35,30 -o "$OUT/$name-surface.png"
+  $S info --quiet "$scan" | head -4
+  $S slice --quiet "$scan" --plane k -o "$OUT/$name-k.png"
+  $S slice --quiet "$scan" --plane j -o "$OUT/$name-j.png"
+  $S render --quiet "$scan" --mode surface --orbit 35,30 -o "$OUT/$name-surface.png"
 done
 $S render --quiet sample_volumes/HDC-002.nii.gz --mode projection --orbit 90,60 -o "$OUT/HDC-002-projection.png"
 $S slice --quiet sample_volumes/HDC-002.nii.gz --normal 1,0.4,0.3 --slab 150um -o "$OUT/HDC-002-oblique-slab.png"

@@ -55,6 +55,10 @@ fn trim_float(v: f64) -> String {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "whole µm must parse to the f64 nearest the decimal value, exactly"
+)]
 mod tests {
     use super::*;
 
@@ -81,6 +85,10 @@ mod tests {
         assert!((parse_length_mm("0.012mm").unwrap() - 0.012).abs() < 1e-15);
         assert!((parse_length_mm("1.2e-5m").unwrap() - 0.012).abs() < 1e-15);
         assert!((parse_length_mm("1.5e1um").unwrap() - 0.015).abs() < 1e-15);
+        // whole µm and nm are the f64 nearest the decimal value in mm, not one step off
+        assert_eq!(parse_length_mm("36um").unwrap(), 0.036);
+        assert_eq!(parse_length_mm("50um").unwrap(), 0.05);
+        assert_eq!(parse_length_mm("700nm").unwrap(), 0.0007);
     }
 
     #[test]

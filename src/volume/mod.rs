@@ -165,10 +165,15 @@ impl Rescale {
     /// `None` for the identity, or when the slope is 0 or not finite (`NIfTI`'s "no scaling").
     #[must_use]
     pub fn new(slope: f64, intercept: f64) -> Option<Self> {
-        if slope == 0.0 || !slope.is_finite() || !intercept.is_finite() {
-            return None;
-        }
-        if slope == 1.0 && intercept == 0.0 {
+        #[allow(
+            clippy::float_cmp,
+            reason = "NIfTI's sentinels: slope exactly 0 means no scaling, exactly 1 and 0 is the identity"
+        )]
+        let none = slope == 0.0
+            || !slope.is_finite()
+            || !intercept.is_finite()
+            || (slope == 1.0 && intercept == 0.0);
+        if none {
             return None;
         }
         Some(Self { slope, intercept })
