@@ -500,8 +500,19 @@ fn bad_input_gets_a_clear_one_line_error() {
         cwd,
     );
     assert!(e.contains("already exists"), "{e}");
-    let e = fails(&["project", "add", "p.json", slices.to_str().unwrap()], cwd);
-    assert!(e.contains("records no reliable voxel size"), "{e}");
+    // a folder of slices written by another program: no 3D voxel size recorded
+    let bare = cwd.join("bare_slices");
+    std::fs::create_dir_all(&bare).unwrap();
+    for z in 0..3 {
+        let f = std::fs::File::create(bare.join(format!("s{z}.tif"))).unwrap();
+        let mut enc = tiff::encoder::TiffEncoder::new(f).unwrap();
+        enc.write_image::<tiff::encoder::colortype::Gray16>(4, 3, &[z as u16; 12])
+            .unwrap();
+    }
+    let e = fails(&["project", "add", "p.json", bare.to_str().unwrap()], cwd);
+    assert!(e.contains("records no full voxel size"), "{e}");
+    // the sample's folder records its voxel size (36 x 36 x 50 µm) and is accepted as it is
+    ok(&["project", "add", "p.json", slices.to_str().unwrap()], cwd);
     ok(
         &[
             "project",

@@ -309,7 +309,10 @@ impl Analysis {
 
     /// Writes every table into `dir` (created if needed) and returns the paths written.
     /// `source` names the input in `summary.json`.
-    #[allow(clippy::too_many_lines, reason = "one file after another, in the README's order")]
+    #[allow(
+        clippy::too_many_lines,
+        reason = "one file after another, in the README's order"
+    )]
     pub fn write_tables(&self, dir: &Path, source: &str) -> Result<Vec<PathBuf>, AnalysisError> {
         std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
         let out = |name: &str| dir.join(name);

@@ -1,6 +1,7 @@
 //! Opening a scan with the voxel size a project recorded for it.
 //!
-//! TIFF scans rarely carry a trustworthy voxel size, so the user gives one; `NIfTI` files carry
+//! TIFF scans rarely carry a full voxel size (only folders Sutura wrote record the slice
+//! spacing), so the user usually gives one; `NIfTI` files carry
 //! their own geometry, which a user value rescales axis by axis (keeping the direction cosines
 //! and the origin). Both the command line and the project use [`open_scan`], so a specimen's
 //! scan is placed in the world the same way every time it is opened.
@@ -46,6 +47,7 @@ pub fn open_scan(
         volume
             .notes
             .push(format!("voxel size overridden by the user: {s:?} mm"));
+        volume.spacing_origin = crate::volume::SpacingOrigin::Caller;
     }
     Ok(volume)
 }

@@ -29,7 +29,7 @@ pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 
 use super::{IoError, OpenOptions, Progress};
 use crate::geometry::Affine3;
-use crate::volume::{DType, Volume, VoxelBuffer, Voxels};
+use crate::volume::{DType, SpacingOrigin, Volume, VoxelBuffer, Voxels};
 use chunks::Scratch;
 use page::Resolution;
 use rayon::prelude::*;
@@ -248,12 +248,17 @@ fn finish(
     resolution: Option<Resolution>,
 ) -> Result<Volume, IoError> {
     // the caller's size, else the description's, else the resolution tags (`voxel_size`)
-    let (spacing, mut notes) = match (options.voxel_size_mm, described) {
-        (None, Ok(Some(s))) => (s, Vec::new()),
+    let (spacing, mut notes, origin) = match (options.voxel_size_mm, described) {
+        (None, Ok(Some(s))) => (s, Vec::new(), SpacingOrigin::File),
         (given, described) => {
             let (s, note) = voxel_size(path, given, resolution)?;
             let why = described.err().filter(|_| given.is_none());
-            (s, why.into_iter().chain(note).collect())
+            let origin = if given.is_some() {
+                SpacingOrigin::Caller
+            } else {
+                SpacingOrigin::Guessed
+            };
+            (s, why.into_iter().chain(note).collect(), origin)
         }
     };
     // dims passed the limits check, so they fit in usize
@@ -261,6 +266,7 @@ fn finish(
     let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
         .map_err(|e| IoError::volume(path, &e))?;
     vol.notes.append(&mut notes);
+    vol.spacing_origin = origin;
     Ok(vol)
 }
 

@@ -47,8 +47,8 @@ use super::fingerprint::{Fingerprint, Mismatch};
 use super::scan::open_scan;
 use super::scheme::{Scheme, SchemeError, is_valid_id, sha256_hex};
 use crate::geometry::{Affine3, VoxelPoint, WorldPoint};
-use crate::io::{self, Format, IoError, Progress};
-use crate::volume::Volume;
+use crate::io::{IoError, Progress};
+use crate::volume::{SpacingOrigin, Volume};
 
 /// The scheme a project was made with: its text verbatim, so the project file stands alone.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -90,21 +90,21 @@ pub struct ScanRecord {
 impl ScanRecord {
     /// Opens a scan for a new specimen and records it: path relative to `project_file`'s
     /// folder (which must exist), voxel size (`voxel_size_mm` if given, else the file's own;
-    /// TIFF scans need it given, since TIFF records no slice spacing), placement, fingerprint.
+    /// a TIFF scan without a recorded 3D voxel size needs it given), placement, fingerprint.
     pub fn create(
         project_file: &Path,
         scan: &Path,
         voxel_size_mm: Option<[f64; 3]>,
         progress: &Progress<'_>,
     ) -> Result<(Self, Volume), IoError> {
-        if voxel_size_mm.is_none() && io::detect(scan)? != Format::Nifti {
+        let volume = open_scan(scan, voxel_size_mm, progress)?;
+        if voxel_size_mm.is_none() && volume.spacing_origin == SpacingOrigin::Guessed {
             return Err(IoError::usage(
                 scan,
-                "a TIFF scan records no reliable voxel size (and no slice spacing): give it, \
-                 e.g. 12um or 12um,12um,30um",
+                "the scan records no full voxel size (TIFF resolution tags hold no slice \
+                 spacing): give it, e.g. 12um or 12um,12um,30um",
             ));
         }
-        let volume = open_scan(scan, voxel_size_mm, progress)?;
         let fingerprint = Fingerprint::of(scan, &volume)?;
         let path =
             relative_path(&project_dir(project_file), scan).map_err(|e| IoError::os(scan, e))?;
