@@ -8,6 +8,7 @@ pub mod chart;
 pub mod cli;
 pub mod export;
 pub mod geometry;
+pub mod gui;
 pub mod io;
 pub mod render;
 pub mod shape;
