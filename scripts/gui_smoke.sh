@@ -77,7 +77,10 @@ for view in k_plane i_plane j_plane oblique 3D; do
     [ -n "$win" ] || fail "no window named Sutura"
     cx=$((x0 + (x1 - x0) / 3))
     cy=$((y0 + (y1 - y0) * 2 / 5))
-    xdotool mousemove --window "$win" "$cx" "$cy" click 1
+    # the pointer enters the window first, as a hand would move it, then clicks
+    xdotool mousemove --window "$win" "$cx" "$cy"
+    sleep 0.3
+    xdotool click 1
     wait_for "smoke: crosshair moved" 10 || fail "the click at $cx,$cy did not reach the app"
     sleep 0.4
     import -window root "$OUT/k_plane_clicked.png"

@@ -232,6 +232,24 @@ fn a_click_moves_the_crosshair_to_the_point_under_it() {
     assert!(c.distance_mm(expected) < 1e-6, "{c:?} vs {expected:?}");
     // moving within the k plane keeps the k slice
     assert_eq!(k_slice(h.state()), slice);
+    // a quick click, its press and release in the same frame, counts too
+    let q = p + Vec2::new(50.0, -30.0);
+    h.hover_at(q);
+    h.step();
+    let expected = h.state().view_state().maps[ViewId::PlaneK.index()]
+        .unwrap()
+        .world([f64::from(q.x), f64::from(q.y)]);
+    for pressed in [true, false] {
+        h.event(Event::PointerButton {
+            pos: q,
+            button: PointerButton::Primary,
+            pressed,
+            modifiers: Modifiers::NONE,
+        });
+    }
+    h.step();
+    let c = h.state().view_state().cursor;
+    assert!(c.distance_mm(expected) < 1e-6, "{c:?} vs {expected:?}");
     // the status line reads the voxel under the pointer
     let hover = h.state().view_state().hover.expect("hovering the stage");
     assert!(hover.voxel.is_some() && hover.value.is_some());

@@ -278,12 +278,14 @@ pub fn view_ui(
                 about_v_deg: d[0] * TURN_DEG_PER_POINT,
             });
         }
-    } else if let Some(m) = &map
-        && response.is_pointer_button_down_on()
-        && ui.input(|i| i.pointer.primary_down())
-        && let Some(p) = response.interact_pointer_pos()
-    {
-        out.push(Command::MoveCursor(m.world(arr(p))));
+    } else if let Some(m) = &map {
+        // a press held over frames, or a click whose press and release came in one frame
+        let held = response.is_pointer_button_down_on() && ui.input(|i| i.pointer.primary_down());
+        if (held || response.clicked_by(PointerButton::Primary))
+            && let Some(p) = response.interact_pointer_pos()
+        {
+            out.push(Command::MoveCursor(m.world(arr(p))));
+        }
     }
 
     let icon = match view {
