@@ -5,7 +5,7 @@
 //!    window/level and colour map, the scale bar and orientation labels, conversion to the
 //!    texture format — for a slice change, a pan, a zoom and a window/level change; then the
 //!    app's own UI frame (layout, input, commands, texture replacement) measured by driving the
-//!    real app through egui_kittest (no GPU upload: kittest draws nothing).
+//!    real app through `egui_kittest` (no GPU upload: kittest draws nothing).
 //! 2. The same round trip as a user sees it: a wheel step on the stage until the new picture is
 //!    on screen.
 //! 3. The 3D view at stage size on the same volume: surface coarse and full.
@@ -19,7 +19,7 @@
 use std::path::PathBuf;
 use std::time::{Duration, Instant};
 
-use eframe::egui::{self, Event, Modifiers, MouseWheelSource, MouseWheelUnit, TouchPhase, Vec2};
+use eframe::egui::{Event, Modifiers, MouseWheelSource, MouseWheelUnit, TouchPhase, Vec2};
 use egui_kittest::Harness;
 use rayon::prelude::*;
 use sutura::geometry::{Affine3, WorldPoint};
@@ -28,6 +28,9 @@ use sutura::gui::{App, Command, Preferences, ViewId};
 use sutura::render::Quality;
 use sutura::render::raycast::Bricks;
 use sutura::volume::{Volume, VoxelBuffer, Voxels};
+
+/// A named way of changing the stage picture's key (the i-th variation).
+type Variant<'a> = (&'a str, Box<dyn Fn(usize) -> PlaneKey + 'a>);
 
 /// An ellipsoid with a dense shell in a lighter matrix, with noise (as the render bench).
 fn synth(n: usize, spacing_mm: f64) -> Volume {
@@ -105,7 +108,7 @@ fn step_until(h: &mut Harness<'_, App>, done: impl Fn(&App) -> bool) {
     while !done(h.state()) {
         h.step();
         assert!(
-            t0.elapsed() < Duration::from_secs(600),
+            t0.elapsed() < Duration::from_mins(10),
             "the app never got there"
         );
         std::thread::sleep(Duration::from_micros(200));
@@ -122,6 +125,7 @@ fn wheel(h: &Harness<'_, App>, lines: f32) {
     });
 }
 
+#[allow(clippy::too_many_lines)] // reason: one straight sequence of measurements
 fn main() {
     println!("threads: {}", rayon::current_num_threads());
     let sample = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz");
@@ -171,7 +175,7 @@ fn main() {
 
     // 1. the redraw itself, per kind of change
     let normal = key.geometry.u.cross(&key.geometry.v);
-    let variants: [(&str, Box<dyn Fn(usize) -> PlaneKey>); 4] = [
+    let variants: [Variant; 4] = [
         (
             "plane redraw: slice change",
             Box::new(|i| {
@@ -278,5 +282,4 @@ fn main() {
     println!("  wheel step to picture      {trip_ms:7.1} ms");
     println!("  3D coarse / full           {coarse_ms:7.1} / {full_ms:.1} ms  (50 / 500 ms)");
     println!("  sample to first frame      {open_ms:7.1} ms  (1000 ms)");
-    let _ = egui::Context::default();
 }

@@ -1,4 +1,4 @@
-//! The workstation driven through its real UI with egui_kittest (no display, no GPU): events
+//! The workstation driven through its real UI with `egui_kittest` (no display, no GPU): events
 //! go in as a user's pointer and keys would, and the tests check the app's state afterwards.
 
 use std::path::PathBuf;
@@ -24,7 +24,7 @@ fn step_until(h: &mut Harness<'_, App>, what: &str, done: impl Fn(&App) -> bool)
             return;
         }
         assert!(
-            t0.elapsed() < Duration::from_secs(120),
+            t0.elapsed() < Duration::from_mins(2),
             "timed out waiting for {what}"
         );
         std::thread::sleep(Duration::from_millis(5));

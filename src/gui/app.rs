@@ -74,7 +74,7 @@ impl Smoke {
             ready_at: None,
             hold_secs: num("SUTURA_SMOKE_HOLD", 2.5),
             started: Instant::now(),
-            deadline: Duration::from_secs(240),
+            deadline: Duration::from_mins(4),
             frames: 0,
             max_frames: num("SUTURA_SMOKE_FRAMES", 20_000.0) as u64,
             failed,
@@ -509,14 +509,13 @@ impl App {
                 continue;
             }
             match r.picture {
-                Ok(pic) => match &mut self.shown[i] {
-                    Some(s) => {
+                Ok(pic) => {
+                    if let Some(s) = &mut self.shown[i] {
                         s.texture.set(pic.image, TextureOptions::LINEAR);
                         s.key = r.key;
                         s.generation = r.generation;
                         s.hits = pic.hits;
-                    }
-                    None => {
+                    } else {
                         let texture = ctx.load_texture(
                             format!("view-{}", r.view.label()),
                             pic.image,
@@ -529,7 +528,7 @@ impl App {
                             hits: pic.hits,
                         });
                     }
-                },
+                }
                 Err(msg) => {
                     self.vs.message = Some((format!("{}: {msg}", r.view.label()), true));
                 }
@@ -707,6 +706,7 @@ fn tiff_voxel_size(text: &str) -> Result<Option<[f64; 3]>, String> {
     }
 }
 
+#[allow(clippy::too_many_lines)] // reason: one flat list of keys reads best, as the help lists them
 fn shortcuts(
     ctx: &egui::Context,
     prefs: &Preferences,

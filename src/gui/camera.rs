@@ -283,11 +283,13 @@ pub struct Orbit {
 pub const MAX_ELEVATION_DEG: f64 = 89.0;
 
 impl Default for Orbit {
+    /// From the front right and above, magnified a little: the fit is to the box's longest
+    /// diagonal, which leaves a margin from every direction.
     fn default() -> Self {
         Self {
             azimuth_deg: 30.0,
             elevation_deg: 25.0,
-            zoom: 1.0,
+            zoom: 1.3,
             pan: Vector3::zeros(),
         }
     }

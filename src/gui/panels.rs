@@ -441,6 +441,7 @@ pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState) {
 }
 
 /// The loading card over the stage: file, progress bar, cancel.
+#[must_use]
 pub fn loading_ui(ctx: &egui::Context, loading: &Loading) -> Option<Command> {
     let mut cmd = None;
     egui::Window::new("Opening")
@@ -486,6 +487,7 @@ pub fn loading_ui(ctx: &egui::Context, loading: &Loading) -> Option<Command> {
 }
 
 /// The help overlay listing every shortcut and pointer action.
+#[must_use]
 pub fn help_ui(ctx: &egui::Context, open: bool) -> Option<Command> {
     if !open {
         return None;

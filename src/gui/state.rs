@@ -120,7 +120,7 @@ pub enum VolumeMode {
 /// Which file dialog to open.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum DialogKind {
-    /// A scan file (NIfTI, TIFF).
+    /// A scan file (`NIfTI`, TIFF).
     ScanFile,
     /// A folder of TIFF slices.
     SliceFolder,
@@ -422,6 +422,7 @@ impl ViewState {
 
     /// Applies a view command; other commands are the app's and are ignored here. `now` is
     /// the time in seconds (for the 3D view's coarse-then-full rendering).
+    #[allow(clippy::too_many_lines)] // reason: one arm per command, each a few lines
     pub fn apply(&mut self, scan: &Scan, prefs: &mut Preferences, cmd: &Command, now: f64) {
         let vol = &scan.volume;
         if matches!(
@@ -791,7 +792,7 @@ mod tests {
         let h = ViewState::hover_at(&s.volume, ViewId::PlaneK, p);
         assert_eq!(h.voxel, Some(VoxelIndex::new(3, 2, 4)));
         // value = 10 × linear index
-        assert_eq!(h.value, Some(10.0 * (3 + 8 * (2 + 6 * 4)) as f64));
+        assert_eq!(h.value, Some(10.0 * f64::from(3 + 8 * (2 + 6 * 4))));
     }
 
     #[test]

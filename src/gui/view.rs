@@ -20,6 +20,7 @@ use eframe::egui::{
     StrokeKind, TextureHandle, Ui, Vec2,
 };
 use nalgebra::Vector3;
+use std::fmt::Write as _;
 
 use super::camera::{
     ScreenMap, axis_basis, fit_mm_per_point, half_extents, onto_slice, slice_index,
@@ -91,12 +92,11 @@ pub fn plane_basis(
 /// plane through the crosshair.
 #[must_use]
 pub fn plane_point(volume: &Volume, vs: &ViewState, view: ViewId, near: WorldPoint) -> WorldPoint {
-    match view.axis() {
-        Some(a) => onto_slice(volume, a, slice_index(volume, a, vs.cursor), near),
-        None => {
-            let (_, _, n) = vs.oblique.basis(volume);
-            WorldPoint(near.0 + n * (vs.cursor.0 - near.0).dot(&n))
-        }
+    if let Some(a) = view.axis() {
+        onto_slice(volume, a, slice_index(volume, a, vs.cursor), near)
+    } else {
+        let (_, _, n) = vs.oblique.basis(volume);
+        WorldPoint(near.0 + n * (vs.cursor.0 - near.0).dot(&n))
     }
 }
 
@@ -117,6 +117,7 @@ pub fn plane_map(volume: &Volume, vs: &ViewState, view: ViewId, rect: Rect) -> S
 }
 
 /// The 3D view's render camera for a view of `pixels` (physical pixels).
+#[must_use]
 pub fn volume_camera(volume: &Volume, vs: &ViewState, pixels: [usize; 2]) -> Option<Camera> {
     vs.orbit.camera(volume, pixels[0], pixels[1]).ok()
 }
@@ -139,7 +140,7 @@ fn camera_axes(cam: &Camera) -> (Vector3<f64>, Vector3<f64>) {
 
 /// Shows a view in `rect` and collects its commands. `on_stage` is the large working view;
 /// otherwise the view is a small one in the strip.
-#[allow(clippy::too_many_arguments)] // reason: the three state tiers plus where and what to draw
+#[allow(clippy::too_many_arguments, clippy::too_many_lines)] // reason: the state tiers plus where and what to draw; input handling reads best in one place
 pub fn view_ui(
     ui: &mut Ui,
     rect: Rect,
@@ -499,10 +500,10 @@ pub fn hover_text(h: &Hover) -> String {
         p.z
     );
     if let Some(v) = h.voxel {
-        s.push_str(&format!("   voxel ({}, {}, {})", v.i, v.j, v.k));
+        let _ = write!(s, "   voxel ({}, {}, {})", v.i, v.j, v.k);
     }
     if let Some(val) = h.value {
-        s.push_str(&format!("   value {}", format_value(val)));
+        let _ = write!(s, "   value {}", format_value(val));
     }
     s
 }

@@ -281,6 +281,7 @@ impl Workers {
     }
 
     /// Waits up to `timeout` for one finished picture (tests and the benchmark).
+    #[must_use]
     pub fn wait(&self, timeout: Duration) -> Option<Rendered> {
         self.results.recv_timeout(timeout).ok()
     }
