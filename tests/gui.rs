@@ -286,3 +286,36 @@ fn a_bad_file_reports_an_error_and_keeps_the_scan() {
     assert!(msg.1 && msg.0.contains("not_a_scan.nii"), "{msg:?}");
     assert!(h.state().document().scan.is_some());
 }
+
+#[test]
+fn a_slice_folder_opens_with_the_voxel_size_given() {
+    let app = App::new(Preferences::default(), None);
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    h.step();
+    // a bare number is refused: µm and mm differ by 1000
+    h.state_mut().send(Command::SetTiffVoxelSize("36".into()));
+    h.step();
+    let msg = h.state().view_state().message.clone().expect("an error");
+    assert!(msg.1, "{msg:?}");
+    assert!(h.state().preferences().tiff_voxel_size.is_empty());
+    h.state_mut()
+        .send(Command::SetTiffVoxelSize("36um,36um,50um".into()));
+    let folder = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-001_slices");
+    h.state_mut().send(Command::Open(folder));
+    step_until(&mut h, "the slice folder to load", |a| {
+        a.document().scan.is_some() && !a.is_loading()
+    });
+    let sp = h
+        .state()
+        .document()
+        .scan
+        .as_ref()
+        .unwrap()
+        .volume
+        .spacing_mm();
+    for (got, want) in sp.iter().zip([0.036, 0.036, 0.050]) {
+        assert!((got - want).abs() < 1e-12, "{sp:?}");
+    }
+}

@@ -377,6 +377,10 @@ impl App {
                 d.open();
                 self.dialog = Some(d);
             }
+            Command::SetTiffVoxelSize(text) => match tiff_voxel_size(&text) {
+                Ok(_) => self.prefs.tiff_voxel_size = text.trim().to_owned(),
+                Err(e) => self.vs.message = Some((e, true)),
+            },
             Command::CancelLoad => {
                 if let Some(l) = &self.loading {
                     l.cancel();

@@ -63,6 +63,29 @@ pub fn top_bar_ui(ui: &mut Ui, doc: &Document, prefs: &Preferences) -> Option<Co
             if ui.button("Open folder of slices…").clicked() {
                 cmd = Some(Command::ShowOpenDialog(DialogKind::SliceFolder));
             }
+            ui.separator();
+            let id = ui.scope_id().with("tiff_voxel_size");
+            let mut text = ui.data_mut(|d| {
+                d.get_temp::<String>(id)
+                    .unwrap_or_else(|| prefs.tiff_voxel_size.clone())
+            });
+            ui.horizontal(|ui| {
+                let l = ui.label("TIFF voxel size");
+                let r = ui
+                    .add(
+                        egui::TextEdit::singleline(&mut text)
+                            .hint_text("from the file")
+                            .desired_width(120.0),
+                    )
+                    .labelled_by(l.id)
+                    .on_hover_text(
+                        "for TIFF scans without a voxel size: 36um, or 36um,36um,50um for x,y,z",
+                    );
+                if r.lost_focus() && text.trim() != prefs.tiff_voxel_size {
+                    cmd = Some(Command::SetTiffVoxelSize(text.clone()));
+                }
+            });
+            ui.data_mut(|d| d.insert_temp(id, text));
             if !prefs.recent.is_empty() {
                 ui.separator();
                 ui.label(RichText::new("Recent").weak());

@@ -132,6 +132,9 @@ pub enum Command {
     /// Open a scan (a file or a folder of slices) in the background.
     Open(PathBuf),
     ShowOpenDialog(DialogKind),
+    /// The voxel size to give TIFF scans opened from now on (`36um` or `36um,36um,50um`;
+    /// empty: the file's own).
+    SetTiffVoxelSize(String),
     CancelLoad,
     Quit,
 
@@ -585,8 +588,11 @@ impl ViewState {
             Command::ToggleCrosshair => prefs.show_crosshair = !prefs.show_crosshair,
             Command::ToggleScaleBar => prefs.show_scale_bar = !prefs.show_scale_bar,
             Command::ToggleHelp => self.help_open = !self.help_open,
-            Command::Open(_) | Command::ShowOpenDialog(_) | Command::CancelLoad | Command::Quit => {
-            }
+            Command::Open(_)
+            | Command::ShowOpenDialog(_)
+            | Command::SetTiffVoxelSize(_)
+            | Command::CancelLoad
+            | Command::Quit => {}
         }
     }
 
