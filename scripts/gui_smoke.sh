@@ -57,6 +57,7 @@ colours() {
   convert "$1" -crop "$2" +repage -format '%k' info:
 }
 
+: >"$LOG"
 SUTURA_SMOKE=1 SUTURA_SMOKE_HOLD=${SUTURA_SMOKE_HOLD:-5} \
   "$BIN" open sample_volumes/HDC-002.nii.gz >"$LOG" 2>&1 &
 PID=$!
