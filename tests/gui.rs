@@ -319,3 +319,28 @@ fn a_slice_folder_opens_with_the_voxel_size_given() {
         assert!((got - want).abs() < 1e-12, "{sp:?}");
     }
 }
+
+#[test]
+fn the_open_dialog_lists_scans_and_opens_one() {
+    let mut h = app_on_sample();
+    assert!(h.query_by_label("Open a scan file").is_none());
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::O);
+    h.step();
+    h.step();
+    assert!(h.query_by_label("Open a scan file").is_some());
+    // it starts in the open scan's folder: the slice folder first, then the scans
+    assert!(h.query_by_label("HDC-001_slices/").is_some());
+    assert!(h.query_by_label_contains("scheme.json").is_none());
+    h.get_by_label_contains("TF-003.nii.gz").click();
+    h.step();
+    h.get_by_label("Open").click();
+    h.step();
+    step_until(&mut h, "TF-003 to load", |a| {
+        !a.is_loading()
+            && a.document()
+                .scan
+                .as_ref()
+                .is_some_and(|s| s.path.ends_with("TF-003.nii.gz"))
+    });
+    assert!(h.query_by_label("Open a scan file").is_none());
+}

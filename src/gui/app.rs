@@ -12,6 +12,7 @@ use std::time::{Duration, Instant};
 
 use eframe::egui::{self, Color32, Key, Modifiers, Rect, RichText, TextureOptions, Vec2};
 
+use super::files::{self, FileBrowser};
 use super::loader::{Loading, Outcome};
 use super::panels;
 use super::state::{
@@ -97,7 +98,7 @@ pub struct App {
     /// How long each view's last full-resolution picture took to render, milliseconds.
     render_ms: [f64; 5],
     next_scan_id: u64,
-    dialog: Option<egui_file::FileDialog>,
+    dialog: Option<FileBrowser>,
     smoke: Option<Smoke>,
 }
 
@@ -196,7 +197,7 @@ impl App {
         self.vs.hover = None;
         self.rects = [None; 5];
 
-        if !ctx.egui_wants_keyboard_input() {
+        if !ctx.egui_wants_keyboard_input() && self.dialog.is_none() {
             shortcuts(
                 &ctx,
                 &self.prefs,
@@ -334,14 +335,17 @@ impl App {
         let Some(d) = &mut self.dialog else {
             return;
         };
-        d.show(ctx);
-        if d.selected() {
-            if let Some(p) = d.path() {
-                cmds.push(Command::Open(p.to_path_buf()));
+        if ctx.input(|i| i.key_pressed(Key::Escape)) {
+            self.dialog = None;
+            return;
+        }
+        match d.show(ctx) {
+            Some(files::Outcome::Open(p)) => {
+                cmds.push(Command::Open(p));
+                self.dialog = None;
             }
-            self.dialog = None;
-        } else if !d.visible() {
-            self.dialog = None;
+            Some(files::Outcome::Cancelled) => self.dialog = None,
+            None => {}
         }
     }
 
@@ -365,20 +369,10 @@ impl App {
                     .and_then(|s| s.path.parent().map(Path::to_path_buf))
                     .or_else(|| std::env::current_dir().ok())
                     .unwrap_or_else(|| PathBuf::from("."));
-                let mut d = match kind {
-                    DialogKind::ScanFile => egui_file::FileDialog::open_file(),
-                    DialogKind::SliceFolder => egui_file::FileDialog::select_folder(),
-                }
-                .initial_path(start)
-                .title(match kind {
-                    DialogKind::ScanFile => "Open a scan file",
-                    DialogKind::SliceFolder => "Open a folder of TIFF slices",
-                });
-                d.open();
-                self.dialog = Some(d);
+                self.dialog = Some(FileBrowser::new(kind, &start));
             }
             Command::SetTiffVoxelSize(text) => match tiff_voxel_size(&text) {
-                Ok(_) => self.prefs.tiff_voxel_size = text.trim().to_owned(),
+                Ok(_) => text.trim().clone_into(&mut self.prefs.tiff_voxel_size),
                 Err(e) => self.vs.message = Some((e, true)),
             },
             Command::CancelLoad => {

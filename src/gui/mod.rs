@@ -22,6 +22,7 @@
 
 pub mod app;
 pub mod camera;
+pub mod files;
 pub mod loader;
 pub mod panels;
 pub mod state;
