@@ -23,10 +23,12 @@ use eframe::egui::{Event, Modifiers, MouseWheelSource, MouseWheelUnit, TouchPhas
 use egui_kittest::Harness;
 use rayon::prelude::*;
 use sutura::geometry::{Affine3, WorldPoint};
-use sutura::gui::worker::{PlaneKey, RenderKey, render_view};
+use sutura::gui::worker::{PlaneKey, RenderKey, render_view, render_view_reusing, to_color_image};
 use sutura::gui::{App, Command, Preferences, ViewId};
 use sutura::render::Quality;
+use sutura::render::overlay::{AxisNames, Overlay};
 use sutura::render::raycast::Bricks;
+use sutura::render::slice;
 use sutura::volume::{Volume, VoxelBuffer, Voxels};
 
 /// A named way of changing the stage picture's key (the i-th variation).
@@ -215,13 +217,43 @@ fn main() {
     let mut redraw = Vec::new();
     for (label, make) in &variants {
         let mut i = 0;
+        // as the render worker does: a window change maps the kept values again
+        let mut last = None;
+        std::hint::black_box(
+            render_view_reusing(vol, &RenderKey::Plane(key), None, &mut last).expect("render"),
+        );
         let m = time(label, 25, || {
             i += 1;
             let k = RenderKey::Plane(make(i));
-            std::hint::black_box(render_view(vol, &k, None).expect("render"));
+            std::hint::black_box(render_view_reusing(vol, &k, None, &mut last).expect("render"));
         });
         redraw.push(m);
     }
+    // where a slice change's time goes
+    time("  of which: resampling the slice", 15, || {
+        std::hint::black_box(
+            slice::render_slice(vol, &key.geometry, key.interpolation, None).expect("slice"),
+        );
+    });
+    let values = slice::render_slice(vol, &key.geometry, key.interpolation, None).expect("slice");
+    time("  of which: window/level and colour map", 15, || {
+        std::hint::black_box(key.window.colourize(&values, key.colours));
+    });
+    let rgba = key.window.colourize(&values, key.colours);
+    time("  of which: scale bar and labels", 15, || {
+        let mut o = Overlay::new(&rgba).expect("overlay");
+        o.scale_bar(key.geometry.pixel_mm, [255; 4]);
+        o.orientation_labels(
+            &key.geometry.u,
+            &key.geometry.v,
+            &AxisNames::default(),
+            [255; 4],
+        );
+        std::hint::black_box(o.finish());
+    });
+    time("  of which: conversion to the texture format", 15, || {
+        std::hint::black_box(to_color_image(&rgba));
+    });
 
     // the app's own frame while the slice changes (layout, input, commands, texture set)
     let centre = stage.center();
@@ -246,7 +278,13 @@ fn main() {
 
     // 3. the 3D view at stage size
     h.state_mut().send(Command::SetStage(ViewId::Volume));
-    step_until(&mut h, |a| a.is_view_current(ViewId::Volume));
+    h.step();
+    h.step();
+    step_until(&mut h, |a| {
+        a.is_view_current(ViewId::Volume)
+            && a.requested(ViewId::Volume)
+                .is_some_and(|k| k.size()[0] > 400)
+    });
     let Some(RenderKey::Volume(vkey)) = h.state().requested(ViewId::Volume) else {
         panic!("no 3D picture asked for");
     };

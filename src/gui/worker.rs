@@ -26,8 +26,8 @@ use crate::geometry::WorldPoint;
 use crate::render::overlay::{AxisNames, Overlay};
 use crate::render::raycast::{self, Bricks};
 use crate::render::{
-    Camera, ColourMap, Interpolation, MipOptions, Quality, RenderError, RgbaImage, SliceGeometry,
-    SurfaceOptions, WindowLevel, slice,
+    Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RenderError, RgbaImage,
+    SliceGeometry, SurfaceOptions, WindowLevel, slice,
 };
 use crate::volume::Volume;
 
@@ -110,10 +110,35 @@ pub fn render_view(
     key: &RenderKey,
     bricks: Option<&Bricks>,
 ) -> Result<Picture, RenderError> {
+    render_view_reusing(volume, key, bricks, &mut None)
+}
+
+/// The resampled values of a plane view's last picture, kept so that a change of window or
+/// colour map only maps the values again.
+pub type PlaneValues = Option<(PlaneKey, F32Image)>;
+
+/// As [`render_view`], reusing `last` (and replacing it) for plane views: when only the
+/// window, colour map or overlays changed, the slice is not resampled again.
+pub fn render_view_reusing(
+    volume: &Volume,
+    key: &RenderKey,
+    bricks: Option<&Bricks>,
+    last: &mut PlaneValues,
+) -> Result<Picture, RenderError> {
     match key {
         RenderKey::Plane(p) => {
-            let img = slice::render_slice(volume, &p.geometry, p.interpolation, None)?;
+            let img = match last.take() {
+                Some((k, img))
+                    if k.scan == p.scan
+                        && k.geometry == p.geometry
+                        && k.interpolation == p.interpolation =>
+                {
+                    img
+                }
+                _ => slice::render_slice(volume, &p.geometry, p.interpolation, None)?,
+            };
             let rgba = p.window.colourize(&img, p.colours);
+            *last = Some((*p, img));
             let rgba = if p.scale_bar || p.orientation {
                 let mut o = Overlay::new(&rgba)?;
                 if p.scale_bar {
@@ -304,6 +329,7 @@ impl Drop for Workers {
 
 fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() + Send + Sync)) {
     let mut bricks: Option<(u64, Arc<Bricks>)> = None;
+    let mut values: [PlaneValues; 5] = Default::default();
     loop {
         let (view, job) = {
             let mut slots = mb.slots.lock().unwrap_or_else(PoisonError::into_inner);
@@ -337,7 +363,8 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
             .as_ref()
             .filter(|(id, _)| *id == job.scan.id)
             .map(|(_, b)| b.as_ref());
-        let picture = render_view(&job.scan.volume, &job.key, b).map_err(|e| e.to_string());
+        let picture = render_view_reusing(&job.scan.volume, &job.key, b, &mut values[view.index()])
+            .map_err(|e| e.to_string());
         let sent = tx.send(Rendered {
             view,
             generation: job.generation,
@@ -349,5 +376,70 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
             return;
         }
         wake();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::geometry::{Affine3, Plane, WorldPoint};
+    use nalgebra::Vector3;
+
+    fn key(volume: &Volume, window: WindowLevel) -> PlaneKey {
+        let plane = Plane {
+            origin: WorldPoint(volume.centre_world().0 + Vector3::new(0.01, -0.02, 0.0)),
+            u: Vector3::x(),
+            v: Vector3::y(),
+        };
+        PlaneKey {
+            scan: 1,
+            geometry: SliceGeometry::centred(&plane, 40, 30, 0.013).unwrap(),
+            window,
+            colours: ColourMap::Grey,
+            interpolation: Interpolation::Trilinear,
+            scale_bar: true,
+            orientation: false,
+            coarse: false,
+        }
+    }
+
+    #[test]
+    fn a_window_change_reuses_the_values_and_matches_a_fresh_render() {
+        let data: Vec<u16> = (0..20 * 16 * 8).map(|i| (i * 37 % 4000) as u16).collect();
+        let vol = Volume::from_vec([20, 16, 8], Affine3::from_spacing([0.02; 3]), data).unwrap();
+        let a = key(
+            &vol,
+            WindowLevel {
+                centre: 2000.0,
+                width: 4000.0,
+            },
+        );
+        let b = PlaneKey {
+            window: WindowLevel {
+                centre: 1000.0,
+                width: 500.0,
+            },
+            ..a
+        };
+        let mut last = None;
+        render_view_reusing(&vol, &RenderKey::Plane(a), None, &mut last).unwrap();
+        let bits = |l: &PlaneValues| {
+            l.as_ref()
+                .map(|(_, img)| img.pixels.iter().map(|v| v.to_bits()).collect::<Vec<u32>>())
+        };
+        let kept = bits(&last);
+        let reused = render_view_reusing(&vol, &RenderKey::Plane(b), None, &mut last).unwrap();
+        let fresh = render_view(&vol, &RenderKey::Plane(b), None).unwrap();
+        assert_eq!(reused.image, fresh.image);
+        assert_eq!(bits(&last), kept, "the values were kept, not resampled");
+        // a new geometry resamples
+        let mut c = b;
+        c.geometry.origin = WorldPoint(c.geometry.origin.0 + Vector3::new(0.0, 0.0, 0.02));
+        let moved = render_view_reusing(&vol, &RenderKey::Plane(c), None, &mut last).unwrap();
+        assert_eq!(
+            moved.image,
+            render_view(&vol, &RenderKey::Plane(c), None).unwrap().image
+        );
+        assert_ne!(moved.image, fresh.image);
     }
 }
