@@ -594,7 +594,7 @@ impl App {
                     window: self.vs.window,
                     colours: self.prefs.colour_map,
                     quality: if moving && on_stage {
-                        Quality::coarse()
+                        preview_quality(self.render_ms[i])
                     } else {
                         Quality::full()
                     },
@@ -684,6 +684,19 @@ impl eframe::App for App {
         if self.smoke.is_none() {
             eframe::set_value(storage, Preferences::STORAGE_KEY, &self.prefs);
         }
+    }
+}
+
+/// The 3D view's picture while it moves: the render module's coarse pass, or one ray per 8×8
+/// pixels when the last full picture took over half a second (a large scan filling the view).
+fn preview_quality(last_full_ms: f64) -> Quality {
+    if last_full_ms > 500.0 {
+        Quality {
+            downsample: 8,
+            step_voxels: 3.0,
+        }
+    } else {
+        Quality::coarse()
     }
 }
 
