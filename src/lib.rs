@@ -9,6 +9,7 @@ pub mod chart;
 pub mod cli;
 pub mod export;
 pub mod geometry;
+pub mod gui;
 pub mod io;
 pub mod landmarks;
 pub mod measure;

@@ -30,12 +30,15 @@ use crate::volume::Volume;
 #[derive(Debug, Parser)]
 #[command(name = "sutura", version, about, long_about = None, propagate_version = true)]
 pub struct Cli {
+    /// Without a command, the workstation window opens on the bundled sample scan.
     #[command(subcommand)]
-    command: Command,
+    command: Option<Command>,
 }
 
 #[derive(Debug, Subcommand)]
 enum Command {
+    /// Open a scan (a file or a folder of TIFF slices) in the workstation window.
+    Open(OpenArgs),
     /// Print a scan's dimensions, voxel type and size, placement and intensity statistics.
     Info(info::InfoArgs),
     /// Write a scan, optionally cropped and downsampled, as NIfTI-1 or a folder of TIFF slices.
@@ -65,6 +68,12 @@ enum Command {
     Measure(measure::MeasureArgs),
     /// Export a project's landmarks: long or wide CSV, JSON, .npy arrays, PLY point sets.
     Export(landmark_export::ExportArgs),
+}
+
+#[derive(Debug, Args)]
+struct OpenArgs {
+    /// The scan: a `NIfTI` or TIFF file, or a folder of TIFF slices.
+    path: PathBuf,
 }
 
 /// How to read a scan; shared by every command that opens one.
@@ -130,7 +139,11 @@ pub fn main() -> ExitCode {
 
 /// Runs a parsed command line.
 pub fn run(cli: Cli) -> Result<()> {
-    match cli.command {
+    let Some(command) = cli.command else {
+        return crate::gui::run(None);
+    };
+    match command {
+        Command::Open(a) => crate::gui::run(Some(a.path)),
         Command::Info(a) => info::run(&a),
         Command::Convert(a) => convert::run(&a),
         Command::Slice(a) => view::run_slice(&a),
