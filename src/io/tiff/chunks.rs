@@ -3,7 +3,9 @@
 //!
 //! The `tiff` crate parses the directory; this module reads each chunk (strip or tile) with a
 //! positioned read and decodes it: uncompressed strips land in the destination directly,
-//! Deflate is inflated by flate2 (zlib-rs) into the destination, LZW is decoded by weezl (the
+//! Deflate is inflated by libdeflate into the destination (the inflater tifffile's codecs use;
+//! 1.35x less CPU than zlib-rs on the benchmark volume's noisy strips), falling back to flate2
+//! (zlib-rs) streaming for a chunk libdeflate refuses whole, LZW is decoded by weezl (the
 //! crate the `tiff` crate itself uses: most significant bit first, TIFF's early code-width
 //! switch, 8-bit literals). Then byte order and predictor are undone in place. Tiles go through
 //! one scratch tile per worker and are copied into the page, cropped at the right and bottom
@@ -96,6 +98,7 @@ pub(super) struct Scratch {
     row: Vec<u8>,
     lzw: Option<weezl::decode::Decoder>,
     zlib: Option<Decompress>,
+    deflate: Option<libdeflater::Decompressor>,
 }
 
 /// The plan for the decoder's current page, or `None` when the crate should decode it.
@@ -312,9 +315,7 @@ fn decode_chunk(
             lzw(dec, &scratch.input, out)
         }
         Codec::Deflate => {
-            let z = scratch.zlib.get_or_insert_with(|| Decompress::new(true));
-            z.reset(true);
-            inflate(z, &scratch.input, out)
+            inflate_chunk(&mut scratch.deflate, &mut scratch.zlib, &scratch.input, out)
         }
         Codec::None => unreachable!("handled above"),
     }
@@ -365,6 +366,25 @@ fn lzw(dec: &mut weezl::decode::Decoder, input: &[u8], out: &mut [u8]) -> Result
         }
     }
     Ok(o)
+}
+
+/// Inflates one chunk's zlib stream into `out`; returns the bytes written. libdeflate takes
+/// the whole stream at once; a stream it refuses (one that decodes to more than the chunk, or
+/// one cut short or with a bad checksum) goes through the streaming inflater, which fills what
+/// it can, so the caller's length check decides as it did before libdeflate was used.
+fn inflate_chunk(
+    whole: &mut Option<libdeflater::Decompressor>,
+    streaming: &mut Option<Decompress>,
+    input: &[u8],
+    out: &mut [u8],
+) -> Result<usize, String> {
+    let whole = whole.get_or_insert_with(libdeflater::Decompressor::new);
+    if let Ok(n) = whole.zlib_decompress(input, out) {
+        return Ok(n);
+    }
+    let z = streaming.get_or_insert_with(|| Decompress::new(true));
+    z.reset(true);
+    inflate(z, input, out)
 }
 
 /// Inflates a zlib stream until `out` is full or the stream ends; returns the bytes written.
@@ -531,5 +551,39 @@ mod tests {
         assert_eq!(inflate(&mut z, &enc, &mut out), Ok(data.len()));
         z.reset(true);
         assert!(inflate(&mut z, &[0x78, 0x9c, 0xff, 0xff, 0xff], &mut out).is_err());
+    }
+
+    #[test]
+    fn chunk_inflate_whole_then_streaming() {
+        use std::io::Write;
+        let data: Vec<u8> = (0..100_000u32).map(|i| (i * 7 % 251) as u8).collect();
+        let mut e = flate2::write::ZlibEncoder::new(Vec::new(), flate2::Compression::default());
+        e.write_all(&data).unwrap();
+        let enc = e.finish().unwrap();
+        let (mut whole, mut streaming) = (None, None);
+        // exact size: libdeflate alone
+        let mut out = vec![0u8; data.len()];
+        assert_eq!(
+            inflate_chunk(&mut whole, &mut streaming, &enc, &mut out),
+            Ok(data.len())
+        );
+        assert_eq!(out, data);
+        assert!(streaming.is_none(), "libdeflate took the whole stream");
+        // a stream longer than the chunk (padding some writers leave): filled, not refused
+        let mut out = vec![0u8; 1000];
+        assert_eq!(
+            inflate_chunk(&mut whole, &mut streaming, &enc, &mut out),
+            Ok(1000)
+        );
+        assert_eq!(out, data[..1000]);
+        // cut short: what there is, so the caller can report where the data end
+        let mut out = vec![0u8; data.len()];
+        let got = inflate_chunk(&mut whole, &mut streaming, &enc[..enc.len() / 2], &mut out);
+        assert!(got.unwrap() < data.len());
+        // a damaged checksum is still an error
+        let mut bad = enc.clone();
+        *bad.last_mut().unwrap() ^= 1;
+        let mut out = vec![0u8; data.len()];
+        assert!(inflate_chunk(&mut whole, &mut streaming, &bad, &mut out).is_err());
     }
 }
