@@ -1009,3 +1009,62 @@ fn a_version_1_project_opens() {
     assert!(out.contains("skipped: occipital_condyle missing"), "{out}");
     assert!(out.contains("dorsal_outline_length"), "{out}");
 }
+
+/// `superimpose --slide-curves` on the sample project: the dorsal midline's semilandmarks join
+/// the analysis and are slid (the summary says so); a bare landmark table has no curves and is
+/// refused with a reason.
+#[test]
+fn superimpose_slides_the_project_curves_semilandmarks() {
+    let path = samples().join("sample_project.json");
+    let dir = tempfile::tempdir().unwrap();
+    let p = path.to_str().unwrap();
+    ok(
+        &[
+            "superimpose",
+            p,
+            "-o",
+            "slid",
+            "--resamples",
+            "20",
+            "--slide-curves",
+            "bending-energy",
+        ],
+        dir.path(),
+    );
+    let summary: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(dir.path().join("slid/summary.json")).unwrap())
+            .unwrap();
+    assert_eq!(summary["landmarks"], 17 + 8, "{summary}");
+    assert_eq!(summary["sliding"]["semilandmarks"], 8, "{summary}");
+    assert_eq!(summary["sliding"]["criterion"], "BendingEnergy");
+    let rows = csv_rows(&dir.path().join("slid/aligned_long.csv"));
+    let semis: std::collections::BTreeSet<&str> = rows
+        .iter()
+        .map(|r| r["landmark"].as_str())
+        .filter(|l| l.starts_with("dorsal_midline_s"))
+        .collect();
+    assert_eq!(semis.len(), 8, "{semis:?}");
+    // without the flag the curves stay out
+    ok(
+        &["superimpose", p, "-o", "plain", "--resamples", "20"],
+        dir.path(),
+    );
+    let plain: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(dir.path().join("plain/summary.json")).unwrap())
+            .unwrap();
+    assert_eq!(plain["landmarks"], 17);
+    assert!(plain["sliding"].is_null());
+    let csv = dir.path().join("plain/aligned_long.csv");
+    let e = fails(
+        &[
+            "superimpose",
+            csv.to_str().unwrap(),
+            "-o",
+            "x",
+            "--slide-curves",
+            "bending-energy",
+        ],
+        dir.path(),
+    );
+    assert!(e.contains("needs a project"), "{e}");
+}

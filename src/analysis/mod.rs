@@ -4,6 +4,7 @@
 //! From a [`LandmarkTable`] (a landmark CSV, or a project flattened by
 //! `landmarks::project::points::flatten`): one observation per specimen (its first trial),
 //! missing landmarks estimated, generalized Procrustes superimposition, tangent coordinates,
+//! optionally semilandmarks slid along their curves ([`analyse_sliding`]),
 //! PCA, disparity per group with bootstrap intervals, partial disparity, a permutation test of
 //! two groups' disparity, Procrustes distances, allometry, and, where specimens were digitised
 //! more than once, measurement error by Procrustes ANOVA over all trials.
@@ -27,6 +28,9 @@ use crate::shape::disparity::{self, Divisor, Interval, PermutationTest};
 use crate::shape::distance::{Distance, distance_matrix};
 use crate::shape::missing::{MissingError, MissingMethod, MissingOptions, estimate_missing};
 use crate::shape::pca::{Allometry, Pca};
+use crate::shape::sliding::{
+    Curve, SlideCriterion, SlideOptions, SlideProcedureError, slide_semilandmarks,
+};
 use crate::shape::{Gpa, GpaOptions, Sample, ShapeError, gpa, pca, tangent};
 
 /// Why an analysis cannot be run or written.
@@ -40,6 +44,8 @@ pub enum AnalysisError {
     Missing(#[from] MissingError),
     #[error("measurement error: {0}")]
     Anova(#[from] AnovaError),
+    #[error("sliding semilandmarks: {0}")]
+    Sliding(#[from] SlideProcedureError),
     #[error(transparent)]
     Export(#[from] ExportError),
     #[error(transparent)]
@@ -68,6 +74,27 @@ impl Default for AnalysisOptions {
             seed: 1,
         }
     }
+}
+
+/// Semilandmarks to slide along their curves before the analysis: each curve's first and last
+/// entries (landmark indices of the table) stay fixed, the ones between slide.
+#[derive(Clone, Copy, Debug)]
+pub struct Sliding<'a> {
+    pub curves: &'a [Curve],
+    pub criterion: SlideCriterion,
+}
+
+/// How the sliding went, for the summary.
+#[derive(Clone, Copy, Debug, serde::Serialize)]
+pub struct SlidingSummary {
+    pub criterion: SlideCriterion,
+    pub curves: usize,
+    pub semilandmarks: usize,
+    /// Slide + superimposition rounds.
+    pub iterations: usize,
+    pub converged: bool,
+    /// Partial Procrustes distance between the last two mean shapes.
+    pub final_change: f64,
 }
 
 /// Disparity of one group.
@@ -111,6 +138,8 @@ pub struct Analysis {
     pub allometry: Allometry,
     /// Over all trials, when some specimen was digitised more than once.
     pub measurement_error: Option<ProcrustesAnova>,
+    /// When semilandmarks were slid before the superimposition.
+    pub sliding: Option<SlidingSummary>,
     pub options: AnalysisOptions,
 }
 
@@ -152,14 +181,62 @@ fn to_sample(
     Ok((filled.sample, filled.estimated))
 }
 
+/// Slides `sample`'s semilandmarks (after missing ones were estimated) with the analysis's
+/// superimposition between rounds; returns the slid sample and its GPA.
+fn slide(
+    sample: &Sample,
+    sliding: &Sliding<'_>,
+    opts: &AnalysisOptions,
+) -> Result<(Sample, Gpa, SlidingSummary), AnalysisError> {
+    let slid = slide_semilandmarks(
+        sample,
+        sliding.curves,
+        &SlideOptions {
+            criterion: sliding.criterion,
+            gpa: opts.gpa,
+            ..SlideOptions::default()
+        },
+    )?;
+    let summary = SlidingSummary {
+        criterion: sliding.criterion,
+        curves: sliding.curves.len(),
+        semilandmarks: sliding
+            .curves
+            .iter()
+            .map(|c| c.landmarks.len().saturating_sub(2))
+            .sum(),
+        iterations: slid.iterations,
+        converged: slid.converged,
+        final_change: slid.final_change,
+    };
+    Ok((slid.sample, slid.gpa, summary))
+}
+
 /// Runs the whole analysis on a landmark table.
 pub fn analyse(table: &LandmarkTable, opts: &AnalysisOptions) -> Result<Analysis, AnalysisError> {
+    analyse_sliding(table, opts, None)
+}
+
+/// [`analyse`], with the semilandmarks of `sliding` slid along their curves first (alternating
+/// with the superimposition until the mean shape settles), in the analysed sample and in the
+/// measurement-error sample alike.
+pub fn analyse_sliding(
+    table: &LandmarkTable,
+    opts: &AnalysisOptions,
+    sliding: Option<Sliding<'_>>,
+) -> Result<Analysis, AnalysisError> {
     let idx = first_trials(table);
     if idx.len() < 3 {
         return Err(AnalysisError::TooFewSpecimens(idx.len()));
     }
     let (sample, estimated) = to_sample(table, &idx, opts)?;
-    let g = gpa(&sample, &opts.gpa)?;
+    let (g, sliding_summary) = match &sliding {
+        None => (gpa(&sample, &opts.gpa)?, None),
+        Some(s) => {
+            let (_, g, summary) = slide(&sample, s, opts)?;
+            (g, Some(summary))
+        }
+    };
     let observations: Vec<Observation> =
         idx.iter().map(|&i| table.observations[i].clone()).collect();
     let groups: Vec<String> = observations
@@ -212,7 +289,7 @@ pub fn analyse(table: &LandmarkTable, opts: &AnalysisOptions) -> Result<Analysis
     };
     let distances = distance_matrix(&g.aligned, Distance::Angle)?;
     let allometry = pca::allometry(&tan, &g.centroid_sizes, opts.resamples, opts.seed)?;
-    let measurement_error = measurement_error(table, opts)?;
+    let measurement_error = measurement_error(table, opts, sliding.as_ref())?;
     Ok(Analysis {
         landmarks: table.landmarks.clone(),
         dim: table.dim,
@@ -228,6 +305,7 @@ pub fn analyse(table: &LandmarkTable, opts: &AnalysisOptions) -> Result<Analysis
         distances,
         allometry,
         measurement_error,
+        sliding: sliding_summary,
         options: *opts,
     })
 }
@@ -236,6 +314,7 @@ pub fn analyse(table: &LandmarkTable, opts: &AnalysisOptions) -> Result<Analysis
 fn measurement_error(
     t: &LandmarkTable,
     opts: &AnalysisOptions,
+    sliding: Option<&Sliding<'_>>,
 ) -> Result<Option<ProcrustesAnova>, AnalysisError> {
     let mut ids: BTreeMap<&str, usize> = BTreeMap::new();
     for o in &t.observations {
@@ -251,7 +330,10 @@ fn measurement_error(
         .iter()
         .map(|o| ids[o.specimen.as_str()])
         .collect();
-    let (sample, _) = to_sample(t, &all, opts)?;
+    let (mut sample, _) = to_sample(t, &all, opts)?;
+    if let Some(s) = sliding {
+        sample = slide(&sample, s, opts)?.0;
+    }
     Ok(Some(anova::procrustes_anova(&sample, &labels, &opts.gpa)?))
 }
 
@@ -424,6 +506,7 @@ impl Analysis {
                 "group_difference_test": self.group_test,
                 "allometry": {"r_squared": allo.r_squared, "p_value": allo.p_value, "permutations": allo.permutations},
                 "measurement_error": anova_summary,
+                "sliding": self.sliding,
             }),
         )?;
         written.push(out("summary.json"));
@@ -774,6 +857,110 @@ mod tests {
         let figures = a.write_figures(dir.path()).unwrap();
         for p in tables.iter().chain(&figures) {
             assert!(p.metadata().unwrap().len() > 0, "{}", p.display());
+        }
+    }
+
+    /// Semilandmarks spread unevenly along a straight curve carry no shape information, only
+    /// digitising noise: sliding them (either criterion) must bring the sample's Procrustes
+    /// variance back to that of the same specimens with the semilandmarks at matching places,
+    /// and measurement error is computed on slid trials too.
+    #[test]
+    fn sliding_removes_semilandmark_spacing_noise() {
+        let fixed = [
+            [0.0, 0.0, 0.0],
+            [2.0, 0.0, 0.0],
+            [0.5, 1.0, 0.0],
+            [0.6, 0.4, 1.0],
+        ];
+        let table = |jitter: f64| {
+            let mut observations = Vec::new();
+            for s in 0..8 {
+                for trial in 0..(1 + usize::from(s < 2)) {
+                    // real shape variation: the apex moves with the specimen
+                    let mut pts = fixed.to_vec();
+                    pts[3][2] += 0.04 * (s % 4) as f64;
+                    pts[2][0] += 0.03 * (s / 4) as f64;
+                    // three semilandmarks on the segment a-b, spaced unevenly per specimen
+                    for (j, f) in [0.25, 0.5, 0.75].into_iter().enumerate() {
+                        let w = ((s * 5 + j * 3 + trial) % 7) as f64 / 6.0 - 0.5;
+                        pts.push([2.0 * (f + jitter * w), 0.0, 0.0]);
+                    }
+                    // each specimen in its own pose and size
+                    let (a, k) = (0.3 * s as f64, 1.0 + 0.1 * s as f64);
+                    let coords = pts
+                        .iter()
+                        .map(|p| {
+                            Some([
+                                k * (a.cos() * p[0] - a.sin() * p[1]) + s as f64,
+                                k * (a.sin() * p[0] + a.cos() * p[1]),
+                                k * p[2] - 1.0,
+                            ])
+                        })
+                        .collect();
+                    observations.push(Observation {
+                        specimen: format!("S{s}"),
+                        trial: format!("{}", trial + 1),
+                        group: Some(if s < 4 { "low" } else { "high" }.into()),
+                        coords,
+                        states: vec![State::Placed; 7],
+                    });
+                }
+            }
+            LandmarkTable {
+                dim: 3,
+                landmarks: ["a", "b", "c", "d", "s1", "s2", "s3"]
+                    .map(String::from)
+                    .to_vec(),
+                observations,
+            }
+        };
+        let opts = AnalysisOptions {
+            resamples: 19,
+            ..AnalysisOptions::default()
+        };
+        let curves = [Curve {
+            landmarks: vec![0, 4, 5, 6, 1],
+        }];
+        let even = analyse(&table(0.0), &opts).unwrap().total_variance;
+        let noisy = table(0.2);
+        let unslid = analyse(&noisy, &opts).unwrap();
+        assert!(unslid.sliding.is_none());
+        assert!(
+            unslid.total_variance - even > 0.2 * even,
+            "{} {even}",
+            unslid.total_variance
+        );
+        for criterion in [
+            SlideCriterion::ProcrustesDistance,
+            SlideCriterion::BendingEnergy,
+        ] {
+            let sliding = Sliding {
+                curves: &curves,
+                criterion,
+            };
+            let a = analyse_sliding(&noisy, &opts, Some(sliding)).unwrap();
+            let s = a.sliding.unwrap();
+            assert_eq!(s.semilandmarks, 3);
+            // Under the Procrustes criterion the semilandmarks of all specimens may drift
+            // together along the curve, so the mean settles slowly (here 4e-5 after 20
+            // rounds); bending energy pins them to the fixed landmarks and settles at once.
+            if criterion == SlideCriterion::BendingEnergy {
+                assert!(s.converged && s.iterations <= 5, "{s:?}");
+            }
+            assert!(
+                (a.total_variance - even).abs() < 0.02 * (unslid.total_variance - even),
+                "{criterion:?}: slid {} even {even} unslid {}",
+                a.total_variance,
+                unslid.total_variance
+            );
+            // repeat trials differ only in semilandmark spacing: after sliding, nothing is left
+            // for measurement error
+            let me = a.measurement_error.as_ref().unwrap();
+            let me_unslid = unslid.measurement_error.as_ref().unwrap();
+            assert!(
+                me.shape.repeatability > me_unslid.shape.repeatability,
+                "{criterion:?}"
+            );
         }
     }
 

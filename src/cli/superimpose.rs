@@ -6,9 +6,10 @@ use anyhow::{Context, Result, bail};
 use clap::{Args, ValueEnum};
 use std::path::PathBuf;
 
-use crate::analysis::{AnalysisOptions, analyse};
+use crate::analysis::{AnalysisOptions, Sliding, analyse_sliding};
 use crate::export::table::LandmarkTable;
 use crate::shape::missing::MissingMethod;
+use crate::shape::sliding::{Curve, SlideCriterion};
 use crate::shape::{Fit, GpaOptions};
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -25,6 +26,14 @@ pub enum FillArg {
     Tps,
     /// Multivariate regression on the present landmarks across complete specimens.
     Regression,
+}
+
+#[derive(Clone, Copy, Debug, ValueEnum)]
+pub enum SlideArg {
+    /// Minimise the thin-plate bending energy from the mean shape onto each specimen.
+    BendingEnergy,
+    /// Minimise each specimen's Procrustes distance to the mean shape.
+    ProcrustesDistance,
 }
 
 #[derive(Debug, Args)]
@@ -60,10 +69,16 @@ pub struct SuperimposeArgs {
     /// Seed of the resampling, for reproducible intervals.
     #[arg(long, default_value_t = 1)]
     seed: u64,
+
+    /// With a project: include its curves' semilandmarks and slide them along their curves
+    /// (anchors fixed), by this criterion, before the analysis. Without it, curves are left out.
+    #[arg(long, value_enum)]
+    slide_curves: Option<SlideArg>,
 }
 
-/// Reads the input: a project file (JSON, starts with `{`) or a long CSV.
-fn read_input(a: &SuperimposeArgs) -> Result<LandmarkTable> {
+/// Reads the input: a project file (JSON, starts with `{`) or a long CSV; with
+/// `--slide-curves`, also the project's sliding curves.
+fn read_input(a: &SuperimposeArgs) -> Result<(LandmarkTable, Vec<Curve>)> {
     let mut head = [0u8; 64];
     let n = {
         use std::io::Read;
@@ -72,10 +87,28 @@ fn read_input(a: &SuperimposeArgs) -> Result<LandmarkTable> {
             .with_context(|| a.table.display().to_string())?
     };
     if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
-        return Ok(LandmarkTable::read_csv(&a.table)?);
+        if a.slide_curves.is_some() {
+            bail!(
+                "{}: --slide-curves needs a project (a landmark table does not say which points form curves)",
+                a.table.display()
+            );
+        }
+        return Ok((LandmarkTable::read_csv(&a.table)?, Vec::new()));
     }
     let project = crate::landmarks::Project::load(&a.table)?;
-    let e = crate::landmarks::project::points::flatten(&project, Some(&a.group_key), false);
+    let slide = a.slide_curves.is_some();
+    let e = crate::landmarks::project::points::flatten(&project, Some(&a.group_key), slide);
+    let curves = if slide {
+        crate::landmarks::project::points::sliding_curves(project.scheme())
+    } else {
+        Vec::new()
+    };
+    if slide && curves.is_empty() {
+        bail!(
+            "{}: --slide-curves: the project's scheme has no curve with semilandmarks",
+            a.table.display()
+        );
+    }
     if e.not_digitised > 0 {
         eprintln!(
             "note: {} landmarks are not digitised yet; they are treated as missing",
@@ -85,11 +118,11 @@ fn read_input(a: &SuperimposeArgs) -> Result<LandmarkTable> {
     if e.table.observations.is_empty() {
         bail!("{}: no trials to superimpose", a.table.display());
     }
-    Ok(e.table)
+    Ok((e.table, curves))
 }
 
 pub fn run(a: &SuperimposeArgs) -> Result<()> {
-    let table = read_input(a)?;
+    let (table, curves) = read_input(a)?;
     let opts = AnalysisOptions {
         gpa: GpaOptions {
             fit: match a.fit {
@@ -106,10 +139,24 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         resamples: a.resamples,
         seed: a.seed,
     };
-    let analysis = analyse(&table, &opts).with_context(|| a.table.display().to_string())?;
+    let sliding = a.slide_curves.map(|c| Sliding {
+        curves: &curves,
+        criterion: match c {
+            SlideArg::BendingEnergy => SlideCriterion::BendingEnergy,
+            SlideArg::ProcrustesDistance => SlideCriterion::ProcrustesDistance,
+        },
+    });
+    let analysis =
+        analyse_sliding(&table, &opts, sliding).with_context(|| a.table.display().to_string())?;
     analysis.write_tables(&a.output, &a.table.display().to_string())?;
     analysis.write_figures(&a.output)?;
     let g = &analysis.gpa;
+    if let Some(s) = &analysis.sliding {
+        eprintln!(
+            "slid {} semilandmarks on {} curves in {} rounds (converged: {})",
+            s.semilandmarks, s.curves, s.iterations, s.converged
+        );
+    }
     eprintln!(
         "superimposed {} specimens x {} landmarks in {} iterations (converged: {}); results in {}",
         analysis.n(),

@@ -3,6 +3,8 @@
 use super::{LandmarkState, Project};
 use crate::export::points::PointSets;
 use crate::export::table::{LandmarkTable, Observation, State};
+use crate::landmarks::scheme::Scheme;
+use crate::shape::sliding::Curve;
 
 /// The project's points as observations ready for export, one per specimen × trial in
 /// project order, trials with nothing digitised left out; points are the scheme's landmarks,
@@ -88,6 +90,35 @@ pub fn flatten(project: &Project, group_key: Option<&str>, with_semilandmarks: b
     }
 }
 
+/// The scheme's curves as sliding curves over the point order of [`flatten`] with
+/// semilandmarks: one curve per segment between two consecutive anchors, running from the
+/// first anchor through the segment's semilandmarks to the second (both anchors fixed).
+/// Segments without semilandmarks have nothing to slide and are left out.
+#[must_use]
+pub fn sliding_curves(scheme: &Scheme) -> Vec<Curve> {
+    let index = |id: &str| {
+        scheme
+            .landmarks
+            .iter()
+            .position(|l| l.id == id)
+            .expect("a validated scheme's curve anchors are its landmarks")
+    };
+    let mut next = scheme.landmarks.len();
+    let mut curves = Vec::new();
+    for c in &scheme.curves {
+        for (s, &n) in c.semilandmarks.iter().enumerate() {
+            if n > 0 {
+                let mut landmarks = vec![index(&c.anchors[s])];
+                landmarks.extend(next..next + n);
+                landmarks.push(index(&c.anchors[s + 1]));
+                curves.push(Curve { landmarks });
+            }
+            next += n;
+        }
+    }
+    curves
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -109,6 +140,19 @@ mod tests {
         assert!(o.coords[4..].iter().all(Option::is_some));
         assert_eq!(e.semilandmark.iter().filter(|s| **s).count(), 5);
         assert_eq!(e.operators, vec!["ana".to_owned()]);
+        // the sample scheme's outline runs through three anchors (3 + 2 semilandmarks)
+        let curves = sliding_curves(p.scheme());
+        let anchors = &p.scheme().curves[0].anchors;
+        let at = |id: &str| e.table.landmarks.iter().position(|n| n == id).unwrap();
+        assert_eq!(curves.len(), 2);
+        assert_eq!(
+            curves[0].landmarks,
+            vec![at(&anchors[0]), 4, 5, 6, at(&anchors[1])]
+        );
+        assert_eq!(
+            curves[1].landmarks,
+            vec![at(&anchors[1]), 7, 8, at(&anchors[2])]
+        );
         let without = flatten(&p, None, false);
         assert_eq!(without.table.landmarks.len(), 4);
         assert_eq!(without.table.observations[0].group, None);
