@@ -875,7 +875,7 @@ mod tests {
         let table = |jitter: f64| {
             let mut observations = Vec::new();
             for s in 0..8 {
-                for trial in 0..(1 + usize::from(s < 2)) {
+                for trial in 0..=usize::from(s < 2) {
                     // real shape variation: the apex moves with the specimen
                     let mut pts = fixed.to_vec();
                     pts[3][2] += 0.04 * (s % 4) as f64;
