@@ -339,6 +339,20 @@ struct Job {
     slab: Option<(usize, Vector3<f64>, SlabMode)>,
 }
 
+/// The voxel axis `d` runs along, when it has exactly one non-zero component.
+fn single_axis(d: &Vector3<f64>) -> Option<usize> {
+    let mut found = None;
+    for a in 0..3 {
+        if d[a] != 0.0 {
+            if found.is_some() {
+                return None;
+            }
+            found = Some(a);
+        }
+    }
+    found
+}
+
 /// `Some(±axis)` when `d` is a unit step along one voxel axis.
 fn unit_axis(d: &Vector3<f64>) -> Option<(usize, isize)> {
     let mut found = None;
@@ -400,6 +414,13 @@ impl Job {
     /// (thousands of lines) would not allow.
     fn fill_tiled<T: Voxel>(&self, g: &Grid<'_, T>, out: &mut [f32]) {
         let w = self.width;
+        if single_axis(&self.grid.dc).is_some() {
+            // rows along a voxel axis read a few voxel rows each: whole rows, no tiles
+            out.par_chunks_mut(w).enumerate().for_each(|(r, line)| {
+                g.trilinear_row(&self.grid.at(0, r), &self.grid.dc, line);
+            });
+            return;
+        }
         out.par_chunks_mut(TILE_ROWS * w)
             .enumerate()
             .for_each(|(band, rows)| {
@@ -536,8 +557,7 @@ impl<'a, T: Voxel> Grid<'a, T> {
     /// [`Self::trilinear`].
     pub(crate) fn trilinear_row(&self, s: &Vector3<f64>, d: &Vector3<f64>, out: &mut [f32]) {
         let width = out.len();
-        let along: Vec<usize> = (0..3).filter(|&a| d[a] != 0.0).collect();
-        if let [a] = along[..] {
+        if let Some(a) = single_axis(d) {
             self.axis_row(a, s, d[a], out);
             return;
         }

@@ -19,9 +19,9 @@
 //! resolution anyway: one voxel across the rays. Where the picture's pixels fall on the
 //! intermediate grid (a view along a voxel axis at the voxel spacing) the two are equal.
 //!
-//! When `a` = 0 the voxel rows of a plane are strided; the same plane-by-plane walk then reads
-//! one voxel per cache line, but over a band of a few intermediate rows the lines stay in cache
-//! and serve the next 31 planes (a line holds 32 consecutive 16-bit voxels along `a`).
+//! When `a` = 0 the voxel rows of a plane are strided; blocks of 16 planes are then copied
+//! plane by plane into a buffer first (reading each voxel once, along its cache line) and the
+//! same kernel runs on the copy.
 //!
 //! Edges follow trilinear sampling: samples are taken where the point lies in the cells
 //! `[-0.5, n - 0.5)` of both in-plane axes, holding the edge value in the outer half-voxel
@@ -290,30 +290,29 @@ fn max_row_body<T: Voxel, const FUSED: bool>(out: &mut [f32], r0: &[T], r1: &[T]
         } else {
             w[0] * x0 + w[1] * x1 + w[2] * y0 + w[3] * y1
         };
-        // a select and a plain store (a vector maximum), not a conditional store, which
-        // would become a masked store, slow on some processors
-        *o = if v > *o { v } else { *o };
+        // `max` (which ignores NaN) stores unconditionally; a conditional store
+        // (`if v > *o { *o = v }`, even written as a select) becomes a masked vector store,
+        // microcoded and many times slower on some processors
+        *o = o.max(v);
     }
 }
 
-/// `out[i] = max(out[i], …)` as [`max_row`] for rows whose consecutive samples are `stride`
-/// apart in memory (the plane axis is the fastest, `a` = 0): scalar loads, but each cache
-/// line serves the next planes too, as the band's rows stay in cache from plane to plane.
-#[inline]
-fn max_row_strided<T: Voxel>(out: &mut [f32], r0: &[T], r1: &[T], stride: usize, w: [f32; 4]) {
-    for (k, o) in out.iter_mut().enumerate() {
-        let i = k * stride;
-        let v = w[0] * r0[i].to_f32()
-            + w[1] * r0[i + stride].to_f32()
-            + w[2] * r1[i].to_f32()
-            + w[3] * r1[i + stride].to_f32();
-        *o = if v > *o { v } else { *o };
-    }
+/// Voxel planes handed to [`fill_planes`]: plane `s` (its index along the plane axis, for the
+/// shear) starts at `data[start(s)]`, its rows along `b` are contiguous and `e_stride` apart.
+struct PlaneViews<'d, T, F> {
+    data: &'d [T],
+    start: F,
+    e_stride: usize,
 }
 
-/// The intermediate image, plane by plane, two voxel rows at a time, over bands of
-/// intermediate rows in parallel. The rows run along `b`: contiguous when `b` is the fastest
-/// voxel axis (vectorised), strided when the plane axis is (`a` = 0).
+/// Planes transposed at a time when the plane axis is the fastest voxel axis (`a` = 0).
+const TRANSPOSE_BLOCK: usize = 32;
+
+/// The intermediate image. When `b` is the fastest voxel axis the planes are read in place;
+/// when the plane axis is (`a` = 0) a plane's rows are strided, so blocks of
+/// [`TRANSPOSE_BLOCK`] consecutive planes are first copied into a buffer laid out plane by
+/// plane (each voxel read once, along its cache line, and written once), and the same
+/// vectorised kernel runs on the copy.
 fn fill<T: Voxel>(
     g: &Grid<'_, T>,
     sh: &Shear,
@@ -323,8 +322,96 @@ fn fill<T: Voxel>(
 ) {
     let dims = g.dims;
     let strides = [1, dims[0], dims[0] * dims[1]];
+    if strides[sh.b] == 1 {
+        let views = PlaneViews {
+            data: g.data,
+            start: |s: usize| s * strides[sh.a],
+            e_stride: strides[sh.e],
+        };
+        fill_planes(sh, dims, planes, &views, sign, inter);
+        return;
+    }
     let (nb, ne) = (dims[sh.b], dims[sh.e]);
-    let sb_stride = strides[sh.b];
+    // rows padded by 32 voxels: at a power-of-two pitch the block's rows would all fall in
+    // the same few cache sets and evict each other on every write
+    let pitch = nb + 32;
+    let mut buf = vec![T::default(); TRANSPOSE_BLOCK * pitch * ne];
+    for block in planes.chunks(TRANSPOSE_BLOCK) {
+        // buf[(k·B + l)·pitch + j] = voxel (block[l], j, k): for each k, B rows along j
+        buf.par_chunks_mut(TRANSPOSE_BLOCK * pitch)
+            .enumerate()
+            .for_each(|(k, rows)| {
+                let row_start = |j: usize| strides[sh.b] * j + strides[sh.e] * k;
+                let consecutive = block.len() == block[block.len() - 1] - block[0] + 1;
+                // through a small tile: read TILE source rows (one cache line of consecutive
+                // planes each), then write each plane's TILE voxels contiguously
+                let mut tile = [[T::default(); TRANSPOSE_BLOCK]; TRANSPOSE_BLOCK];
+                for j0 in (0..nb).step_by(TRANSPOSE_BLOCK) {
+                    let jn = TRANSPOSE_BLOCK.min(nb - j0);
+                    for (jj, t) in tile.iter_mut().enumerate().take(jn) {
+                        // source rows are a cache line or more apart, too far for the
+                        // hardware prefetcher: ask for the line a few rows ahead
+                        prefetch(g.data, row_start(j0 + jj + PREFETCH_ROWS) + block[0]);
+                        let src = &g.data[row_start(j0 + jj)..];
+                        if consecutive {
+                            t[..block.len()].copy_from_slice(&src[block[0]..][..block.len()]);
+                        } else {
+                            for (v, &s) in t.iter_mut().zip(block) {
+                                *v = src[s];
+                            }
+                        }
+                    }
+                    for l in 0..block.len() {
+                        let dst = &mut rows[l * pitch + j0..][..jn];
+                        for (d, t) in dst.iter_mut().zip(&tile) {
+                            *d = t[l];
+                        }
+                    }
+                }
+            });
+        let views = PlaneViews {
+            data: &buf,
+            start: |s: usize| {
+                let l = block.iter().position(|&b| b == s).unwrap_or(0);
+                l * pitch
+            },
+            e_stride: TRANSPOSE_BLOCK * pitch,
+        };
+        fill_planes(sh, dims, block, &views, sign, inter);
+    }
+}
+
+/// How many strided rows ahead [`fill`]'s transposition prefetches.
+const PREFETCH_ROWS: usize = 16;
+
+/// A hint to fetch the cache line holding `data[i]` (nothing when `i` is out of range or the
+/// target has no prefetch instruction).
+#[inline]
+fn prefetch<T>(data: &[T], i: usize) {
+    #[cfg(target_arch = "x86_64")]
+    if let Some(p) = data.get(i) {
+        // SAFETY: a prefetch is a hint with no architectural effect; the pointer is valid
+        // (it comes from a reference into the slice) and SSE is part of the x86_64 baseline.
+        unsafe {
+            std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(
+                std::ptr::from_ref(p).cast::<i8>(),
+            );
+        }
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = (data, i);
+}
+
+/// Folds `planes` into the intermediate image, over bands of intermediate rows in parallel.
+fn fill_planes<T: Voxel, F: Fn(usize) -> usize + Sync>(
+    sh: &Shear,
+    dims: [usize; 3],
+    planes: &[usize],
+    views: &PlaneViews<'_, T, F>,
+    sign: f32,
+    inter: &mut Intermediate,
+) {
+    let (nb, ne) = (dims[sh.b], dims[sh.e]);
     let (iw, p0, q0) = (inter.width, inter.p0, inter.q0);
     inter
         .values
@@ -334,7 +421,7 @@ fn fill<T: Voxel>(
             for &s in planes {
                 let sb = AxisStep::new(s as f64 * sh.k[0], nb);
                 let se = AxisStep::new(s as f64 * sh.k[1], ne);
-                let plane = &g.data[s * strides[sh.a]..];
+                let plane = &views.data[(views.start)(s)..];
                 let (pv_lo, pv_hi) = sb.valid();
                 let (pi_lo, pi_hi) = sb.interior();
                 let (qv_lo, qv_hi) = se.valid();
@@ -345,29 +432,25 @@ fn fill<T: Voxel>(
                         continue;
                     }
                     let (y0, y1, fe) = se.clamped(q);
-                    // the voxel row along b, from its first voxel on
-                    let row0 = &plane[y0 * strides[sh.e]..];
-                    let row1 = &plane[y1 * strides[sh.e]..];
+                    let row0 = &plane[y0 * views.e_stride..][..nb];
+                    let row1 = &plane[y1 * views.e_stride..][..nb];
                     let w = [
                         sign * (1.0 - fb) * (1.0 - fe),
                         sign * fb * (1.0 - fe),
                         sign * (1.0 - fb) * fe,
                         sign * fb * fe,
                     ];
-                    // P over the line: interior part in the fast loop, the rims clamped
+                    // P over the line: interior part in the vectorised kernel, rims clamped
                     let lo = pv_lo.max(p0);
                     let hi = pv_hi.min(p0 + iw as i64);
                     let (ilo, ihi) = (pi_lo.max(lo), pi_hi.min(hi).max(pi_lo.max(lo)));
                     let rim = |p: i64, line: &mut [f32]| {
                         let (x0, x1, t) = sb.clamped(p);
-                        let (x0, x1) = (x0 * sb_stride, x1 * sb_stride);
                         let top = row0[x0].to_f32() * (1.0 - t) + row0[x1].to_f32() * t;
                         let bottom = row1[x0].to_f32() * (1.0 - t) + row1[x1].to_f32() * t;
                         let v = sign * (top * (1.0 - fe) + bottom * fe);
                         let o = &mut line[(p - p0) as usize];
-                        if v > *o {
-                            *o = v;
-                        }
+                        *o = o.max(v);
                     };
                     for p in lo..ilo.min(hi) {
                         rim(p, line);
@@ -376,12 +459,7 @@ fn fill<T: Voxel>(
                         let x = (ilo + sb.offset) as usize;
                         let len = (ihi - ilo) as usize;
                         let out = &mut line[(ilo - p0) as usize..][..len];
-                        if sb_stride == 1 {
-                            max_row(out, &row0[x..=x + len], &row1[x..=x + len], w);
-                        } else {
-                            let (a, b) = (&row0[x * sb_stride..], &row1[x * sb_stride..]);
-                            max_row_strided(out, a, b, sb_stride, w);
-                        }
+                        max_row(out, &row0[x..=x + len], &row1[x..=x + len], w);
                     }
                     for p in ihi.max(lo)..hi {
                         rim(p, line);

@@ -77,12 +77,12 @@ impl Quality {
 
 impl Quality {
     /// For rendering a [`Pyramid::preview`](crate::render::pyramid::Pyramid::preview)
-    /// volume (4× fewer voxels per axis): one ray per 2×2 pixels, half-voxel steps of the
-    /// preview volume.
+    /// volume (4× fewer voxels per axis) while the view moves: one ray per 4×4 pixels,
+    /// half-voxel steps of the preview volume (two source voxels, as [`Quality::coarse`]).
     #[must_use]
     pub const fn preview() -> Self {
         Self {
-            downsample: 2,
+            downsample: 4,
             step_voxels: 0.5,
         }
     }

@@ -410,12 +410,17 @@ fn first_crossing<T: Voxel>(
 ) -> Option<Hit> {
     let mut t = t0;
     let mut below: Option<f64> = None;
+    // the ray parameter up to which the current brick is known to hold something: no
+    // skipping checks until then
+    let mut occupied_until = f64::NEG_INFINITY;
     while t <= t1 {
         let p = o + d * t;
-        if let Some(b) = bricks {
+        if let Some(b) = bricks
+            && t >= occupied_until
+        {
             // the group first, then the brick: leave whichever holds nothing to find
             let mut skip = None;
-            for level in [&b.coarse, &b.fine] {
+            for (fine, level) in [(false, &b.coarse), (true, &b.fine)] {
                 let (c, i) = level.cell(&p);
                 let top = if f.sign > 0.0 {
                     level.max[i]
@@ -425,6 +430,9 @@ fn first_crossing<T: Voxel>(
                 if top < thr {
                     skip = Some(level.exit(c, &p, d));
                     break;
+                }
+                if fine {
+                    occupied_until = t + level.exit(c, &p, d);
                 }
             }
             if let Some(exit) = skip {
