@@ -1,5 +1,6 @@
 //! Times `sutura::io::open` on one scan, in this fresh process, and prints one JSON line:
-//! median/min/max seconds over the repeats, GB/s of voxel bytes, and peak RSS (`VmHWM`).
+//! median/min/max seconds over the repeats, GB/s of voxel bytes, peak RSS (`VmHWM`), the CPU
+//! seconds used (median) and the 1-minute load average at the end.
 //!
 //! `cargo run --release --example bench_load -- PATH [REPEATS]`; `scripts/bench_io.sh` runs it
 //! for every file of the Python baseline kit and prints the ratios.
@@ -18,6 +19,30 @@ fn peak_rss_mib() -> f64 {
         .map_or(f64::NAN, |kib| kib / 1024.0)
 }
 
+/// The 1-minute load average: how busy the (possibly shared) machine was.
+fn load1() -> f64 {
+    std::fs::read_to_string("/proc/loadavg")
+        .ok()
+        .and_then(|s| s.split_whitespace().next().and_then(|v| v.parse().ok()))
+        .unwrap_or(f64::NAN)
+}
+
+/// CPU seconds (user + system) used by this process so far, from `/proc/self/stat` (fields 14
+/// and 15, in clock ticks of 1/100 s on Linux): unlike wall time, it does not grow when other
+/// programs share the cores.
+fn cpu_s() -> f64 {
+    std::fs::read_to_string("/proc/self/stat")
+        .ok()
+        .and_then(|s| {
+            // the command name (field 2) may hold spaces; fields after it are plain
+            let rest = s.rsplit_once(')')?.1;
+            let f: Vec<&str> = rest.split_whitespace().collect();
+            let ticks = f.get(11)?.parse::<f64>().ok()? + f.get(12)?.parse::<f64>().ok()?;
+            Some(ticks / 100.0)
+        })
+        .unwrap_or(f64::NAN)
+}
+
 fn main() -> anyhow::Result<()> {
     let mut args = std::env::args().skip(1);
     let path = std::path::PathBuf::from(
@@ -30,12 +55,14 @@ fn main() -> anyhow::Result<()> {
         ..Default::default()
     };
     let mut times = Vec::new();
+    let mut cpu = Vec::new();
     let mut bytes = 0usize;
     let mut checksum = 0.0;
     for _ in 0..reps {
-        let t = Instant::now();
+        let (t, c) = (Instant::now(), cpu_s());
         let v = sutura::io::open(&path, &opts, &sutura::io::Progress::none())?;
         times.push(t.elapsed().as_secs_f64());
+        cpu.push(cpu_s() - c);
         bytes = v.voxel_bytes();
         checksum = v
             .value(sutura::geometry::VoxelIndex::new(
@@ -47,6 +74,7 @@ fn main() -> anyhow::Result<()> {
         drop(v);
     }
     times.sort_by(f64::total_cmp);
+    cpu.sort_by(f64::total_cmp);
     let med = times[times.len() / 2];
     println!(
         "{}",
@@ -54,7 +82,8 @@ fn main() -> anyhow::Result<()> {
             "path": path.display().to_string(), "n": reps, "median_s": med,
             "min_s": times[0], "max_s": times[times.len() - 1],
             "gbps": bytes as f64 / med / 1e9, "peak_rss_mib": peak_rss_mib(),
-            "voxel_mib": bytes as f64 / 1048576.0, "centre_value": checksum,
+            "voxel_mib": bytes as f64 / 1_048_576.0, "centre_value": checksum, "load1": load1(),
+            "cpu_median_s": cpu[cpu.len() / 2],
         })
     );
     Ok(())

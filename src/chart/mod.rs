@@ -219,15 +219,9 @@ impl Figure {
     /// The figure rasterised to RGBA (row-major, 4 bytes a pixel, not premultiplied).
     #[must_use]
     pub fn to_rgba(&self) -> Vec<u8> {
-        use tiny_skia::{FillRule, Paint, PathBuilder, Pixmap, Stroke, Transform};
+        use tiny_skia::{PathBuilder, Pixmap, Stroke};
         let mut pm = Pixmap::new(self.width.max(1), self.height.max(1)).expect("non-zero size");
         pm.fill(tiny_skia::Color::WHITE);
-        let paint = |c: Rgba| {
-            let mut p = Paint::default();
-            p.set_color_rgba8(c.0, c.1, c.2, c.3);
-            p.anti_alias = true;
-            p
-        };
         for item in &self.items {
             match item {
                 Item::Line {
@@ -240,11 +234,7 @@ impl Figure {
                     pb.move_to(from.0 as f32, from.1 as f32);
                     pb.line_to(to.0 as f32, to.1 as f32);
                     if let Some(path) = pb.finish() {
-                        let st = Stroke {
-                            width: *width as f32,
-                            ..Stroke::default()
-                        };
-                        pm.stroke_path(&path, &paint(*colour), &st, Transform::identity(), None);
+                        paint_path(&mut pm, &path, None, Some((*colour, *width)));
                     }
                 }
                 Item::Polygon {
@@ -263,18 +253,7 @@ impl Figure {
                     }
                     pb.close();
                     if let Some(path) = pb.finish() {
-                        pm.fill_path(
-                            &path,
-                            &paint(*fill),
-                            FillRule::Winding,
-                            Transform::identity(),
-                            None,
-                        );
-                        let st = Stroke {
-                            width: *width as f32,
-                            ..Stroke::default()
-                        };
-                        pm.stroke_path(&path, &paint(*stroke), &st, Transform::identity(), None);
+                        paint_path(&mut pm, &path, Some(*fill), Some((*stroke, *width)));
                     }
                 }
                 Item::Circle {
@@ -286,20 +265,8 @@ impl Figure {
                     if let Some(path) =
                         PathBuilder::from_circle(centre.0 as f32, centre.1 as f32, *radius as f32)
                     {
-                        pm.fill_path(
-                            &path,
-                            &paint(*fill),
-                            FillRule::Winding,
-                            Transform::identity(),
-                            None,
-                        );
-                        pm.stroke_path(
-                            &path,
-                            &paint(*stroke),
-                            &Stroke::default(),
-                            Transform::identity(),
-                            None,
-                        );
+                        let hairline = f64::from(Stroke::default().width);
+                        paint_path(&mut pm, &path, Some(*fill), Some((*stroke, hairline)));
                     }
                 }
                 Item::Text {
@@ -331,6 +298,38 @@ impl Figure {
         // demultiply: tiny-skia stores premultiplied alpha; the canvas is opaque white, so
         // every pixel is opaque and the bytes are already straight RGBA
         pm.take()
+    }
+}
+
+/// Fills and/or strokes one path, anti-aliased, in straight-alpha colours.
+fn paint_path(
+    pm: &mut tiny_skia::Pixmap,
+    path: &tiny_skia::Path,
+    fill: Option<Rgba>,
+    stroke: Option<(Rgba, f64)>,
+) {
+    use tiny_skia::{FillRule, Paint, Stroke, Transform};
+    let paint = |c: Rgba| {
+        let mut p = Paint::default();
+        p.set_color_rgba8(c.0, c.1, c.2, c.3);
+        p.anti_alias = true;
+        p
+    };
+    if let Some(c) = fill {
+        pm.fill_path(
+            path,
+            &paint(c),
+            FillRule::Winding,
+            Transform::identity(),
+            None,
+        );
+    }
+    if let Some((c, width)) = stroke {
+        let st = Stroke {
+            width: width as f32,
+            ..Stroke::default()
+        };
+        pm.stroke_path(path, &paint(c), &st, Transform::identity(), None);
     }
 }
 

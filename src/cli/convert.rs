@@ -84,10 +84,19 @@ pub fn write_volume(v: &crate::volume::Volume, out: &Path) -> Result<()> {
         .file_name()
         .map(|n| n.to_string_lossy().to_lowercase())
         .unwrap_or_default();
-    if name.ends_with(".nii") || name.ends_with(".nii.gz") {
+    // `name` is lower-cased above, so these comparisons ignore case
+    #[allow(
+        clippy::case_sensitive_file_extension_comparisons,
+        reason = "lower-cased above"
+    )]
+    let (nifti, tiff) = (
+        name.ends_with(".nii") || name.ends_with(".nii.gz"),
+        name.ends_with(".tif") || name.ends_with(".tiff"),
+    );
+    if nifti {
         crate::io::nifti::write(v, out)?;
     } else {
-        let dir = if name.ends_with(".tif") || name.ends_with(".tiff") {
+        let dir = if tiff {
             out.with_extension("")
         } else {
             out.to_owned()

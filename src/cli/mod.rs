@@ -7,17 +7,20 @@
 
 mod convert;
 mod info;
+mod landmark;
+mod landmark_export;
+mod measure;
+mod project;
 mod sample;
 mod superimpose;
 mod view;
 
-use anyhow::{Context, Result};
+use anyhow::Result;
 use clap::{Args, Parser, Subcommand};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-use crate::geometry::{Affine3, parse_length_mm};
-use crate::io::{self, OpenOptions, Progress};
+use crate::io::Progress;
 use crate::volume::Volume;
 
 /// Sutura: measure fossil specimens in CT scans.
@@ -27,12 +30,15 @@ use crate::volume::Volume;
 #[derive(Debug, Parser)]
 #[command(name = "sutura", version, about, long_about = None, propagate_version = true)]
 pub struct Cli {
+    /// Without a command, the workstation window opens on the bundled sample scan.
     #[command(subcommand)]
-    command: Command,
+    command: Option<Command>,
 }
 
 #[derive(Debug, Subcommand)]
 enum Command {
+    /// Open a scan (a file or a folder of TIFF slices) in the workstation window.
+    Open(OpenArgs),
     /// Print a scan's dimensions, voxel type and size, placement and intensity statistics.
     Info(info::InfoArgs),
     /// Write a scan, optionally cropped and downsampled, as NIfTI-1 or a folder of TIFF slices.
@@ -43,8 +49,31 @@ enum Command {
     Render(view::View3dArgs),
     /// Write the synthetic sample specimens with their true landmarks.
     Sample(sample::SampleArgs),
-    /// Superimpose a landmark table (GPA) into shape coordinates, morphospace and disparity.
+    /// Superimpose a landmark table or a project (GPA) into shape coordinates, morphospace
+    /// and disparity.
     Superimpose(superimpose::SuperimposeArgs),
+    /// Make and inspect a landmark project: specimens, scans, labels, progress.
+    #[command(subcommand)]
+    Project(project::ProjectCommand),
+    /// Start a digitisation (trial) of a specimen.
+    #[command(subcommand)]
+    Trial(project::TrialCommand),
+    /// Place, mark missing, clear, annotate and list landmarks.
+    #[command(subcommand)]
+    Landmark(landmark::LandmarkCommand),
+    /// Trace the curves whose semilandmarks the scheme asks for.
+    #[command(subcommand)]
+    Curve(landmark::CurveCommand),
+    /// Compute the scheme's measurements (mm, degrees) for every specimen and trial.
+    Measure(measure::MeasureArgs),
+    /// Export a project's landmarks: long or wide CSV, JSON, .npy arrays, PLY point sets.
+    Export(landmark_export::ExportArgs),
+}
+
+#[derive(Debug, Args)]
+struct OpenArgs {
+    /// The scan: a `NIfTI` or TIFF file, or a folder of TIFF slices.
+    path: PathBuf,
 }
 
 /// How to read a scan; shared by every command that opens one.
@@ -65,30 +94,9 @@ pub struct ScanArgs {
 }
 
 impl ScanArgs {
-    /// The voxel size override in mm, if given.
-    fn voxel_size_mm(&self) -> Result<Option<[f64; 3]>> {
-        let Some(text) = &self.voxel_size else {
-            return Ok(None);
-        };
-        let parts: Vec<f64> = text
-            .split(',')
-            .map(parse_length_mm)
-            .collect::<Result<_, _>>()
-            .with_context(|| format!("--voxel-size {text}"))?;
-        match parts.as_slice() {
-            [s] => Ok(Some([*s; 3])),
-            [x, y, z] => Ok(Some([*x, *y, *z])),
-            _ => anyhow::bail!("--voxel-size {text}: give one length or three (x,y,z)"),
-        }
-    }
-
     /// Opens the scan with a progress bar on stderr.
     pub fn open(&self) -> Result<Volume> {
-        let voxel_size_mm = self.voxel_size_mm()?;
-        let options = OpenOptions {
-            voxel_size_mm,
-            ..OpenOptions::default()
-        };
+        let voxel_size_mm = project::voxel_size(self.voxel_size.as_deref())?;
         let bar = (!self.quiet).then(|| {
             let b = indicatif::ProgressBar::with_draw_target(
                 None,
@@ -108,26 +116,9 @@ impl ScanArgs {
             true
         };
         let progress = Progress::new(Some(&report));
-        let mut volume = io::open(&self.scan, &options, &progress)?;
+        let volume = crate::landmarks::scan::open_scan(&self.scan, voxel_size_mm, &progress)?;
         if let Some(b) = &bar {
             b.finish_and_clear();
-        }
-        if let Some(s) = voxel_size_mm
-            && io::detect(&self.scan)? == io::Format::Nifti
-        {
-            // NIfTI carries its own geometry; the override rescales its axes
-            let lin = volume.world_from_voxel().linear();
-            let cols = volume.spacing_mm();
-            let mut new = lin;
-            for a in 0..3 {
-                let c = lin.column(a) * (s[a] / cols[a]);
-                new.set_column(a, &c);
-            }
-            let t = volume.world_from_voxel().translation();
-            volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
-            volume.notes.push(format!(
-                "voxel size overridden from the command line: {s:?} mm"
-            ));
         }
         Ok(volume)
     }
@@ -148,13 +139,36 @@ pub fn main() -> ExitCode {
 
 /// Runs a parsed command line.
 pub fn run(cli: Cli) -> Result<()> {
-    match cli.command {
+    let Some(command) = cli.command else {
+        return crate::gui::run(None);
+    };
+    match command {
+        Command::Open(a) => crate::gui::run(Some(a.path)),
         Command::Info(a) => info::run(&a),
         Command::Convert(a) => convert::run(&a),
         Command::Slice(a) => view::run_slice(&a),
         Command::Render(a) => view::run_view3d(&a),
         Command::Sample(a) => sample::run(&a),
         Command::Superimpose(a) => superimpose::run(&a),
+        Command::Project(c) => project::run_project(&c),
+        Command::Trial(c) => project::run_trial(&c),
+        Command::Landmark(c) => landmark::run_landmark(&c),
+        Command::Curve(c) => landmark::run_curve(&c),
+        Command::Measure(a) => measure::run(&a),
+        Command::Export(a) => landmark_export::run(&a),
+    }
+}
+
+/// Writes a command's output to stdout; a reader that stops early (`| head`) is not an error.
+fn emit(text: &str) -> Result<()> {
+    use std::io::Write;
+    let mut stdout = std::io::stdout().lock();
+    match stdout
+        .write_all(text.as_bytes())
+        .and_then(|()| stdout.flush())
+    {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(e.into()),
+        _ => Ok(()),
     }
 }
 

@@ -82,16 +82,12 @@ pub fn run(a: &SampleArgs) -> Result<()> {
             .collect(),
     };
     table.write_long_csv(&a.output.join("true_landmarks.csv"))?;
-    crate::export::write_json(
-        &a.output.join("scheme.json"),
-        &serde_json::json!({
-            "scheme": synth::scheme::SCHEME_ID,
-            "landmarks": scheme,
-            "curves": synth::scheme::curves(),
-        }),
-    )?;
+    let text = synth::scheme::scheme_toml();
+    crate::export::write_atomic(&a.output.join("scheme.toml"), |w| {
+        w.write_all(text.as_bytes())
+    })?;
     eprintln!(
-        "wrote {} specimens, true_landmarks.csv and scheme.json to {}",
+        "wrote {} specimens, true_landmarks.csv and scheme.toml to {}",
         written.len(),
         a.output.display()
     );

@@ -2,12 +2,17 @@
 //!
 //! Every file is written atomically ([`write_atomic`]): to a temporary file in the same folder,
 //! flushed to disk, then renamed over the target, so a crash never leaves half a file where a
-//! good one stood. The README documents every column written here.
+//! good one stood; [`write_atomic_keeping_backup`] also keeps the replaced file as a backup.
+//! The README documents every column written here.
 //!
-//! [`table`] reads and writes landmark tables (the long CSV that every other tool can make).
+//! [`table`] reads and writes landmark tables (the long CSV that every other tool can make);
+//! [`points`] writes named point sets (a project's landmarks) as JSON, `.npy` with an index
+//! file, and PLY point sets ([`ply`]).
 //!
-//! Must not import `gui`.
+//! Must not import `gui`, nor `landmarks` (which uses this module to write its files).
 
+pub mod ply;
+pub mod points;
 pub mod table;
 
 use npyz::WriterBuilder;
@@ -49,18 +54,44 @@ pub fn write_atomic(
     path: &Path,
     fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
 ) -> Result<(), ExportError> {
+    write_atomic_inner(path, None, fill)
+}
+
+/// As [`write_atomic`], and keeps the file it replaces as `backup`: once the new content is
+/// safely on disk, the old file is hard-linked (copied where links are not supported) to a
+/// temporary name and renamed over `backup`, then the new file is renamed over `path`. At every
+/// instant `path` holds either the complete old file or the complete new one, and `backup`
+/// either the previous backup or the complete old file.
+pub fn write_atomic_keeping_backup(
+    path: &Path,
+    backup: &Path,
+    fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> Result<(), ExportError> {
+    write_atomic_inner(path, Some(backup), fill)
+}
+
+/// The temporary name beside `path` used while writing it: `.NAME.tmp-PID`.
+fn temp_name(dir: &Path, path: &Path) -> Result<PathBuf, ExportError> {
+    let name = path
+        .file_name()
+        .ok_or_else(|| ExportError::format(path, "not a file name"))?;
+    Ok(dir.join(format!(
+        ".{}.tmp-{}",
+        name.to_string_lossy(),
+        std::process::id()
+    )))
+}
+
+fn write_atomic_inner(
+    path: &Path,
+    backup: Option<&Path>,
+    fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> Result<(), ExportError> {
     let dir = match path.parent() {
         Some(d) if !d.as_os_str().is_empty() => d.to_owned(),
         _ => PathBuf::from("."),
     };
-    let name = path
-        .file_name()
-        .ok_or_else(|| ExportError::format(path, "not a file name"))?;
-    let tmp = dir.join(format!(
-        ".{}.tmp-{}",
-        name.to_string_lossy(),
-        std::process::id()
-    ));
+    let tmp = temp_name(&dir, path)?;
     let result = (|| {
         let file = std::fs::File::create(&tmp)?;
         let mut w = std::io::BufWriter::with_capacity(1 << 20, file);
@@ -69,6 +100,12 @@ pub fn write_atomic(
             .into_inner()
             .map_err(std::io::IntoInnerError::into_error)?;
         file.sync_all()?;
+        drop(file);
+        if let Some(backup) = backup
+            && path.exists()
+        {
+            keep_backup(path, backup)?;
+        }
         std::fs::rename(&tmp, path)?;
         if let Ok(d) = std::fs::File::open(&dir) {
             let _ = d.sync_all(); // best effort: not every file system syncs folders
@@ -79,6 +116,26 @@ pub fn write_atomic(
         let _ = std::fs::remove_file(&tmp);
     }
     result.map_err(|e| ExportError::os(path, e))
+}
+
+/// Puts a copy of `path` at `backup` atomically (hard link, else a synced copy, then rename).
+fn keep_backup(path: &Path, backup: &Path) -> std::io::Result<()> {
+    let dir = match backup.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d.to_owned(),
+        _ => PathBuf::from("."),
+    };
+    let tmp = temp_name(&dir, backup).map_err(std::io::Error::other)?;
+    let _ = std::fs::remove_file(&tmp);
+    let linked = std::fs::hard_link(path, &tmp).is_ok();
+    if !linked {
+        std::fs::copy(path, &tmp)?;
+        std::fs::File::open(&tmp)?.sync_all()?;
+    }
+    if let Err(e) = std::fs::rename(&tmp, backup) {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(e);
+    }
+    Ok(())
 }
 
 /// Writes an f64 array of the given shape (C order) as a `NumPy` `.npy` file.
@@ -135,6 +192,10 @@ pub fn num(v: f64) -> String {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "these tests check values that are exact by construction"
+)]
 mod tests {
     use super::*;
 
@@ -156,6 +217,32 @@ mod tests {
         );
         write_atomic(&p, |w| w.write_all(b"new")).unwrap();
         assert_eq!(std::fs::read_to_string(&p).unwrap(), "new");
+    }
+
+    #[test]
+    fn atomic_write_keeps_the_previous_version() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.json");
+        let bak = dir.path().join("p.json.bak");
+        write_atomic_keeping_backup(&p, &bak, |w| w.write_all(b"one")).unwrap();
+        assert!(!bak.exists(), "nothing to back up the first time");
+        write_atomic_keeping_backup(&p, &bak, |w| w.write_all(b"two")).unwrap();
+        write_atomic_keeping_backup(&p, &bak, |w| w.write_all(b"three")).unwrap();
+        assert_eq!(std::fs::read_to_string(&p).unwrap(), "three");
+        assert_eq!(std::fs::read_to_string(&bak).unwrap(), "two");
+        // a failed write touches neither the file nor its backup
+        let r = write_atomic_keeping_backup(&p, &bak, |w| {
+            w.write_all(b"fo")?;
+            Err(std::io::Error::other("full"))
+        });
+        assert!(r.is_err());
+        assert_eq!(std::fs::read_to_string(&p).unwrap(), "three");
+        assert_eq!(std::fs::read_to_string(&bak).unwrap(), "two");
+        assert_eq!(
+            std::fs::read_dir(dir.path()).unwrap().count(),
+            2,
+            "no temp files left"
+        );
     }
 
     #[test]

@@ -58,7 +58,12 @@ pub struct LandmarkTable {
 
 impl LandmarkTable {
     /// Reads a long CSV.
+    #[allow(
+        clippy::too_many_lines,
+        reason = "one pass over the rows with its checks in order"
+    )]
     pub fn read_csv(path: &Path) -> Result<Self, ExportError> {
+        type Rows = Vec<(usize, Option<[f64; 3]>, State)>;
         let mut rdr = csv::ReaderBuilder::new()
             .trim(csv::Trim::All)
             .from_path(path)
@@ -83,7 +88,6 @@ impl LandmarkTable {
 
         let mut landmarks: Vec<String> = Vec::new();
         let mut lm_index: HashMap<String, usize> = HashMap::new();
-        type Rows = Vec<(usize, Option<[f64; 3]>, State)>;
         let mut obs_order: Vec<(String, String)> = Vec::new();
         let mut obs_rows: HashMap<(String, String), (Option<String>, Rows)> = HashMap::new();
 

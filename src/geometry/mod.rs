@@ -159,7 +159,13 @@ impl Affine3 {
         if m.iter().any(|v| !v.is_finite()) {
             return Err(AffineError::NotFinite);
         }
-        if m[(3, 0)] != 0.0 || m[(3, 1)] != 0.0 || m[(3, 2)] != 0.0 || m[(3, 3)] != 1.0 {
+        #[allow(
+            clippy::float_cmp,
+            reason = "an affine's bottom row is exactly 0 0 0 1; any other value is a projective matrix"
+        )]
+        let not_affine =
+            m[(3, 0)] != 0.0 || m[(3, 1)] != 0.0 || m[(3, 2)] != 0.0 || m[(3, 3)] != 1.0;
+        if not_affine {
             return Err(AffineError::NotAffine);
         }
         let det = m.fixed_view::<3, 3>(0, 0).determinant();
@@ -315,6 +321,10 @@ impl Plane {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "lengths of exactly representable columns are exact"
+)]
 mod tests {
     use super::*;
     use approx::assert_relative_eq;

@@ -23,14 +23,15 @@ pub fn parse_length_mm(text: &str) -> Result<f64, LengthError> {
     let value: f64 = num
         .parse()
         .map_err(|_| LengthError::Syntax(text.to_owned()))?;
-    let factor = match unit.trim() {
-        "m" => 1e3,
-        "mm" => 1.0,
-        "um" | "µm" | "μm" | "micron" | "microns" => 1e-3,
-        "nm" => 1e-6,
+    // divide by exact powers of ten rather than multiply by inexact ones, so "36um" is the
+    // double nearest to 0.036 mm, as "0.036mm" is (36 · 1e-3 is one ulp above it)
+    let mm = match unit.trim() {
+        "m" => value * 1e3,
+        "mm" => value,
+        "um" | "µm" | "μm" | "micron" | "microns" => value / 1e3,
+        "nm" => value / 1e6,
         other => return Err(LengthError::Unit(text.to_owned(), other.to_owned())),
     };
-    let mm = value * factor;
     if !(mm.is_finite() && mm > 0.0) {
         return Err(LengthError::NotPositive(text.to_owned()));
     }
@@ -54,8 +55,28 @@ fn trim_float(v: f64) -> String {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "whole µm must parse to the f64 nearest the decimal value, exactly"
+)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn micrometres_are_exact() {
+        for (a, b) in [
+            ("36um", "0.036mm"),
+            ("50um", "0.05mm"),
+            ("12.5um", "0.0125mm"),
+            ("700nm", "0.0007mm"),
+        ] {
+            assert_eq!(
+                parse_length_mm(a).unwrap().to_bits(),
+                parse_length_mm(b).unwrap().to_bits(),
+                "{a}"
+            );
+        }
+    }
 
     #[test]
     fn parses_units() {
@@ -64,6 +85,10 @@ mod tests {
         assert!((parse_length_mm("0.012mm").unwrap() - 0.012).abs() < 1e-15);
         assert!((parse_length_mm("1.2e-5m").unwrap() - 0.012).abs() < 1e-15);
         assert!((parse_length_mm("1.5e1um").unwrap() - 0.015).abs() < 1e-15);
+        // whole µm and nm are the f64 nearest the decimal value in mm, not one step off
+        assert_eq!(parse_length_mm("36um").unwrap(), 0.036);
+        assert_eq!(parse_length_mm("50um").unwrap(), 0.05);
+        assert_eq!(parse_length_mm("700nm").unwrap(), 0.0007);
     }
 
     #[test]

@@ -245,12 +245,15 @@ pub fn detect(path: &Path) -> Result<Format, IoError> {
         .file_name()
         .map(|n| n.to_string_lossy().to_lowercase())
         .unwrap_or_default();
-    if magic[..2] == [0x1f, 0x8b]
-        || name.ends_with(".nii")
+    #[allow(
+        clippy::case_sensitive_file_extension_comparisons,
+        reason = "`name` is already lowercased"
+    )]
+    let nifti_name = name.ends_with(".nii")
         || name.ends_with(".hdr")
         || name.ends_with(".img")
-        || name.ends_with(".nii.gz")
-    {
+        || name.ends_with(".nii.gz");
+    if magic[..2] == [0x1f, 0x8b] || nifti_name {
         return Ok(Format::Nifti);
     }
     // a NIfTI header starts with sizeof_hdr = 348 (NIfTI-1) or 540 (NIfTI-2), either byte order

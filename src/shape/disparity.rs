@@ -81,7 +81,7 @@ impl Prepared {
     /// `Σ ‖xᵢ − x̄‖²` over the multiset `idx`, as `Σ ‖xᵢ‖² − n ‖x̄‖²` (rows are pre-centred on
     /// the grand mean, which keeps the cancellation small).
     fn sum_sq(&self, idx: &[usize], buf: &mut [f64]) -> f64 {
-        buf.iter_mut().for_each(|v| *v = 0.0);
+        buf.fill(0.0);
         let p = self.x.nrows();
         let data = self.x.as_slice();
         let mut s2 = 0.0;
@@ -272,23 +272,20 @@ pub fn bootstrap(
 ) -> Result<Interval, ShapeError> {
     check_indices(rows, indices, 2, "bootstrap of disparity")?;
     check_level(level, resamples)?;
-    let pr = Prepared::new(rows)?;
-    let p = rows.ncols();
-    let estimate = pr.disparity(indices, divisor, &mut vec![0.0; p]);
-    let values: Vec<f64> = (0..resamples)
-        .into_par_iter()
-        .map_init(
-            || (vec![0.0; p], vec![0; indices.len()]),
-            |(buf, pick), r| {
-                let mut rng = rng_for(seed, r);
-                for v in pick.iter_mut() {
-                    *v = indices[rng.random_range(0..indices.len())];
-                }
-                pr.disparity(pick, divisor, buf)
-            },
-        )
-        .collect();
-    Ok(interval(estimate, values, level))
+    resampled_interval(
+        rows,
+        indices,
+        indices.len(),
+        divisor,
+        resamples,
+        level,
+        seed,
+        |rng, pick| {
+            for v in pick.iter_mut() {
+                *v = indices[rng.random_range(0..indices.len())];
+            }
+        },
+    )
 }
 
 /// Rarefied disparity: Procrustes variance of `subsamples` random subsets of `size` rows drawn
@@ -310,21 +307,50 @@ pub fn rarefy(
             indices.len()
         )));
     }
+    resampled_interval(
+        rows,
+        indices,
+        size,
+        divisor,
+        subsamples,
+        level,
+        seed,
+        |rng, pick| {
+            let drawn = index::sample(rng, indices.len(), pick.len());
+            for (slot, j) in pick.iter_mut().zip(drawn) {
+                *slot = indices[j];
+            }
+        },
+    )
+}
+
+/// The estimate on `indices` and the percentile interval of the disparity over `count`
+/// resamples of `size` rows, each drawn by `draw` into its index buffer with a generator seeded
+/// from `seed` and the resample number (so results do not depend on the thread count).
+#[allow(
+    clippy::too_many_arguments,
+    reason = "the shared core of bootstrap and rarefy"
+)]
+fn resampled_interval(
+    rows: &DMatrix<f64>,
+    indices: &[usize],
+    size: usize,
+    divisor: Divisor,
+    count: usize,
+    level: f64,
+    seed: u64,
+    draw: impl Fn(&mut ChaCha8Rng, &mut [usize]) + Sync,
+) -> Result<Interval, ShapeError> {
     let pr = Prepared::new(rows)?;
     let p = rows.ncols();
     let estimate = pr.disparity(indices, divisor, &mut vec![0.0; p]);
-    let values: Vec<f64> = (0..subsamples)
+    let values: Vec<f64> = (0..count)
         .into_par_iter()
         .map_init(
             || (vec![0.0; p], vec![0; size]),
             |(buf, pick), r| {
                 let mut rng = rng_for(seed, r);
-                for (slot, j) in pick
-                    .iter_mut()
-                    .zip(index::sample(&mut rng, indices.len(), size))
-                {
-                    *slot = indices[j];
-                }
+                draw(&mut rng, pick);
                 pr.disparity(pick, divisor, buf)
             },
         )
@@ -428,6 +454,10 @@ pub fn partial_disparity<L: Ord + Clone>(
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "these tests check values that are exact by construction"
+)]
 mod tests {
     use super::*;
 

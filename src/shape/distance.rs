@@ -147,6 +147,10 @@ pub fn distance_matrix(sample: &Sample, kind: Distance) -> Result<DMatrix<f64>, 
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "these tests check values that are exact by construction"
+)]
 mod tests {
     use super::*;
     use std::f64::consts::PI;

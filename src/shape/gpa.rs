@@ -326,6 +326,10 @@ pub fn opa(
 /// Needs at least 2 specimens and 2 landmarks; fails on a specimen whose landmarks all coincide
 /// (when scaling) and on invalid options. Not converging within `max_iterations` is not an error:
 /// the result reports `converged = false`.
+#[allow(
+    clippy::too_many_lines,
+    reason = "the iteration reads best as one loop"
+)]
 pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
     let (n, k, m) = (sample.n(), sample.k(), sample.m());
     if n < 2 {
@@ -362,7 +366,9 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
             centre_in_place(c, m);
             let cs = sum_sq(c).sqrt();
             if opts.scale && cs > 0.0 {
-                c.iter_mut().for_each(|v| *v /= cs);
+                for v in c.iter_mut() {
+                    *v /= cs;
+                }
             }
             cs
         })
@@ -407,7 +413,9 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
             if size == 0.0 {
                 return Err(ShapeError::ZeroSize(0));
             }
-            new_mean.iter_mut().for_each(|v| *v /= size);
+            for v in &mut new_mean {
+                *v /= size;
+            }
         }
         change = new_mean
             .iter()

@@ -242,6 +242,10 @@ pub fn centroid_size(config: &DMatrix<f64>) -> f64 {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "these tests check values that are exact by construction"
+)]
 mod tests {
     use super::*;
 

@@ -44,7 +44,9 @@ pub fn project(
         if s == 0.0 {
             return Err(ShapeError::ZeroSize(0));
         }
-        mu.iter_mut().for_each(|v| *v /= s);
+        for v in &mut mu {
+            *v /= s;
+        }
     }
     let km = k * m;
     let mut out = DMatrix::zeros(n, km);
@@ -88,7 +90,9 @@ pub fn from_tangent(
         if s == 0.0 {
             return Err(ShapeError::ZeroSize(0));
         }
-        mu.iter_mut().for_each(|x| *x /= s);
+        for x in &mut mu {
+            *x /= s;
+        }
         let vv = v.norm_squared();
         if vv >= 1.0 {
             return Err(ShapeError::InvalidOption(format!(

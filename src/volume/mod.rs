@@ -165,10 +165,15 @@ impl Rescale {
     /// `None` for the identity, or when the slope is 0 or not finite (`NIfTI`'s "no scaling").
     #[must_use]
     pub fn new(slope: f64, intercept: f64) -> Option<Self> {
-        if slope == 0.0 || !slope.is_finite() || !intercept.is_finite() {
-            return None;
-        }
-        if slope == 1.0 && intercept == 0.0 {
+        #[allow(
+            clippy::float_cmp,
+            reason = "NIfTI's sentinels: slope exactly 0 means no scaling, exactly 1 and 0 is the identity"
+        )]
+        let none = slope == 0.0
+            || !slope.is_finite()
+            || !intercept.is_finite()
+            || (slope == 1.0 && intercept == 0.0);
+        if none {
             return None;
         }
         Some(Self { slope, intercept })
@@ -190,6 +195,20 @@ pub enum VolumeError {
     BadDims([usize; 3]),
 }
 
+/// Where a volume's voxel size came from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum SpacingOrigin {
+    /// The file records it in full (a `NIfTI` header, our TIFF description), or the volume was
+    /// made in code.
+    #[default]
+    File,
+    /// The caller gave it (the command line, a project's record).
+    Caller,
+    /// Not recorded in full: guessed from partial information (TIFF resolution tags hold no
+    /// slice spacing) or assumed (1 mm). A measurement needs the real size from the user.
+    Guessed,
+}
+
 /// A scan in memory.
 #[derive(Debug)]
 pub struct Volume {
@@ -201,6 +220,8 @@ pub struct Volume {
     /// Things the loader did that the user should know (a type converted, a header field
     /// ignored, an assumed voxel size).
     pub notes: Vec<String>,
+    /// Where the voxel size came from.
+    pub spacing_origin: SpacingOrigin,
 }
 
 impl Volume {
@@ -224,6 +245,7 @@ impl Volume {
             voxels,
             rescale,
             notes: Vec::new(),
+            spacing_origin: SpacingOrigin::File,
         })
     }
 

@@ -26,6 +26,10 @@ pub enum ResizeError {
 
 impl Volume {
     /// The voxels in `ranges` (half-open voxel index ranges for i, j, k).
+    #[allow(
+        clippy::needless_pass_by_value,
+        reason = "callers write the ranges inline (`crop([1..4, 2..5, 1..3])`); a reference would only add `&`"
+    )]
     pub fn crop(&self, ranges: [Range<usize>; 3]) -> Result<Self, ResizeError> {
         let d = self.dims();
         for (a, r) in ranges.iter().enumerate() {

@@ -189,6 +189,10 @@ pub struct Histogram {
 }
 
 impl Histogram {
+    #[allow(
+        clippy::needless_pass_by_value,
+        reason = "the signature rayon's `reduce` takes"
+    )]
     fn merge(mut self, o: Self) -> Self {
         for (a, b) in self.counts.iter_mut().zip(&o.counts) {
             *a += b;
@@ -291,6 +295,10 @@ fn partial_of_par(data: &[f32]) -> Partial {
 /// the values of that bin.
 fn float_kth(data: &[f32], min: f64, max: f64, k: u64) -> f64 {
     const BINS: usize = 4096;
+    #[allow(
+        clippy::float_cmp,
+        reason = "all values equal: one bin, nothing to select"
+    )]
     if min == max {
         return min;
     }
@@ -336,6 +344,10 @@ fn float_kth(data: &[f32], min: f64, max: f64, k: u64) -> f64 {
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "min, max and sums of small integers are exact in f64"
+)]
 mod tests {
     use crate::geometry::Affine3;
     use crate::volume::{Rescale, Volume};
@@ -380,8 +392,8 @@ mod tests {
         let mut state = 12345u64;
         let mut next = || {
             state = state
-                .wrapping_mul(6364136223846793005)
-                .wrapping_add(1442695040888963407);
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
             (state >> 33) as u32
         };
         let ints: Vec<u16> = (0..5000).map(|_| (next() % 3000) as u16).collect();

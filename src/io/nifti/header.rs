@@ -366,9 +366,9 @@ impl Header {
 /// The 3x3 linear part of the qform: rotation from the quaternion `(b, c, d)` times the voxel
 /// spacing, with the third column negated when `qfac < 0`.
 ///
-/// reference: nifti1.h "METHOD 2" and nifti1_io.c `nifti_quatern_to_mat44`: `a = sqrt(1 - b²
-/// - c² - d²)`; when `1 - (b²+c²+d²) < 1e-7`, `a = 0` and `(b, c, d)` is renormalised to unit
-/// length (a 180° rotation); a spacing that is not positive is taken as 1.
+/// reference: `nifti1.h` "METHOD 2" and `nifti1_io.c` `nifti_quatern_to_mat44`:
+/// `a = sqrt(1 - b² - c² - d²)`; when `1 - (b²+c²+d²) < 1e-7`, `a = 0` and `(b, c, d)` is
+/// renormalised to unit length (a 180° rotation); a spacing that is not positive is taken as 1.
 #[must_use]
 pub fn quatern_to_linear(bcd: [f64; 3], spacing: [f64; 3], qfac: f64) -> Matrix3<f64> {
     let [mut b, mut c, mut d] = bcd;

@@ -18,8 +18,10 @@
 //!   decode [`Limits`](super::Limits)) before anything is allocated; a file shorter than its
 //!   header says is refused as truncated.
 //! - **Speed.** Uncompressed voxels are read straight into the voxel buffer with parallel
-//!   positioned reads and byte-swapped in parallel; gzip is inflated with a large buffer
-//!   straight into the voxel bytes. Progress is reported in bytes of voxel data.
+//!   positioned reads and byte-swapped in parallel; gzip is inflated with a large input buffer
+//!   straight into the voxel bytes, while a second thread faults in the pages ahead of the
+//!   inflater (a fresh page costs about as much to map as to inflate into). Progress is
+//!   reported in bytes of voxel data.
 //!
 //! The writer ([`write`]) produces NIfTI-1 `.nii` / `.nii.gz`; see its docs for precision.
 

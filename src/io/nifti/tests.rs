@@ -1,3 +1,8 @@
+#![allow(
+    clippy::float_cmp,
+    reason = "round trips and exact decimal parsing must reproduce values bit for bit"
+)]
+
 use super::header::{Header, linear_to_quatern, quatern_to_linear};
 use super::*;
 use crate::geometry::Affine3;
@@ -264,4 +269,36 @@ fn mutated_and_truncated_headers_never_panic() {
         std::fs::write(&gz, &b).unwrap();
         let _ = open(&gz, &opts(), &Progress::none());
     }
+}
+
+#[test]
+fn gzip_over_many_chunks_reads_cancels_and_refuses_truncation() {
+    // 24 MiB of voxels: several chunks of the inflater / page-toucher pipeline
+    let dims = [1024, 1024, 12];
+    let data: Vec<u16> = (0..dims[0] * dims[1] * dims[2])
+        .map(|i| (i % 65_521) as u16)
+        .collect();
+    let v = Volume::from_vec(dims, Affine3::from_spacing([0.1; 3]), data).unwrap();
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("big.nii.gz");
+    write(&v, &p).unwrap();
+    let opts = OpenOptions::default();
+    let back = open(&p, &opts, &Progress::none()).unwrap();
+    assert_eq!(
+        back.voxels().raw_f64(12_345_678),
+        v.voxels().raw_f64(12_345_678)
+    );
+    assert_eq!(
+        back.voxels().raw_f64(v.len() - 1),
+        v.voxels().raw_f64(v.len() - 1)
+    );
+    // cancel after the first chunk
+    let stop = |done: u64, _: u64| done < (8 << 20);
+    let e = open(&p, &opts, &Progress::new(Some(&stop))).unwrap_err();
+    assert!(matches!(e, IoError::Cancelled { .. }), "{e}");
+    // cut in the middle of the compressed stream
+    let z = std::fs::read(&p).unwrap();
+    std::fs::write(&p, &z[..z.len() / 2]).unwrap();
+    let e = open(&p, &opts, &Progress::none()).unwrap_err();
+    assert!(matches!(e, IoError::Corrupt { .. }), "{e}");
 }

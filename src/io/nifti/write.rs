@@ -79,6 +79,10 @@ pub fn header_for(volume: &Volume) -> Header {
 
 /// Writes `volume` as a single-file `NIfTI` (`.nii`, or gzip-compressed when the name ends in
 /// `.gz`). See the module docs for the header it writes and its precision.
+#[allow(
+    clippy::case_sensitive_file_extension_comparisons,
+    reason = "`name` is lowercased first"
+)]
 pub fn write(volume: &Volume, path: &Path) -> Result<(), IoError> {
     let name = path
         .file_name()

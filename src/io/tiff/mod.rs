@@ -3,20 +3,23 @@
 //!
 //! Reading goes in two steps. [`page`] reads each page's directory (through the `tiff` crate's
 //! tag API) into a [`page::PageInfo`]: its size and sample type, checked against what Sutura
-//! stores (one sample per pixel of `u8`, `u16`, `i16` or `f32`), and for uncompressed strips the
-//! byte ranges of the pixel data. Then every page is decoded in parallel straight into its own
-//! disjoint part of one [`VoxelBuffer`](crate::volume::VoxelBuffer): uncompressed strips are
-//! read with positioned reads into the destination and byte-swapped in place; everything else
-//! (LZW, Deflate, `PackBits`, predictors, tiles) goes through the crate's decoder, which writes
+//! stores (one sample per pixel of `u8`, `u16`, `i16` or `f32`), and, for every layout
+//! [`chunks`] covers (uncompressed, LZW or Deflate strips and tiles, with or without a
+//! predictor), the byte ranges of its chunks. Then every page is decoded in parallel straight
+//! into its own disjoint part of one [`VoxelBuffer`](crate::volume::VoxelBuffer): by [`chunks`]
+//! (positioned reads, inflate or LZW into the destination, byte order and predictor undone in
+//! place), or, for the rest (`PackBits`, white-is-zero), by the crate's decoder, which writes
 //! native-endian samples into the same destination.
 //!
 //! Every page must match the first in width, height and sample type. Voxel size: the caller's,
-//! else the resolution tags if present and plausible (slice spacing taken equal to the pixel
-//! width, with a note), else 1 mm with a note.
+//! else the full 3D size that Sutura's writers record as JSON in the first page's
+//! `ImageDescription` (`{"voxel_size_mm":[x,y,z]}`), else the resolution tags if present and
+//! plausible (slice spacing taken equal to the pixel width, with a note), else 1 mm with a note.
 //!
-//! Submodules: [`page`] (one page: probe and decode), [`folder`] (listing and natural order),
-//! [`write`] (writers).
+//! Submodules: [`page`] (one page: probe and decode), [`chunks`] (our own strip and tile
+//! decoder), [`folder`] (listing and natural order), [`write`] (writers).
 
+mod chunks;
 mod folder;
 mod page;
 mod write;
@@ -26,7 +29,8 @@ pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 
 use super::{IoError, OpenOptions, Progress};
 use crate::geometry::Affine3;
-use crate::volume::{DType, Volume, VoxelBuffer, Voxels};
+use crate::volume::{DType, SpacingOrigin, Volume, VoxelBuffer, Voxels};
+use chunks::Scratch;
 use page::Resolution;
 use rayon::prelude::*;
 use std::fs::File;
@@ -45,6 +49,7 @@ pub fn open_folder(
     let first_path = &files[0];
     let mut first_dec = page::open_decoder(first_path)?;
     let first = page::probe(&mut first_dec, first_path)?;
+    let described = page::described_voxel_size(&mut first_dec, first_path)?;
     drop(first_dec);
     let dims = [
         u64::from(first.shape.width),
@@ -59,7 +64,7 @@ pub fn open_folder(
     bytes_mut(&mut voxels)
         .par_chunks_mut(slice_bytes)
         .zip(files.par_iter())
-        .try_for_each(|(dst, file)| {
+        .try_for_each_init(Scratch::default, |scratch, (dst, file)| {
             if progress.is_cancelled() {
                 return Err(IoError::Cancelled {
                     path: path.to_owned(),
@@ -78,7 +83,7 @@ pub fn open_folder(
                     ),
                 ));
             }
-            page::decode(&mut dec, &info, file, dst)?;
+            page::decode(&mut dec, &info, file, dst, scratch)?;
             let n = done.fetch_add(1, Ordering::Relaxed) + 1;
             if progress.report(n, total) {
                 Ok(())
@@ -88,7 +93,7 @@ pub fn open_folder(
                 })
             }
         })?;
-    finish(path, options, dims, voxels, first.resolution)
+    finish(path, options, dims, voxels, described, first.resolution)
 }
 
 /// Opens a single- or multi-page (Big)TIFF file; each page is a z slice.
@@ -101,6 +106,7 @@ pub fn open_file(
     // uncompressed pages. The crate refuses cyclic chains; the count is capped by the limits.
     let mut dec = page::open_decoder(path)?;
     let first = page::probe(&mut dec, path)?;
+    let described = page::described_voxel_size(&mut dec, path)?;
     let mut infos = vec![first];
     while dec.more_images() {
         if infos.len() as u64 >= options.limits.max_axis {
@@ -145,34 +151,35 @@ pub fn open_file(
         }
     };
     let dst_all = bytes_mut(&mut voxels);
-    if infos.iter().all(|i| i.raw_strips.is_some()) {
-        // Uncompressed: positioned reads from one shared handle, pages in parallel.
-        let big_endian = matches!(dec.byte_order(), tiff::tags::ByteOrder::BigEndian);
+    if infos.iter().all(|i| i.chunks.is_some()) {
+        // Every page decoded by us: positioned reads from one shared handle, pages in parallel.
         let file = dec.inner().get_ref();
         dst_all
             .par_chunks_mut(page_bytes)
             .zip(infos.par_iter())
             .enumerate()
-            .try_for_each(|(index, (dst, info))| {
+            .try_for_each_init(Scratch::default, |scratch, (index, (dst, info))| {
                 if progress.is_cancelled() {
                     return Err(IoError::Cancelled {
                         path: path.to_owned(),
                     });
                 }
-                page::read_raw(file, info, shape.dtype, big_endian, path, dst)
-                    .map_err(|e| page::with_page(e, path, index))?;
+                if let Some(plan) = &info.chunks {
+                    chunks::decode_page(file, plan, shape, path, dst, scratch)
+                        .map_err(|e| page::with_page(e, path, index))?;
+                }
                 report()
             })?;
     } else {
         drop(dec);
-        // Compressed: runs of consecutive pages, each run with its own handle and decoder that
-        // walks the chain once to its first page and then page by page.
+        // Some pages need the crate's decoder: runs of consecutive pages, each run with its own
+        // handle and decoder that walks the chain once to its first page and then page by page.
         let runs = (rayon::current_num_threads() * 4).clamp(1, infos.len());
         let per_run = infos.len().div_ceil(runs);
         dst_all
             .par_chunks_mut(page_bytes * per_run)
             .enumerate()
-            .try_for_each(|(run, dst_run)| {
+            .try_for_each_init(Scratch::default, |scratch, (run, dst_run)| {
                 let start = run * per_run;
                 let mut dec = page::open_decoder(path)?;
                 page::catch(path, || dec.seek_to_image(start))
@@ -188,7 +195,7 @@ pub fn open_file(
                         page::catch(path, || dec.next_image())
                             .map_err(|e| page::with_page(e, path, index))?;
                     }
-                    page::decode(&mut dec, &infos[index], path, dst)
+                    page::decode(&mut dec, &infos[index], path, dst, scratch)
                         .map_err(|e| page::with_page(e, path, index))?;
                     report()?;
                 }
@@ -196,7 +203,7 @@ pub fn open_file(
             })?;
     }
     let resolution = infos[0].resolution;
-    finish(path, options, dims, voxels, resolution)
+    finish(path, options, dims, voxels, described, resolution)
 }
 
 fn file_name(p: &Path) -> String {
@@ -237,14 +244,29 @@ fn finish(
     options: &OpenOptions,
     dims: [u64; 3],
     voxels: Voxels,
+    described: Result<Option<[f64; 3]>, String>,
     resolution: Option<Resolution>,
 ) -> Result<Volume, IoError> {
-    let (spacing, note) = voxel_size(path, options.voxel_size_mm, resolution)?;
+    // the caller's size, else the description's, else the resolution tags (`voxel_size`)
+    let (spacing, mut notes, origin) = match (options.voxel_size_mm, described) {
+        (None, Ok(Some(s))) => (s, Vec::new(), SpacingOrigin::File),
+        (given, described) => {
+            let (s, note) = voxel_size(path, given, resolution)?;
+            let why = described.err().filter(|_| given.is_none());
+            let origin = if given.is_some() {
+                SpacingOrigin::Caller
+            } else {
+                SpacingOrigin::Guessed
+            };
+            (s, why.into_iter().chain(note).collect(), origin)
+        }
+    };
     // dims passed the limits check, so they fit in usize
     let dims = dims.map(|d| usize::try_from(d).unwrap_or(usize::MAX));
     let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
         .map_err(|e| IoError::volume(path, &e))?;
-    vol.notes.extend(note);
+    vol.notes.append(&mut notes);
+    vol.spacing_origin = origin;
     Ok(vol)
 }
 

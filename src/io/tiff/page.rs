@@ -6,14 +6,14 @@
 //! program down (a guard, not a known bug: no panic is known in tiff 0.11).
 
 use super::FileDecoder;
+use super::chunks::{self, ChunkPlan, Scratch};
 use crate::io::IoError;
 use crate::volume::DType;
 use std::fs::File;
 use std::io::BufReader;
-use std::os::unix::fs::FileExt;
 use std::panic::{AssertUnwindSafe, catch_unwind};
 use std::path::Path;
-use tiff::decoder::{ChunkType, Decoder};
+use tiff::decoder::Decoder;
 use tiff::tags::Tag;
 use tiff::{TiffError, TiffResult};
 
@@ -51,13 +51,47 @@ pub(super) struct Resolution {
 #[derive(Clone, Debug)]
 pub(super) struct PageInfo {
     pub shape: Shape,
-    /// For uncompressed strips without predictor: `(file offset, byte count)` of each strip,
-    /// in order, covering the page exactly. `None`: use the generic decoder.
-    pub raw_strips: Option<Vec<(u64, usize)>>,
-    /// `FillOrder` 2 (TIFF 6.0 tag 266): bits of each byte stored lowest first; undone on read
-    /// of uncompressed strips, refused otherwise.
-    pub reverse_bits: bool,
+    /// How Sutura decodes the page itself; `None`: through the crate's decoder.
+    pub chunks: Option<ChunkPlan>,
     pub resolution: Option<Resolution>,
+}
+
+/// The key of the JSON object in `ImageDescription` (TIFF 6.0 tag 270) that holds the full 3D
+/// voxel size, `{"voxel_size_mm":[x,y,z]}`, written by Sutura's TIFF writers.
+pub(super) const DESCRIPTION_KEY: &str = "voxel_size_mm";
+
+/// The voxel size in the current page's `ImageDescription`, if it is a JSON object with a
+/// [`DESCRIPTION_KEY`] of three positive finite numbers. Any other description (plain text,
+/// other programs' JSON) is no voxel size: `Ok(None)`; one with the key but unusable values
+/// is `Err` with what is wrong, for a note.
+pub(super) fn described_voxel_size(
+    dec: &mut FileDecoder,
+    path: &Path,
+) -> Result<Result<Option<[f64; 3]>, String>, IoError> {
+    let Some(tiff::decoder::ifd::Value::Ascii(text)) =
+        catch(path, || dec.find_tag(Tag::ImageDescription))?
+    else {
+        return Ok(Ok(None));
+    };
+    let Ok(serde_json::Value::Object(map)) = serde_json::from_str(text.trim_end_matches('\0'))
+    else {
+        return Ok(Ok(None));
+    };
+    let Some(value) = map.get(DESCRIPTION_KEY) else {
+        return Ok(Ok(None));
+    };
+    let sizes: Option<Vec<f64>> = value
+        .as_array()
+        .map(|a| a.iter().map(serde_json::Value::as_f64).collect())
+        .and_then(|v: Option<Vec<f64>>| v);
+    match sizes.as_deref() {
+        Some(&[x, y, z]) if [x, y, z].iter().all(|v| v.is_finite() && *v > 0.0) => {
+            Ok(Ok(Some([x, y, z])))
+        }
+        _ => Ok(Err(format!(
+            "the image description's {DESCRIPTION_KEY} {value} is not three positive sizes; ignored"
+        ))),
+    }
 }
 
 /// Runs a call into the `tiff` crate, mapping its errors and any panic.
@@ -116,7 +150,12 @@ pub(super) fn open_decoder(path: &Path) -> Result<FileDecoder, IoError> {
     })
 }
 
-fn first_u16(dec: &mut FileDecoder, path: &Path, tag: Tag, default: u16) -> Result<u16, IoError> {
+pub(super) fn first_u16(
+    dec: &mut FileDecoder,
+    path: &Path,
+    tag: Tag,
+    default: u16,
+) -> Result<u16, IoError> {
     let v: Option<Vec<u16>> = catch(path, || dec.find_tag_unsigned_vec(tag))?;
     Ok(v.and_then(|v| v.first().copied()).unwrap_or(default))
 }
@@ -221,17 +260,11 @@ pub(super) fn probe(dec: &mut FileDecoder, path: &Path) -> Result<PageInfo, IoEr
         height,
         dtype,
     };
-    let raw_strips =
-        if compression == 1 && predictor == 1 && dec.get_chunk_type() == ChunkType::Strip {
-            raw_strips(dec, path, shape)?
-        } else {
-            None
-        };
-    let reverse_bits = first_u16(dec, path, Tag::FillOrder, 1)? == 2;
-    if reverse_bits && raw_strips.is_none() {
+    let chunks = chunks::plan(dec, path, shape, compression, predictor, photometric)?;
+    if chunks.is_none() && first_u16(dec, path, Tag::FillOrder, 1)? == 2 {
         return Err(IoError::unsupported(
             path,
-            "fill order 2 (bit-reversed bytes) with compression, a predictor or tiles",
+            "fill order 2 (bit-reversed bytes) with PackBits or white-is-zero",
         ));
     }
     let resolution = {
@@ -246,102 +279,9 @@ pub(super) fn probe(dec: &mut FileDecoder, path: &Path) -> Result<PageInfo, IoEr
     };
     Ok(PageInfo {
         shape,
-        raw_strips,
-        reverse_bits,
+        chunks,
         resolution,
     })
-}
-
-/// Byte ranges of uncompressed strips, or `None` when they do not tile the page simply (left to
-/// the generic decoder, which reports what is wrong).
-fn raw_strips(
-    dec: &mut FileDecoder,
-    path: &Path,
-    shape: Shape,
-) -> Result<Option<Vec<(u64, usize)>>, IoError> {
-    let offsets: Option<Vec<u64>> = catch(path, || dec.find_tag_unsigned_vec(Tag::StripOffsets))?;
-    let counts: Option<Vec<u64>> = catch(path, || dec.find_tag_unsigned_vec(Tag::StripByteCounts))?;
-    let (Some(offsets), Some(counts)) = (offsets, counts) else {
-        return Ok(None);
-    };
-    let rows_per_strip: u32 = catch(path, || dec.find_tag_unsigned(Tag::RowsPerStrip))?
-        .unwrap_or(shape.height)
-        .clamp(1, shape.height);
-    let row_bytes = shape.width as usize * shape.dtype.size_bytes();
-    let n_strips = shape.height.div_ceil(rows_per_strip) as usize;
-    if offsets.len() < n_strips || counts.len() < n_strips {
-        return Ok(None);
-    }
-    let mut strips = Vec::with_capacity(n_strips);
-    for s in 0..n_strips {
-        let first_row = s as u32 * rows_per_strip;
-        let rows = rows_per_strip.min(shape.height - first_row) as usize;
-        // the header may claim anything: overflow means "not a simple page", and the caller's
-        // limits check refuses the size before anything is decoded
-        let Some(len) = rows.checked_mul(row_bytes) else {
-            return Ok(None);
-        };
-        if counts[s] < len as u64 {
-            return Ok(None);
-        }
-        strips.push((offsets[s], len));
-    }
-    Ok(Some(strips))
-}
-
-/// Reads uncompressed strips straight into `dst` and converts them to native byte order.
-pub(super) fn read_raw(
-    file: &File,
-    info: &PageInfo,
-    dtype: DType,
-    big_endian: bool,
-    path: &Path,
-    dst: &mut [u8],
-) -> Result<(), IoError> {
-    let strips = info.raw_strips.as_deref().unwrap_or_default();
-    let mut pos = 0;
-    for (s, &(offset, len)) in strips.iter().enumerate() {
-        let end = pos + len;
-        let Some(part) = dst.get_mut(pos..end) else {
-            return Err(IoError::corrupt(
-                path,
-                "strips hold more data than the page",
-            ));
-        };
-        file.read_exact_at(part, offset).map_err(|e| {
-            if e.kind() == std::io::ErrorKind::UnexpectedEof {
-                IoError::corrupt(
-                    path,
-                    format!("truncated: strip {s} ({len} bytes at offset {offset}) runs past the end of the file"),
-                )
-            } else {
-                IoError::os(path, e)
-            }
-        })?;
-        pos = end;
-    }
-    if pos != dst.len() {
-        return Err(IoError::corrupt(path, "strips do not cover the page"));
-    }
-    if info.reverse_bits {
-        for b in dst.iter_mut() {
-            *b = b.reverse_bits();
-        }
-    }
-    to_native(dst, dtype, big_endian);
-    Ok(())
-}
-
-/// Converts samples from the file's byte order to the machine's, in place.
-fn to_native(dst: &mut [u8], dtype: DType, big_endian: bool) {
-    if big_endian == cfg!(target_endian = "big") {
-        return;
-    }
-    match dtype.size_bytes() {
-        2 => dst.chunks_exact_mut(2).for_each(|c| c.swap(0, 1)),
-        4 => dst.chunks_exact_mut(4).for_each(<[u8]>::reverse),
-        _ => {}
-    }
 }
 
 /// Decodes the decoder's current page (described by `info`) into `dst`, native byte order.
@@ -350,11 +290,11 @@ pub(super) fn decode(
     info: &PageInfo,
     path: &Path,
     dst: &mut [u8],
+    scratch: &mut Scratch,
 ) -> Result<(), IoError> {
-    if info.raw_strips.is_some() {
-        let big_endian = matches!(dec.byte_order(), tiff::tags::ByteOrder::BigEndian);
+    if let Some(plan) = &info.chunks {
         let file = dec.inner().get_ref();
-        return read_raw(file, info, info.shape.dtype, big_endian, path, dst);
+        return chunks::decode_page(file, plan, info.shape, path, dst, scratch);
     }
     catch(path, || dec.read_image_bytes(dst))
 }

@@ -1,6 +1,12 @@
+#![allow(
+    clippy::float_cmp,
+    reason = "round trips and exact decimal parsing must reproduce values bit for bit"
+)]
+
 use super::*;
 use crate::io::Limits;
 use crate::volume::Rescale;
+use std::path::Path;
 
 fn volume_u16(dims: [usize; 3], spacing: [f64; 3]) -> Volume {
     let n = dims[0] * dims[1] * dims[2];
@@ -18,7 +24,8 @@ fn same_voxels(a: &Volume, b: &Volume) -> bool {
 fn stack_round_trips_all_types_and_voxel_size() {
     let dims = [13, 7, 5];
     let n = 13 * 7 * 5;
-    let spacing = [0.0125, 0.0125, 0.0125];
+    // anisotropic, and not exact in binary: the description must carry all three exactly
+    let spacing = [0.0125, 0.036, 0.05];
     let a = Affine3::from_spacing(spacing);
     let vols = [
         volume_u16(dims, spacing),
@@ -40,13 +47,13 @@ fn stack_round_trips_all_types_and_voxel_size() {
             assert!(notes.is_empty());
             let back = open_folder(dir.path(), &OpenOptions::default(), &Progress::none()).unwrap();
             assert!(same_voxels(v, &back), "{} deflate={deflate}", v.dtype());
-            for (s, t) in back.spacing_mm().iter().zip(spacing) {
-                assert!((s - t).abs() < 1e-9, "{s} vs {t}");
-            }
+            assert_eq!(back.spacing_mm(), spacing);
+            assert!(back.notes.is_empty(), "{:?}", back.notes);
             let file = dir.path().join("m.tiff");
             write_multipage(v, &file, WriteOptions { deflate }).unwrap();
             let back = open_file(&file, &OpenOptions::default(), &Progress::none()).unwrap();
             assert!(same_voxels(v, &back));
+            assert_eq!(back.spacing_mm(), spacing);
         }
     }
 }
@@ -81,23 +88,62 @@ fn mismatched_slice_names_both_files() {
     );
 }
 
+/// A one-page u16 TIFF written with the tiff crate directly: optional resolution (pixels per
+/// centimetre) and description, as another program would write them.
+fn foreign_tiff(path: &Path, px_per_cm: Option<u32>, description: Option<&str>) {
+    use tiff::encoder::{Rational, TiffEncoder, colortype::Gray16};
+    let mut enc = TiffEncoder::new(File::create(path).unwrap()).unwrap();
+    let mut image = enc.new_image::<Gray16>(4, 3).unwrap();
+    if let Some(d) = description {
+        image
+            .encoder()
+            .write_tag(tiff::tags::Tag::ImageDescription, d)
+            .unwrap();
+    }
+    if let Some(r) = px_per_cm {
+        image.resolution_unit(tiff::tags::ResolutionUnit::Centimeter);
+        image.x_resolution(Rational { n: r, d: 1 });
+        image.y_resolution(Rational { n: r, d: 1 });
+    }
+    image.write_data(&[7u16; 12]).unwrap();
+}
+
 #[test]
-fn unknown_voxel_size_is_noted_and_given_one_wins() {
-    let v = volume_u16([4, 4, 2], [1.0; 3]);
+fn voxel_size_from_caller_then_description_then_resolution() {
+    let v = volume_u16([4, 4, 2], [0.1, 0.2, 0.3]);
     let dir = tempfile::tempdir().unwrap();
     let f = dir.path().join("x.tif");
     write_multipage(&v, &f, WriteOptions::default()).unwrap();
+    // our own file: the description's full size, no note
+    let back = open_file(&f, &OpenOptions::default(), &Progress::none()).unwrap();
+    assert_eq!(back.spacing_mm(), [0.1, 0.2, 0.3]);
+    assert!(back.notes.is_empty(), "{:?}", back.notes);
+    // the caller's size wins
     let opts = OpenOptions {
-        voxel_size_mm: Some([0.1, 0.2, 0.3]),
+        voxel_size_mm: Some([0.5, 0.6, 0.7]),
         ..OpenOptions::default()
     };
     let back = open_file(&f, &opts, &Progress::none()).unwrap();
-    assert!((back.spacing_mm()[2] - 0.3).abs() < 1e-12);
+    assert_eq!(back.spacing_mm(), [0.5, 0.6, 0.7]);
     assert!(back.notes.is_empty());
-    // 1 mm per pixel is 10 px/cm: plausible, so used with a note about z
-    let back = open_file(&f, &OpenOptions::default(), &Progress::none()).unwrap();
+    // another program's file: 80 px/cm = 0.125 mm in-plane, z taken equal, with a note
+    let g = dir.path().join("foreign.tif");
+    foreign_tiff(&g, Some(80), Some("{\"shape\": [3, 4]}"));
+    let back = open_file(&g, &OpenOptions::default(), &Progress::none()).unwrap();
+    assert_eq!(back.spacing_mm(), [0.125; 3]);
     assert_eq!(back.notes.len(), 1);
-    assert!(back.notes[0].contains("slice spacing"));
+    assert!(back.notes[0].contains("slice spacing"), "{:?}", back.notes);
+    // our key with unusable values: ignored with a note, then the resolution tags
+    foreign_tiff(&g, Some(80), Some("{\"voxel_size_mm\": [0.1, -1, 0.2]}"));
+    let back = open_file(&g, &OpenOptions::default(), &Progress::none()).unwrap();
+    assert_eq!(back.spacing_mm(), [0.125; 3]);
+    assert_eq!(back.notes.len(), 2, "{:?}", back.notes);
+    assert!(back.notes[0].contains("ignored"), "{:?}", back.notes);
+    // nothing at all: 1 mm with a note
+    foreign_tiff(&g, None, Some("plain text"));
+    let back = open_file(&g, &OpenOptions::default(), &Progress::none()).unwrap();
+    assert_eq!(back.spacing_mm(), [1.0; 3]);
+    assert!(back.notes[0].contains("unknown"), "{:?}", back.notes);
 }
 
 #[test]

@@ -1,9 +1,11 @@
 //! Writing volumes as TIFF: a folder of single-page slices, or one multi-page file (`BigTIFF` when
 //! it would pass 4 GiB). Samples keep their stored type (`u8`, `u16`, `i16`, `f32`), so the
-//! voxels read back exactly. The voxel size goes into the resolution tags in pixels per
-//! centimetre (x and y only; TIFF has no slice spacing), so it reads back to about 7 significant
-//! digits. TIFF has no field for an intensity rescale: the stored values are written and a note
-//! saying so is returned.
+//! voxels read back exactly. The voxel size is written twice: in full, as a small JSON object in
+//! every page's `ImageDescription` (`{"voxel_size_mm":[0.036,0.036,0.05]}`, numbers in the
+//! shortest form that reads back to the same f64), which Sutura's reader prefers; and in the
+//! resolution tags in pixels per centimetre for other programs (x and y only, since TIFF has no
+//! slice spacing; about 7 significant digits). TIFF has no field for an intensity rescale: the
+//! stored values are written and a note saying so is returned.
 
 use crate::io::IoError;
 use crate::volume::{Volume, Voxels};
@@ -15,7 +17,7 @@ use std::path::Path;
 use tiff::TiffResult;
 use tiff::encoder::colortype::{ColorType, Gray8, Gray16, Gray32Float, GrayI16};
 use tiff::encoder::{Compression, DeflateLevel, Rational, TiffEncoder, TiffKind, TiffValue};
-use tiff::tags::ResolutionUnit;
+use tiff::tags::{ResolutionUnit, Tag};
 
 /// How to write.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -43,7 +45,12 @@ pub fn write_stack_with(
         .filter_map(Result::ok)
         .any(|e| {
             let n = e.file_name().to_string_lossy().to_lowercase();
-            n.ends_with(".tif") || n.ends_with(".tiff")
+            #[allow(
+                clippy::case_sensitive_file_extension_comparisons,
+                reason = "`n` is already lowercased"
+            )]
+            let tiff = n.ends_with(".tif") || n.ends_with(".tiff");
+            tiff
         });
     if has_tiffs {
         return Err(IoError::usage(
@@ -156,13 +163,27 @@ fn write_pages<W: Write + Seek, K: TiffKind>(
     pages: Range<usize>,
 ) -> TiffResult<()> {
     let s = volume.spacing_mm();
-    let res = per_cm(s[0]).zip(per_cm(s[1]));
+    let tags = PageTags {
+        resolution: per_cm(s[0]).zip(per_cm(s[1])),
+        description: description(s),
+    };
     match volume.voxels() {
-        Voxels::U8(b) => pages_of::<W, K, Gray8>(enc, b.as_slice(), w, h, pages, res),
-        Voxels::U16(b) => pages_of::<W, K, Gray16>(enc, b.as_slice(), w, h, pages, res),
-        Voxels::I16(b) => pages_of::<W, K, GrayI16>(enc, b.as_slice(), w, h, pages, res),
-        Voxels::F32(b) => pages_of::<W, K, Gray32Float>(enc, b.as_slice(), w, h, pages, res),
+        Voxels::U8(b) => pages_of::<W, K, Gray8>(enc, b.as_slice(), w, h, pages, &tags),
+        Voxels::U16(b) => pages_of::<W, K, Gray16>(enc, b.as_slice(), w, h, pages, &tags),
+        Voxels::I16(b) => pages_of::<W, K, GrayI16>(enc, b.as_slice(), w, h, pages, &tags),
+        Voxels::F32(b) => pages_of::<W, K, Gray32Float>(enc, b.as_slice(), w, h, pages, &tags),
     }
+}
+
+/// What every page carries besides its pixels.
+struct PageTags {
+    resolution: Option<(Rational, Rational)>,
+    description: String,
+}
+
+/// The `ImageDescription` JSON with the full voxel size (see the module docs).
+fn description(spacing_mm: [f64; 3]) -> String {
+    serde_json::json!({ super::page::DESCRIPTION_KEY: spacing_mm }).to_string()
 }
 
 fn pages_of<W: Write + Seek, K: TiffKind, C: ColorType>(
@@ -171,7 +192,7 @@ fn pages_of<W: Write + Seek, K: TiffKind, C: ColorType>(
     w: u32,
     h: u32,
     pages: Range<usize>,
-    res: Option<(Rational, Rational)>,
+    tags: &PageTags,
 ) -> TiffResult<()>
 where
     [C::Inner]: TiffValue,
@@ -179,7 +200,10 @@ where
     let n = w as usize * h as usize;
     for k in pages {
         let mut image = enc.new_image::<C>(w, h)?;
-        if let Some((x, y)) = &res {
+        image
+            .encoder()
+            .write_tag(Tag::ImageDescription, tags.description.as_str())?;
+        if let Some((x, y)) = &tags.resolution {
             image.resolution_unit(ResolutionUnit::Centimeter);
             image.x_resolution(Rational { n: x.n, d: x.d });
             image.y_resolution(Rational { n: y.n, d: y.d });

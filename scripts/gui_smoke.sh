@@ -1,0 +1,99 @@
+#!/usr/bin/env bash
+# The workstation's smoke test: starts the real window under Xvfb on the sample scan, takes a
+# screenshot of each view as the app puts it on the stage, clicks into a plane view with
+# xdotool, and fails if the app exits non-zero, never reports the click, or a view's
+# screenshot is blank.
+#
+#   scripts/gui_smoke.sh [OUT_DIR]      (default target/gui-smoke)
+#
+# Needs xvfb-run, ImageMagick (import, convert) and xdotool; .ci/run installs them. Uses the
+# binary the test build made (target/debug/sutura), or SUTURA_BIN.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+OUT=${1:-target/gui-smoke}
+BIN=${SUTURA_BIN:-target/debug/sutura}
+
+if [ -z "${SUTURA_SMOKE_INNER:-}" ]; then
+  for tool in xvfb-run import convert xdotool; do
+    if ! command -v "$tool" >/dev/null 2>&1; then
+      echo "gui_smoke: $tool is missing (apt-get install xvfb imagemagick xdotool)" >&2
+      exit 1
+    fi
+  done
+  if [ ! -x "$BIN" ]; then
+    cargo build --bin sutura
+  fi
+  mkdir -p "$OUT"
+  rm -f "$OUT"/*.png "$OUT"/app.log
+  exec env SUTURA_SMOKE_INNER=1 xvfb-run -a -s "-screen 0 1280x800x24 -nolisten tcp" \
+    bash "$0" "$OUT"
+fi
+
+LOG="$OUT/app.log"
+fail() {
+  echo "gui_smoke: FAILED: $*" >&2
+  echo "--- app output ---" >&2
+  cat "$LOG" >&2 || true
+  kill "$PID" 2>/dev/null || true
+  exit 1
+}
+
+# waits up to $2 seconds for a line matching $1 in the app's output
+wait_for() {
+  local pattern=$1 secs=$2 i
+  for ((i = 0; i < secs * 10; i++)); do
+    if grep -q -- "$pattern" "$LOG"; then return 0; fi
+    if ! kill -0 "$PID" 2>/dev/null; then
+      grep -q -- "$pattern" "$LOG"
+      return
+    fi
+    sleep 0.1
+  done
+  return 1
+}
+
+# unique colours in a region WxH+X+Y of a screenshot (blank is 1 or a handful)
+colours() {
+  convert "$1" -crop "$2" +repage -format '%k' info:
+}
+
+: >"$LOG"
+SUTURA_SMOKE=1 SUTURA_SMOKE_HOLD=${SUTURA_SMOKE_HOLD:-5} \
+  "$BIN" open sample_volumes/HDC-002.nii.gz >"$LOG" 2>&1 &
+PID=$!
+
+for view in k_plane i_plane j_plane oblique 3D; do
+  wait_for "smoke: ready $view " 180 || fail "the $view view never reported a picture"
+  line=$(grep "smoke: ready $view " "$LOG" | head -1)
+  IFS=, read -r x0 y0 x1 y1 <<<"${line##*stage=}"
+  sleep 0.4
+  shot="$OUT/$view.png"
+  import -window root "$shot"
+  region="$((x1 - x0))x$((y1 - y0))+$x0+$y0"
+  n=$(colours "$shot" "$region")
+  echo "gui_smoke: $view: $n colours in the stage ($region)"
+  [ "$n" -gt 64 ] || fail "the $view screenshot is blank ($n colours in $region)"
+  if [ "$view" = k_plane ]; then
+    win=$(xdotool search --name '^Sutura' | head -1)
+    [ -n "$win" ] || fail "no window named Sutura"
+    cx=$((x0 + (x1 - x0) / 3))
+    cy=$((y0 + (y1 - y0) * 2 / 5))
+    # the pointer enters the window first, as a hand would move it, then clicks
+    xdotool mousemove --window "$win" "$cx" "$cy"
+    sleep 0.3
+    xdotool click 1
+    wait_for "smoke: crosshair moved" 10 || fail "the click at $cx,$cy did not reach the app"
+    sleep 0.4
+    import -window root "$OUT/k_plane_clicked.png"
+  fi
+done
+
+set +e
+wait "$PID"
+rc=$?
+set -e
+[ "$rc" -eq 0 ] || fail "the app exited with code $rc"
+grep -q "smoke: done" "$LOG" || fail "the app closed before showing every view"
+n=$(convert "$OUT/k_plane.png" "$OUT/k_plane_clicked.png" -compose difference -composite -format '%[fx:mean>0]' info:)
+[ "$n" = 1 ] || fail "the click changed nothing on screen"
+echo "gui_smoke: ok ($(ls "$OUT"/*.png | wc -l) screenshots in $OUT)"

@@ -1,0 +1,519 @@
+//! One view on screen: shows its latest picture, draws the crosshair and frame, and turns
+//! pointer input into [`Command`]s.
+//!
+//! Pointer (stage view):
+//! - left button: plane views move the crosshair to the pointer (press or drag); the 3D view
+//!   orbits; with Ctrl the oblique view turns its plane;
+//! - middle button, or Shift + left: pan;
+//! - right button: window/level (right/left = wider/narrower, up/down = brighter/darker);
+//! - wheel: plane views step through slices, the 3D view zooms; Ctrl + wheel zooms a plane view
+//!   about the pointer;
+//! - double click: reset the view.
+//!
+//! A small view in the strip takes the wheel (slices) and a click, which puts it on the stage.
+//!
+//! The picture on screen is placed by the geometry it was rendered with, mapped through the
+//! current view: while a new picture is on its way, a pan or zoom already moves the old one.
+
+use eframe::egui::{
+    self, Align2, Color32, CursorIcon, FontId, PointerButton, Pos2, Rect, Sense, Stroke,
+    StrokeKind, TextureHandle, Ui, Vec2,
+};
+use nalgebra::Vector3;
+use std::fmt::Write as _;
+
+use super::camera::{
+    ScreenMap, axis_basis, fit_mm_per_point, half_extents, onto_slice, slice_index,
+};
+use super::state::{Command, Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
+use super::worker::RenderKey;
+use crate::geometry::WorldPoint;
+use crate::render::Camera;
+use crate::volume::Volume;
+
+/// A picture a view shows: its texture, what it was rendered from, and (surface views) the
+/// world point behind each pixel.
+pub struct Shown {
+    pub texture: TextureHandle,
+    pub key: RenderKey,
+    pub generation: u64,
+    pub hits: Option<Vec<Option<WorldPoint>>>,
+}
+
+/// The background behind the pictures.
+pub const VIEW_BACKGROUND: Color32 = Color32::from_rgb(14, 17, 21);
+
+/// Degrees of orbit per point of drag.
+const ORBIT_DEG_PER_POINT: f64 = 0.4;
+/// Degrees of oblique turn per point of drag.
+const TURN_DEG_PER_POINT: f64 = 0.25;
+/// Points of wheel movement that make one slice step (for wheels that report points).
+const POINTS_PER_STEP: f32 = 40.0;
+
+#[must_use]
+pub fn colour32(rgb: [u8; 3]) -> Color32 {
+    Color32::from_rgb(rgb[0], rgb[1], rgb[2])
+}
+
+fn rect4(r: Rect) -> [f64; 4] {
+    [
+        f64::from(r.min.x),
+        f64::from(r.min.y),
+        f64::from(r.max.x),
+        f64::from(r.max.y),
+    ]
+}
+
+fn pos2(p: [f64; 2]) -> Pos2 {
+    Pos2::new(p[0] as f32, p[1] as f32)
+}
+
+fn arr(p: Pos2) -> [f64; 2] {
+    [f64::from(p.x), f64::from(p.y)]
+}
+
+/// The basis `(u, v, n)` of a plane view.
+#[must_use]
+pub fn plane_basis(
+    volume: &Volume,
+    vs: &ViewState,
+    view: ViewId,
+) -> (Vector3<f64>, Vector3<f64>, Vector3<f64>) {
+    match view.axis() {
+        Some(a) => {
+            let (u, v) = axis_basis(volume, a);
+            (u, v, u.cross(&v))
+        }
+        None => vs.oblique.basis(volume),
+    }
+}
+
+/// A point on a plane view's plane: the voxel plane at the crosshair's slice, or the oblique
+/// plane through the crosshair.
+#[must_use]
+pub fn plane_point(volume: &Volume, vs: &ViewState, view: ViewId, near: WorldPoint) -> WorldPoint {
+    if let Some(a) = view.axis() {
+        onto_slice(volume, a, slice_index(volume, a, vs.cursor), near)
+    } else {
+        let (_, _, n) = vs.oblique.basis(volume);
+        WorldPoint(near.0 + n * (vs.cursor.0 - near.0).dot(&n))
+    }
+}
+
+/// This frame's screen map of a plane view occupying `rect`.
+#[must_use]
+pub fn plane_map(volume: &Volume, vs: &ViewState, view: ViewId, rect: Rect) -> ScreenMap {
+    let (u, v, _) = plane_basis(volume, vs, view);
+    let cam = vs.planes[view.index()];
+    let r = rect4(rect);
+    let fit = fit_mm_per_point(half_extents(volume, &u, &v), [r[2] - r[0], r[3] - r[1]]);
+    ScreenMap {
+        rect: r,
+        origin: plane_point(volume, vs, view, cam.centre),
+        u,
+        v,
+        mm_per_point: fit / cam.zoom,
+    }
+}
+
+/// The 3D view's render camera for a view of `pixels` (physical pixels).
+#[must_use]
+pub fn volume_camera(volume: &Volume, vs: &ViewState, pixels: [usize; 2]) -> Option<Camera> {
+    vs.orbit.camera(volume, pixels[0], pixels[1]).ok()
+}
+
+/// Physical pixels covering `rect`.
+#[must_use]
+pub fn pixels_for(rect: Rect, pixels_per_point: f32) -> [usize; 2] {
+    let w = (rect.width() * pixels_per_point).round().max(1.0) as usize;
+    let h = (rect.height() * pixels_per_point).round().max(1.0) as usize;
+    [w, h]
+}
+
+/// Camera right and down vectors (unit, world), as [`crate::render::raycast`] lays out rows
+/// and columns.
+fn camera_axes(cam: &Camera) -> (Vector3<f64>, Vector3<f64>) {
+    let dir = cam.view_dir.normalize();
+    let up = (cam.up - dir * dir.dot(&cam.up)).normalize();
+    (dir.cross(&up), -up)
+}
+
+/// Shows a view in `rect` and collects its commands. `on_stage` is the large working view;
+/// otherwise the view is a small one in the strip.
+#[allow(clippy::too_many_arguments, clippy::too_many_lines)] // reason: the state tiers plus where and what to draw; input handling reads best in one place
+pub fn view_ui(
+    ui: &mut Ui,
+    rect: Rect,
+    view: ViewId,
+    on_stage: bool,
+    scan: &Scan,
+    prefs: &Preferences,
+    vs: &mut ViewState,
+    shown: Option<&Shown>,
+    out: &mut Vec<Command>,
+) {
+    let volume = &scan.volume;
+    let id = ui.scope_id().with(("view", view.index(), on_stage));
+    let response = ui.interact(rect, id, Sense::click_and_drag());
+    let painter = ui.painter_at(rect);
+    painter.rect_filled(rect, 0.0, VIEW_BACKGROUND);
+    let ppp = ui.ctx().pixels_per_point();
+
+    let map = view.is_plane().then(|| plane_map(volume, vs, view, rect));
+    vs.maps[view.index()] = map;
+    let camera = if view.is_plane() {
+        None
+    } else {
+        volume_camera(volume, vs, pixels_for(rect, ppp))
+    };
+
+    // the picture
+    if let Some(s) = shown {
+        let img_rect = match (&s.key, &map) {
+            (RenderKey::Plane(k), Some(m)) => {
+                let g = &k.geometry;
+                let a = m.screen(g.pixel_world(-0.5, -0.5));
+                let b = m.screen(g.pixel_world(g.width as f64 - 0.5, g.height as f64 - 0.5));
+                Rect::from_two_pos(pos2(a), pos2(b))
+            }
+            _ => rect,
+        };
+        painter.image(
+            s.texture.id(),
+            img_rect,
+            Rect::from_min_max(Pos2::ZERO, Pos2::new(1.0, 1.0)),
+            Color32::WHITE,
+        );
+    } else {
+        painter.text(
+            rect.center(),
+            Align2::CENTER_CENTER,
+            "rendering…",
+            FontId::proportional(13.0),
+            Color32::from_gray(140),
+        );
+    }
+
+    if let Some(m) = &map
+        && prefs.show_crosshair
+    {
+        crosshair(&painter, volume, vs, view, m);
+    }
+    frame_and_label(&painter, rect, view, on_stage, volume, vs);
+
+    // hover read-out
+    if let Some(p) = response.hover_pos() {
+        let world = match (&map, shown) {
+            (Some(m), _) => Some(m.world(arr(p))),
+            (None, Some(s)) => surface_hit(s, rect, p),
+            _ => None,
+        };
+        vs.hover = world.map(|w| ViewState::hover_at(volume, view, w));
+        if world.is_none() {
+            vs.hover = None;
+        }
+    }
+
+    // wheel
+    if response.hovered() {
+        wheel(
+            ui,
+            view,
+            on_stage,
+            vs,
+            map.as_ref(),
+            camera.as_ref(),
+            rect,
+            ppp,
+            out,
+        );
+    }
+
+    if !on_stage {
+        if response.clicked() {
+            out.push(Command::SetStage(view));
+        }
+        let _ = response.on_hover_cursor(CursorIcon::PointingHand);
+        return;
+    }
+
+    let modifiers = ui.input(|i| i.modifiers);
+    if response.double_clicked() {
+        out.push(Command::ResetView(view));
+        return;
+    }
+    let delta = response.drag_delta();
+    let d = [f64::from(delta.x), f64::from(delta.y)];
+    let panning = response.dragged_by(PointerButton::Middle)
+        || (response.dragged_by(PointerButton::Primary) && modifiers.shift);
+    if panning {
+        if delta != Vec2::ZERO {
+            let by = match (&map, &camera) {
+                (Some(m), _) => Some(m.world_delta(d)),
+                (None, Some(c)) => {
+                    let (right, down) = camera_axes(c);
+                    let mm = c.pixel_mm * f64::from(ppp);
+                    Some(right * (d[0] * mm) + down * (d[1] * mm))
+                }
+                _ => None,
+            };
+            if let Some(by) = by {
+                out.push(Command::Pan { view, by });
+            }
+        }
+    } else if response.dragged_by(PointerButton::Secondary) {
+        if delta != Vec2::ZERO {
+            out.push(window_drag(vs, d));
+        }
+    } else if view == ViewId::Volume {
+        if response.dragged_by(PointerButton::Primary) && delta != Vec2::ZERO {
+            out.push(Command::Orbit {
+                d_azimuth_deg: -d[0] * ORBIT_DEG_PER_POINT,
+                d_elevation_deg: d[1] * ORBIT_DEG_PER_POINT,
+            });
+        }
+    } else if view == ViewId::Oblique && modifiers.command {
+        if response.dragged_by(PointerButton::Primary) && delta != Vec2::ZERO {
+            out.push(Command::TurnOblique {
+                about_u_deg: -d[1] * TURN_DEG_PER_POINT,
+                about_v_deg: d[0] * TURN_DEG_PER_POINT,
+            });
+        }
+    } else if let Some(m) = &map {
+        // a press held over frames, or a click whose press and release came in one frame
+        let held = response.is_pointer_button_down_on() && ui.input(|i| i.pointer.primary_down());
+        if (held || response.clicked_by(PointerButton::Primary))
+            && let Some(p) = response.interact_pointer_pos()
+        {
+            out.push(Command::MoveCursor(m.world(arr(p))));
+        }
+    }
+
+    let icon = match view {
+        ViewId::Volume if response.dragged() => CursorIcon::Grabbing,
+        ViewId::Volume => CursorIcon::Grab,
+        _ if panning => CursorIcon::Grabbing,
+        _ => CursorIcon::Crosshair,
+    };
+    let _ = response.on_hover_cursor(icon);
+}
+
+/// Window/level from a right-button drag of `d` points: right widens, up brightens.
+#[must_use]
+pub fn window_drag(vs: &ViewState, d: [f64; 2]) -> Command {
+    Command::NudgeWindow {
+        centre_by: d[1] * vs.window.width * 0.004,
+        width_factor: (d[0] * 0.006).exp(),
+    }
+}
+
+#[allow(clippy::too_many_arguments)] // reason: the wheel acts differently per view and modifier
+fn wheel(
+    ui: &Ui,
+    view: ViewId,
+    on_stage: bool,
+    vs: &mut ViewState,
+    map: Option<&ScreenMap>,
+    camera: Option<&Camera>,
+    rect: Rect,
+    ppp: f32,
+    out: &mut Vec<Command>,
+) {
+    let (lines, zoom_lines, pointer) = ui.input(|i| {
+        let mut lines = 0.0f32;
+        let mut zoom = 0.0f32;
+        for e in &i.events {
+            if let egui::Event::MouseWheel {
+                unit,
+                delta,
+                modifiers,
+                ..
+            } = e
+            {
+                let n = match unit {
+                    egui::MouseWheelUnit::Line => delta.y,
+                    egui::MouseWheelUnit::Point => delta.y / POINTS_PER_STEP,
+                    egui::MouseWheelUnit::Page => delta.y * 10.0,
+                };
+                if modifiers.command || view == ViewId::Volume {
+                    zoom += n;
+                } else {
+                    lines += n;
+                }
+            }
+        }
+        (lines, zoom, i.pointer.hover_pos())
+    });
+    if lines != 0.0 && view.is_plane() {
+        vs.wheel_rest += lines;
+        let steps = vs.wheel_rest.trunc();
+        vs.wheel_rest -= steps;
+        if steps != 0.0 {
+            out.push(Command::Scroll {
+                view,
+                steps: steps as i32,
+            });
+        }
+    }
+    if zoom_lines != 0.0 && on_stage {
+        let factor = 1.15f64.powf(f64::from(zoom_lines));
+        let anchor = pointer.and_then(|p| match (map, camera) {
+            (Some(m), _) => Some(m.world(arr(p))),
+            (None, Some(c)) => {
+                let col = f64::from((p.x - rect.min.x) * ppp) - 0.5;
+                let row = f64::from((p.y - rect.min.y) * ppp) - 0.5;
+                c.pixel_world(col, row).ok()
+            }
+            _ => None,
+        });
+        out.push(Command::Zoom {
+            view,
+            factor,
+            anchor,
+        });
+    }
+}
+
+/// The surface point under screen point `p`, from the picture's per-pixel hits.
+fn surface_hit(s: &Shown, rect: Rect, p: Pos2) -> Option<WorldPoint> {
+    let hits = s.hits.as_ref()?;
+    let [w, h] = s.key.size();
+    let fx = (p.x - rect.min.x) / rect.width();
+    let fy = (p.y - rect.min.y) / rect.height();
+    if !(0.0..1.0).contains(&fx) || !(0.0..1.0).contains(&fy) {
+        return None;
+    }
+    let col = ((fx * w as f32) as usize).min(w - 1);
+    let row = ((fy * h as f32) as usize).min(h - 1);
+    hits.get(col + w * row).copied().flatten()
+}
+
+/// Lines where the other plane views cut this one, each in its view's colour, with a gap
+/// around the crosshair point.
+fn crosshair(
+    painter: &egui::Painter,
+    volume: &Volume,
+    vs: &ViewState,
+    view: ViewId,
+    m: &ScreenMap,
+) {
+    let n = m.u.cross(&m.v);
+    let centre = m.screen(vs.cursor);
+    let reach = (m.size()[0].hypot(m.size()[1])) * 2.0;
+    for other in [
+        ViewId::PlaneI,
+        ViewId::PlaneJ,
+        ViewId::PlaneK,
+        ViewId::Oblique,
+    ] {
+        if other == view {
+            continue;
+        }
+        let (_, _, n_other) = plane_basis(volume, vs, other);
+        let d = n_other.cross(&n);
+        if d.norm() < 1e-6 {
+            continue;
+        }
+        let d = d.normalize();
+        let w = d.cross(&n);
+        let p = plane_point(volume, vs, other, vs.cursor);
+        let denom = w.dot(&n_other);
+        if denom.abs() < 1e-12 {
+            continue;
+        }
+        let x = WorldPoint(m.origin.0 + w * ((p.0 - m.origin.0).dot(&n_other) / denom));
+        let s0 = m.screen(x);
+        let dir = [d.dot(&m.u), d.dot(&m.v)];
+        let len = dir[0].hypot(dir[1]);
+        if len < 1e-9 {
+            continue;
+        }
+        let dir = [dir[0] / len, dir[1] / len];
+        // the crosshair point's position along the line, and a gap around it
+        let t_c = (centre[0] - s0[0]) * dir[0] + (centre[1] - s0[1]) * dir[1];
+        let gap = 10.0;
+        let at = |t: f64| pos2([s0[0] + dir[0] * t, s0[1] + dir[1] * t]);
+        let c = other.colour();
+        let stroke = Stroke::new(1.2, Color32::from_rgba_unmultiplied(c[0], c[1], c[2], 200));
+        painter.line_segment([at(t_c - reach), at(t_c - gap)], stroke);
+        painter.line_segment([at(t_c + gap), at(t_c + reach)], stroke);
+    }
+}
+
+fn frame_and_label(
+    painter: &egui::Painter,
+    rect: Rect,
+    view: ViewId,
+    on_stage: bool,
+    volume: &Volume,
+    vs: &ViewState,
+) {
+    let colour = colour32(view.colour());
+    let width = if on_stage { 2.0 } else { 1.0 };
+    painter.rect_stroke(rect, 3.0, Stroke::new(width, colour), StrokeKind::Inside);
+    let text = match view {
+        ViewId::PlaneI | ViewId::PlaneJ | ViewId::PlaneK => {
+            let a = view.axis().unwrap_or(2);
+            format!(
+                "{}  {} / {}",
+                view.label(),
+                slice_index(volume, a, vs.cursor),
+                volume.dims()[a] - 1
+            )
+        }
+        ViewId::Oblique => {
+            let a = vs.oblique.angles_deg();
+            format!("{}  {:.0}° {:.0}° {:.0}°", view.label(), a[0], a[1], a[2])
+        }
+        ViewId::Volume => match vs.volume_mode {
+            VolumeMode::Surface => format!("{}  surface at {:.0}", view.label(), vs.threshold),
+            VolumeMode::Projection => format!("{}  projection", view.label()),
+        },
+    };
+    let font = FontId::proportional(if on_stage { 13.0 } else { 11.0 });
+    let galley = painter.layout_no_wrap(text, font, Color32::from_gray(235));
+    let pad = Vec2::new(6.0, 3.0);
+    let at = rect.min + Vec2::new(6.0, 6.0);
+    let bg = Rect::from_min_size(at, galley.size() + 2.0 * pad);
+    painter.rect_filled(bg, 3.0, Color32::from_rgba_unmultiplied(10, 12, 16, 190));
+    painter.rect_filled(
+        Rect::from_min_size(bg.min, Vec2::new(3.0, bg.height())),
+        1.0,
+        colour,
+    );
+    painter.galley(
+        at + pad + Vec2::new(2.0, 0.0),
+        galley,
+        Color32::from_gray(235),
+    );
+}
+
+/// The hover read-out as status-line text.
+#[must_use]
+pub fn hover_text(h: &Hover) -> String {
+    let p = h.world.0;
+    let mut s = format!(
+        "{}: x {:.3}  y {:.3}  z {:.3} mm",
+        h.view.label(),
+        p.x,
+        p.y,
+        p.z
+    );
+    if let Some(v) = h.voxel {
+        let _ = write!(s, "   voxel ({}, {}, {})", v.i, v.j, v.k);
+    }
+    if let Some(val) = h.value {
+        let _ = write!(s, "   value {}", format_value(val));
+    }
+    s
+}
+
+/// An intensity as integers show it, or with three decimals.
+#[must_use]
+pub fn format_value(v: f64) -> String {
+    if v.fract() == 0.0 && v.abs() < 1e15 {
+        format!("{v:.0}")
+    } else {
+        format!("{v:.3}")
+    }
+}

@@ -1,0 +1,445 @@
+//! Rendering off the UI thread.
+//!
+//! Each view asks for a picture by a [`RenderKey`]: everything that decides its pixels (the
+//! slice geometry or 3D camera, window, colour map, quality, overlays). The app sends a key only
+//! when it differs from the last one sent for that view, tagged with a per-view generation
+//! number. Jobs wait in a mailbox with one slot per view: a newer job replaces a waiting older
+//! one, which is then never rendered. Two threads take jobs — one for the plane views (the
+//! stage's first), one for the 3D view, so that a slow full 3D pass never holds up a slice —
+//! and use rayon inside the `render` calls. Results come back by channel with their
+//! generation; the app shows a result only if it is newer than what the view shows.
+//!
+//! All pixels come from [`crate::render`]: slices, window/level, colour maps, ray casting and
+//! the scale bar; [`render_view`] only chains those calls and converts the RGBA image to the
+//! texture format, so the benchmark measures exactly what the workstation does per redraw.
+
+use std::sync::mpsc::{Receiver, Sender, channel};
+use std::sync::{Arc, Condvar, Mutex, PoisonError};
+use std::thread::JoinHandle;
+use std::time::{Duration, Instant};
+
+use eframe::egui;
+use rayon::prelude::*;
+
+use super::state::{Scan, ViewId, VolumeMode};
+use crate::geometry::WorldPoint;
+use crate::render::overlay::{AxisNames, Overlay};
+use crate::render::raycast::{self, Bricks};
+use crate::render::{
+    Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RenderError, RgbaImage,
+    SliceGeometry, SurfaceOptions, WindowLevel, slice,
+};
+use crate::volume::Volume;
+
+/// Everything that decides a plane view's pixels.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct PlaneKey {
+    pub scan: u64,
+    pub geometry: SliceGeometry,
+    pub window: WindowLevel,
+    pub colours: ColourMap,
+    pub interpolation: Interpolation,
+    pub scale_bar: bool,
+    pub orientation: bool,
+    /// A preview at reduced resolution while the view moves (see the app's redraw budget).
+    pub coarse: bool,
+}
+
+/// Everything that decides the 3D view's pixels.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct VolumeKey {
+    pub scan: u64,
+    pub camera: Camera,
+    pub mode: VolumeMode,
+    pub threshold: f64,
+    pub window: WindowLevel,
+    pub colours: ColourMap,
+    pub quality: Quality,
+    pub scale_bar: bool,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum RenderKey {
+    Plane(PlaneKey),
+    Volume(VolumeKey),
+}
+
+impl RenderKey {
+    #[must_use]
+    pub fn size(&self) -> [usize; 2] {
+        match self {
+            Self::Plane(p) => [p.geometry.width, p.geometry.height],
+            Self::Volume(v) => [v.camera.width, v.camera.height],
+        }
+    }
+
+    /// Whether this is a coarse (preview) picture.
+    #[must_use]
+    pub fn is_coarse(&self) -> bool {
+        match self {
+            Self::Plane(p) => p.coarse,
+            Self::Volume(v) => v.quality.downsample > 1,
+        }
+    }
+}
+
+/// A rendered picture, ready to upload as a texture.
+pub struct Picture {
+    pub image: egui::ColorImage,
+    /// For a surface view: the world point each pixel's ray met, for the hover read-out.
+    pub hits: Option<Vec<Option<WorldPoint>>>,
+}
+
+/// A finished job.
+pub struct Rendered {
+    pub view: ViewId,
+    pub generation: u64,
+    pub key: RenderKey,
+    pub picture: Result<Picture, String>,
+    pub elapsed: Duration,
+}
+
+/// The colour of overlay text and the scale bar.
+const OVERLAY_COLOUR: [u8; 4] = [245, 236, 214, 255];
+
+/// Renders one view's picture: the slice or 3D image, window/level and colour map, the scale
+/// bar and orientation labels, converted to an egui image. `bricks` gives the empty-space
+/// table for surface views (built once per scan by the caller).
+pub fn render_view(
+    volume: &Volume,
+    key: &RenderKey,
+    bricks: Option<&Bricks>,
+) -> Result<Picture, RenderError> {
+    render_view_reusing(volume, key, bricks, &mut None)
+}
+
+/// The resampled values of a plane view's last picture, kept so that a change of window or
+/// colour map only maps the values again.
+pub type PlaneValues = Option<(PlaneKey, F32Image)>;
+
+/// As [`render_view`], reusing `last` (and replacing it) for plane views: when only the
+/// window, colour map or overlays changed, the slice is not resampled again.
+pub fn render_view_reusing(
+    volume: &Volume,
+    key: &RenderKey,
+    bricks: Option<&Bricks>,
+    last: &mut PlaneValues,
+) -> Result<Picture, RenderError> {
+    match key {
+        RenderKey::Plane(p) => {
+            let img = match last.take() {
+                Some((k, img))
+                    if k.scan == p.scan
+                        && k.geometry == p.geometry
+                        && k.interpolation == p.interpolation =>
+                {
+                    img
+                }
+                _ => slice::render_slice(volume, &p.geometry, p.interpolation, None)?,
+            };
+            let rgba = p.window.colourize(&img, p.colours);
+            *last = Some((*p, img));
+            let rgba = if p.scale_bar || p.orientation {
+                let mut o = Overlay::new(&rgba)?;
+                if p.scale_bar {
+                    o.scale_bar(p.geometry.pixel_mm, OVERLAY_COLOUR);
+                }
+                if p.orientation {
+                    o.orientation_labels(
+                        &p.geometry.u,
+                        &p.geometry.v,
+                        &AxisNames::default(),
+                        OVERLAY_COLOUR,
+                    );
+                }
+                o.finish()
+            } else {
+                rgba
+            };
+            Ok(Picture {
+                image: to_color_image(&rgba),
+                hits: None,
+            })
+        }
+        RenderKey::Volume(v) => {
+            let (rgba, hits) = match v.mode {
+                VolumeMode::Projection => {
+                    let img = raycast::mip(volume, &v.camera, MipOptions { quality: v.quality })?;
+                    (v.window.colourize(&img, v.colours), None)
+                }
+                VolumeMode::Surface => {
+                    let mut opts = SurfaceOptions::new(v.threshold);
+                    opts.quality = v.quality;
+                    opts.depth_cue = 0.35;
+                    let s = raycast::surface(volume, &v.camera, &opts, bricks)?;
+                    (s.image, Some(s.hits))
+                }
+            };
+            let rgba = if v.scale_bar {
+                let mut o = Overlay::new(&rgba)?;
+                o.scale_bar(v.camera.pixel_mm, OVERLAY_COLOUR);
+                o.finish()
+            } else {
+                rgba
+            };
+            Ok(Picture {
+                image: to_color_image(&rgba),
+                hits,
+            })
+        }
+    }
+}
+
+/// Straight-alpha RGBA to egui's premultiplied colours, in parallel.
+#[must_use]
+pub fn to_color_image(rgba: &RgbaImage) -> egui::ColorImage {
+    let pixels: Vec<egui::Color32> = rgba
+        .pixels
+        .par_chunks_exact(4)
+        .map(|p| egui::Color32::from_rgba_unmultiplied(p[0], p[1], p[2], p[3]))
+        .collect();
+    egui::ColorImage::new([rgba.width, rgba.height], pixels)
+}
+
+struct Job {
+    generation: u64,
+    key: RenderKey,
+    scan: Arc<Scan>,
+    /// Lower runs first: the stage view before the strip.
+    priority: u8,
+}
+
+#[derive(Default)]
+struct Slots {
+    jobs: [Option<Job>; 5],
+    quit: bool,
+}
+
+struct Mailbox {
+    slots: Mutex<Slots>,
+    ready: Condvar,
+}
+
+/// The render threads and the channel their results come back on.
+pub struct Workers {
+    mailbox: Arc<Mailbox>,
+    results: Receiver<Rendered>,
+    threads: Vec<JoinHandle<()>>,
+    generation: [u64; 5],
+}
+
+impl Workers {
+    /// Starts the threads; `wake` is called after each result is sent (the app's repaint).
+    pub fn start(wake: impl Fn() + Send + Sync + 'static) -> Self {
+        let mailbox = Arc::new(Mailbox {
+            slots: Mutex::new(Slots::default()),
+            ready: Condvar::new(),
+        });
+        let (tx, results) = channel();
+        let wake: Arc<dyn Fn() + Send + Sync> = Arc::new(wake);
+        let lanes: [&[ViewId]; 2] = [
+            &[
+                ViewId::PlaneI,
+                ViewId::PlaneJ,
+                ViewId::PlaneK,
+                ViewId::Oblique,
+            ],
+            &[ViewId::Volume],
+        ];
+        let threads = lanes
+            .iter()
+            .enumerate()
+            .map(|(n, lane)| {
+                let (mb, tx, wake) = (Arc::clone(&mailbox), tx.clone(), Arc::clone(&wake));
+                let lane: Vec<ViewId> = lane.to_vec();
+                std::thread::Builder::new()
+                    .name(format!("sutura-render-{n}"))
+                    .spawn(move || serve(&mb, &lane, &tx, &*wake))
+                    .expect("spawning a render thread")
+            })
+            .collect();
+        Self {
+            mailbox,
+            results,
+            threads,
+            generation: [0; 5],
+        }
+    }
+
+    /// Queues a picture for `view`, replacing any job of that view still waiting. Returns the
+    /// job's generation.
+    pub fn request(&mut self, view: ViewId, key: RenderKey, scan: Arc<Scan>, priority: u8) -> u64 {
+        let i = view.index();
+        self.generation[i] += 1;
+        let generation = self.generation[i];
+        let mut slots = self
+            .mailbox
+            .slots
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner);
+        slots.jobs[i] = Some(Job {
+            generation,
+            key,
+            scan,
+            priority,
+        });
+        drop(slots);
+        self.mailbox.ready.notify_all();
+        generation
+    }
+
+    /// Drops every waiting job (a new scan is coming).
+    pub fn clear(&mut self) {
+        let mut slots = self
+            .mailbox
+            .slots
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner);
+        for j in &mut slots.jobs {
+            *j = None;
+        }
+    }
+
+    /// Finished pictures, oldest first.
+    pub fn finished(&self) -> impl Iterator<Item = Rendered> + '_ {
+        self.results.try_iter()
+    }
+
+    /// Waits up to `timeout` for one finished picture (tests and the benchmark).
+    #[must_use]
+    pub fn wait(&self, timeout: Duration) -> Option<Rendered> {
+        self.results.recv_timeout(timeout).ok()
+    }
+}
+
+impl Drop for Workers {
+    fn drop(&mut self) {
+        self.mailbox
+            .slots
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .quit = true;
+        self.mailbox.ready.notify_all();
+        for t in self.threads.drain(..) {
+            // a render in progress finishes first; its result goes nowhere
+            let _ = t.join();
+        }
+    }
+}
+
+fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() + Send + Sync)) {
+    let mut bricks: Option<(u64, Arc<Bricks>)> = None;
+    let mut values: [PlaneValues; 5] = Default::default();
+    loop {
+        let (view, job) = {
+            let mut slots = mb.slots.lock().unwrap_or_else(PoisonError::into_inner);
+            loop {
+                if slots.quit {
+                    return;
+                }
+                let next = lane
+                    .iter()
+                    .filter(|v| slots.jobs[v.index()].is_some())
+                    .min_by_key(|v| {
+                        slots.jobs[v.index()]
+                            .as_ref()
+                            .map_or(u8::MAX, |j| j.priority)
+                    })
+                    .copied();
+                if let Some(v) = next
+                    && let Some(job) = slots.jobs[v.index()].take()
+                {
+                    break (v, job);
+                }
+                slots = mb.ready.wait(slots).unwrap_or_else(PoisonError::into_inner);
+            }
+        };
+        let start = Instant::now();
+        let needs_bricks = matches!(job.key, RenderKey::Volume(v) if v.mode == VolumeMode::Surface);
+        if needs_bricks && bricks.as_ref().is_none_or(|(id, _)| *id != job.scan.id) {
+            bricks = Some((job.scan.id, Arc::new(Bricks::new(&job.scan.volume))));
+        }
+        let b = bricks
+            .as_ref()
+            .filter(|(id, _)| *id == job.scan.id)
+            .map(|(_, b)| b.as_ref());
+        let picture = render_view_reusing(&job.scan.volume, &job.key, b, &mut values[view.index()])
+            .map_err(|e| e.to_string());
+        let sent = tx.send(Rendered {
+            view,
+            generation: job.generation,
+            key: job.key,
+            picture,
+            elapsed: start.elapsed(),
+        });
+        if sent.is_err() {
+            return;
+        }
+        wake();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::geometry::{Affine3, Plane, WorldPoint};
+    use nalgebra::Vector3;
+
+    fn key(volume: &Volume, window: WindowLevel) -> PlaneKey {
+        let plane = Plane {
+            origin: WorldPoint(volume.centre_world().0 + Vector3::new(0.01, -0.02, 0.0)),
+            u: Vector3::x(),
+            v: Vector3::y(),
+        };
+        PlaneKey {
+            scan: 1,
+            geometry: SliceGeometry::centred(&plane, 40, 30, 0.013).unwrap(),
+            window,
+            colours: ColourMap::Grey,
+            interpolation: Interpolation::Trilinear,
+            scale_bar: true,
+            orientation: false,
+            coarse: false,
+        }
+    }
+
+    #[test]
+    fn a_window_change_reuses_the_values_and_matches_a_fresh_render() {
+        let data: Vec<u16> = (0..20 * 16 * 8).map(|i| (i * 37 % 4000) as u16).collect();
+        let vol = Volume::from_vec([20, 16, 8], Affine3::from_spacing([0.02; 3]), data).unwrap();
+        let a = key(
+            &vol,
+            WindowLevel {
+                centre: 2000.0,
+                width: 4000.0,
+            },
+        );
+        let b = PlaneKey {
+            window: WindowLevel {
+                centre: 1000.0,
+                width: 500.0,
+            },
+            ..a
+        };
+        let mut last = None;
+        render_view_reusing(&vol, &RenderKey::Plane(a), None, &mut last).unwrap();
+        let bits = |l: &PlaneValues| {
+            l.as_ref()
+                .map(|(_, img)| img.pixels.iter().map(|v| v.to_bits()).collect::<Vec<u32>>())
+        };
+        let kept = bits(&last);
+        let reused = render_view_reusing(&vol, &RenderKey::Plane(b), None, &mut last).unwrap();
+        let fresh = render_view(&vol, &RenderKey::Plane(b), None).unwrap();
+        assert_eq!(reused.image, fresh.image);
+        assert_eq!(bits(&last), kept, "the values were kept, not resampled");
+        // a new geometry resamples
+        let mut c = b;
+        c.geometry.origin = WorldPoint(c.geometry.origin.0 + Vector3::new(0.0, 0.0, 0.02));
+        let moved = render_view_reusing(&vol, &RenderKey::Plane(c), None, &mut last).unwrap();
+        assert_eq!(
+            moved.image,
+            render_view(&vol, &RenderKey::Plane(c), None).unwrap().image
+        );
+        assert_ne!(moved.image, fresh.image);
+    }
+}

@@ -1,0 +1,53 @@
+//! Opening a scan with the voxel size a project recorded for it.
+//!
+//! TIFF scans rarely carry a full voxel size (only folders Sutura wrote record the slice
+//! spacing), so the user usually gives one; `NIfTI` files carry
+//! their own geometry, which a user value rescales axis by axis (keeping the direction cosines
+//! and the origin). Both the command line and the project use [`open_scan`], so a specimen's
+//! scan is placed in the world the same way every time it is opened.
+
+use std::path::Path;
+
+use crate::geometry::Affine3;
+use crate::io::{self, Format, IoError, OpenOptions, Progress};
+use crate::volume::Volume;
+
+/// Opens a scan; `voxel_size_mm`, if given, overrides the file's voxel size (see the module
+/// docs). The override is recorded in the volume's notes.
+pub fn open_scan(
+    path: &Path,
+    voxel_size_mm: Option<[f64; 3]>,
+    progress: &Progress<'_>,
+) -> Result<Volume, IoError> {
+    if let Some(s) = voxel_size_mm
+        && s.iter().any(|v| !(v.is_finite() && *v > 0.0))
+    {
+        return Err(IoError::usage(
+            path,
+            format!("voxel size {s:?} mm is not positive and finite"),
+        ));
+    }
+    let options = OpenOptions {
+        voxel_size_mm,
+        ..OpenOptions::default()
+    };
+    let mut volume = io::open(path, &options, progress)?;
+    if let Some(s) = voxel_size_mm
+        && io::detect(path)? == Format::Nifti
+    {
+        let lin = volume.world_from_voxel().linear();
+        let cols = volume.spacing_mm();
+        let mut new = lin;
+        for a in 0..3 {
+            let c = lin.column(a) * (s[a] / cols[a]);
+            new.set_column(a, &c);
+        }
+        let t = volume.world_from_voxel().translation();
+        volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
+        volume
+            .notes
+            .push(format!("voxel size overridden by the user: {s:?} mm"));
+        volume.spacing_origin = crate::volume::SpacingOrigin::Caller;
+    }
+    Ok(volume)
+}
