@@ -28,7 +28,7 @@
 //! rim; a pixel whose ray misses the box is `NaN`.
 
 use super::{Camera, Quality, VoxelRays, upsample_f32};
-use crate::render::slice::Grid;
+use crate::render::slice::{Grid, prefetch};
 use crate::render::{F32Image, RenderError, check_positive, check_size};
 use crate::volume::{Volume, Voxel};
 use rayon::prelude::*;
@@ -383,24 +383,6 @@ fn fill<T: Voxel>(
 
 /// How many strided rows ahead [`fill`]'s transposition prefetches.
 const PREFETCH_ROWS: usize = 16;
-
-/// A hint to fetch the cache line holding `data[i]` (nothing when `i` is out of range or the
-/// target has no prefetch instruction).
-#[inline]
-fn prefetch<T>(data: &[T], i: usize) {
-    #[cfg(target_arch = "x86_64")]
-    if let Some(p) = data.get(i) {
-        // SAFETY: a prefetch is a hint with no architectural effect; the pointer is valid
-        // (it comes from a reference into the slice) and SSE is part of the x86_64 baseline.
-        unsafe {
-            std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(
-                std::ptr::from_ref(p).cast::<i8>(),
-            );
-        }
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    let _ = (data, i);
-}
 
 /// Folds `planes` into the intermediate image, over bands of intermediate rows in parallel.
 fn fill_planes<T: Voxel, F: Fn(usize) -> usize + Sync>(
