@@ -8,6 +8,10 @@ pub(crate) const GLYPH_H: usize = 7;
 pub(crate) const ADVANCE: usize = 6;
 
 /// The rows of a glyph, top first; bit 4 is the leftmost column.
+#[allow(
+    clippy::too_many_lines,
+    reason = "the font's table: one arm per glyph, drawn in place"
+)]
 pub(crate) fn glyph(ch: char) -> [u8; 7] {
     let rows = |s: [&str; 7]| {
         let mut out = [0u8; 7];

@@ -5,6 +5,7 @@
 //!   [`F32Image`] of rescaled values, `NaN` outside the volume;
 //! - [`window`]: window/level to grey, colour maps to RGBA;
 //! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
+//! - [`pyramid`]: block min/max copies of a volume for coarse passes and empty-space skipping;
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
 //! - [`png`]: PNG encoding of an [`RgbaImage`].
 //!
@@ -20,11 +21,13 @@
 
 pub mod overlay;
 pub mod png;
+pub mod pyramid;
 pub mod raycast;
 pub mod slice;
 pub mod window;
 
 mod font;
+mod geom;
 
 pub use raycast::{Camera, MipOptions, Quality, SurfaceImage, SurfaceOptions};
 pub use slice::{AxisPlane, Interpolation, Slab, SlabMode, SliceGeometry};

@@ -103,24 +103,37 @@ impl WindowLevel {
     /// Applies the window and a colour map (`NaN` → transparent black).
     #[must_use]
     pub fn colourize(self, image: &F32Image, map: ColourMap) -> RgbaImage {
+        let mut out = RgbaImage {
+            width: 0,
+            height: 0,
+            pixels: Vec::new(),
+        };
+        self.colourize_into(image, map, &mut out);
+        out
+    }
+
+    /// As [`Self::colourize`], into `out`, reusing its buffer (no allocation when the size
+    /// is unchanged).
+    pub fn colourize_into(self, image: &F32Image, map: ColourMap, out: &mut RgbaImage) {
         let lut = map.table();
         let (lo, scale) = (self.low() as f32, (255.0 / self.width) as f32);
-        let mut pixels = vec![0u8; image.pixels.len() * 4];
-        pixels
+        out.pixels.clear();
+        out.pixels.resize(image.pixels.len() * 4, 0);
+        out.width = image.width;
+        out.height = image.height;
+        out.pixels
             .par_chunks_mut(4 * 4096)
             .zip(image.pixels.par_chunks(4096))
             .for_each(|(out, vals)| {
                 for (o, &v) in out.chunks_exact_mut(4).zip(vals) {
-                    if !v.is_nan() {
-                        o.copy_from_slice(&lut[usize::from(grey_f32(v, lo, scale))]);
-                    }
+                    let rgba = if v.is_nan() {
+                        [0; 4]
+                    } else {
+                        lut[usize::from(grey_f32(v, lo, scale))]
+                    };
+                    o.copy_from_slice(&rgba);
                 }
             });
-        RgbaImage {
-            width: image.width,
-            height: image.height,
-            pixels,
-        }
     }
 }
 
