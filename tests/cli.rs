@@ -4,6 +4,7 @@
 mod common;
 
 use common::{root, run_python, run_sutura};
+use sutura::geometry::VoxelIndex;
 
 fn samples() -> std::path::PathBuf {
     root().join("sample_volumes")
@@ -139,7 +140,6 @@ fn slice_view3d_and_convert_write_what_they_say() {
     let full = sutura::io::open(&scan, &opts, &none).unwrap();
     let crop = sutura::io::open(&out, &opts, &none).unwrap();
     assert_eq!(crop.dims(), [40, 35, 28]);
-    use sutura::geometry::VoxelIndex;
     for (i, j, k) in [(0, 0, 0), (39, 34, 27), (17, 3, 20)] {
         assert_eq!(
             crop.value(VoxelIndex::new(i, j, k)),
@@ -232,7 +232,7 @@ fn superimpose_separates_the_two_localities() {
     }
     // the synthetic groups differ in snout length: PC1 must split them completely
     let mut rdr = csv::Reader::from_path(dir.path().join("pc_scores.csv")).unwrap();
-    let mut by_group: std::collections::BTreeMap<String, Vec<f64>> = Default::default();
+    let mut by_group = std::collections::BTreeMap::<String, Vec<f64>>::new();
     for r in rdr.records() {
         let r = r.unwrap();
         by_group

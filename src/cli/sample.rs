@@ -29,13 +29,16 @@ fn scan_name(index: usize, id: &str) -> String {
     }
 }
 
+/// One generated specimen: id, group, true landmarks (world mm).
+type Written = (String, String, Vec<(String, crate::geometry::WorldPoint)>);
+
 pub fn run(a: &SampleArgs) -> Result<()> {
     std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;
     let mut specs = synth::default_series();
     if let Some(n) = a.count {
         specs.truncate(n.max(1));
     }
-    let written: Vec<(String, String, Vec<(String, crate::geometry::WorldPoint)>)> = specs
+    let written: Vec<Written> = specs
         .par_iter()
         .enumerate()
         .map(|(i, spec)| -> Result<_> {
