@@ -492,20 +492,17 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
         .cloned()
         .expect("the first landmark is placed");
     assert_eq!(e.state, LandmarkState::Placed);
-    match pick {
-        Some(p) => {
-            assert_eq!(e.method, Some(Method::Surface));
-            let want = [p.point.0.x, p.point.0.y, p.point.0.z];
-            assert!(
-                close(e.position_mm.unwrap(), want, 1e-9),
-                "{e:?} vs {want:?}"
-            );
-            assert!(e.pick.is_some());
-        }
-        None => {
-            assert_eq!(e.method, Some(Method::Slice));
-            assert!(close(e.position_mm.unwrap(), w0, 1e-9));
-        }
+    if let Some(p) = pick {
+        assert_eq!(e.method, Some(Method::Surface));
+        let want = [p.point.0.x, p.point.0.y, p.point.0.z];
+        assert!(
+            close(e.position_mm.unwrap(), want, 1e-9),
+            "{e:?} vs {want:?}"
+        );
+        assert!(e.pick.is_some());
+    } else {
+        assert_eq!(e.method, Some(Method::Slice));
+        assert!(close(e.position_mm.unwrap(), w0, 1e-9));
     }
     assert_eq!(
         h.state().session().unwrap().current.as_deref(),
@@ -776,4 +773,41 @@ fn the_analysis_view_runs_the_superimposition_and_exports() {
     assert!(out.join("aligned_long.csv").exists());
     let msg = h.state().analysis().last_export.clone().unwrap();
     assert!(!msg.1 && msg.0.contains("aligned_long.csv"), "{msg:?}");
+}
+
+#[test]
+fn a_scan_that_is_not_the_recorded_one_is_shown_plainly_and_kept_read_only() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    // HDC-002's scan replaced by another specimen's
+    let link = dir.path().join("HDC-002.nii.gz");
+    std::fs::remove_file(&link).unwrap();
+    std::os::unix::fs::symlink(
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-003.nii.gz"),
+        &link,
+    )
+    .unwrap();
+    let mut h = app_on_project(&path, named("Bo"));
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "the fingerprint check", |a| {
+        matches!(a.prompt(), Some(Prompt::Mismatch { .. }))
+    });
+    h.step();
+    assert!(h.query_by_label("Not the recorded scan").is_some());
+    h.get_by_label("Open read-only").click();
+    h.step();
+    h.step();
+    assert_eq!(h.state().scan_of(), Some("HDC-002"));
+    let before = h.state().session().unwrap().project.clone();
+    h.get_by_label("snout_tip").click();
+    h.step();
+    assert_eq!(
+        h.state().session().unwrap().current.as_deref(),
+        Some("snout_tip")
+    );
+    h.key_press(egui::Key::X);
+    h.step();
+    let msg = h.state().view_state().message.clone().unwrap();
+    assert!(msg.1 && msg.0.contains("not the recorded one"), "{msg:?}");
+    assert_eq!(h.state().session().unwrap().project, before);
 }

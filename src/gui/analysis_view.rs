@@ -296,7 +296,7 @@ pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut
     }
     ui.separator();
     let avail = ui.available_size();
-    let side = 330.0_f32.min(avail.x * 0.45);
+    let side = 400.0_f32.min(avail.x * 0.45);
     ui.horizontal_top(|ui| {
         ui.vertical(|ui| {
             ui.set_width(avail.x - side - 16.0);
@@ -497,7 +497,7 @@ fn disparity_ui(ui: &mut Ui, a: &Analysis) {
                 ui.label(g.n.to_string());
                 ui.label(RichText::new(format!("{:.5}", g.procrustes_variance)).monospace());
                 ui.label(
-                    RichText::new(format!("{:.5} – {:.5}", g.interval.lower, g.interval.upper))
+                    RichText::new(format!("{:.5}–{:.5}", g.interval.lower, g.interval.upper))
                         .monospace(),
                 );
                 ui.end_row();

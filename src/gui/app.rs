@@ -295,6 +295,7 @@ impl App {
         self.frame(ui);
     }
 
+    #[allow(clippy::too_many_lines)] // reason: one frame in order: input, panels, commands, renders
     fn frame(&mut self, ui: &mut egui::Ui) {
         let ctx = ui.ctx().clone();
         if self.ctx.is_none() {
@@ -535,6 +536,7 @@ impl App {
     }
 
     /// The modal questions: unsaved changes, autosave recovery, scan mismatch, operator.
+    #[allow(clippy::too_many_lines)] // reason: four short dialogs, each read top to bottom
     fn prompt_ui(&mut self, ctx: &egui::Context, cmds: &mut Vec<Command>) {
         let Some(p) = self.desk.prompt.take() else {
             return;
@@ -723,10 +725,10 @@ impl App {
             Command::ToggleCrosshair => self.prefs.show_crosshair = !self.prefs.show_crosshair,
             Command::ToggleScaleBar => self.prefs.show_scale_bar = !self.prefs.show_scale_bar,
             other => {
-                if let Err(other) = self.apply_desk(other) {
-                    if let Some(scan) = self.doc.scan.clone() {
-                        self.vs.apply(&scan, &mut self.prefs, &other, now);
-                    }
+                if let Err(other) = self.apply_desk(other)
+                    && let Some(scan) = self.doc.scan.clone()
+                {
+                    self.vs.apply(&scan, &mut self.prefs, &other, now);
                 }
             }
         }
@@ -760,7 +762,7 @@ impl App {
         match Session::open(path) {
             Ok((session, status)) => {
                 self.close_project();
-                let read_only = session.read_only;
+                let read_only = session.read_only.then(|| session.read_only_why.clone());
                 let name = session.name();
                 match status {
                     AutosaveStatus::Newer { modified } => {
@@ -771,11 +773,8 @@ impl App {
                 }
                 self.doc.session = Some(session);
                 self.prefs.remember(path.to_path_buf());
-                self.vs.message = Some(if read_only {
-                    (
-                        format!("{name} is open in another program: read-only here"),
-                        true,
-                    )
+                self.vs.message = Some(if let Some(why) = read_only {
+                    (format!("{name} {why}: read-only here"), true)
                 } else {
                     (format!("opened project {name}"), false)
                 });
@@ -1014,7 +1013,7 @@ impl App {
                 }
             }
             Command::SetTracing(t) => {
-                self.desk.tracing = t.clone();
+                self.desk.tracing.clone_from(&t);
                 if let Some((c, seg)) = t {
                     self.desk.placing = true;
                     self.vs.message = Some((

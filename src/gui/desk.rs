@@ -10,7 +10,7 @@
 //! The autosave (`NAME.autosave` beside the project) is written atomically once the document
 //! has been unchanged for [`Session::autosave_delay`] after a change, and removed when the
 //! project is saved or its changes are discarded. A project opened while another program holds
-//! its lock is read-only here.
+//! its lock (or in a folder that cannot be written) is read-only here.
 //!
 //! The selection (specimen, trial, current landmark) lives here too: it is part of what the
 //! user is working on, though it is never saved.
@@ -48,8 +48,11 @@ pub struct Session {
     /// When the document last changed without an autosave since.
     changed_at: Option<Instant>,
     pub autosave_delay: Duration,
-    /// Another program holds the project: nothing may be changed or saved.
+    /// Another program holds the project (or its folder cannot be written): nothing may be
+    /// changed or saved.
     pub read_only: bool,
+    /// Why, as a phrase after the project's name.
+    pub read_only_why: String,
     _lock: Option<ProjectLock>,
     /// The selection.
     pub specimen: Option<String>,
@@ -62,10 +65,12 @@ impl Session {
     /// says whether an autosave newer than the file lies beside it.
     pub fn open(path: &Path) -> Result<(Self, AutosaveStatus), ProjectError> {
         let path = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
-        let (lock, read_only) = match ProjectLock::acquire(&path) {
-            Ok(l) => (Some(l), false),
-            Err(ProjectError::Busy { .. }) => (None, true),
-            Err(e) => return Err(e),
+        // busy: another program has it; an error: the folder cannot be written (read-only
+        // media), so the project could not be saved either
+        let (lock, why) = match ProjectLock::acquire(&path) {
+            Ok(l) => (Some(l), None),
+            Err(ProjectError::Busy { .. }) => (None, Some("is open in another program".into())),
+            Err(e) => (None, Some(format!("cannot be locked for writing ({e})"))),
         };
         let project = Project::load(&path)?;
         let status = autosave_status(&path)?;
@@ -77,7 +82,8 @@ impl Session {
             redo: Vec::new(),
             changed_at: None,
             autosave_delay: AUTOSAVE_DELAY,
-            read_only,
+            read_only: why.is_some(),
+            read_only_why: why.unwrap_or_default(),
             _lock: lock,
             specimen: None,
             trial: None,
@@ -108,8 +114,9 @@ impl Session {
     pub fn edit(&mut self, edit: Edit) -> Result<(), String> {
         if self.read_only {
             return Err(format!(
-                "{} is open in another program: changes are not allowed here",
-                self.name()
+                "{} {}: changes are not allowed here",
+                self.name(),
+                self.read_only_why
             ));
         }
         let what = edit.describe();
@@ -177,7 +184,7 @@ impl Session {
     /// Saves the project (atomically, keeping `NAME.bak`) and removes the autosave.
     pub fn save(&mut self) -> Result<(), String> {
         if self.read_only {
-            return Err(format!("{} is open in another program", self.name()));
+            return Err(format!("{} {}", self.name(), self.read_only_why));
         }
         self.project.save(&self.path).map_err(|e| e.to_string())?;
         self.saved = self.project.clone();
@@ -276,7 +283,7 @@ impl Session {
             self.trial = None;
             return;
         };
-        if !self.trial.as_deref().is_some_and(|t| s.trial(t).is_some()) {
+        if self.trial.as_deref().is_none_or(|t| s.trial(t).is_none()) {
             self.trial = s.trials.last().map(|t| t.id.clone());
         }
     }
@@ -332,16 +339,13 @@ impl Session {
     /// among its trial ids (`1` for the first).
     #[must_use]
     pub fn next_trial_id(&self) -> String {
-        let n = self
-            .specimen_ref()
-            .map(|s| {
-                s.trials
-                    .iter()
-                    .filter_map(|t| t.id.parse::<u64>().ok())
-                    .max()
-                    .unwrap_or(0)
-            })
-            .unwrap_or(0);
+        let n = self.specimen_ref().map_or(0, |s| {
+            s.trials
+                .iter()
+                .filter_map(|t| t.id.parse::<u64>().ok())
+                .max()
+                .unwrap_or(0)
+        });
         let mut id = n + 1;
         while self
             .specimen_ref()

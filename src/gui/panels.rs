@@ -73,9 +73,14 @@ pub const POINTER: &[(&str, &str)] = &[
         "place the current landmark (3D view: on the surface)",
     ),
     ("placing: drag a mark", "move a placed landmark"),
+    (
+        "placing: click a mark",
+        "make that landmark the current one",
+    ),
 ];
 
 /// The top bar: the project and scan menus, the workspace and stage selectors, and help.
+#[allow(clippy::too_many_lines)] // reason: the bar's menus and selectors, left to right
 pub fn top_bar_ui(
     ui: &mut Ui,
     doc: &Document,

@@ -400,6 +400,7 @@ pub struct WindowPreset {
 }
 
 /// The user's working preferences, kept between sessions.
+#[allow(clippy::struct_excessive_bools)] // reason: independent on/off preferences, each a switch in the UI
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(default)]
 pub struct Preferences {
@@ -652,10 +653,8 @@ impl ViewState {
                     });
                 }
             }
-            Command::DeletePreset(i) => {
-                if *i < prefs.presets.len() {
-                    prefs.presets.remove(*i);
-                }
+            Command::DeletePreset(i) if *i < prefs.presets.len() => {
+                prefs.presets.remove(*i);
             }
             Command::SetColourMap(m) => {
                 prefs.colour_map = *m;
@@ -665,10 +664,8 @@ impl ViewState {
                 about_u_deg,
                 about_v_deg,
             } => self.oblique = self.oblique.turned(*about_u_deg, *about_v_deg),
-            Command::SetObliqueAngles(a) => {
-                if a.iter().all(|x| x.is_finite()) {
-                    self.oblique = Oblique::from_angles_deg(*a);
-                }
+            Command::SetObliqueAngles(a) if a.iter().all(|x| x.is_finite()) => {
+                self.oblique = Oblique::from_angles_deg(*a);
             }
             Command::Orbit {
                 d_azimuth_deg,
@@ -693,11 +690,9 @@ impl ViewState {
                 self.volume_mode = *m;
                 self.volume_changed_at = now;
             }
-            Command::SetThreshold(t) => {
-                if t.is_finite() {
-                    self.threshold = *t;
-                    self.volume_changed_at = now;
-                }
+            Command::SetThreshold(t) if t.is_finite() => {
+                self.threshold = *t;
+                self.volume_changed_at = now;
             }
             Command::NudgeThreshold(frac) => {
                 let span = scan.full_range.1 - scan.full_range.0;

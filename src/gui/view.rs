@@ -353,8 +353,9 @@ pub struct Desk<'a> {
     pub tracing: Option<&'a str>,
 }
 
-/// Pointer input while placing: on a plane view a click places the current landmark and a
-/// drag that starts on a placed landmark's mark moves it; on the 3D view a click places the
+/// Pointer input while placing: on a plane view a click places the current landmark (a click
+/// on a placed landmark's mark makes that one current) and a drag that starts on a mark moves
+/// it; on the 3D view a click places the
 /// current landmark on the surface under the pointer.
 #[allow(clippy::too_many_arguments)] // reason: the view, its geometry and the state tiers
 fn place_input(
@@ -382,17 +383,22 @@ fn place_input(
             {
                 d.1 = m.world(arr(p));
             }
-            if response.drag_stopped() || !ui.input(|i| i.pointer.primary_down()) {
-                if let Some((landmark, to)) = vs.drag.take() {
-                    out.push(Command::MoveLandmark { landmark, to });
-                }
+            if (response.drag_stopped() || !ui.input(|i| i.pointer.primary_down()))
+                && let Some((landmark, to)) = vs.drag.take()
+            {
+                out.push(Command::MoveLandmark { landmark, to });
             }
         } else if response.clicked_by(PointerButton::Primary)
             && let Some(p) = response.interact_pointer_pos()
         {
-            out.push(Command::PlaceOnPlane {
-                view,
-                at: m.world(arr(p)),
+            // a click on a placed landmark's mark makes it current rather than placing another
+            // landmark on top of it
+            out.push(match digitise::grab_on_plane(scan, m, session, p) {
+                Some(id) => Command::SelectLandmark(id),
+                None => Command::PlaceOnPlane {
+                    view,
+                    at: m.world(arr(p)),
+                },
             });
         }
         return;
