@@ -811,3 +811,61 @@ fn a_scan_that_is_not_the_recorded_one_is_shown_plainly_and_kept_read_only() {
     assert!(msg.1 && msg.0.contains("not the recorded one"), "{msg:?}");
     assert_eq!(h.state().session().unwrap().project, before);
 }
+
+#[test]
+fn a_curve_is_traced_by_clicks_and_resampled_once_its_anchors_are_placed() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "HDC-002's scan", |a| {
+        a.scan_of() == Some("HDC-002") && !a.is_loading() && a.is_view_current(ViewId::PlaneK)
+    });
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+    h.step();
+    h.key_press(egui::Key::S); // snapping off: points land where clicked
+    h.step();
+    h.key_press(egui::Key::T); // trace the scheme's curve (also the Trace button under Curves)
+    h.step();
+    h.step();
+    assert!(h.state().is_placing());
+    let centre = stage_centre(&h);
+    let clicks = [Vec2::new(-20.0, -5.0), Vec2::new(10.0, -15.0)];
+    let mut traced = Vec::new();
+    for off in clicks {
+        let p = centre + off;
+        h.hover_at(p);
+        h.step();
+        traced.push(world_at(&h, p));
+        click(&mut h, p);
+    }
+    let curve = |h: &Harness<'_, App>| {
+        h.state()
+            .session()
+            .unwrap()
+            .trial_ref()
+            .unwrap()
+            .curve("dorsal_midline")
+            .cloned()
+    };
+    let c = curve(&h).expect("the curve is traced");
+    assert_eq!(c.traced_mm.len(), 1);
+    assert_eq!(c.traced_mm[0].len(), 2);
+    for (got, want) in c.traced_mm[0].iter().zip(&traced) {
+        assert!(close(*got, *want, 1e-6));
+    }
+    assert!(c.semilandmarks_mm[0].is_empty(), "no anchors yet");
+    // stop tracing (T after the last segment), place both anchors: snout_tip, then crest_top
+    h.key_press(egui::Key::T);
+    h.step();
+    h.step();
+    for off in [Vec2::new(-60.0, 0.0), Vec2::new(40.0, -30.0)] {
+        click(&mut h, centre + off);
+    }
+    let c = curve(&h).unwrap();
+    assert_eq!(c.semilandmarks_mm[0].len(), 8, "the scheme asks for 8");
+    // undo takes the second anchor back, and the semilandmarks with it
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    assert!(curve(&h).unwrap().semilandmarks_mm[0].is_empty());
+}

@@ -1026,6 +1026,29 @@ impl App {
                     ));
                 }
             }
+            Command::CycleTracing => {
+                let Some(s) = &self.doc.session else {
+                    return Ok(());
+                };
+                let all: Vec<(String, usize)> = s
+                    .project
+                    .scheme()
+                    .curves
+                    .iter()
+                    .flat_map(|c| (0..c.segments()).map(|k| (c.id.clone(), k)))
+                    .collect();
+                let next = match &self.desk.tracing {
+                    None => all.first().cloned(),
+                    Some(t) => all
+                        .iter()
+                        .position(|x| x == t)
+                        .and_then(|i| all.get(i + 1).cloned()),
+                };
+                if next.is_none() {
+                    self.vs.message = Some(("back to placing landmarks".to_owned(), false));
+                }
+                self.pending.push(Command::SetTracing(next));
+            }
             Command::ClearCurve(curve) => {
                 if let Some((specimen, trial)) = self.target()
                     && self
@@ -1889,6 +1912,9 @@ fn desk_shortcuts(ctx: &egui::Context, placing: bool, cmds: &mut Vec<Command>) {
         }
         if key(i, none, Key::L) {
             cmds.push(Command::ToggleLabels);
+        }
+        if key(i, none, Key::T) {
+            cmds.push(Command::CycleTracing);
         }
         if key(i, none, Key::A) {
             cmds.push(Command::ToggleWorkspace);

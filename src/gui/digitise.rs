@@ -539,7 +539,7 @@ fn curves_ui(ui: &mut Ui, s: &Session, tracing: Option<&(String, usize)>, out: &
                 if ui
                     .add(egui::Button::new(label).selected(on))
                     .on_hover_text(format!(
-                        "while placing, clicks add control points from {} towards {}",
+                        "while placing, clicks add control points from {} towards {} (T)",
                         def.anchors[seg],
                         def.anchors[seg + 1]
                     ))

@@ -47,6 +47,10 @@ pub const SHORTCUTS: &[(&str, &str)] = &[
     ("G", "move the crosshair to the current landmark"),
     ("S", "snap surface landmarks to the boundary on / off"),
     ("L", "landmark labels on / off"),
+    (
+        "T",
+        "trace the next curve segment (after the last: back to landmarks)",
+    ),
     ("Ctrl+T", "new trial of the specimen"),
     ("Ctrl+Z", "undo"),
     ("Ctrl+Shift+Z  or  Ctrl+Y", "redo"),

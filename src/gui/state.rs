@@ -287,6 +287,8 @@ pub enum Command {
     SetTracing(Option<(String, usize)>),
     /// Remove a curve's traced points.
     ClearCurve(String),
+    /// Trace the next curve segment of the scheme (after the last one: back to landmarks).
+    CycleTracing,
     ToggleSnap,
     /// The iso-value snapping looks for.
     SetSnapThreshold(f64),
