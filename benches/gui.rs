@@ -10,7 +10,11 @@
 //!    on screen.
 //! 3. The 3D view at stage size on the same volume: surface coarse and full.
 //! 4. Opening the bundled sample scan to its first frame (load on the loader thread, intensity
-//!    percentiles, first stage picture).
+//!    percentiles, first stage picture); and opening the bundled sample project to its first
+//!    frame (read and check the project, open its first specimen's scan through its record with
+//!    the fingerprint check, first stage picture).
+//!
+//! `SUTURA_BENCH_ONLY=open` measures only 4.
 //!
 //! Targets from the issue: a plane redraw under 16 ms of CPU; the 3D coarse pass under 50 ms
 //! and the full pass under 0.5 s; the sample to first frame under 1 s. Figures are medians in
@@ -143,6 +147,33 @@ fn main() {
         first.push(t.elapsed().as_secs_f64() * 1e3);
     }
     let open_ms = report("open the sample scan to its first frame", first);
+
+    // the project, copied with its scans linked beside it so the bundled one stays untouched
+    let dir = tempfile::tempdir().expect("a temporary folder");
+    let src = sample.parent().expect("sample_volumes").to_path_buf();
+    let project = dir.path().join("sample_project.json");
+    std::fs::copy(src.join("sample_project.json"), &project).expect("copy the sample project");
+    for e in std::fs::read_dir(&src).expect("sample_volumes").flatten() {
+        let name = e.file_name().to_string_lossy().into_owned();
+        if name.ends_with(".nii.gz") || name.ends_with("_slices") {
+            std::os::unix::fs::symlink(e.path(), dir.path().join(&name)).expect("link a scan");
+        }
+    }
+    let mut first = Vec::new();
+    for _ in 0..5 {
+        let t = Instant::now();
+        let mut h = harness(App::new(Preferences::default(), Some(project.clone())));
+        step_until(&mut h, |a| {
+            a.scan_of().is_some() && !a.is_loading() && a.is_view_current(ViewId::PlaneK)
+        });
+        first.push(t.elapsed().as_secs_f64() * 1e3);
+    }
+    let project_ms = report("open the sample project to its first frame", first);
+    if std::env::var("SUTURA_BENCH_ONLY").is_ok_and(|v| v == "open") {
+        println!("  sample to first frame      {open_ms:7.1} ms  (1000 ms)");
+        println!("  project to first frame     {project_ms:7.1} ms  (1000 ms)");
+        return;
+    }
 
     let n: usize = std::env::var("SUTURA_BENCH_N")
         .ok()
@@ -320,4 +351,5 @@ fn main() {
     println!("  wheel step to picture      {trip_ms:7.1} ms");
     println!("  3D coarse / full           {coarse_ms:7.1} / {full_ms:.1} ms  (50 / 500 ms)");
     println!("  sample to first frame      {open_ms:7.1} ms  (1000 ms)");
+    println!("  project to first frame     {project_ms:7.1} ms  (1000 ms)");
 }

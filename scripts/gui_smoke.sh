@@ -2,7 +2,8 @@
 # The workstation's smoke test: starts the real window under Xvfb on the sample scan, takes a
 # screenshot of each view as the app puts it on the stage, clicks into a plane view with
 # xdotool, and fails if the app exits non-zero, never reports the click, or a view's
-# screenshot is blank.
+# screenshot is blank. A second run opens a copy of the sample project and shows the desk
+# (a specimen's landmarks while placing) and the analysis view.
 #
 #   scripts/gui_smoke.sh [OUT_DIR]      (default target/gui-smoke)
 #
@@ -96,4 +97,35 @@ set -e
 grep -q "smoke: done" "$LOG" || fail "the app closed before showing every view"
 n=$(convert "$OUT/k_plane.png" "$OUT/k_plane_clicked.png" -compose difference -composite -format '%[fx:mean>0]' info:)
 [ "$n" = 1 ] || fail "the click changed nothing on screen"
+
+# the desk: a copy of the sample project (its scans linked beside it), specimen HDC-002 with its
+# landmarks while placing, then the analysis view with the morphospace
+DESK="$OUT/desk_project"
+rm -rf "$DESK"
+mkdir -p "$DESK"
+cp sample_volumes/sample_project.json "$DESK/"
+for f in sample_volumes/*.nii.gz sample_volumes/*_slices; do ln -s "$PWD/$f" "$DESK/"; done
+LOG="$OUT/desk.log"
+: >"$LOG"
+SUTURA_SMOKE=desk SUTURA_SMOKE_HOLD=${SUTURA_SMOKE_HOLD:-5} \
+  "$BIN" open "$DESK/sample_project.json" >"$LOG" 2>&1 &
+PID=$!
+for view in digitise analysis; do
+  wait_for "smoke: ready $view " 180 || fail "the $view view never got ready"
+  line=$(grep "smoke: ready $view " "$LOG" | head -1)
+  IFS=, read -r x0 y0 x1 y1 <<<"${line##*stage=}"
+  sleep 0.6
+  shot="$OUT/$view.png"
+  import -window root "$shot"
+  region="$((x1 - x0))x$((y1 - y0))+$x0+$y0"
+  n=$(colours "$shot" "$region")
+  echo "gui_smoke: $view: $n colours ($region)"
+  [ "$n" -gt 64 ] || fail "the $view screenshot is blank ($n colours in $region)"
+done
+set +e
+wait "$PID"
+rc=$?
+set -e
+[ "$rc" -eq 0 ] || fail "the desk run exited with code $rc"
+grep -q "smoke: done" "$LOG" || fail "the desk run closed before the analysis view"
 echo "gui_smoke: ok ($(ls "$OUT"/*.png | wc -l) screenshots in $OUT)"

@@ -330,7 +330,9 @@ fn the_open_dialog_lists_scans_and_opens_one() {
     assert!(h.query_by_label("Open a scan file").is_some());
     // it starts in the open scan's folder: the slice folder first, then the scans
     assert!(h.query_by_label("HDC-001_slices/").is_some());
-    assert!(h.query_by_label_contains("scheme.json").is_none());
+    // projects are listed too (the same dialog opens them), other JSON files are not
+    assert!(h.query_by_label_contains("sample_project.json").is_some());
+    assert!(h.query_by_label_contains("landmarks.json").is_none());
     h.get_by_label_contains("TF-003.nii.gz").click();
     h.step();
     h.get_by_label("Open").click();
@@ -343,4 +345,527 @@ fn the_open_dialog_lists_scans_and_opens_one() {
                 .is_some_and(|s| s.path.ends_with("TF-003.nii.gz"))
     });
     assert!(h.query_by_label("Open a scan file").is_none());
+}
+
+// ---------------------------------------------------------------------------------------------
+// The desk: digitising a project through the UI.
+
+use sutura::gui::{Prompt, Workspace};
+use sutura::landmarks::Project;
+use sutura::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_in_slice};
+use sutura::landmarks::project::{LandmarkState, Method, autosave_path, backup_path};
+
+/// A copy of the sample project in `dir`, its scans linked beside it.
+fn project_copy(dir: &std::path::Path) -> PathBuf {
+    let src = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes");
+    let project = dir.join("sample_project.json");
+    std::fs::copy(src.join("sample_project.json"), &project).unwrap();
+    for e in std::fs::read_dir(&src).unwrap() {
+        let e = e.unwrap();
+        let name = e.file_name().to_string_lossy().into_owned();
+        if name.ends_with(".nii.gz") || name.ends_with("_slices") {
+            std::os::unix::fs::symlink(e.path(), dir.join(&name)).unwrap();
+        }
+    }
+    project
+}
+
+/// The app on a project, its first specimen's scan on the stage.
+fn app_on_project(project: &std::path::Path, prefs: Preferences) -> Harness<'static, App> {
+    let app = App::new(prefs, Some(project.to_path_buf()));
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    step_until(&mut h, "the project and its first scan", |a| {
+        a.session().is_some() && a.scan_of().is_some() && !a.is_loading()
+    });
+    h
+}
+
+fn named(operator: &str) -> Preferences {
+    Preferences {
+        operator: operator.into(),
+        ..Preferences::default()
+    }
+}
+
+/// A click of the primary button at `p` (press and release in separate frames).
+fn click(h: &mut Harness<'_, App>, p: Pos2) {
+    h.hover_at(p);
+    h.step();
+    for pressed in [true, false] {
+        h.event(Event::PointerButton {
+            pos: p,
+            button: PointerButton::Primary,
+            pressed,
+            modifiers: Modifiers::NONE,
+        });
+        h.step();
+    }
+    h.step();
+}
+
+fn world_at(h: &Harness<'_, App>, p: Pos2) -> [f64; 3] {
+    let m = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
+    let w = m.world([f64::from(p.x), f64::from(p.y)]);
+    [w.0.x, w.0.y, w.0.z]
+}
+
+fn close(a: [f64; 3], b: [f64; 3], tol: f64) -> bool {
+    (0..3).all(|i| (a[i] - b[i]).abs() <= tol)
+}
+
+#[test]
+#[allow(clippy::too_many_lines)] // reason: one user's session, step by step
+fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let original = Project::load(&path).unwrap();
+    let mut h = app_on_project(&path, Preferences::default());
+    assert_eq!(h.state().scan_of(), Some("HDC-001"));
+
+    // select HDC-002 in the specimen list; its scan opens and passes its fingerprint check
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "HDC-002's scan", |a| {
+        a.scan_of() == Some("HDC-002") && !a.is_loading() && a.is_view_current(ViewId::PlaneK)
+    });
+    assert!(h.state().prompt().is_none());
+
+    // a new trial asks for the operator's name once
+    h.get_by_label("New trial").click();
+    h.step();
+    h.step();
+    assert!(matches!(h.state().prompt(), Some(Prompt::Operator)));
+    h.event(Event::Text("Ana Ruiz".into()));
+    h.step();
+    h.get_by_label("Start trial").click();
+    h.step();
+    h.step();
+    assert!(h.state().prompt().is_none());
+    assert_eq!(h.state().preferences().operator, "Ana Ruiz");
+    let s = h.state().session().unwrap();
+    assert_eq!(s.trial.as_deref(), Some("3"));
+    assert!(s.trial_ref().unwrap().landmarks.is_empty());
+    assert!(h.state().is_placing(), "a new trial starts placing");
+    let lms: Vec<String> = s
+        .project
+        .scheme()
+        .landmarks
+        .iter()
+        .map(|l| l.id.clone())
+        .collect();
+    assert_eq!(s.current.as_deref(), Some(lms[0].as_str()));
+    assert!(s.project.scheme().landmarks[0].on_surface);
+
+    // the first click snaps the surface landmark to the boundary, as the library's pick does
+    let centre = stage_centre(&h);
+    let p0 = centre + Vec2::new(-40.0, 10.0);
+    h.hover_at(p0);
+    h.step();
+    let w0 = world_at(&h, p0);
+    let scan = h.state().document().scan.clone().unwrap();
+    let threshold = h.state().snap_threshold().unwrap();
+    let sp = scan.volume.spacing_mm();
+    let opts = PickOptions {
+        threshold,
+        max_distance_mm: sutura::gui::digitise::SNAP_REACH_VOXELS * sp[0].min(sp[1]).min(sp[2]),
+        refine_to_edge: true,
+    };
+    let m = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
+    let pick = pick_in_slice(
+        &scan.volume,
+        sutura::geometry::WorldPoint::new(w0[0], w0[1], w0[2]),
+        m.u.cross(&m.v),
+        SliceSearch::AllAround,
+        &opts,
+    )
+    .unwrap()
+    .filter(|p| p.crossing != Crossing::VolumeFace);
+    click(&mut h, p0);
+    let e = h
+        .state()
+        .session()
+        .unwrap()
+        .trial_ref()
+        .unwrap()
+        .landmark(&lms[0])
+        .cloned()
+        .expect("the first landmark is placed");
+    assert_eq!(e.state, LandmarkState::Placed);
+    if let Some(p) = pick {
+        assert_eq!(e.method, Some(Method::Surface));
+        let want = [p.point.0.x, p.point.0.y, p.point.0.z];
+        assert!(
+            close(e.position_mm.unwrap(), want, 1e-9),
+            "{e:?} vs {want:?}"
+        );
+        assert!(e.pick.is_some());
+    } else {
+        assert_eq!(e.method, Some(Method::Slice));
+        assert!(close(e.position_mm.unwrap(), w0, 1e-9));
+    }
+    assert_eq!(
+        h.state().session().unwrap().current.as_deref(),
+        Some(lms[1].as_str()),
+        "the next landmark becomes current"
+    );
+
+    // snapping off (S): the next clicks place exactly where clicked, on the shown slice
+    h.key_press(egui::Key::S);
+    h.step();
+    assert!(!h.state().preferences().snap);
+    let offsets = [
+        Vec2::new(30.0, -20.0),
+        Vec2::new(60.0, 25.0),
+        Vec2::new(-10.0, 50.0),
+    ];
+    let mut placed = Vec::new();
+    for (n, off) in offsets.iter().enumerate() {
+        let p = centre + *off;
+        h.hover_at(p);
+        h.step();
+        let w = world_at(&h, p);
+        click(&mut h, p);
+        let t = h.state().session().unwrap().trial_ref().unwrap().clone();
+        let e = t.landmark(&lms[n + 1]).expect("placed");
+        assert_eq!(e.method, Some(Method::Slice));
+        assert!(close(e.position_mm.unwrap(), w, 1e-6), "{e:?} vs {w:?}");
+        placed.push(w);
+    }
+    let full = h.state().session().unwrap().project.clone();
+
+    // undo and redo, by both redo keys
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    assert!(
+        h.state()
+            .session()
+            .unwrap()
+            .trial_ref()
+            .unwrap()
+            .landmark(&lms[3])
+            .is_none()
+    );
+    h.key_press_modifiers(Modifiers::COMMAND | Modifiers::SHIFT, egui::Key::Z);
+    h.step();
+    assert_eq!(h.state().session().unwrap().project, full);
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Y);
+    h.step();
+    assert_eq!(h.state().session().unwrap().project, full);
+
+    // mark the current landmark (the fifth) missing with X
+    assert_eq!(
+        h.state().session().unwrap().current.as_deref(),
+        Some(lms[4].as_str())
+    );
+    h.key_press(egui::Key::X);
+    h.step();
+    let t = h.state().session().unwrap().trial_ref().unwrap().clone();
+    let e = t.landmark(&lms[4]).unwrap();
+    assert_eq!(e.state, LandmarkState::Missing);
+    assert!(e.position_mm.is_none() && e.method.is_none());
+
+    // drag the second landmark's mark 20 points to the right
+    let from = centre + offsets[0];
+    let to = from + Vec2::new(20.0, 0.0);
+    h.hover_at(to);
+    h.step();
+    let w_to = world_at(&h, to);
+    h.hover_at(from);
+    h.step();
+    h.event(Event::PointerButton {
+        pos: from,
+        button: PointerButton::Primary,
+        pressed: true,
+        modifiers: Modifiers::NONE,
+    });
+    h.step();
+    for k in 1..=5 {
+        h.hover_at(from + Vec2::new(4.0 * k as f32, 0.0));
+        h.step();
+    }
+    h.event(Event::PointerButton {
+        pos: to,
+        button: PointerButton::Primary,
+        pressed: false,
+        modifiers: Modifiers::NONE,
+    });
+    h.step();
+    h.step();
+    let t = h.state().session().unwrap().trial_ref().unwrap().clone();
+    let moved = t.landmark(&lms[1]).unwrap();
+    assert!(
+        close(moved.position_mm.unwrap(), w_to, 1e-6),
+        "{moved:?} vs {w_to:?}"
+    );
+    assert_eq!(t.landmarks.len(), 5, "a drag places nothing new");
+    let trial3 = t;
+
+    // a second trial (Ctrl+T): the name is not asked again, the earlier trial is hidden
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+    h.step();
+    h.step();
+    assert!(h.state().prompt().is_none());
+    let s = h.state().session().unwrap();
+    assert_eq!(s.trial.as_deref(), Some("4"));
+    assert!(s.trial_ref().unwrap().landmarks.is_empty());
+    assert_eq!(s.current.as_deref(), Some(lms[0].as_str()));
+    let p = centre + Vec2::new(-70.0, -30.0);
+    h.hover_at(p);
+    h.step();
+    let w4 = world_at(&h, p);
+    click(&mut h, p);
+
+    // save (Ctrl+S), reload from disk
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::S);
+    h.step();
+    assert!(!h.state().session().unwrap().is_dirty());
+    assert!(backup_path(&path).exists());
+    let saved = Project::load(&path).unwrap();
+    let sp2 = saved.specimen("HDC-002").unwrap();
+    assert_eq!(sp2.trials.len(), 4);
+    assert_eq!(sp2.trial("3").unwrap(), &trial3);
+    assert_eq!(sp2.trial("3").unwrap().operator, "Ana Ruiz");
+    let t4 = sp2.trial("4").unwrap();
+    assert_eq!(t4.landmarks.len(), 1);
+    assert_eq!(t4.landmarks[0].id, lms[0]);
+    assert_eq!(t4.landmarks[0].method, Some(Method::Slice));
+    assert!(close(t4.landmarks[0].position_mm.unwrap(), w4, 1e-6));
+    // positions of trial 3 as clicked (the dragged one moved)
+    for (n, w) in placed.iter().enumerate().skip(1) {
+        assert!(close(
+            sp2.trial("3").unwrap().position(&lms[n + 1]).unwrap(),
+            *w,
+            1e-6
+        ));
+    }
+    // nothing else changed
+    for (a, b) in saved.specimens().iter().zip(original.specimens()) {
+        if a.id != "HDC-002" {
+            assert_eq!(a, b);
+        }
+    }
+    assert_eq!(
+        &sp2.trials[..2],
+        &original.specimen("HDC-002").unwrap().trials[..]
+    );
+}
+
+#[test]
+fn after_a_crash_the_autosave_is_offered_and_recovered() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let on_disk = std::fs::read(&path).unwrap();
+    let edited = {
+        let mut h = app_on_project(&path, named("Bo"));
+        h.state_mut().session_mut().unwrap().autosave_delay = Duration::ZERO;
+        h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+        h.step();
+        h.key_press(egui::Key::X);
+        h.step();
+        h.step();
+        assert!(autosave_path(&path).exists(), "the autosave is written");
+        h.state().session().unwrap().project.clone()
+        // the harness drops here without saving: a crash
+    };
+    assert_eq!(
+        std::fs::read(&path).unwrap(),
+        on_disk,
+        "the project file is untouched"
+    );
+    let mut h = app_on_project(&path, named("Bo"));
+    assert!(matches!(h.state().prompt(), Some(Prompt::Autosave(_))));
+    assert_ne!(h.state().session().unwrap().project, edited);
+    h.get_by_label("Recover").click();
+    h.step();
+    h.step();
+    assert!(h.state().prompt().is_none());
+    let s = h.state().session().unwrap();
+    assert_eq!(s.project, edited);
+    assert!(
+        s.is_dirty(),
+        "recovered work is not saved until the user saves"
+    );
+}
+
+#[test]
+fn quitting_with_unsaved_changes_asks_first() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let on_disk = std::fs::read(&path).unwrap();
+    let mut h = app_on_project(&path, named("Bo"));
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+    h.step();
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Q);
+    h.step();
+    h.step();
+    assert!(matches!(
+        h.state().prompt(),
+        Some(Prompt::Unsaved(sutura::gui::After::Quit))
+    ));
+    h.get_by_label("Cancel").click();
+    h.step();
+    h.step();
+    assert!(h.state().prompt().is_none() && !h.state().is_closing());
+    // discard: the file stays as it was, no autosave is left
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Q);
+    h.step();
+    h.step();
+    h.get_by_label("Discard changes").click();
+    h.step();
+    assert!(h.state().is_closing());
+    assert_eq!(std::fs::read(&path).unwrap(), on_disk);
+    assert!(!autosave_path(&path).exists());
+
+    // save: the change is written before closing
+    drop(h);
+    let mut h = app_on_project(&path, named("Bo"));
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+    h.step();
+    let edited = h.state().session().unwrap().project.clone();
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Q);
+    h.step();
+    h.step();
+    h.get_by_label("Save changes").click();
+    h.step();
+    assert!(h.state().is_closing());
+    assert_eq!(Project::load(&path).unwrap(), edited);
+}
+
+#[test]
+fn the_analysis_view_runs_the_superimposition_and_exports() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    h.key_press(egui::Key::A);
+    h.step();
+    h.step();
+    assert_eq!(h.state().workspace(), Workspace::Analysis);
+    h.get_by_label("Run analysis").click();
+    step_until(&mut h, "the analysis", |a| {
+        !a.analysis().is_running() && a.analysis().result.is_some()
+    });
+    let a = h.state().analysis().result.clone().unwrap();
+    // the command line's analysis of the same project gives the same numbers
+    let cli = sutura::gui::analysis_view::run(&Project::load(&path).unwrap()).unwrap();
+    assert_eq!(a.n(), 10);
+    assert_eq!(a.disparity.len(), 2);
+    for (g, c) in a.disparity.iter().zip(&cli.disparity) {
+        assert_eq!(g.group, c.group);
+        assert!((g.procrustes_variance - c.procrustes_variance).abs() < 1e-15);
+    }
+    let out = dir.path().join("exports");
+    h.state_mut().send(Command::SetExportFolder(out.clone()));
+    h.step();
+    h.step();
+    h.get_by_label("Landmarks, long CSV").click();
+    h.step();
+    h.get_by_label("Measurements CSV").click();
+    h.step();
+    h.get_by_label("Analysis tables").click();
+    h.step();
+    let long = std::fs::read_to_string(out.join("landmarks_long.csv")).unwrap();
+    // one row per specimen × trial × landmark (14 trials × 17 landmarks) and a header
+    assert_eq!(long.lines().count(), 14 * 17 + 1);
+    assert!(out.join("measurements.csv").exists());
+    assert!(out.join("aligned_long.csv").exists());
+    let msg = h.state().analysis().last_export.clone().unwrap();
+    assert!(!msg.1 && msg.0.contains("aligned_long.csv"), "{msg:?}");
+}
+
+#[test]
+fn a_scan_that_is_not_the_recorded_one_is_shown_plainly_and_kept_read_only() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    // HDC-002's scan replaced by another specimen's
+    let link = dir.path().join("HDC-002.nii.gz");
+    std::fs::remove_file(&link).unwrap();
+    std::os::unix::fs::symlink(
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-003.nii.gz"),
+        &link,
+    )
+    .unwrap();
+    let mut h = app_on_project(&path, named("Bo"));
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "the fingerprint check", |a| {
+        matches!(a.prompt(), Some(Prompt::Mismatch { .. }))
+    });
+    h.step();
+    assert!(h.query_by_label("Not the recorded scan").is_some());
+    h.get_by_label("Open read-only").click();
+    h.step();
+    h.step();
+    assert_eq!(h.state().scan_of(), Some("HDC-002"));
+    let before = h.state().session().unwrap().project.clone();
+    h.get_by_label("snout_tip").click();
+    h.step();
+    assert_eq!(
+        h.state().session().unwrap().current.as_deref(),
+        Some("snout_tip")
+    );
+    h.key_press(egui::Key::X);
+    h.step();
+    let msg = h.state().view_state().message.clone().unwrap();
+    assert!(msg.1 && msg.0.contains("not the recorded one"), "{msg:?}");
+    assert_eq!(h.state().session().unwrap().project, before);
+}
+
+#[test]
+fn a_curve_is_traced_by_clicks_and_resampled_once_its_anchors_are_placed() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "HDC-002's scan", |a| {
+        a.scan_of() == Some("HDC-002") && !a.is_loading() && a.is_view_current(ViewId::PlaneK)
+    });
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+    h.step();
+    h.key_press(egui::Key::S); // snapping off: points land where clicked
+    h.step();
+    h.key_press(egui::Key::T); // trace the scheme's curve (also the Trace button under Curves)
+    h.step();
+    h.step();
+    assert!(h.state().is_placing());
+    let centre = stage_centre(&h);
+    let clicks = [Vec2::new(-20.0, -5.0), Vec2::new(10.0, -15.0)];
+    let mut traced = Vec::new();
+    for off in clicks {
+        let p = centre + off;
+        h.hover_at(p);
+        h.step();
+        traced.push(world_at(&h, p));
+        click(&mut h, p);
+    }
+    let curve = |h: &Harness<'_, App>| {
+        h.state()
+            .session()
+            .unwrap()
+            .trial_ref()
+            .unwrap()
+            .curve("dorsal_midline")
+            .cloned()
+    };
+    let c = curve(&h).expect("the curve is traced");
+    assert_eq!(c.traced_mm.len(), 1);
+    assert_eq!(c.traced_mm[0].len(), 2);
+    for (got, want) in c.traced_mm[0].iter().zip(&traced) {
+        assert!(close(*got, *want, 1e-6));
+    }
+    assert!(c.semilandmarks_mm[0].is_empty(), "no anchors yet");
+    // stop tracing (T after the last segment), place both anchors: snout_tip, then crest_top
+    h.key_press(egui::Key::T);
+    h.step();
+    h.step();
+    for off in [Vec2::new(-60.0, 0.0), Vec2::new(40.0, -30.0)] {
+        click(&mut h, centre + off);
+    }
+    let c = curve(&h).unwrap();
+    assert_eq!(c.semilandmarks_mm[0].len(), 8, "the scheme asks for 8");
+    // undo takes the second anchor back, and the semilandmarks with it
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    assert!(curve(&h).unwrap().semilandmarks_mm[0].is_empty());
 }

@@ -30,14 +30,14 @@ use crate::volume::Volume;
 #[derive(Debug, Parser)]
 #[command(name = "sutura", version, about, long_about = None, propagate_version = true)]
 pub struct Cli {
-    /// Without a command, the workstation window opens on the bundled sample scan.
+    /// Without a command, the workstation window opens on the bundled sample project.
     #[command(subcommand)]
     command: Option<Command>,
 }
 
 #[derive(Debug, Subcommand)]
 enum Command {
-    /// Open a scan (a file or a folder of TIFF slices) in the workstation window.
+    /// Open a scan (a file or a folder of TIFF slices) or a landmark project in the workstation window.
     Open(OpenArgs),
     /// Print a scan's dimensions, voxel type and size, placement and intensity statistics.
     Info(info::InfoArgs),
@@ -72,7 +72,7 @@ enum Command {
 
 #[derive(Debug, Args)]
 struct OpenArgs {
-    /// The scan: a `NIfTI` or TIFF file, or a folder of TIFF slices.
+    /// The scan (a `NIfTI` or TIFF file, or a folder of TIFF slices) or a project (`.json`).
     path: PathBuf,
 }
 

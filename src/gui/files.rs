@@ -2,8 +2,8 @@
 //! window does).
 //!
 //! It lists a folder: sub-folders first, then the files Sutura reads (`.nii`, `.nii.gz`,
-//! `.hdr`, `.img`, `.tif`, `.tiff`), each group in natural order (`s2` before `s10`); hidden
-//! entries are left out. A double click enters a folder or opens a file; the path field takes a
+//! `.hdr`, `.img`, `.tif`, `.tiff`, and landmark projects), each group in natural order (`s2`
+//! before `s10`); hidden entries are left out. A double click enters a folder or opens a file; the path field takes a
 //! typed path. For a folder of TIFF slices, "Open this folder" opens the folder shown.
 //!
 //! egui 0.37's built-in fonts cover Latin text but no emoji or pictographs, so the dialog uses
@@ -15,6 +15,7 @@ use std::path::{Path, PathBuf};
 use eframe::egui::{self, Color32, RichText};
 
 use super::state::DialogKind;
+use crate::landmarks::project::FORMAT_NAME;
 
 /// A listed entry.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -38,6 +39,27 @@ pub fn is_scan_name(name: &str) -> bool {
     [".nii", ".nii.gz", ".hdr", ".img", ".tif", ".tiff"]
         .iter()
         .any(|e| n.ends_with(e))
+}
+
+/// Whether a file is a landmark project: a `.json` file whose first kilobytes name the
+/// project format (other JSON files are not listed).
+#[must_use]
+pub fn is_project_file(path: &Path) -> bool {
+    use std::io::Read;
+    let is_json = path
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("json"));
+    if !is_json {
+        return false;
+    }
+    let mut head = Vec::with_capacity(1024);
+    std::fs::File::open(path)
+        .and_then(|f| f.take(1024).read_to_end(&mut head))
+        .is_ok_and(|_| {
+            let text = String::from_utf8_lossy(&head);
+            let compact: String = text.split_whitespace().collect();
+            compact.contains(&format!("\"format\":\"{FORMAT_NAME}\""))
+        })
 }
 
 /// Compares names with runs of digits by value (`s2` before `s10`), then case-insensitively.
@@ -90,7 +112,7 @@ pub fn list(dir: &Path) -> std::io::Result<Vec<Entry>> {
         let Ok(meta) = std::fs::metadata(e.path()) else {
             continue;
         };
-        if meta.is_dir() || is_scan_name(&name) {
+        if meta.is_dir() || is_scan_name(&name) || is_project_file(&e.path()) {
             out.push(Entry {
                 name,
                 is_dir: meta.is_dir(),
@@ -162,7 +184,23 @@ impl FileBrowser {
         match self.kind {
             DialogKind::ScanFile => "Open a scan file",
             DialogKind::SliceFolder => "Open a folder of TIFF slices",
+            DialogKind::Project => "Open a landmark project",
+            DialogKind::ExportFolder => "Choose the folder to export into",
         }
+    }
+
+    /// What the dialog is choosing.
+    #[must_use]
+    pub fn kind(&self) -> DialogKind {
+        self.kind
+    }
+
+    /// Whether the dialog picks a folder (rather than a file).
+    fn picks_folder(&self) -> bool {
+        matches!(
+            self.kind,
+            DialogKind::SliceFolder | DialogKind::ExportFolder
+        )
     }
 
     /// Draws the dialog; returns how it ended, if it did this frame.
@@ -235,8 +273,7 @@ impl FileBrowser {
                 ui.separator();
                 ui.horizontal(|ui| {
                     let chosen = self.selected.and_then(|i| self.entries.get(i));
-                    let can_open =
-                        chosen.is_some_and(|e| !e.is_dir || self.kind == DialogKind::SliceFolder);
+                    let can_open = chosen.is_some_and(|e| !e.is_dir || self.picks_folder());
                     if ui
                         .add_enabled(can_open, egui::Button::new("Open"))
                         .clicked()
@@ -244,11 +281,13 @@ impl FileBrowser {
                     {
                         outcome = Some(Outcome::Open(self.dir.join(&e.name)));
                     }
-                    if self.kind == DialogKind::SliceFolder
-                        && ui
-                            .button("Open this folder")
-                            .on_hover_text("the folder shown, as a stack of slices")
-                            .clicked()
+                    let this = if self.kind == DialogKind::ExportFolder {
+                        "Use this folder"
+                    } else {
+                        "Open this folder"
+                    };
+                    if self.picks_folder()
+                        && ui.button(this).on_hover_text("the folder shown").clicked()
                     {
                         outcome = Some(Outcome::Open(self.dir.clone()));
                     }
@@ -299,9 +338,15 @@ mod tests {
             ".hidden.nii",
             "scan.hdr",
             "scan.img",
+            "other.json",
         ] {
             std::fs::write(d.path().join(f), b"x").unwrap();
         }
+        std::fs::write(
+            d.path().join("p.json"),
+            b"{\n  \"format\": \"sutura-project\",\n  \"format_version\": 2\n}",
+        )
+        .unwrap();
         std::fs::create_dir(d.path().join("slices")).unwrap();
         std::fs::create_dir(d.path().join(".cache")).unwrap();
         let names: Vec<(String, bool)> = list(d.path())
@@ -315,6 +360,7 @@ mod tests {
                 ("slices".to_owned(), true),
                 ("a.TIF".to_owned(), false),
                 ("b.nii.gz".to_owned(), false),
+                ("p.json".to_owned(), false),
                 ("scan.hdr".to_owned(), false),
                 ("scan.img".to_owned(), false),
             ]

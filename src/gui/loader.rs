@@ -3,7 +3,9 @@
 //! The thread runs [`crate::io::open`] with a progress callback that stores `(done, total)` in
 //! atomics the UI reads each frame, and returns `false` (cancel) once the user has asked to
 //! cancel; then it summarises the scan ([`Scan::new`]: one pass for the intensity
-//! percentiles). The outcome comes back by channel; the UI thread never waits for it.
+//! percentiles). The outcome comes back by channel; the UI thread never waits for it. A project
+//! specimen's scan is opened through its [`ScanRecord`], which also checks that it is the scan
+//! the landmarks were placed on.
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -13,11 +15,15 @@ use std::time::Instant;
 
 use super::state::Scan;
 use crate::io::{self, OpenOptions, Progress};
+use crate::landmarks::project::ScanRecord;
+use crate::volume::Volume;
 
 /// How a load ended.
 #[derive(Debug)]
 pub enum Outcome {
     Loaded(Scan),
+    /// A specimen's scan that is not the one its record describes: what differs.
+    Mismatched(Scan, String),
     Failed(String),
     Cancelled,
 }
@@ -25,6 +31,8 @@ pub enum Outcome {
 /// A load in progress.
 pub struct Loading {
     pub path: PathBuf,
+    /// The project specimen whose scan this is.
+    pub specimen: Option<String>,
     pub started: Instant,
     done: Arc<AtomicU64>,
     total: Arc<AtomicU64>,
@@ -40,6 +48,47 @@ impl Loading {
         options: OpenOptions,
         id: u64,
         wake: impl Fn() + Send + Sync + 'static,
+    ) -> Self {
+        Self::spawn(path, None, id, wake, move |p, progress| {
+            io::open(p, &options, progress)
+                .map(|v| (v, None))
+                .map_err(|e| e.to_string())
+        })
+    }
+
+    /// Starts loading the scan of project specimen `specimen` as its record says (the recorded
+    /// voxel size), checking it against the record's fingerprint and placement.
+    pub fn start_specimen(
+        project_file: &Path,
+        specimen: &str,
+        record: ScanRecord,
+        id: u64,
+        wake: impl Fn() + Send + Sync + 'static,
+    ) -> Self {
+        let project_file = project_file.to_path_buf();
+        let path = record.resolve(&project_file);
+        Self::spawn(
+            &path,
+            Some(specimen.to_owned()),
+            id,
+            wake,
+            move |_, progress| {
+                let (volume, mismatch) = record
+                    .open(&project_file, progress)
+                    .map_err(|e| e.to_string())?;
+                Ok((volume, mismatch.map(|m| m.differences.join("; "))))
+            },
+        )
+    }
+
+    fn spawn(
+        path: &Path,
+        specimen: Option<String>,
+        id: u64,
+        wake: impl Fn() + Send + Sync + 'static,
+        job: impl FnOnce(&Path, &Progress<'_>) -> Result<(Volume, Option<String>), String>
+        + Send
+        + 'static,
     ) -> Self {
         let done = Arc::new(AtomicU64::new(0));
         let total = Arc::new(AtomicU64::new(0));
@@ -61,13 +110,16 @@ impl Loading {
                     !c.load(Ordering::Relaxed)
                 };
                 let progress = Progress::new(Some(&report));
-                let result = io::open(&p, &options, &progress);
+                let result = job(&p, &progress);
                 let outcome = if c.load(Ordering::Relaxed) {
                     Outcome::Cancelled
                 } else {
                     match result {
-                        Ok(volume) => Outcome::Loaded(Scan::new(id, p, volume)),
-                        Err(e) => Outcome::Failed(e.to_string()),
+                        Ok((volume, None)) => Outcome::Loaded(Scan::new(id, p, volume)),
+                        Ok((volume, Some(why))) => {
+                            Outcome::Mismatched(Scan::new(id, p, volume), why)
+                        }
+                        Err(e) => Outcome::Failed(e),
                     }
                 };
                 let _ = tx.send(outcome);
@@ -85,6 +137,7 @@ impl Loading {
         };
         Self {
             path: path.to_path_buf(),
+            specimen,
             started: Instant::now(),
             done,
             total,

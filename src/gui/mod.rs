@@ -14,14 +14,21 @@
 //! *strip* beside it; a click on a small view puts it on the stage. Each view has an identity
 //! colour for its frame and for its line in the other plane views' crosshair.
 //!
+//! A landmark project opens on the *desk* ([`desk`]: the document with its undo history and
+//! autosave); [`digitise`] draws the checklist and the landmarks over the views, and
+//! [`analysis_view`] the whole sample's superimposition and the exports.
+//!
 //! Loading ([`loader`]) and rendering ([`worker`]) run on background threads and report by
 //! channel; the UI thread never waits for either. The 3D view shows a coarse picture while it
 //! moves and the full one once it is still.
 //!
 //! Only this module imports egui and eframe.
 
+pub mod analysis_view;
 pub mod app;
 pub mod camera;
+pub mod desk;
+pub mod digitise;
 pub mod files;
 pub mod loader;
 pub mod panels;
@@ -29,8 +36,8 @@ pub mod state;
 pub mod view;
 pub mod worker;
 
-pub use app::{App, Smoke};
-pub use state::{Command, Document, Preferences, ViewId, ViewState};
+pub use app::{After, App, Prompt, Smoke};
+pub use state::{Answer, Command, Document, Preferences, ViewId, ViewState, Workspace};
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -39,8 +46,10 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use anyhow::{Result, bail};
 use eframe::egui;
 
-/// The sample scan opened when the workstation starts without a path.
+/// The sample scan.
 pub const SAMPLE_SCAN: &str = "sample_volumes/HDC-002.nii.gz";
+/// The sample landmark project opened when the workstation starts without a path.
+pub const SAMPLE_PROJECT: &str = "sample_volumes/sample_project.json";
 
 /// What to say when there is no display to open a window on.
 const NO_DISPLAY: &str = "no display to open the workstation on (neither DISPLAY nor \
@@ -50,11 +59,21 @@ const NO_DISPLAY: &str = "no display to open the workstation on (neither DISPLAY
 /// The bundled sample scan: beside the working directory, else beside the source tree.
 #[must_use]
 pub fn sample_scan() -> Option<PathBuf> {
-    let here = PathBuf::from(SAMPLE_SCAN);
+    bundled(SAMPLE_SCAN)
+}
+
+/// The bundled sample project, found as [`sample_scan`] is.
+#[must_use]
+pub fn sample_project() -> Option<PathBuf> {
+    bundled(SAMPLE_PROJECT)
+}
+
+fn bundled(rel: &str) -> Option<PathBuf> {
+    let here = PathBuf::from(rel);
     if here.exists() {
         return Some(here);
     }
-    let built = Path::new(env!("CARGO_MANIFEST_DIR")).join(SAMPLE_SCAN);
+    let built = Path::new(env!("CARGO_MANIFEST_DIR")).join(rel);
     built.exists().then_some(built)
 }
 
@@ -65,7 +84,8 @@ pub fn has_display() -> bool {
     set("DISPLAY") || set("WAYLAND_DISPLAY") || set("WAYLAND_SOCKET")
 }
 
-/// Opens the workstation window on `path` (or the sample scan) and runs until it closes.
+/// Opens the workstation window on `path` (a scan or a project; without one the sample
+/// project) and runs until it closes.
 pub fn run(path: Option<PathBuf>) -> Result<()> {
     if let Some(p) = &path
         && !p.exists()
@@ -75,7 +95,7 @@ pub fn run(path: Option<PathBuf>) -> Result<()> {
     if !has_display() {
         bail!("{NO_DISPLAY}");
     }
-    let open = path.or_else(sample_scan);
+    let open = path.or_else(sample_project).or_else(sample_scan);
     let failed = Arc::new(AtomicBool::new(false));
     let smoke = Smoke::from_env(Arc::clone(&failed));
     let options = eframe::NativeOptions {

@@ -6,7 +6,7 @@ use eframe::egui::{self, Color32, RichText, Ui};
 
 use super::loader::Loading;
 use super::state::{
-    Command, DialogKind, Document, Preferences, Scan, ViewId, ViewState, VolumeMode,
+    Command, DialogKind, Document, Preferences, Scan, ViewId, ViewState, VolumeMode, Workspace,
 };
 use super::view::{colour32, format_value, hover_text};
 use crate::geometry::format_length_mm;
@@ -33,7 +33,29 @@ pub const SHORTCUTS: &[(&str, &str)] = &[
     ("B", "scale bar on / off"),
     ("M", "3D: surface or projection"),
     ("[  ]", "3D: surface threshold down / up"),
-    ("Ctrl+Q", "quit"),
+    (
+        "Ctrl+Q",
+        "quit (asks first if the project has unsaved changes)",
+    ),
+    (
+        "P",
+        "placing on / off: a click on the stage places the current landmark",
+    ),
+    ("N  /  Shift+N", "next / previous landmark"),
+    ("X", "mark the current landmark missing"),
+    ("Delete", "clear the current landmark"),
+    ("G", "move the crosshair to the current landmark"),
+    ("S", "snap surface landmarks to the boundary on / off"),
+    ("L", "landmark labels on / off"),
+    (
+        "T",
+        "trace the next curve segment (after the last: back to landmarks)",
+    ),
+    ("Ctrl+T", "new trial of the specimen"),
+    ("Ctrl+Z", "undo"),
+    ("Ctrl+Shift+Z  or  Ctrl+Y", "redo"),
+    ("Ctrl+S", "save the project"),
+    ("A", "analysis workspace / back to digitising"),
 ];
 
 /// What the pointer does, for the help overlay.
@@ -49,13 +71,76 @@ pub const POINTER: &[(&str, &str)] = &[
     ("Ctrl + wheel", "zoom about the pointer"),
     ("double click", "reset the view"),
     ("click a small view", "put it on the stage"),
-    ("drop a file", "open it"),
+    ("drop a file", "open it (a scan or a project)"),
+    (
+        "placing: click",
+        "place the current landmark (3D view: on the surface)",
+    ),
+    ("placing: drag a mark", "move a placed landmark"),
+    (
+        "placing: click a mark",
+        "make that landmark the current one",
+    ),
 ];
 
-/// The top bar: the scan menu, the stage selector and help.
-pub fn top_bar_ui(ui: &mut Ui, doc: &Document, prefs: &Preferences) -> Option<Command> {
+/// The top bar: the project and scan menus, the workspace and stage selectors, and help.
+#[allow(clippy::too_many_lines)] // reason: the bar's menus and selectors, left to right
+pub fn top_bar_ui(
+    ui: &mut Ui,
+    doc: &Document,
+    prefs: &Preferences,
+    workspace: Workspace,
+) -> Option<Command> {
     let mut cmd = None;
     egui::MenuBar::new().ui(ui, |ui| {
+        ui.menu_button("Project", |ui| {
+            if ui.button("Open project…").clicked() {
+                cmd = Some(Command::ShowOpenDialog(DialogKind::Project));
+            }
+            let s = doc.session.as_ref();
+            if ui
+                .add_enabled(
+                    s.is_some_and(|s| s.is_dirty() && !s.read_only),
+                    egui::Button::new("Save").shortcut_text("Ctrl+S"),
+                )
+                .clicked()
+            {
+                cmd = Some(Command::Save);
+            }
+            ui.separator();
+            let undo = s.and_then(|s| s.next_undo()).map(|w| format!("Undo {w}"));
+            if ui
+                .add_enabled(
+                    undo.is_some(),
+                    egui::Button::new(undo.unwrap_or_else(|| "Undo".into()))
+                        .shortcut_text("Ctrl+Z"),
+                )
+                .clicked()
+            {
+                cmd = Some(Command::Undo);
+            }
+            let redo = s.and_then(|s| s.next_redo()).map(|w| format!("Redo {w}"));
+            if ui
+                .add_enabled(
+                    redo.is_some(),
+                    egui::Button::new(redo.unwrap_or_else(|| "Redo".into()))
+                        .shortcut_text("Ctrl+Shift+Z"),
+                )
+                .clicked()
+            {
+                cmd = Some(Command::Redo);
+            }
+            ui.separator();
+            if ui
+                .add_enabled(
+                    s.is_some(),
+                    egui::Button::new("New trial").shortcut_text("Ctrl+T"),
+                )
+                .clicked()
+            {
+                cmd = Some(Command::StartTrial);
+            }
+        });
         ui.menu_button("Scan", |ui| {
             if ui.button("Open scan file…").clicked() {
                 cmd = Some(Command::ShowOpenDialog(DialogKind::ScanFile));
@@ -109,6 +194,21 @@ pub fn top_bar_ui(ui: &mut Ui, doc: &Document, prefs: &Preferences) -> Option<Co
             }
         });
         ui.add_space(12.0);
+        if doc.session.is_some() {
+            for (w, name, key) in [
+                (Workspace::Digitise, "Digitise", "A: switch"),
+                (Workspace::Analysis, "Analysis", "A: switch"),
+            ] {
+                if ui
+                    .selectable_label(workspace == w, RichText::new(name).strong())
+                    .on_hover_text(key)
+                    .clicked()
+                {
+                    cmd = Some(Command::SetWorkspace(w));
+                }
+            }
+            ui.add_space(12.0);
+        }
         ui.label(RichText::new("Stage").weak());
         for v in ViewId::ALL {
             let text = RichText::new(v.label()).color(if prefs.stage == v {
@@ -131,6 +231,10 @@ pub fn top_bar_ui(ui: &mut Ui, doc: &Document, prefs: &Preferences) -> Option<Co
             if let Some(s) = &doc.scan {
                 ui.label(RichText::new(s.name()).strong());
             }
+            if let Some(s) = &doc.session {
+                let dirty = if s.is_dirty() { " (unsaved)" } else { "" };
+                ui.label(RichText::new(format!("{}{dirty} ·", s.name())).weak());
+            }
         });
     });
     cmd
@@ -146,7 +250,12 @@ pub fn controls_ui(
     let Some(scan) = &doc.scan else {
         ui.add_space(8.0);
         ui.label("No scan open.");
-        ui.label(RichText::new("Scan > Open, Ctrl+O, or drop a file on the window.").weak());
+        ui.label(
+            RichText::new(
+                "Project > Open project, Scan > Open (Ctrl+O), or drop a file on the window.",
+            )
+            .weak(),
+        );
         return None;
     };
     let mut cmd = None;

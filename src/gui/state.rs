@@ -124,6 +124,41 @@ pub enum DialogKind {
     ScanFile,
     /// A folder of TIFF slices.
     SliceFolder,
+    /// A landmark project (`.json`).
+    Project,
+    /// The folder exports are written into.
+    ExportFolder,
+}
+
+/// The two workspaces: digitising one specimen, or the whole sample's analysis.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum Workspace {
+    #[default]
+    Digitise,
+    Analysis,
+}
+
+/// An answer to the unsaved-changes question.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Answer {
+    Save,
+    Discard,
+    Cancel,
+}
+
+/// Everything the analysis view can write (see [`super::analysis_view`]).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ExportKind {
+    /// The superimposition's tables (CSV, JSON, NPY).
+    AnalysisTables,
+    /// Its charts (SVG and PNG).
+    AnalysisFigures,
+    LongCsv,
+    WideCsv,
+    Json,
+    Npy,
+    Ply,
+    Measurements,
 }
 
 /// Everything a panel or view can ask for; applied after the frame.
@@ -206,6 +241,76 @@ pub enum Command {
     ToggleCrosshair,
     ToggleScaleBar,
     ToggleHelp,
+
+    /// Select a specimen of the open project and open its scan.
+    SelectSpecimen(String),
+    SelectTrial(String),
+    /// Start a new trial of the selected specimen (asks for the operator's name once).
+    StartTrial,
+    /// The operator's name for trials from now on; starts the trial that asked for it.
+    SetOperator(String),
+    /// Make a landmark the current one.
+    SelectLandmark(String),
+    /// Step the current landmark through the scheme.
+    StepLandmark(isize),
+    /// Placing mode on or off: in it, a click on a view places the current landmark.
+    TogglePlacing,
+    /// Place the current landmark at a point clicked on a plane view (snapped to the
+    /// boundary when snapping is on and the landmark lies on the surface).
+    PlaceOnPlane {
+        view: ViewId,
+        at: WorldPoint,
+    },
+    /// Place the current landmark on the 3D view's surface: the ray from `origin` along
+    /// `direction` (the pixel's view ray).
+    PlaceOnSurface {
+        origin: WorldPoint,
+        direction: Vector3<f64>,
+    },
+    /// Move a placed landmark to a point (a drag on a plane view).
+    MoveLandmark {
+        landmark: String,
+        to: WorldPoint,
+    },
+    /// Mark the current landmark missing on this specimen.
+    MarkMissing,
+    /// Forget the current landmark's position or state.
+    ClearLandmark,
+    SetNote {
+        landmark: String,
+        note: String,
+    },
+    /// Move the crosshair to the current landmark.
+    GoToLandmark,
+    /// Trace a curve: while placing, clicks add control points to segment `segment` (between
+    /// its anchors `segment` and `segment + 1`); `None` goes back to landmarks.
+    SetTracing(Option<(String, usize)>),
+    /// Remove a curve's traced points.
+    ClearCurve(String),
+    /// Trace the next curve segment of the scheme (after the last one: back to landmarks).
+    CycleTracing,
+    ToggleSnap,
+    /// The iso-value snapping looks for.
+    SetSnapThreshold(f64),
+    Undo,
+    Redo,
+    Save,
+    /// Answer the unsaved-changes question.
+    Unsaved(Answer),
+    /// Recover (`true`) or discard the autosave found beside the project.
+    Autosave(bool),
+    /// Open a specimen whose scan is not the one recorded, read-only (`true`), or cancel.
+    Mismatch(bool),
+    SetWorkspace(Workspace),
+    /// Digitise ↔ analysis.
+    ToggleWorkspace,
+    /// Landmark labels in the views on or off.
+    ToggleLabels,
+    RunAnalysis,
+    /// PC axes of the morphospace (0-based).
+    SetAxes([usize; 2]),
+    SetExportFolder(PathBuf),
+    Export(ExportKind),
 }
 
 /// A scan that is open, with what the views need to start from.
@@ -221,6 +326,9 @@ pub struct Scan {
     pub full_range: (f64, f64),
     /// The median: with the 99.5th percentile it gives the default surface threshold.
     pub median: f64,
+    /// The ISO-50 iso-value (halfway between the background and material peaks), where the
+    /// histogram has two; what snapping to the boundary looks for at first.
+    pub iso50: Option<f64>,
 }
 
 impl Scan {
@@ -228,6 +336,7 @@ impl Scan {
     #[must_use]
     pub fn new(id: u64, path: PathBuf, volume: Volume) -> Self {
         let p = volume.percentiles(&[0.0, 0.5, 50.0, 99.5, 100.0]);
+        let iso50 = crate::landmarks::pick::iso50_threshold(&volume).ok();
         Self {
             id,
             path,
@@ -235,6 +344,7 @@ impl Scan {
             robust_range: (p[1], p[3]),
             full_range: (p[0], p[4]),
             median: p[2],
+            iso50,
         }
     }
 
@@ -271,6 +381,8 @@ impl Scan {
 #[derive(Debug, Default)]
 pub struct Document {
     pub scan: Option<Arc<Scan>>,
+    /// The landmark project, when one is open.
+    pub session: Option<super::desk::Session>,
 }
 
 /// Where the strip of small views sits.
@@ -290,6 +402,7 @@ pub struct WindowPreset {
 }
 
 /// The user's working preferences, kept between sessions.
+#[allow(clippy::struct_excessive_bools)] // reason: independent on/off preferences, each a switch in the UI
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(default)]
 pub struct Preferences {
@@ -306,6 +419,12 @@ pub struct Preferences {
     pub recent: Vec<PathBuf>,
     /// Voxel size given for TIFF scans (`36um` or `36um,36um,50um`); empty: the file's own.
     pub tiff_voxel_size: String,
+    /// The name new trials are recorded under.
+    pub operator: String,
+    /// Snap surface landmarks to the material's boundary when placing them on a plane view.
+    pub snap: bool,
+    /// Labels beside the landmarks in the views.
+    pub landmark_labels: bool,
 }
 
 impl Default for Preferences {
@@ -321,6 +440,9 @@ impl Default for Preferences {
             presets: Vec::new(),
             recent: Vec::new(),
             tiff_voxel_size: String::new(),
+            operator: String::new(),
+            snap: true,
+            landmark_labels: true,
         }
     }
 }
@@ -372,6 +494,8 @@ pub struct ViewState {
     pub planes_changed_at: f64,
     /// A message for the status line, and whether it reports an error.
     pub message: Option<(String, bool)>,
+    /// A landmark being dragged to a new place on a plane view, and where it is now.
+    pub drag: Option<(String, WorldPoint)>,
 }
 
 impl Default for ViewState {
@@ -399,6 +523,7 @@ impl Default for ViewState {
             volume_changed_at: f64::NEG_INFINITY,
             planes_changed_at: f64::NEG_INFINITY,
             message: None,
+            drag: None,
         }
     }
 }
@@ -530,10 +655,8 @@ impl ViewState {
                     });
                 }
             }
-            Command::DeletePreset(i) => {
-                if *i < prefs.presets.len() {
-                    prefs.presets.remove(*i);
-                }
+            Command::DeletePreset(i) if *i < prefs.presets.len() => {
+                prefs.presets.remove(*i);
             }
             Command::SetColourMap(m) => {
                 prefs.colour_map = *m;
@@ -543,10 +666,8 @@ impl ViewState {
                 about_u_deg,
                 about_v_deg,
             } => self.oblique = self.oblique.turned(*about_u_deg, *about_v_deg),
-            Command::SetObliqueAngles(a) => {
-                if a.iter().all(|x| x.is_finite()) {
-                    self.oblique = Oblique::from_angles_deg(*a);
-                }
+            Command::SetObliqueAngles(a) if a.iter().all(|x| x.is_finite()) => {
+                self.oblique = Oblique::from_angles_deg(*a);
             }
             Command::Orbit {
                 d_azimuth_deg,
@@ -571,11 +692,9 @@ impl ViewState {
                 self.volume_mode = *m;
                 self.volume_changed_at = now;
             }
-            Command::SetThreshold(t) => {
-                if t.is_finite() {
-                    self.threshold = *t;
-                    self.volume_changed_at = now;
-                }
+            Command::SetThreshold(t) if t.is_finite() => {
+                self.threshold = *t;
+                self.volume_changed_at = now;
             }
             Command::NudgeThreshold(frac) => {
                 let span = scan.full_range.1 - scan.full_range.0;
@@ -588,11 +707,7 @@ impl ViewState {
             Command::ToggleCrosshair => prefs.show_crosshair = !prefs.show_crosshair,
             Command::ToggleScaleBar => prefs.show_scale_bar = !prefs.show_scale_bar,
             Command::ToggleHelp => self.help_open = !self.help_open,
-            Command::Open(_)
-            | Command::ShowOpenDialog(_)
-            | Command::SetTiffVoxelSize(_)
-            | Command::CancelLoad
-            | Command::Quit => {}
+            _ => {}
         }
     }
 

@@ -10,6 +10,9 @@
 //!   about the pointer;
 //! - double click: reset the view.
 //!
+//! In placing mode (a project open, key P) the left button places the current landmark instead
+//! (a click), or moves a placed one (a drag that starts on its mark); see [`super::digitise`].
+//!
 //! A small view in the strip takes the wheel (slices) and a click, which puts it on the stage.
 //!
 //! The picture on screen is placed by the geometry it was rendered with, mapped through the
@@ -25,6 +28,8 @@ use std::fmt::Write as _;
 use super::camera::{
     ScreenMap, axis_basis, fit_mm_per_point, half_extents, onto_slice, slice_index,
 };
+use super::desk::Session;
+use super::digitise;
 use super::state::{Command, Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
 use super::worker::RenderKey;
 use crate::geometry::WorldPoint;
@@ -150,6 +155,7 @@ pub fn view_ui(
     prefs: &Preferences,
     vs: &mut ViewState,
     shown: Option<&Shown>,
+    desk: Desk<'_>,
     out: &mut Vec<Command>,
 ) {
     let volume = &scan.volume;
@@ -200,6 +206,31 @@ pub fn view_ui(
         crosshair(&painter, volume, vs, view, m);
     }
     frame_and_label(&painter, rect, view, on_stage, volume, vs);
+    if let Some(session) = desk.session {
+        match (&map, shown) {
+            (Some(m), _) => digitise::plane_marks(
+                &painter,
+                scan,
+                m,
+                session,
+                vs.drag.as_ref(),
+                prefs.landmark_labels,
+                on_stage,
+            ),
+            (None, Some(s)) => digitise::volume_marks(
+                &painter,
+                rect,
+                scan,
+                s,
+                session,
+                prefs.landmark_labels && on_stage,
+            ),
+            _ => {}
+        }
+        if desk.placing && on_stage {
+            digitise::placing_badge(&painter, rect, session, view, desk.tracing);
+        }
+    }
 
     // hover read-out
     if let Some(p) = response.hover_pos() {
@@ -265,6 +296,19 @@ pub fn view_ui(
         if delta != Vec2::ZERO {
             out.push(window_drag(vs, d));
         }
+    } else if let (true, Some(session)) = (desk.placing && !modifiers.command, desk.session) {
+        place_input(
+            ui,
+            &response,
+            view,
+            rect,
+            scan,
+            session,
+            map.as_ref(),
+            shown,
+            vs,
+            out,
+        );
     } else if view == ViewId::Volume {
         if response.dragged_by(PointerButton::Primary) && delta != Vec2::ZERO {
             out.push(Command::Orbit {
@@ -290,12 +334,90 @@ pub fn view_ui(
     }
 
     let icon = match view {
+        _ if desk.placing && vs.drag.is_some() => CursorIcon::Grabbing,
+        _ if desk.placing && !panning => CursorIcon::Cell,
         ViewId::Volume if response.dragged() => CursorIcon::Grabbing,
         ViewId::Volume => CursorIcon::Grab,
         _ if panning => CursorIcon::Grabbing,
         _ => CursorIcon::Crosshair,
     };
     let _ = response.on_hover_cursor(icon);
+}
+
+/// What a view needs of the desk: the open project and whether placing mode is on.
+#[derive(Clone, Copy, Default)]
+pub struct Desk<'a> {
+    pub session: Option<&'a Session>,
+    pub placing: bool,
+    /// The curve being traced.
+    pub tracing: Option<&'a str>,
+}
+
+/// Pointer input while placing: on a plane view a click places the current landmark (a click
+/// on a placed landmark's mark makes that one current) and a drag that starts on a mark moves
+/// it; on the 3D view a click places the
+/// current landmark on the surface under the pointer.
+#[allow(clippy::too_many_arguments)] // reason: the view, its geometry and the state tiers
+fn place_input(
+    ui: &Ui,
+    response: &egui::Response,
+    view: ViewId,
+    rect: Rect,
+    scan: &Scan,
+    session: &Session,
+    map: Option<&ScreenMap>,
+    shown: Option<&Shown>,
+    vs: &mut ViewState,
+    out: &mut Vec<Command>,
+) {
+    if let Some(m) = map {
+        if response.drag_started_by(PointerButton::Primary)
+            && let Some(origin) = ui.input(|i| i.pointer.press_origin())
+            && let Some(id) = digitise::grab_on_plane(scan, m, session, origin)
+        {
+            vs.drag = Some((id, m.world(arr(origin))));
+        }
+        if vs.drag.is_some() {
+            if let Some(p) = response.interact_pointer_pos()
+                && let Some(d) = &mut vs.drag
+            {
+                d.1 = m.world(arr(p));
+            }
+            if (response.drag_stopped() || !ui.input(|i| i.pointer.primary_down()))
+                && let Some((landmark, to)) = vs.drag.take()
+            {
+                out.push(Command::MoveLandmark { landmark, to });
+            }
+        } else if response.clicked_by(PointerButton::Primary)
+            && let Some(p) = response.interact_pointer_pos()
+        {
+            // a click on a placed landmark's mark makes it current rather than placing another
+            // landmark on top of it
+            out.push(match digitise::grab_on_plane(scan, m, session, p) {
+                Some(id) => Command::SelectLandmark(id),
+                None => Command::PlaceOnPlane {
+                    view,
+                    at: m.world(arr(p)),
+                },
+            });
+        }
+        return;
+    }
+    if response.clicked_by(PointerButton::Primary)
+        && let Some(p) = response.interact_pointer_pos()
+        && let Some(s) = shown
+        && let RenderKey::Volume(k) = &s.key
+    {
+        let [w, h] = s.key.size();
+        let col = f64::from((p.x - rect.min.x) / rect.width()) * w as f64 - 0.5;
+        let row = f64::from((p.y - rect.min.y) / rect.height()) * h as f64 - 0.5;
+        if let Ok(origin) = k.camera.pixel_world(col, row) {
+            out.push(Command::PlaceOnSurface {
+                origin,
+                direction: k.camera.view_dir,
+            });
+        }
+    }
 }
 
 /// Window/level from a right-button drag of `d` points: right widens, up brightens.
