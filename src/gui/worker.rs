@@ -24,6 +24,7 @@ use rayon::prelude::*;
 use super::state::{Scan, ViewId, VolumeMode};
 use crate::geometry::WorldPoint;
 use crate::render::overlay::{AxisNames, Overlay};
+use crate::render::pyramid::Pyramid;
 use crate::render::raycast::{self, Bricks};
 use crate::render::{
     Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RenderError, RgbaImage,
@@ -327,8 +328,68 @@ impl Drop for Workers {
     }
 }
 
+/// Scans with at least this many voxels get a block pyramid for the 3D view: its moving
+/// pictures are rendered from the 4x preview level, and the surface's empty-space table is read
+/// off it. Below it the full volume renders fast enough (common practice: previews pay off
+/// from about 256³).
+const PYRAMID_MIN_VOXELS: usize = 1 << 24;
+
+/// What the 3D worker keeps per scan: the block pyramid (large scans) and the surface's
+/// empty-space table.
+struct VolumeAids {
+    scan: u64,
+    pyramid: Option<Pyramid>,
+    bricks: Option<Bricks>,
+}
+
+impl VolumeAids {
+    fn new(scan: u64, v: &Volume) -> Self {
+        let pyramid = if v.dims().iter().product::<usize>() >= PYRAMID_MIN_VOXELS {
+            Pyramid::new(v).ok()
+        } else {
+            None
+        };
+        Self {
+            scan,
+            pyramid,
+            bricks: None,
+        }
+    }
+
+    fn bricks(&mut self, volume: &Volume) -> &Bricks {
+        let pyramid = self.pyramid.as_ref();
+        self.bricks.get_or_insert_with(|| {
+            pyramid
+                .and_then(|p| Bricks::from_pyramid(p, volume))
+                .unwrap_or_else(|| Bricks::new(volume))
+        })
+    }
+}
+
+/// The volume and key a 3D job renders: a moving (downsampled) picture of a large scan comes
+/// from the pyramid's preview level, stepping half a preview voxel (two source voxels), with
+/// the job's own ray spacing; anything else from the scan itself. The flag says which.
+fn volume_job<'a>(
+    aids: &'a VolumeAids,
+    scan: &'a Volume,
+    key: &RenderKey,
+) -> (&'a Volume, RenderKey, bool) {
+    if let RenderKey::Volume(v) = key
+        && v.quality.downsample > 1
+        && let Some(preview) = aids.pyramid.as_ref().and_then(Pyramid::preview)
+    {
+        let mut k = *v;
+        k.quality = Quality {
+            downsample: v.quality.downsample,
+            step_voxels: Quality::preview().step_voxels,
+        };
+        return (preview, RenderKey::Volume(k), true);
+    }
+    (scan, *key, false)
+}
+
 fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() + Send + Sync)) {
-    let mut bricks: Option<(u64, Arc<Bricks>)> = None;
+    let mut aids: Option<VolumeAids> = None;
     let mut values: [PlaneValues; 5] = Default::default();
     loop {
         let (view, job) = {
@@ -355,16 +416,22 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
             }
         };
         let start = Instant::now();
-        let needs_bricks = matches!(job.key, RenderKey::Volume(v) if v.mode == VolumeMode::Surface);
-        if needs_bricks && bricks.as_ref().is_none_or(|(id, _)| *id != job.scan.id) {
-            bricks = Some((job.scan.id, Arc::new(Bricks::new(&job.scan.volume))));
+        let picture = if let RenderKey::Volume(v) = job.key {
+            if aids.as_ref().is_none_or(|a| a.scan != job.scan.id) {
+                aids = Some(VolumeAids::new(job.scan.id, &job.scan.volume));
+            }
+            let a = aids.as_mut().expect("just set");
+            let from_preview = v.quality.downsample > 1 && a.pyramid.is_some();
+            if v.mode == VolumeMode::Surface && !from_preview {
+                a.bricks(&job.scan.volume);
+            }
+            let (volume, key, preview) = volume_job(a, &job.scan.volume, &job.key);
+            // the table is of the full volume: a preview renders without it
+            render_view(volume, &key, a.bricks.as_ref().filter(|_| !preview))
+        } else {
+            render_view_reusing(&job.scan.volume, &job.key, None, &mut values[view.index()])
         }
-        let b = bricks
-            .as_ref()
-            .filter(|(id, _)| *id == job.scan.id)
-            .map(|(_, b)| b.as_ref());
-        let picture = render_view_reusing(&job.scan.volume, &job.key, b, &mut values[view.index()])
-            .map_err(|e| e.to_string());
+        .map_err(|e| e.to_string());
         let sent = tx.send(Rendered {
             view,
             generation: job.generation,
@@ -441,5 +508,74 @@ mod tests {
             render_view(&vol, &RenderKey::Plane(c), None).unwrap().image
         );
         assert_ne!(moved.image, fresh.image);
+    }
+
+    /// A large scan's moving 3D pictures come from the pyramid's preview level and show the
+    /// same object as the full volume's coarse pass (a ball: the silhouettes agree but for a
+    /// rim, the preview's block maxima reaching up to two source voxels further); still
+    /// pictures, and every picture of a small scan, come from the scan itself.
+    #[test]
+    fn moving_pictures_of_a_large_scan_come_from_the_preview_level() {
+        let n = 256;
+        let c = (n as f64 - 1.0) / 2.0;
+        let data: Vec<u8> = (0..n * n * n)
+            .map(|i| {
+                let (x, y, z) = ((i % n) as f64, ((i / n) % n) as f64, (i / n / n) as f64);
+                let r = ((x - c).powi(2) + (y - c).powi(2) + (z - c).powi(2)).sqrt();
+                if r < 80.0 { 200 } else { 10 }
+            })
+            .collect();
+        let vol = Volume::from_vec([n; 3], Affine3::from_spacing([0.01; 3]), data).unwrap();
+        let aids = VolumeAids::new(7, &vol);
+        assert!(aids.pyramid.is_some(), "256³ is past the pyramid threshold");
+        let camera = Camera::fit(&vol, Vector3::new(1.0, 0.4, 0.3), Vector3::z(), 96, 96).unwrap();
+        let key = |quality| {
+            RenderKey::Volume(VolumeKey {
+                scan: 7,
+                camera,
+                mode: VolumeMode::Surface,
+                threshold: 100.0,
+                window: WindowLevel {
+                    centre: 100.0,
+                    width: 200.0,
+                },
+                colours: ColourMap::Grey,
+                quality,
+                scale_bar: false,
+            })
+        };
+        let (still_vol, _, still_preview) = volume_job(&aids, &vol, &key(Quality::full()));
+        assert!(!still_preview && std::ptr::eq(still_vol, &vol));
+        let moving = key(Quality::coarse());
+        let (pv, pkey, preview) = volume_job(&aids, &vol, &moving);
+        assert!(preview && pv.dims() == [64; 3], "{:?}", pv.dims());
+        let silhouette = |p: &Picture| -> Vec<bool> {
+            p.hits
+                .as_ref()
+                .unwrap()
+                .iter()
+                .map(Option::is_some)
+                .collect()
+        };
+        let from_preview = silhouette(&render_view(pv, &pkey, None).unwrap());
+        let from_full = silhouette(&render_view(&vol, &moving, None).unwrap());
+        let inside = from_full.iter().filter(|&&h| h).count();
+        let differ = from_preview
+            .iter()
+            .zip(&from_full)
+            .filter(|(a, b)| a != b)
+            .count();
+        assert!(inside > 500, "the ball fills the view: {inside}");
+        assert!(differ * 10 < inside, "{differ} of {inside} pixels differ");
+        // a small scan renders from itself however it moves
+        let small = Volume::from_vec(
+            [64; 3],
+            Affine3::from_spacing([0.01; 3]),
+            vec![0u8; 64 * 64 * 64],
+        )
+        .unwrap();
+        let small_aids = VolumeAids::new(8, &small);
+        assert!(small_aids.pyramid.is_none());
+        assert!(!volume_job(&small_aids, &small, &moving).2);
     }
 }
