@@ -335,15 +335,17 @@ impl Drop for Workers {
 const PYRAMID_MIN_VOXELS: usize = 1 << 24;
 
 /// What the 3D worker keeps per scan: the block pyramid (large scans) and the surface's
-/// empty-space table.
-struct VolumeAids {
+/// empty-space table, built on first use.
+pub struct VolumeAids {
     scan: u64,
     pyramid: Option<Pyramid>,
     bricks: Option<Bricks>,
 }
 
 impl VolumeAids {
-    fn new(scan: u64, v: &Volume) -> Self {
+    /// For scan `scan` (its id), whose voxels are `v`; builds the pyramid of a large scan.
+    #[must_use]
+    pub fn new(scan: u64, v: &Volume) -> Self {
         let pyramid = if v.dims().iter().product::<usize>() >= PYRAMID_MIN_VOXELS {
             Pyramid::new(v).ok()
         } else {
@@ -354,6 +356,21 @@ impl VolumeAids {
             pyramid,
             bricks: None,
         }
+    }
+
+    /// Renders a 3D view's picture of `volume` (the scan these aids were made for) as the
+    /// worker does: moving pictures of a large scan from the preview level, surfaces of the
+    /// full volume with the empty-space table.
+    pub fn render(&mut self, volume: &Volume, key: &RenderKey) -> Result<Picture, RenderError> {
+        if let RenderKey::Volume(v) = key {
+            let from_preview = v.quality.downsample > 1 && self.pyramid.is_some();
+            if v.mode == VolumeMode::Surface && !from_preview {
+                self.bricks(volume);
+            }
+        }
+        let (vol, key, preview) = volume_job(self, volume, key);
+        // the table is of the full volume: a preview renders without it
+        render_view(vol, &key, self.bricks.as_ref().filter(|_| !preview))
     }
 
     fn bricks(&mut self, volume: &Volume) -> &Bricks {
@@ -416,18 +433,13 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
             }
         };
         let start = Instant::now();
-        let picture = if let RenderKey::Volume(v) = job.key {
+        let picture = if let RenderKey::Volume(_) = job.key {
             if aids.as_ref().is_none_or(|a| a.scan != job.scan.id) {
                 aids = Some(VolumeAids::new(job.scan.id, &job.scan.volume));
             }
-            let a = aids.as_mut().expect("just set");
-            let from_preview = v.quality.downsample > 1 && a.pyramid.is_some();
-            if v.mode == VolumeMode::Surface && !from_preview {
-                a.bricks(&job.scan.volume);
-            }
-            let (volume, key, preview) = volume_job(a, &job.scan.volume, &job.key);
-            // the table is of the full volume: a preview renders without it
-            render_view(volume, &key, a.bricks.as_ref().filter(|_| !preview))
+            aids.as_mut()
+                .expect("just set")
+                .render(&job.scan.volume, &job.key)
         } else {
             render_view_reusing(&job.scan.volume, &job.key, None, &mut values[view.index()])
         }
@@ -545,7 +557,7 @@ mod tests {
             })
         };
         let (still_vol, _, still_preview) = volume_job(&aids, &vol, &key(Quality::full()));
-        assert!(!still_preview && std::ptr::eq(still_vol, &vol));
+        assert!(!still_preview && std::ptr::eq(still_vol, &raw const vol));
         let moving = key(Quality::coarse());
         let (pv, pkey, preview) = volume_job(&aids, &vol, &moving);
         assert!(preview && pv.dims() == [64; 3], "{:?}", pv.dims());
