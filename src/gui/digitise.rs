@@ -143,10 +143,11 @@ fn project_header_ui(ui: &mut Ui, s: &Session, out: &mut Vec<Command>) {
     let scheme = s.project.scheme();
     ui.label(
         RichText::new(format!(
-            "scheme: {} · {} landmarks, {} curves",
+            "scheme: {} · {} landmarks, {} curve{}",
             scheme.name,
             scheme.landmarks.len(),
-            scheme.curves.len()
+            scheme.curves.len(),
+            if scheme.curves.len() == 1 { "" } else { "s" }
         ))
         .weak(),
     );

@@ -340,6 +340,8 @@ pub struct VolumeAids {
     scan: u64,
     pyramid: Option<Pyramid>,
     bricks: Option<Bricks>,
+    /// The empty-space table of the pyramid's preview level.
+    preview_bricks: Option<Bricks>,
 }
 
 impl VolumeAids {
@@ -355,6 +357,7 @@ impl VolumeAids {
             scan,
             pyramid,
             bricks: None,
+            preview_bricks: None,
         }
     }
 
@@ -362,15 +365,25 @@ impl VolumeAids {
     /// worker does: moving pictures of a large scan from the preview level, surfaces of the
     /// full volume with the empty-space table.
     pub fn render(&mut self, volume: &Volume, key: &RenderKey) -> Result<Picture, RenderError> {
-        if let RenderKey::Volume(v) = key {
-            let from_preview = v.quality.downsample > 1 && self.pyramid.is_some();
-            if v.mode == VolumeMode::Surface && !from_preview {
+        if let RenderKey::Volume(v) = key
+            && v.mode == VolumeMode::Surface
+        {
+            if v.quality.downsample > 1
+                && let Some(preview) = self.pyramid.as_ref().and_then(Pyramid::preview)
+            {
+                self.preview_bricks
+                    .get_or_insert_with(|| Bricks::new(preview));
+            } else {
                 self.bricks(volume);
             }
         }
         let (vol, key, preview) = volume_job(self, volume, key);
-        // the table is of the full volume: a preview renders without it
-        render_view(vol, &key, self.bricks.as_ref().filter(|_| !preview))
+        let bricks = if preview {
+            self.preview_bricks.as_ref()
+        } else {
+            self.bricks.as_ref()
+        };
+        render_view(vol, &key, bricks)
     }
 
     fn bricks(&mut self, volume: &Volume) -> &Bricks {
