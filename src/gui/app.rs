@@ -1870,54 +1870,41 @@ fn ago_text(secs: u64) -> String {
     }
 }
 
-/// The desk's keys (a project is open).
+/// The desk's keys (a project is open), in the order they are tried: a shifted key comes before
+/// the same key unshifted, which egui would also match.
+const DESK_KEYS: &[(Modifiers, Key, Command)] = &[
+    (
+        Modifiers::COMMAND.plus(Modifiers::SHIFT),
+        Key::Z,
+        Command::Redo,
+    ),
+    (Modifiers::COMMAND, Key::Y, Command::Redo),
+    (Modifiers::COMMAND, Key::Z, Command::Undo),
+    (Modifiers::COMMAND, Key::S, Command::Save),
+    (Modifiers::COMMAND, Key::T, Command::StartTrial),
+    (Modifiers::NONE, Key::P, Command::TogglePlacing),
+    (Modifiers::SHIFT, Key::N, Command::StepLandmark(-1)),
+    (Modifiers::NONE, Key::N, Command::StepLandmark(1)),
+    (Modifiers::NONE, Key::X, Command::MarkMissing),
+    (Modifiers::NONE, Key::Delete, Command::ClearLandmark),
+    (Modifiers::NONE, Key::Backspace, Command::ClearLandmark),
+    (Modifiers::NONE, Key::G, Command::GoToLandmark),
+    (Modifiers::NONE, Key::S, Command::ToggleSnap),
+    (Modifiers::NONE, Key::L, Command::ToggleLabels),
+    (Modifiers::NONE, Key::T, Command::CycleTracing),
+    (Modifiers::NONE, Key::A, Command::ToggleWorkspace),
+];
+
+/// The desk's keys (a project is open); Escape also ends placing.
 fn desk_shortcuts(ctx: &egui::Context, placing: bool, cmds: &mut Vec<Command>) {
     ctx.input_mut(|i| {
-        let key = |i: &mut egui::InputState, m: Modifiers, k: Key| i.consume_key(m, k);
-        let none = Modifiers::NONE;
-        let cmd = Modifiers::COMMAND;
-        if key(i, cmd | Modifiers::SHIFT, Key::Z) || key(i, cmd, Key::Y) {
-            cmds.push(Command::Redo);
-        } else if key(i, cmd, Key::Z) {
-            cmds.push(Command::Undo);
+        for (modifiers, key, command) in DESK_KEYS {
+            if i.consume_key(*modifiers, *key) {
+                cmds.push(command.clone());
+            }
         }
-        if key(i, cmd, Key::S) {
-            cmds.push(Command::Save);
-        }
-        if key(i, cmd, Key::T) {
-            cmds.push(Command::StartTrial);
-        }
-        if key(i, none, Key::P) {
+        if placing && i.consume_key(Modifiers::NONE, Key::Escape) {
             cmds.push(Command::TogglePlacing);
-        }
-        if placing && key(i, none, Key::Escape) {
-            cmds.push(Command::TogglePlacing);
-        }
-        if key(i, Modifiers::SHIFT, Key::N) {
-            cmds.push(Command::StepLandmark(-1));
-        } else if key(i, none, Key::N) {
-            cmds.push(Command::StepLandmark(1));
-        }
-        if key(i, none, Key::X) {
-            cmds.push(Command::MarkMissing);
-        }
-        if key(i, none, Key::Delete) || key(i, none, Key::Backspace) {
-            cmds.push(Command::ClearLandmark);
-        }
-        if key(i, none, Key::G) {
-            cmds.push(Command::GoToLandmark);
-        }
-        if key(i, none, Key::S) {
-            cmds.push(Command::ToggleSnap);
-        }
-        if key(i, none, Key::L) {
-            cmds.push(Command::ToggleLabels);
-        }
-        if key(i, none, Key::T) {
-            cmds.push(Command::CycleTracing);
-        }
-        if key(i, none, Key::A) {
-            cmds.push(Command::ToggleWorkspace);
         }
     });
 }
