@@ -23,9 +23,7 @@ use super::project::{Session, TimeArgs, load};
 use crate::geometry::{WorldPoint, parse_length_mm};
 use crate::io::Progress;
 use crate::landmarks::pick;
-use crate::landmarks::project::{
-    Edit, LandmarkState, Method, PickCrossing, PickRecord, Project, Trial,
-};
+use crate::landmarks::project::{Edit, LandmarkState, Method, PickRecord, Project, Trial};
 use nalgebra::Vector3;
 
 #[derive(Debug, Subcommand)]
@@ -469,17 +467,16 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
                 .unwrap_or_default()
         )
     })?;
-    let crossing = match hit.crossing {
-        pick::Crossing::Entry => PickCrossing::Entry,
+    match hit.crossing {
+        pick::Crossing::Entry => {}
         pick::Crossing::Exit => {
             eprintln!("note: the ray starts inside material; the point is where it leaves it");
-            PickCrossing::Exit
         }
         pick::Crossing::VolumeFace => bail!(
             "{}: the ray enters the scan already inside material: no surface there",
             t.specimen
         ),
-    };
+    }
     let unit = Vector3::from(direction).normalize();
     let p = hit.point.0;
     eprintln!(
@@ -493,13 +490,12 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     );
     Ok((
         [p.x, p.y, p.z],
-        Some(PickRecord {
-            origin_mm: origin,
-            direction: [unit.x, unit.y, unit.z],
+        PickRecord::of(
+            WorldPoint::new(origin[0], origin[1], origin[2]),
+            unit,
             threshold,
-            refined: hit.refined,
-            crossing,
-        }),
+            &hit,
+        ),
     ))
 }
 

@@ -28,7 +28,7 @@ use crate::geometry::{Plane, WorldPoint, parse_length_mm};
 use crate::io::OpenOptions;
 use crate::landmarks::Edit;
 use crate::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_along_ray, pick_in_slice};
-use crate::landmarks::project::{AutosaveStatus, Method, PickCrossing, PickRecord, Timestamp};
+use crate::landmarks::project::{AutosaveStatus, Method, PickRecord, Timestamp};
 use crate::render::{Quality, SliceGeometry};
 
 /// How long the 3D view must be still before its full-quality pass is asked for.
@@ -1284,17 +1284,7 @@ impl App {
                     placed = (
                         p.point,
                         Method::Surface,
-                        Some(PickRecord {
-                            origin_mm: [at.0.x, at.0.y, at.0.z],
-                            direction: [direction.x, direction.y, direction.z],
-                            threshold,
-                            refined: p.refined,
-                            crossing: if p.crossing == Crossing::Exit {
-                                PickCrossing::Exit
-                            } else {
-                                PickCrossing::Entry
-                            },
-                        }),
+                        PickRecord::of(at, direction, threshold, &p),
                         format!(" (snapped {:.3} mm to the boundary)", d.norm()),
                     );
                 }
@@ -1409,17 +1399,7 @@ impl App {
                     landmark: lm.clone(),
                     position_mm: [p.point.0.x, p.point.0.y, p.point.0.z],
                     method: Method::Surface,
-                    pick: Some(PickRecord {
-                        origin_mm: [start.0.x, start.0.y, start.0.z],
-                        direction: [dir.x, dir.y, dir.z],
-                        threshold,
-                        refined: p.refined,
-                        crossing: if p.crossing == Crossing::Exit {
-                            PickCrossing::Exit
-                        } else {
-                            PickCrossing::Entry
-                        },
-                    }),
+                    pick: PickRecord::of(start, dir, threshold, &p),
                     at: Timestamp::now(),
                 });
                 if ok {

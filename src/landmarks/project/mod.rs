@@ -337,6 +337,33 @@ pub struct PickRecord {
     pub crossing: PickCrossing,
 }
 
+impl PickRecord {
+    /// The record of `pick`, found from `origin` along `direction` at `threshold`; `None` for a
+    /// point on the volume's face, which is no surface.
+    #[must_use]
+    pub fn of(
+        origin: crate::geometry::WorldPoint,
+        direction: nalgebra::Vector3<f64>,
+        threshold: f64,
+        pick: &crate::landmarks::pick::Pick,
+    ) -> Option<Self> {
+        use crate::landmarks::pick::Crossing;
+        let crossing = match pick.crossing {
+            Crossing::Entry => PickCrossing::Entry,
+            Crossing::Exit => PickCrossing::Exit,
+            Crossing::VolumeFace => return None,
+        };
+        let (o, d) = (origin.0, direction);
+        Some(Self {
+            origin_mm: [o.x, o.y, o.z],
+            direction: [d.x, d.y, d.z],
+            threshold,
+            refined: pick.refined,
+            crossing,
+        })
+    }
+}
+
 /// One landmark of one trial.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
