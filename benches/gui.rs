@@ -28,13 +28,13 @@ use std::time::{Duration, Instant};
 
 use eframe::egui::{Event, Modifiers, MouseWheelSource, MouseWheelUnit, TouchPhase, Vec2};
 use egui_kittest::Harness;
-use sutura::geometry::WorldPoint;
+use sutura_core::geometry::WorldPoint;
 use sutura::gui::state::VolumeMode;
 use sutura::gui::worker::{PlaneKey, RenderKey, VolumeAids, render_view_reusing, to_color_image};
 use sutura::gui::{App, Command, Preferences, ViewId};
-use sutura::render::Quality;
-use sutura::render::overlay::{AxisNames, Overlay};
-use sutura::render::slice;
+use sutura_core::render::Quality;
+use sutura_core::render::overlay::{AxisNames, Overlay};
+use sutura_core::render::slice;
 
 /// A named way of changing the stage picture's key (the i-th variation).
 type Variant<'a> = (&'a str, Box<dyn Fn(usize) -> PlaneKey + 'a>);

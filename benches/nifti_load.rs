@@ -7,9 +7,9 @@
 
 use std::path::Path;
 use std::time::Instant;
-use sutura::geometry::Affine3;
-use sutura::io::{OpenOptions, Progress, nifti};
-use sutura::volume::Volume;
+use sutura_core::geometry::Affine3;
+use sutura_core::io::{OpenOptions, Progress, nifti};
+use sutura_core::volume::Volume;
 
 fn best_of<F: FnMut()>(n: usize, mut f: F) -> f64 {
     (0..n)

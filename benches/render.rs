@@ -24,16 +24,16 @@ use nalgebra::{Matrix3, Vector3};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::Instant;
-use sutura::geometry::Plane;
-use sutura::io::{OpenOptions, Progress};
-use sutura::render::pyramid::Pyramid;
-use sutura::render::raycast::{Bricks, Camera, MipOptions, Quality, SurfaceOptions, mip, surface};
-use sutura::render::slice::{
+use sutura_core::geometry::Plane;
+use sutura_core::io::{OpenOptions, Progress};
+use sutura_core::render::pyramid::Pyramid;
+use sutura_core::render::raycast::{Bricks, Camera, MipOptions, Quality, SurfaceOptions, mip, surface};
+use sutura_core::render::slice::{
     Interpolation, Slab, SlabMode, SliceGeometry, render_slice, render_slice_into,
 };
-use sutura::render::window::{ColourMap, WindowLevel};
-use sutura::render::{F32Image, RgbaImage};
-use sutura::volume::Volume;
+use sutura_core::render::window::{ColourMap, WindowLevel};
+use sutura_core::render::{F32Image, RgbaImage};
+use sutura_core::volume::Volume;
 
 /// The reference interpreter and the kit, if both are there.
 struct Kit {
@@ -110,7 +110,7 @@ impl Kit {
 fn open_or_synth(path: Option<&Path>, n: usize) -> Volume {
     if let Some(p) = path {
         let t = Instant::now();
-        let v = sutura::io::open(p, &OpenOptions::default(), &Progress::none()).expect("open");
+        let v = sutura_core::io::open(p, &OpenOptions::default(), &Progress::none()).expect("open");
         println!(
             "loaded {} in {:.0} ms",
             p.display(),

@@ -10,10 +10,10 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::Instant;
 
-use sutura::shape::disparity::{Divisor, bootstrap};
-use sutura::shape::pca::pca;
-use sutura::shape::tangent::tangent_coordinates;
-use sutura::shape::{GpaOptions, Sample, gpa};
+use sutura_core::shape::disparity::{Divisor, bootstrap};
+use sutura_core::shape::pca::pca;
+use sutura_core::shape::tangent::tangent_coordinates;
+use sutura_core::shape::{GpaOptions, Sample, gpa};
 
 fn python() -> PathBuf {
     std::env::var_os("SUTURA_PYTHON").map_or_else(

@@ -1,4 +1,4 @@
-//! Times `sutura::io::open` on one scan, in this fresh process, and prints one JSON line:
+//! Times `sutura_core::io::open` on one scan, in this fresh process, and prints one JSON line:
 //! median/min/max seconds over the repeats, GB/s of voxel bytes, peak RSS (`VmHWM`), the CPU
 //! seconds used (median) and the 1-minute load average at the end.
 //!
@@ -50,7 +50,7 @@ fn main() -> anyhow::Result<()> {
             .ok_or_else(|| anyhow::anyhow!("usage: bench_load PATH [REPEATS]"))?,
     );
     let reps: usize = args.next().map_or(Ok(3), |s| s.parse())?;
-    let opts = sutura::io::OpenOptions {
+    let opts = sutura_core::io::OpenOptions {
         voxel_size_mm: Some([0.01; 3]),
         ..Default::default()
     };
@@ -60,12 +60,12 @@ fn main() -> anyhow::Result<()> {
     let mut checksum = 0.0;
     for _ in 0..reps {
         let (t, c) = (Instant::now(), cpu_s());
-        let v = sutura::io::open(&path, &opts, &sutura::io::Progress::none())?;
+        let v = sutura_core::io::open(&path, &opts, &sutura_core::io::Progress::none())?;
         times.push(t.elapsed().as_secs_f64());
         cpu.push(cpu_s() - c);
         bytes = v.voxel_bytes();
         checksum = v
-            .value(sutura::geometry::VoxelIndex::new(
+            .value(sutura_core::geometry::VoxelIndex::new(
                 v.dims()[0] / 2,
                 v.dims()[1] / 2,
                 v.dims()[2] / 2,

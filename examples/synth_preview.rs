@@ -9,8 +9,8 @@ use flate2::write::GzEncoder;
 use image::{GrayImage, Luma};
 use std::io::Write;
 use std::time::Instant;
-use sutura::synth::{self, SyntheticSpecimen};
-use sutura::volume::Voxels;
+use sutura_core::synth::{self, SyntheticSpecimen};
+use sutura_core::volume::Voxels;
 
 fn main() -> anyhow::Result<()> {
     let mut args = std::env::args().skip(1);
@@ -104,7 +104,7 @@ fn write_png(s: &SyntheticSpecimen, path: &std::path::Path) -> anyhow::Result<()
     let val = |i: usize, j: usize, k: usize| -> u8 {
         let v = s
             .volume
-            .value(sutura::geometry::VoxelIndex::new(i, j, k))
+            .value(sutura_core::geometry::VoxelIndex::new(i, j, k))
             .unwrap_or(0.0);
         (v / 32000.0 * 255.0).clamp(0.0, 255.0) as u8
     };

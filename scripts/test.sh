@@ -13,7 +13,7 @@ fi
 export SUTURA_PYTHON="$(cd "$(dirname "$PY")" && pwd)/$(basename "$PY")"
 bash scripts/fetch_refdata.sh "$SUTURA_PYTHON"
 # benches (harness = false) are run by hand, not as tests: see the README's benchmark section
-cargo test --lib --bins --tests --examples "$@"
+cargo test --workspace --lib --bins --tests --examples "$@"
 # the real workstation window under Xvfb, with the binary the tests just built
 if [ "${CI:-}" = true ] || { command -v xvfb-run && command -v import && command -v xdotool; } >/dev/null 2>&1; then
   bash scripts/gui_smoke.sh target/gui-smoke

@@ -4,7 +4,7 @@
 mod common;
 
 use common::{root, run_python, run_sutura};
-use sutura::geometry::VoxelIndex;
+use sutura_core::geometry::VoxelIndex;
 
 fn samples() -> std::path::PathBuf {
     root().join("sample_volumes")
@@ -135,10 +135,10 @@ fn slice_view3d_and_convert_write_what_they_say() {
         &root(),
     );
     assert!(ok, "{err}");
-    let opts = sutura::io::OpenOptions::default();
-    let none = sutura::io::Progress::none();
-    let full = sutura::io::open(&scan, &opts, &none).unwrap();
-    let crop = sutura::io::open(&out, &opts, &none).unwrap();
+    let opts = sutura_core::io::OpenOptions::default();
+    let none = sutura_core::io::Progress::none();
+    let full = sutura_core::io::open(&scan, &opts, &none).unwrap();
+    let crop = sutura_core::io::open(&out, &opts, &none).unwrap();
     assert_eq!(crop.dims(), [40, 35, 28]);
     for (i, j, k) in [(0, 0, 0), (39, 34, 27), (17, 3, 20)] {
         assert_eq!(
@@ -161,7 +161,7 @@ fn slice_view3d_and_convert_write_what_they_say() {
         &root(),
     );
     assert!(ok, "{err}");
-    let back = sutura::io::open(&tif, &opts, &none).unwrap();
+    let back = sutura_core::io::open(&tif, &opts, &none).unwrap();
     assert_eq!(back.dims(), [60, 44, 24]);
     // errors are one line and name the file
     let bad = d("bad.nii");

@@ -351,9 +351,9 @@ fn the_open_dialog_lists_scans_and_opens_one() {
 // The desk: digitising a project through the UI.
 
 use sutura::gui::{Prompt, Workspace};
-use sutura::landmarks::Project;
-use sutura::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_in_slice};
-use sutura::landmarks::project::{LandmarkState, Method, autosave_path, backup_path};
+use sutura_core::landmarks::Project;
+use sutura_core::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_in_slice};
+use sutura_core::landmarks::project::{LandmarkState, Method, autosave_path, backup_path};
 
 /// A copy of the sample project in `dir`, its scans linked beside it.
 fn project_copy(dir: &std::path::Path) -> PathBuf {
@@ -474,7 +474,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     let m = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
     let pick = pick_in_slice(
         &scan.volume,
-        sutura::geometry::WorldPoint::new(w0[0], w0[1], w0[2]),
+        sutura_core::geometry::WorldPoint::new(w0[0], w0[1], w0[2]),
         m.u.cross(&m.v),
         SliceSearch::AllAround,
         &opts,

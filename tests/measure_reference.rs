@@ -11,10 +11,10 @@
 mod common;
 
 use std::path::PathBuf;
-use sutura::io::Progress;
-use sutura::landmarks::project::{Method, ScanRecord, Specimen, Timestamp, Trial};
-use sutura::landmarks::{Edit, Project};
-use sutura::measure::table::measure_project;
+use sutura_core::io::Progress;
+use sutura_core::landmarks::project::{Method, ScanRecord, Specimen, Timestamp, Trial};
+use sutura_core::landmarks::{Edit, Project};
+use sutura_core::measure::table::measure_project;
 
 const FILES: [&str; 7] = [
     "anatomical.nii",

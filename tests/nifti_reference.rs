@@ -27,10 +27,10 @@ mod common;
 use serde_json::Value;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
-use sutura::geometry::Affine3;
-use sutura::io::nifti;
-use sutura::io::{IoError, OpenOptions, Progress};
-use sutura::volume::{DType, Volume, Voxel};
+use sutura_core::geometry::Affine3;
+use sutura_core::io::nifti;
+use sutura_core::io::{IoError, OpenOptions, Progress};
+use sutura_core::volume::{DType, Volume, Voxel};
 
 fn nibabel_data_dir() -> PathBuf {
     let v = common::run_python("nifti_reference.py", &["--data-dir"]);
@@ -73,7 +73,7 @@ fn max_abs_diff(a: [[f64; 4]; 4], b: [[f64; 4]; 4]) -> f64 {
 fn sums(v: &Volume) -> (f64, usize) {
     let mut sum = 0.0;
     let mut nan = 0;
-    sutura::with_voxels!(v.voxels(), |s| {
+    sutura_core::with_voxels!(v.voxels(), |s| {
         for &x in s {
             let y = v.apply_rescale(x.to_f64());
             if y.is_nan() {
@@ -158,7 +158,7 @@ fn compare(path: &Path, r: &Value, v: &Volume, mm_per_unit: f64) -> String {
             .map(|x| x.as_u64().unwrap() as usize)
             .collect();
         let ours = v
-            .value(sutura::geometry::VoxelIndex::new(p[0], p[1], p[2]))
+            .value(sutura_core::geometry::VoxelIndex::new(p[0], p[1], p[2]))
             .unwrap();
         match s[1].as_f64() {
             None => assert!(ours.is_nan(), "{name}: voxel {p:?} should be NaN"),
@@ -397,7 +397,7 @@ fn written_files_read_back_in_nibabel() {
         (0..n).map(|i| (i as i16) * 37 - 5000).collect(),
     )
     .unwrap();
-    v.set_rescale(sutura::volume::Rescale::new(0.5, -1024.0));
+    v.set_rescale(sutura_core::volume::Rescale::new(0.5, -1024.0));
     vols.push(("i16_scaled.nii.gz".into(), v));
     vols.push((
         "u16.nii".into(),
@@ -468,8 +468,8 @@ fn written_files_read_back_in_nibabel() {
         let back = open(p).unwrap();
         assert_eq!(back.dtype(), v.dtype());
         assert_eq!(back.rescale(), v.rescale());
-        let same = sutura::with_voxels!(v.voxels(), |a| {
-            sutura::with_voxels!(back.voxels(), |b| a
+        let same = sutura_core::with_voxels!(v.voxels(), |a| {
+            sutura_core::with_voxels!(back.voxels(), |b| a
                 .iter()
                 .zip(b.iter())
                 .all(|(x, y)| x.to_f64().to_bits() == y.to_f64().to_bits()))

@@ -27,13 +27,13 @@ mod common;
 
 use common::root;
 use nalgebra::{Point3, Rotation3, Unit, Vector3};
-use sutura::geometry::{Affine3, WorldPoint};
-use sutura::io::{OpenOptions, Progress};
-use sutura::landmarks::pick::{
+use sutura_core::geometry::{Affine3, WorldPoint};
+use sutura_core::io::{OpenOptions, Progress};
+use sutura_core::landmarks::pick::{
     Crossing, PickOptions, SliceSearch, iso50, pick_along_ray, pick_in_slice,
 };
-use sutura::synth::{self, Skull};
-use sutura::volume::Volume;
+use sutura_core::synth::{self, Skull};
+use sutura_core::volume::Volume;
 
 struct Truth {
     id: String,
@@ -87,7 +87,7 @@ fn open(id: &str, voxel_size_mm: [f64; 3]) -> Volume {
             },
         )
     };
-    sutura::io::open(&path, &options, &Progress::none()).unwrap()
+    sutura_core::io::open(&path, &options, &Progress::none()).unwrap()
 }
 
 /// The skull's implicit function in world coordinates (negative in bone) and its outward

@@ -7,8 +7,8 @@ mod common;
 use common::{python, root, run_sutura, sutura};
 use serde_json::Value;
 use std::path::{Path, PathBuf};
-use sutura::export::table::LandmarkTable;
-use sutura::landmarks::Project;
+use sutura_core::export::table::LandmarkTable;
+use sutura_core::landmarks::Project;
 
 fn samples() -> PathBuf {
     root().join("sample_volumes")
@@ -462,7 +462,7 @@ fn a_swapped_scan_is_detected_by_its_fingerprint() {
         .specimen("HDC-002")
         .unwrap()
         .scan
-        .open(&cwd.join("p.json"), &sutura::io::Progress::none())
+        .open(&cwd.join("p.json"), &sutura_core::io::Progress::none())
         .unwrap();
     let m = mismatch.expect("a mismatch").to_string();
     assert!(
@@ -694,7 +694,7 @@ fn killing_the_program_mid_save_leaves_a_whole_project() {
     let mut p = Project::new(text, "scheme.toml".into()).unwrap();
     let template = {
         let mut q = p.clone();
-        let s = sutura::landmarks::project::Specimen {
+        let s = sutura_core::landmarks::project::Specimen {
             id: "S0".into(),
             groups: [("round".to_owned(), "0".to_owned())].into(),
             scan: serde_json::from_value(serde_json::json!({
@@ -704,7 +704,7 @@ fn killing_the_program_mid_save_leaves_a_whole_project() {
             })).unwrap(),
             trials: Vec::new(),
         };
-        sutura::landmarks::Edit::AddSpecimen {
+        sutura_core::landmarks::Edit::AddSpecimen {
             specimen: Box::new(s),
             index: None,
         }
@@ -716,32 +716,32 @@ fn killing_the_program_mid_save_leaves_a_whole_project() {
     for n in 0..2000 {
         let mut s = template.clone();
         s.id = format!("S{n:04}");
-        sutura::landmarks::Edit::AddSpecimen {
+        sutura_core::landmarks::Edit::AddSpecimen {
             specimen: Box::new(s),
             index: None,
         }
         .apply(&mut p)
         .unwrap();
-        sutura::landmarks::Edit::AddTrial {
+        sutura_core::landmarks::Edit::AddTrial {
             specimen: format!("S{n:04}"),
-            trial: Box::new(sutura::landmarks::project::Trial::new(
+            trial: Box::new(sutura_core::landmarks::project::Trial::new(
                 "1",
                 "op",
-                sutura::landmarks::project::Timestamp::now(),
+                sutura_core::landmarks::project::Timestamp::now(),
             )),
             index: None,
         }
         .apply(&mut p)
         .unwrap();
         for (lm, pos) in &lms {
-            sutura::landmarks::Edit::SetLandmark {
+            sutura_core::landmarks::Edit::SetLandmark {
                 specimen: format!("S{n:04}"),
                 trial: "1".into(),
                 landmark: lm.clone(),
                 position_mm: [pos[0] + f64::from(n) * 1e-4, pos[1], pos[2]],
-                method: sutura::landmarks::project::Method::Surface,
+                method: sutura_core::landmarks::project::Method::Surface,
                 pick: None,
-                at: sutura::landmarks::project::Timestamp::now(),
+                at: sutura_core::landmarks::project::Timestamp::now(),
             }
             .apply(&mut p)
             .unwrap();
@@ -807,7 +807,7 @@ fn killing_the_program_mid_save_leaves_a_whole_project() {
         }
         expected = r;
         // the backup is always a whole project too
-        Project::load(&sutura::landmarks::project::backup_path(&path)).unwrap();
+        Project::load(&sutura_core::landmarks::project::backup_path(&path)).unwrap();
     }
     eprintln!("{tries} runs killed at random, {killed_mid_save} of them mid-save (run {run:?})");
     assert!(

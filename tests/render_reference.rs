@@ -10,9 +10,9 @@ mod common;
 use nalgebra::{Matrix3, Rotation3, Vector3};
 use rand::{Rng, SeedableRng};
 use std::io::Write;
-use sutura::geometry::{Affine3, Plane, VoxelPoint, WorldPoint};
-use sutura::render::slice::{Interpolation, SliceGeometry, render_slice};
-use sutura::volume::Volume;
+use sutura_core::geometry::{Affine3, Plane, VoxelPoint, WorldPoint};
+use sutura_core::render::slice::{Interpolation, SliceGeometry, render_slice};
+use sutura_core::volume::Volume;
 
 const DIMS: [usize; 3] = [17, 13, 9];
 

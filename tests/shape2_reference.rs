@@ -5,7 +5,7 @@ mod common;
 
 use nalgebra::DMatrix;
 use serde_json::json;
-use sutura::shape::tps::{self, Tps};
+use sutura_core::shape::tps::{self, Tps};
 
 fn to_json(m: &DMatrix<f64>) -> serde_json::Value {
     json!(
@@ -76,7 +76,7 @@ fn replicates(
     k: usize,
     m: usize,
     seed: u64,
-) -> (sutura::shape::Sample, Vec<usize>) {
+) -> (sutura_core::shape::Sample, Vec<usize>) {
     use rand::{Rng, SeedableRng};
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let base: Vec<f64> = (0..k * m).map(|_| rng.random_range(-1.0..1.0)).collect();
@@ -104,7 +104,7 @@ fn replicates(
         }
     }
     (
-        sutura::shape::Sample::from_configs(&configs).unwrap(),
+        sutura_core::shape::Sample::from_configs(&configs).unwrap(),
         labels,
     )
 }
@@ -115,10 +115,10 @@ fn replicates(
 /// `statsmodels/stats/anova.py`; Klingenberg and `McIntyre` 1998 for the summation over coordinates).
 #[test]
 fn procrustes_anova_matches_statsmodels() {
-    use sutura::shape::anova::{procrustes_anova, shape_dims};
+    use sutura_core::shape::anova::{procrustes_anova, shape_dims};
     for (m, reps) in [(2, vec![3, 3, 3, 3, 3]), (3, vec![2, 4, 3, 2, 3, 2])] {
         let (sample, labels) = replicates(&reps, 7, m, 42 + m as u64);
-        let r = procrustes_anova(&sample, &labels, &sutura::shape::GpaOptions::default()).unwrap();
+        let r = procrustes_anova(&sample, &labels, &sutura_core::shape::GpaOptions::default()).unwrap();
         let rows = r.gpa.aligned.to_rows();
         let arg = json!({"data": to_json(&rows), "labels": labels});
         let py = common::run_python("shape2_anova.py", &[&arg.to_string()]);
@@ -145,7 +145,7 @@ fn procrustes_anova_matches_statsmodels() {
 
         // Centroid size: one variable, so F and p are statsmodels' own.
         let sizes: Vec<f64> = (0..sample.n())
-            .map(|i| sutura::shape::centroid_size(&sample.config(i)))
+            .map(|i| sutura_core::shape::centroid_size(&sample.config(i)))
             .collect();
         let arg =
             json!({"data": sizes.iter().map(|v| vec![*v]).collect::<Vec<_>>(), "labels": labels});
@@ -164,7 +164,7 @@ fn procrustes_anova_matches_statsmodels() {
 
 /// Arcs of the unit circle (ends fixed, 7 semilandmarks spaced unevenly with a random exponent),
 /// plus two fixed landmarks off the curve, each under a random similarity.
-fn arcs(n: usize, seed: u64) -> (sutura::shape::Sample, Vec<sutura::shape::sliding::Curve>) {
+fn arcs(n: usize, seed: u64) -> (sutura_core::shape::Sample, Vec<sutura_core::shape::sliding::Curve>) {
     use rand::{Rng, SeedableRng};
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let s = 7;
@@ -190,17 +190,17 @@ fn arcs(n: usize, seed: u64) -> (sutura::shape::Sample, Vec<sutura::shape::slidi
             })
         })
         .collect();
-    let curve = sutura::shape::sliding::Curve {
+    let curve = sutura_core::shape::sliding::Curve {
         landmarks: (2..=3 + s).collect(),
     };
     (
-        sutura::shape::Sample::from_configs(&configs).unwrap(),
+        sutura_core::shape::Sample::from_configs(&configs).unwrap(),
         vec![curve],
     )
 }
 
 /// Total bending energy of the deformations from the GPA mean onto each aligned specimen.
-fn total_energy(g: &sutura::shape::Gpa) -> f64 {
+fn total_energy(g: &sutura_core::shape::Gpa) -> f64 {
     let b = tps::bending_energy_matrix(&g.mean).unwrap();
     (0..g.aligned.n())
         .map(|i| {
@@ -215,10 +215,10 @@ fn total_energy(g: &sutura::shape::Gpa) -> f64 {
 /// converges to a state with no residual along the tangents.
 #[test]
 fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
-    use sutura::shape::sliding::{SlideCriterion, SlideOptions, slide_semilandmarks};
+    use sutura_core::shape::sliding::{SlideCriterion, SlideOptions, slide_semilandmarks};
     let (sample, curves) = arcs(8, 5);
     let before =
-        total_energy(&sutura::shape::gpa(&sample, &sutura::shape::GpaOptions::default()).unwrap());
+        total_energy(&sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap());
     let slid = slide_semilandmarks(&sample, &curves, &SlideOptions::default()).unwrap();
     let after = total_energy(&slid.gpa);
     assert!(
@@ -237,7 +237,7 @@ fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
     // re-estimated mean shrinks geometrically (measured: 0.071 before, 9e-6 after 60 rounds),
     // while the mean itself keeps drifting slowly, since unprojected points may creep along
     // the curve together. Compared before and after sliding.
-    let residual = |g: &sutura::shape::Gpa| -> f64 {
+    let residual = |g: &sutura_core::shape::Gpa| -> f64 {
         let mut worst: f64 = 0.0;
         for i in 0..g.aligned.n() {
             let x = g.aligned.config(i);
@@ -249,7 +249,7 @@ fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
         }
         worst
     };
-    let r0 = residual(&sutura::shape::gpa(&sample, &sutura::shape::GpaOptions::default()).unwrap());
+    let r0 = residual(&sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap());
     {
         let rounds = 60;
         let opts = SlideOptions {

@@ -7,14 +7,14 @@ mod common;
 use nalgebra::DMatrix;
 use proptest::prelude::*;
 use serde_json::Value;
-use sutura::shape::distance::{
+use sutura_core::shape::distance::{
     Distance, distance_matrix, full_procrustes_distance, partial_procrustes_distance,
     procrustes_angle,
 };
-use sutura::shape::gpa::rotation_onto;
-use sutura::shape::pca::pca;
-use sutura::shape::tangent::tangent_coordinates;
-use sutura::shape::{Fit, GpaOptions, Sample, gpa, opa};
+use sutura_core::shape::gpa::rotation_onto;
+use sutura_core::shape::pca::pca;
+use sutura_core::shape::tangent::tangent_coordinates;
+use sutura_core::shape::{Fit, GpaOptions, Sample, gpa, opa};
 
 fn mat(v: &Value) -> DMatrix<f64> {
     let rows: Vec<Vec<f64>> = serde_json::from_value(v.clone()).unwrap();
@@ -82,7 +82,7 @@ fn scipy_procrustes_when_reflection_does_not_matter() {
         );
         let fit = opa(&a, &b, true).unwrap();
         // Residual of OPA in the reference's units: ‖a_c‖ · sin ρ.
-        let ca = sutura::shape::centroid_size(&a);
+        let ca = sutura_core::shape::centroid_size(&a);
         assert!((fit.distance - ca * d_f).abs() < 1e-10);
         if let Some(z) = c.get("complex_df2") {
             assert!((d_f * d_f - f(z)).abs() < 1e-12);
@@ -198,7 +198,7 @@ fn rotation_strategy(m: usize) -> impl Strategy<Value = DMatrix<f64>> {
 }
 
 fn well_spread(c: &DMatrix<f64>) -> bool {
-    sutura::shape::centroid_size(c) > 1.0
+    sutura_core::shape::centroid_size(c) > 1.0
 }
 
 fn check_invariance(

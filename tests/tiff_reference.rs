@@ -7,8 +7,8 @@
 mod common;
 
 use std::path::{Path, PathBuf};
-use sutura::io::{IoError, Limits, OpenOptions, Progress, tiff};
-use sutura::volume::{DType, Volume, Voxels};
+use sutura_core::io::{IoError, Limits, OpenOptions, Progress, tiff};
+use sutura_core::volume::{DType, Volume, Voxels};
 
 fn voxel_bytes_le(v: &Volume) -> Vec<u8> {
     let mut out = Vec::with_capacity(v.voxel_bytes());
@@ -59,7 +59,7 @@ fn open(path: &Path) -> Result<Volume, IoError> {
         },
         ..OpenOptions::default()
     };
-    sutura::io::open(path, &opts, &Progress::none())
+    sutura_core::io::open(path, &opts, &Progress::none())
 }
 
 #[test]
@@ -131,7 +131,7 @@ fn committed_slice_folder_carries_its_voxel_size() {
     // written by our writer: the full 3D voxel size is in each slice's ImageDescription, so the
     // folder opens with the right geometry without a caller-given size (sample: 36 x 36 x 50 µm)
     let scan = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-001_slices");
-    let v = sutura::io::open(&scan, &OpenOptions::default(), &Progress::none()).unwrap();
+    let v = sutura_core::io::open(&scan, &OpenOptions::default(), &Progress::none()).unwrap();
     assert_eq!(v.spacing_mm(), [0.036, 0.036, 0.05]);
     assert!(v.notes.is_empty(), "{:?}", v.notes);
 }
@@ -156,7 +156,7 @@ fn consistent_with_tifffile_on_pillow_test_images() {
         let path = PathBuf::from(e["path"].as_str().unwrap());
         let name = path.file_name().unwrap().to_string_lossy().into_owned();
         let kind = e["kind"].as_str().unwrap();
-        let ours = sutura::io::tiff::open_file(&path, &limited(), &Progress::none());
+        let ours = sutura_core::io::tiff::open_file(&path, &limited(), &Progress::none());
         let damaged = !e["damaged"].as_array().unwrap().is_empty();
         if let Some((_, why)) = KNOWN_REFUSALS.iter().find(|(n, _)| *n == name) {
             // a file tifffile reads but the tiff crate refuses; must still be a clean error

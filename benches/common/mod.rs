@@ -1,8 +1,8 @@
 //! Shared by the benchmarks: the synthetic volume they measure on when no kit volume is used.
 
 use rayon::prelude::*;
-use sutura::geometry::Affine3;
-use sutura::volume::{Volume, VoxelBuffer, Voxels};
+use sutura_core::geometry::Affine3;
+use sutura_core::volume::{Volume, VoxelBuffer, Voxels};
 
 /// An n³ u16 volume: an ellipsoid with a dense shell in a lighter matrix, with noise.
 pub fn synth(n: usize, spacing_mm: f64) -> Volume {

@@ -79,7 +79,7 @@ pub fn run(a: &ConvertArgs) -> Result<()> {
 
 /// Writes a volume by the output name: `.nii`/`.nii.gz` as NIfTI-1, anything else as a folder
 /// of TIFF slices.
-pub fn write_volume(v: &crate::volume::Volume, out: &Path) -> Result<()> {
+pub fn write_volume(v: &sutura_core::volume::Volume, out: &Path) -> Result<()> {
     let name = out
         .file_name()
         .map(|n| n.to_string_lossy().to_lowercase())
@@ -94,14 +94,14 @@ pub fn write_volume(v: &crate::volume::Volume, out: &Path) -> Result<()> {
         name.ends_with(".tif") || name.ends_with(".tiff"),
     );
     if nifti {
-        crate::io::nifti::write(v, out)?;
+        sutura_core::io::nifti::write(v, out)?;
     } else {
         let dir = if tiff {
             out.with_extension("")
         } else {
             out.to_owned()
         };
-        crate::io::tiff::write_stack(v, &dir)?;
+        sutura_core::io::tiff::write_stack(v, &dir)?;
     }
     Ok(())
 }

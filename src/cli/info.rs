@@ -77,9 +77,9 @@ pub fn run(a: &InfoArgs) -> Result<()> {
     );
     println!(
         "voxel size   {} x {} x {}",
-        crate::geometry::format_length_mm(sx),
-        crate::geometry::format_length_mm(sy),
-        crate::geometry::format_length_mm(sz)
+        sutura_core::geometry::format_length_mm(sx),
+        sutura_core::geometry::format_length_mm(sy),
+        sutura_core::geometry::format_length_mm(sz)
     );
     println!(
         "extent       {:.3} x {:.3} x {:.3} mm",

@@ -20,10 +20,10 @@ use clap::{Args, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
 use super::project::{Session, TimeArgs, load};
-use crate::geometry::{WorldPoint, parse_length_mm};
-use crate::io::Progress;
-use crate::landmarks::pick;
-use crate::landmarks::project::{Edit, LandmarkState, Method, PickRecord, Project, Trial};
+use sutura_core::geometry::{WorldPoint, parse_length_mm};
+use sutura_core::io::Progress;
+use sutura_core::landmarks::pick;
+use sutura_core::landmarks::project::{Edit, LandmarkState, Method, PickRecord, Project, Trial};
 use nalgebra::Vector3;
 
 #[derive(Debug, Subcommand)]

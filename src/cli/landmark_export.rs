@@ -10,7 +10,7 @@ use clap::{Args, ValueEnum};
 use std::path::PathBuf;
 
 use super::project::load;
-use crate::landmarks::project::points::flatten;
+use sutura_core::landmarks::project::points::flatten;
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
 pub enum ExportFormat {

@@ -12,7 +12,7 @@ use clap::Args;
 use std::path::PathBuf;
 
 use super::project::load;
-use crate::measure::table::{measure_project, write_csv_file};
+use sutura_core::measure::table::{measure_project, write_csv_file};
 
 #[derive(Debug, Args)]
 pub struct MeasureArgs {

@@ -20,8 +20,8 @@ use clap::{Args, Parser, Subcommand};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-use crate::io::Progress;
-use crate::volume::Volume;
+use sutura_core::io::Progress;
+use sutura_core::volume::Volume;
 
 /// Sutura: measure fossil specimens in CT scans.
 ///
@@ -116,7 +116,7 @@ impl ScanArgs {
             true
         };
         let progress = Progress::new(Some(&report));
-        let volume = crate::landmarks::scan::open_scan(&self.scan, voxel_size_mm, &progress)?;
+        let volume = sutura_core::landmarks::scan::open_scan(&self.scan, voxel_size_mm, &progress)?;
         if let Some(b) = &bar {
             b.finish_and_clear();
         }

@@ -15,12 +15,12 @@ use anyhow::{Context, Result, bail};
 use clap::{Args, Subcommand};
 use std::path::{Path, PathBuf};
 
-use crate::geometry::parse_length_mm;
-use crate::io::{self, Progress};
-use crate::landmarks::project::{
+use sutura_core::geometry::parse_length_mm;
+use sutura_core::io::{self, Progress};
+use sutura_core::landmarks::project::{
     Edit, Project, ProjectLock, ScanRecord, Specimen, Timestamp, Trial,
 };
-use crate::landmarks::scheme::{Scheme, is_valid_id};
+use sutura_core::landmarks::scheme::{Scheme, is_valid_id};
 
 #[derive(Debug, Subcommand)]
 pub enum ProjectCommand {
@@ -286,8 +286,8 @@ fn new_specimen(
         "added {id}: {} ({nx} x {ny} x {nz}, voxel {sx} x {sy} x {sz} mm, {})",
         scan_record.path,
         match scan_record.voxel_size_source {
-            crate::landmarks::project::VoxelSizeSource::File => "from the file",
-            crate::landmarks::project::VoxelSizeSource::User => "given",
+            sutura_core::landmarks::project::VoxelSizeSource::File => "from the file",
+            sutura_core::landmarks::project::VoxelSizeSource::User => "given",
         }
     );
     Ok(Specimen {
@@ -329,8 +329,8 @@ fn run_new(a: &NewArgs) -> Result<()> {
     }
     let _lock = ProjectLock::acquire(&a.project)?;
     let (_, text) = Scheme::load(&a.scheme)?;
-    let origin = crate::landmarks::project::relative_path(
-        &crate::landmarks::project::project_dir(&a.project),
+    let origin = sutura_core::landmarks::project::relative_path(
+        &sutura_core::landmarks::project::project_dir(&a.project),
         &a.scheme,
     )
     .unwrap_or_else(|_| a.scheme.display().to_string());

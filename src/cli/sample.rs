@@ -5,8 +5,8 @@ use clap::Args;
 use rayon::prelude::*;
 use std::path::{Path, PathBuf};
 
-use crate::export::table::{LandmarkTable, Observation, State};
-use crate::synth;
+use sutura_core::export::table::{LandmarkTable, Observation, State};
+use sutura_core::synth;
 
 #[derive(Debug, Args)]
 pub struct SampleArgs {
@@ -30,7 +30,7 @@ fn scan_name(index: usize, id: &str) -> String {
 }
 
 /// One generated specimen: id, group, true landmarks (world mm).
-type Written = (String, String, Vec<(String, crate::geometry::WorldPoint)>);
+type Written = (String, String, Vec<(String, sutura_core::geometry::WorldPoint)>);
 
 pub fn run(a: &SampleArgs) -> Result<()> {
     std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;
@@ -45,7 +45,7 @@ pub fn run(a: &SampleArgs) -> Result<()> {
             let s = synth::generate(spec).with_context(|| format!("specimen {}", spec.id))?;
             let path = a.output.join(scan_name(i, &s.id));
             write_scan(&s.volume, &path)?;
-            crate::export::write_json(
+            sutura_core::export::write_json(
                 &a.output.join(format!("{}.landmarks.json", s.id)),
                 &synth::landmarks_json(&s),
             )?;
@@ -86,7 +86,7 @@ pub fn run(a: &SampleArgs) -> Result<()> {
     };
     table.write_long_csv(&a.output.join("true_landmarks.csv"))?;
     let text = synth::scheme::scheme_toml();
-    crate::export::write_atomic(&a.output.join("scheme.toml"), |w| {
+    sutura_core::export::write_atomic(&a.output.join("scheme.toml"), |w| {
         w.write_all(text.as_bytes())
     })?;
     eprintln!(
@@ -97,7 +97,7 @@ pub fn run(a: &SampleArgs) -> Result<()> {
     Ok(())
 }
 
-fn write_scan(v: &crate::volume::Volume, path: &Path) -> Result<()> {
+fn write_scan(v: &sutura_core::volume::Volume, path: &Path) -> Result<()> {
     if path.exists() && path.is_dir() {
         std::fs::remove_dir_all(path).with_context(|| path.display().to_string())?;
     }

@@ -1,16 +1,16 @@
 //! `sutura superimpose`: generalized Procrustes analysis of a landmark table or a project, with
-//! the morphospace, disparity, distances and measurement error ([`crate::analysis`]), written as
+//! the morphospace, disparity, distances and measurement error ([`sutura_core::analysis`]), written as
 //! CSV/JSON/NPY and charts.
 
 use anyhow::{Context, Result, bail};
 use clap::{Args, ValueEnum};
 use std::path::PathBuf;
 
-use crate::analysis::{AnalysisOptions, Sliding, analyse_sliding};
-use crate::export::table::LandmarkTable;
-use crate::shape::missing::MissingMethod;
-use crate::shape::sliding::{Curve, SlideCriterion};
-use crate::shape::{Fit, GpaOptions};
+use sutura_core::analysis::{AnalysisOptions, Sliding, analyse_sliding};
+use sutura_core::export::table::LandmarkTable;
+use sutura_core::shape::missing::MissingMethod;
+use sutura_core::shape::sliding::{Curve, SlideCriterion};
+use sutura_core::shape::{Fit, GpaOptions};
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
 pub enum FitArg {
@@ -95,11 +95,11 @@ fn read_input(a: &SuperimposeArgs) -> Result<(LandmarkTable, Vec<Curve>)> {
         }
         return Ok((LandmarkTable::read_csv(&a.table)?, Vec::new()));
     }
-    let project = crate::landmarks::Project::load(&a.table)?;
+    let project = sutura_core::landmarks::Project::load(&a.table)?;
     let slide = a.slide_curves.is_some();
-    let e = crate::landmarks::project::points::flatten(&project, Some(&a.group_key), slide);
+    let e = sutura_core::landmarks::project::points::flatten(&project, Some(&a.group_key), slide);
     let curves = if slide {
-        crate::landmarks::project::points::sliding_curves(project.scheme())
+        sutura_core::landmarks::project::points::sliding_curves(project.scheme())
     } else {
         Vec::new()
     };

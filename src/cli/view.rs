@@ -6,13 +6,13 @@ use clap::{Args, ValueEnum};
 use nalgebra::Vector3;
 use std::path::PathBuf;
 
-use crate::geometry::{Plane, WorldPoint};
-use crate::render::overlay::{AxisNames, Overlay};
-use crate::render::{
+use sutura_core::geometry::{Plane, WorldPoint};
+use sutura_core::render::overlay::{AxisNames, Overlay};
+use sutura_core::render::{
     AxisPlane, Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RgbaImage, Slab,
     SlabMode, SurfaceOptions, WindowLevel, raycast, slice,
 };
-use crate::volume::Volume;
+use sutura_core::volume::Volume;
 
 /// Colour maps for slices and projections.
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -152,7 +152,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     let pixel_mm = a
         .pixel
         .as_deref()
-        .map(crate::geometry::parse_length_mm)
+        .map(sutura_core::geometry::parse_length_mm)
         .transpose()?;
     let plane = oblique_plane(a, &v)?;
     let geometry = if let Some(p) = plane {
@@ -177,7 +177,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
         .as_deref()
         .map(|s| -> Result<Slab> {
             Ok(Slab {
-                thickness_mm: crate::geometry::parse_length_mm(s)?,
+                thickness_mm: sutura_core::geometry::parse_length_mm(s)?,
                 mode: match a.slab_mode {
                     SlabModeArg::Mean => SlabMode::Mean,
                     SlabModeArg::Max => SlabMode::Max,
@@ -202,7 +202,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
         a.output.display(),
         rgba.width,
         rgba.height,
-        crate::geometry::format_length_mm(img.pixel_mm),
+        sutura_core::geometry::format_length_mm(img.pixel_mm),
         wl.centre,
         wl.width
     );

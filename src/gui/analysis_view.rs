@@ -1,7 +1,7 @@
 //! The analysis workspace: the project's superimposition run in the background, the
 //! morphospace scatter, the disparity table, and a button for every export.
 //!
-//! The analysis is [`crate::analysis::analyse`] on the project as it stands in memory
+//! The analysis is [`sutura_core::analysis::analyse`] on the project as it stands in memory
 //! (unsaved edits included), flattened by [`flatten`] with the `group` label, with the same
 //! defaults as `sutura superimpose` (partial Procrustes, thin-plate-spline estimates of missing
 //! landmarks, 999 resamples, seed 1), so the numbers here are the command line's numbers. The
@@ -15,10 +15,10 @@ use std::time::Instant;
 use eframe::egui::{self, Align2, Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, Ui, Vec2};
 
 use super::state::{Command, ExportKind, Workspace};
-use crate::analysis::{Analysis, AnalysisOptions, analyse};
-use crate::landmarks::Project;
-use crate::landmarks::project::points::flatten;
-use crate::measure::table::{measure_project, write_csv_file};
+use sutura_core::analysis::{Analysis, AnalysisOptions, analyse};
+use sutura_core::landmarks::Project;
+use sutura_core::landmarks::project::points::flatten;
+use sutura_core::measure::table::{measure_project, write_csv_file};
 
 /// The group label the analysis compares.
 pub const GROUP_KEY: &str = "group";

@@ -24,12 +24,12 @@ use super::state::{
 };
 use super::view::{self, Desk, Shown, VIEW_BACKGROUND, pixels_for, plane_map, view_ui};
 use super::worker::{PlaneKey, RenderKey, VolumeKey, Workers};
-use crate::geometry::{Plane, WorldPoint, parse_length_mm};
-use crate::io::OpenOptions;
-use crate::landmarks::Edit;
-use crate::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_along_ray, pick_in_slice};
-use crate::landmarks::project::{AutosaveStatus, Method, PickRecord, Timestamp};
-use crate::render::{Quality, SliceGeometry};
+use sutura_core::geometry::{Plane, WorldPoint, parse_length_mm};
+use sutura_core::io::OpenOptions;
+use sutura_core::landmarks::Edit;
+use sutura_core::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_along_ray, pick_in_slice};
+use sutura_core::landmarks::project::{AutosaveStatus, Method, PickRecord, Timestamp};
+use sutura_core::render::{Quality, SliceGeometry};
 
 /// How long the 3D view must be still before its full-quality pass is asked for.
 const SETTLE_SECS: f64 = 0.25;
@@ -1378,13 +1378,13 @@ impl App {
         // start outside the volume so the first crossing is the surface the picture shows
         let d = vol.dims();
         let diag =
-            vol.voxel_to_world(crate::geometry::VoxelPoint::new(
+            vol.voxel_to_world(sutura_core::geometry::VoxelPoint::new(
                 d[0] as f64,
                 d[1] as f64,
                 d[2] as f64,
             ))
             .0 - vol
-                .voxel_to_world(crate::geometry::VoxelPoint::new(-1.0, -1.0, -1.0))
+                .voxel_to_world(sutura_core::geometry::VoxelPoint::new(-1.0, -1.0, -1.0))
                 .0;
         let start = WorldPoint(origin.0 - dir * diag.norm());
         let threshold = self.vs.threshold;
@@ -1447,7 +1447,7 @@ impl App {
 
     /// Shows a volume already in memory as if it had just been opened from `path` (derived
     /// volumes, tests and the benchmark).
-    pub fn open_volume(&mut self, path: PathBuf, volume: crate::volume::Volume) {
+    pub fn open_volume(&mut self, path: PathBuf, volume: sutura_core::volume::Volume) {
         self.next_scan_id += 1;
         self.install(Scan::new(self.next_scan_id, path, volume));
     }

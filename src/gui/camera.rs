@@ -3,7 +3,7 @@
 //! Pure geometry, no egui and no rendering, so that the rules the views follow can be tested
 //! on their own:
 //! - a plane view shows the plane through the crosshair point with an in-plane basis `(u, v)`
-//!   (columns along `u`, rows along `v`, as [`crate::render::slice`] draws them); its
+//!   (columns along `u`, rows along `v`, as [`sutura_core::render::slice`] draws them); its
 //!   [`PlaneCamera`] holds the world point at the view's centre and a zoom relative to "the
 //!   whole volume fits" — so a view keeps its framing when it moves between the large stage
 //!   and a small strip slot;
@@ -12,13 +12,13 @@
 //! - zooming keeps the world point under the pointer fixed on screen ([`zoom_about`]);
 //! - the oblique plane is a rotation of the k plane's basis ([`Oblique`]);
 //! - the 3D view is an orbit around the volume ([`Orbit`]) turned into a
-//!   [`render::Camera`](crate::render::Camera).
+//!   [`render::Camera`](sutura_core::render::Camera).
 
 use nalgebra::{Matrix3, Rotation3, UnitQuaternion, Vector3};
 
-use crate::geometry::{VoxelPoint, WorldPoint};
-use crate::render::{Camera, RenderError};
-use crate::volume::Volume;
+use sutura_core::geometry::{VoxelPoint, WorldPoint};
+use sutura_core::render::{Camera, RenderError};
+use sutura_core::volume::Volume;
 
 /// Zoom limits relative to the fitted view (1 = the whole volume fits).
 pub const MIN_ZOOM: f64 = 0.25;
@@ -26,7 +26,7 @@ pub const MAX_ZOOM: f64 = 64.0;
 
 /// The in-plane basis `(u, v)` of voxel plane `axis` (0 = i, 1 = j, 2 = k): `u` along the
 /// first other voxel axis, `v` along the second, made orthogonal to `u` — the convention of
-/// [`crate::render::SliceGeometry::axis`].
+/// [`sutura_core::render::SliceGeometry::axis`].
 #[must_use]
 pub fn axis_basis(volume: &Volume, axis: usize) -> (Vector3<f64>, Vector3<f64>) {
     let (ca, ra) = match axis {
@@ -333,7 +333,7 @@ impl Orbit {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::geometry::Affine3;
+    use sutura_core::geometry::Affine3;
     use approx::assert_relative_eq;
 
     fn volume() -> Volume {

@@ -2,7 +2,7 @@
 //! and its autosave.
 //!
 //! Every change to the project goes through [`Session::edit`], which applies a
-//! [`crate::landmarks::project::Edit`] and keeps the exact inverse it returns on the undo stack;
+//! [`sutura_core::landmarks::project::Edit`] and keeps the exact inverse it returns on the undo stack;
 //! undo applies that inverse and keeps *its* inverse for redo. Whether the document differs
 //! from the file is decided by comparing it with the copy last read or written, so undoing back
 //! to the saved state makes it clean again.
@@ -18,8 +18,8 @@
 use std::path::{Path, PathBuf};
 use std::time::{Duration, Instant};
 
-use crate::landmarks::Project;
-use crate::landmarks::project::{
+use sutura_core::landmarks::Project;
+use sutura_core::landmarks::project::{
     AutosaveStatus, Edit, LandmarkState, ProjectError, ProjectLock, Specimen, Timestamp, Trial,
     autosave_path, autosave_status,
 };
@@ -386,7 +386,7 @@ pub fn is_project_path(path: &Path) -> bool {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::landmarks::project::Method;
+    use sutura_core::landmarks::project::Method;
 
     fn copy_sample(dir: &Path) -> PathBuf {
         let src = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/sample_project.json");

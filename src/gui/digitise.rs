@@ -17,9 +17,9 @@ use super::desk::Session;
 use super::state::{Command, Preferences, Scan, ViewId};
 use super::view::Shown;
 use super::worker::RenderKey;
-use crate::geometry::WorldPoint;
-use crate::landmarks::project::{LandmarkState, Method};
-use crate::measure::table::measure_trial;
+use sutura_core::geometry::WorldPoint;
+use sutura_core::landmarks::project::{LandmarkState, Method};
+use sutura_core::measure::table::measure_trial;
 
 /// How many slice spacings from the plane a landmark is still drawn in a plane view.
 pub const NEAR_SLICES: f64 = 8.0;
@@ -606,7 +606,7 @@ pub enum Depth {
 
 /// The slice spacing of a plane view: the voxel spacing along its normal.
 #[must_use]
-pub fn slice_spacing(volume: &crate::volume::Volume, m: &ScreenMap) -> f64 {
+pub fn slice_spacing(volume: &sutura_core::volume::Volume, m: &ScreenMap) -> f64 {
     let n = m.u.cross(&m.v);
     let sp = volume.spacing_mm();
     // the spacing seen along n: the voxel box's extent along n, at least the smallest spacing

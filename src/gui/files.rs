@@ -15,7 +15,7 @@ use std::path::{Path, PathBuf};
 use eframe::egui::{self, Color32, RichText};
 
 use super::state::DialogKind;
-use crate::landmarks::project::FORMAT_NAME;
+use sutura_core::landmarks::project::FORMAT_NAME;
 
 /// A listed entry.
 #[derive(Clone, Debug, PartialEq, Eq)]

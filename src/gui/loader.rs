@@ -1,6 +1,6 @@
 //! Opening a scan on a background thread, with progress and cancel.
 //!
-//! The thread runs [`crate::io::open`] with a progress callback that stores `(done, total)` in
+//! The thread runs [`sutura_core::io::open`] with a progress callback that stores `(done, total)` in
 //! atomics the UI reads each frame, and returns `false` (cancel) once the user has asked to
 //! cancel; then it summarises the scan ([`Scan::new`]: one pass for the intensity
 //! percentiles). The outcome comes back by channel; the UI thread never waits for it. A project
@@ -14,9 +14,9 @@ use std::sync::mpsc::{Receiver, TryRecvError, channel};
 use std::time::Instant;
 
 use super::state::Scan;
-use crate::io::{self, OpenOptions, Progress};
-use crate::landmarks::project::ScanRecord;
-use crate::volume::Volume;
+use sutura_core::io::{self, OpenOptions, Progress};
+use sutura_core::landmarks::project::ScanRecord;
+use sutura_core::volume::Volume;
 
 /// How a load ended.
 #[derive(Debug)]

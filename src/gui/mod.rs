@@ -1,7 +1,7 @@
 //! The workstation: an egui desktop app over the library.
 //!
 //! Owns the window, the layout and the input; no science and no drawing of scan data lives
-//! here. Every picture of the scan comes from [`crate::render`] on worker threads and is only
+//! here. Every picture of the scan comes from [`sutura_core::render`] on worker threads and is only
 //! shown here as a texture (uploaded once, then replaced with `TextureHandle::set`).
 //!
 //! State comes in three tiers ([`state`]): the [`Document`] (what was opened; saved explicitly

@@ -9,8 +9,8 @@ use super::state::{
     Command, DialogKind, Document, Preferences, Scan, ViewId, ViewState, VolumeMode, Workspace,
 };
 use super::view::{colour32, format_value, hover_text};
-use crate::geometry::format_length_mm;
-use crate::render::{ColourMap, WindowLevel};
+use sutura_core::geometry::format_length_mm;
+use sutura_core::render::{ColourMap, WindowLevel};
 
 /// Every keyboard shortcut, as the help overlay lists it (the app's `shortcuts` handles them).
 pub const SHORTCUTS: &[(&str, &str)] = &[

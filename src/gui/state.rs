@@ -18,9 +18,9 @@ use nalgebra::Vector3;
 use serde::{Deserialize, Serialize};
 
 use super::camera::{Oblique, Orbit, PlaneCamera, ScreenMap, onto_slice, slice_index, zoom_about};
-use crate::geometry::{VoxelIndex, VoxelPoint, WorldPoint};
-use crate::render::{ColourMap, Interpolation, WindowLevel};
-use crate::volume::Volume;
+use sutura_core::geometry::{VoxelIndex, VoxelPoint, WorldPoint};
+use sutura_core::render::{ColourMap, Interpolation, WindowLevel};
+use sutura_core::volume::Volume;
 
 /// The five views. The first four are planes through the crosshair point.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize, Default)]
@@ -336,7 +336,7 @@ impl Scan {
     #[must_use]
     pub fn new(id: u64, path: PathBuf, volume: Volume) -> Self {
         let p = volume.percentiles(&[0.0, 0.5, 50.0, 99.5, 100.0]);
-        let iso50 = crate::landmarks::pick::iso50_threshold(&volume).ok();
+        let iso50 = sutura_core::landmarks::pick::iso50_threshold(&volume).ok();
         Self {
             id,
             path,
@@ -763,7 +763,7 @@ pub fn clamp_to_volume(volume: &Volume, p: WorldPoint) -> WorldPoint {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::geometry::Affine3;
+    use sutura_core::geometry::Affine3;
     use approx::assert_relative_eq;
 
     fn scan() -> Scan {

@@ -32,9 +32,9 @@ use super::desk::Session;
 use super::digitise;
 use super::state::{Command, Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
 use super::worker::RenderKey;
-use crate::geometry::WorldPoint;
-use crate::render::Camera;
-use crate::volume::Volume;
+use sutura_core::geometry::WorldPoint;
+use sutura_core::render::Camera;
+use sutura_core::volume::Volume;
 
 /// A picture a view shows: its texture, what it was rendered from, and (surface views) the
 /// world point behind each pixel.
@@ -135,7 +135,7 @@ pub fn pixels_for(rect: Rect, pixels_per_point: f32) -> [usize; 2] {
     [w, h]
 }
 
-/// Camera right and down vectors (unit, world), as [`crate::render::raycast`] lays out rows
+/// Camera right and down vectors (unit, world), as [`sutura_core::render::raycast`] lays out rows
 /// and columns.
 fn camera_axes(cam: &Camera) -> (Vector3<f64>, Vector3<f64>) {
     let dir = cam.view_dir.normalize();

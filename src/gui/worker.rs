@@ -9,7 +9,7 @@
 //! and use rayon inside the `render` calls. Results come back by channel with their
 //! generation; the app shows a result only if it is newer than what the view shows.
 //!
-//! All pixels come from [`crate::render`]: slices, window/level, colour maps, ray casting and
+//! All pixels come from [`sutura_core::render`]: slices, window/level, colour maps, ray casting and
 //! the scale bar; [`render_view`] only chains those calls and converts the RGBA image to the
 //! texture format, so the benchmark measures exactly what the workstation does per redraw.
 
@@ -22,15 +22,15 @@ use eframe::egui;
 use rayon::prelude::*;
 
 use super::state::{Scan, ViewId, VolumeMode};
-use crate::geometry::WorldPoint;
-use crate::render::overlay::{AxisNames, Overlay};
-use crate::render::pyramid::Pyramid;
-use crate::render::raycast::{self, Bricks};
-use crate::render::{
+use sutura_core::geometry::WorldPoint;
+use sutura_core::render::overlay::{AxisNames, Overlay};
+use sutura_core::render::pyramid::Pyramid;
+use sutura_core::render::raycast::{self, Bricks};
+use sutura_core::render::{
     Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RenderError, RgbaImage,
     SliceGeometry, SurfaceOptions, WindowLevel, slice,
 };
-use crate::volume::Volume;
+use sutura_core::volume::Volume;
 
 /// Everything that decides a plane view's pixels.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -474,7 +474,7 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::geometry::{Affine3, Plane, WorldPoint};
+    use sutura_core::geometry::{Affine3, Plane, WorldPoint};
     use nalgebra::Vector3;
 
     fn key(volume: &Volume, window: WindowLevel) -> PlaneKey {

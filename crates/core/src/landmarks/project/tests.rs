@@ -695,7 +695,7 @@ fn a_second_writer_is_turned_away() {
 /// file in format version 1"): it reads, and saves as version 2 with nothing else changed.
 #[test]
 fn version_1_files_are_upgraded() {
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/project_v1.json");
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../tests/fixtures/project_v1.json");
     let text = std::fs::read_to_string(&path).unwrap();
     assert!(text.contains("\"format_version\": 1,"));
     let p = Project::load(&path).unwrap();
