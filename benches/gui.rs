@@ -28,10 +28,10 @@ use std::time::{Duration, Instant};
 
 use eframe::egui::{Event, Modifiers, MouseWheelSource, MouseWheelUnit, TouchPhase, Vec2};
 use egui_kittest::Harness;
-use sutura_core::geometry::WorldPoint;
 use sutura::gui::state::VolumeMode;
 use sutura::gui::worker::{PlaneKey, RenderKey, VolumeAids, render_view_reusing, to_color_image};
 use sutura::gui::{App, Command, Preferences, ViewId};
+use sutura_core::geometry::WorldPoint;
 use sutura_core::render::Quality;
 use sutura_core::render::overlay::{AxisNames, Overlay};
 use sutura_core::render::slice;

@@ -27,7 +27,9 @@ use std::time::Instant;
 use sutura_core::geometry::Plane;
 use sutura_core::io::{OpenOptions, Progress};
 use sutura_core::render::pyramid::Pyramid;
-use sutura_core::render::raycast::{Bricks, Camera, MipOptions, Quality, SurfaceOptions, mip, surface};
+use sutura_core::render::raycast::{
+    Bricks, Camera, MipOptions, Quality, SurfaceOptions, mip, surface,
+};
 use sutura_core::render::slice::{
     Interpolation, Slab, SlabMode, SliceGeometry, render_slice, render_slice_into,
 };

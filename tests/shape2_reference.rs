@@ -118,7 +118,8 @@ fn procrustes_anova_matches_statsmodels() {
     use sutura_core::shape::anova::{procrustes_anova, shape_dims};
     for (m, reps) in [(2, vec![3, 3, 3, 3, 3]), (3, vec![2, 4, 3, 2, 3, 2])] {
         let (sample, labels) = replicates(&reps, 7, m, 42 + m as u64);
-        let r = procrustes_anova(&sample, &labels, &sutura_core::shape::GpaOptions::default()).unwrap();
+        let r =
+            procrustes_anova(&sample, &labels, &sutura_core::shape::GpaOptions::default()).unwrap();
         let rows = r.gpa.aligned.to_rows();
         let arg = json!({"data": to_json(&rows), "labels": labels});
         let py = common::run_python("shape2_anova.py", &[&arg.to_string()]);
@@ -164,7 +165,13 @@ fn procrustes_anova_matches_statsmodels() {
 
 /// Arcs of the unit circle (ends fixed, 7 semilandmarks spaced unevenly with a random exponent),
 /// plus two fixed landmarks off the curve, each under a random similarity.
-fn arcs(n: usize, seed: u64) -> (sutura_core::shape::Sample, Vec<sutura_core::shape::sliding::Curve>) {
+fn arcs(
+    n: usize,
+    seed: u64,
+) -> (
+    sutura_core::shape::Sample,
+    Vec<sutura_core::shape::sliding::Curve>,
+) {
     use rand::{Rng, SeedableRng};
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let s = 7;
@@ -217,8 +224,9 @@ fn total_energy(g: &sutura_core::shape::Gpa) -> f64 {
 fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
     use sutura_core::shape::sliding::{SlideCriterion, SlideOptions, slide_semilandmarks};
     let (sample, curves) = arcs(8, 5);
-    let before =
-        total_energy(&sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap());
+    let before = total_energy(
+        &sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap(),
+    );
     let slid = slide_semilandmarks(&sample, &curves, &SlideOptions::default()).unwrap();
     let after = total_energy(&slid.gpa);
     assert!(
@@ -249,7 +257,9 @@ fn sliding_procedure_lowers_energy_and_clears_tangential_residuals() {
         }
         worst
     };
-    let r0 = residual(&sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap());
+    let r0 = residual(
+        &sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap(),
+    );
     {
         let rounds = 60;
         let opts = SlideOptions {

@@ -20,11 +20,11 @@ use clap::{Args, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
 use super::project::{Session, TimeArgs, load};
+use nalgebra::Vector3;
 use sutura_core::geometry::{WorldPoint, parse_length_mm};
 use sutura_core::io::Progress;
 use sutura_core::landmarks::pick;
 use sutura_core::landmarks::project::{Edit, LandmarkState, Method, PickRecord, Project, Trial};
-use nalgebra::Vector3;
 
 #[derive(Debug, Subcommand)]
 pub enum LandmarkCommand {

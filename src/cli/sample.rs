@@ -30,7 +30,11 @@ fn scan_name(index: usize, id: &str) -> String {
 }
 
 /// One generated specimen: id, group, true landmarks (world mm).
-type Written = (String, String, Vec<(String, sutura_core::geometry::WorldPoint)>);
+type Written = (
+    String,
+    String,
+    Vec<(String, sutura_core::geometry::WorldPoint)>,
+);
 
 pub fn run(a: &SampleArgs) -> Result<()> {
     std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;

@@ -27,7 +27,9 @@ use super::worker::{PlaneKey, RenderKey, VolumeKey, Workers};
 use sutura_core::geometry::{Plane, WorldPoint, parse_length_mm};
 use sutura_core::io::OpenOptions;
 use sutura_core::landmarks::Edit;
-use sutura_core::landmarks::pick::{Crossing, PickOptions, SliceSearch, pick_along_ray, pick_in_slice};
+use sutura_core::landmarks::pick::{
+    Crossing, PickOptions, SliceSearch, pick_along_ray, pick_in_slice,
+};
 use sutura_core::landmarks::project::{AutosaveStatus, Method, PickRecord, Timestamp};
 use sutura_core::render::{Quality, SliceGeometry};
 

@@ -333,8 +333,8 @@ impl Orbit {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use sutura_core::geometry::Affine3;
     use approx::assert_relative_eq;
+    use sutura_core::geometry::Affine3;
 
     fn volume() -> Volume {
         // anisotropic, translated, slightly sheared: the maps must not assume a diagonal affine

@@ -763,8 +763,8 @@ pub fn clamp_to_volume(volume: &Volume, p: WorldPoint) -> WorldPoint {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use sutura_core::geometry::Affine3;
     use approx::assert_relative_eq;
+    use sutura_core::geometry::Affine3;
 
     fn scan() -> Scan {
         let dims = [8, 6, 5];

@@ -474,8 +474,8 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use sutura_core::geometry::{Affine3, Plane, WorldPoint};
     use nalgebra::Vector3;
+    use sutura_core::geometry::{Affine3, Plane, WorldPoint};
 
     fn key(volume: &Volume, window: WindowLevel) -> PlaneKey {
         let plane = Plane {

@@ -437,8 +437,8 @@ mod tests {
     /// The bundled `sample_volumes/scheme.toml` is what the generator writes.
     #[test]
     fn bundled_scheme_file_is_current() {
-        let path =
-            std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../../sample_volumes/scheme.toml");
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("../../sample_volumes/scheme.toml");
         let bundled = std::fs::read_to_string(&path).unwrap();
         assert!(
             bundled == scheme_toml(),
