@@ -33,6 +33,7 @@
 pub mod curve;
 pub mod fingerprint;
 pub mod mirror;
+pub mod palette;
 pub mod pick;
 pub mod project;
 pub mod scan;
