@@ -938,7 +938,8 @@ fn a_project_is_started_in_the_window_from_the_sample_scans() {
         f.scans[0].id = "HDC-001a".into();
     }
     step_until(&mut h, "every scan to be read", |a| {
-        a.new_project_form().is_some_and(|f| f.all_read())
+        a.new_project_form()
+            .is_some_and(sutura::gui::new_project::NewProjectForm::all_read)
     });
     h.get_by_label("Make project").click();
     step_until(&mut h, "the project with its specimens", |a| {

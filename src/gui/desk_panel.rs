@@ -8,7 +8,7 @@ use eframe::egui::{self, Color32, RichText, Sense, Stroke, Ui, Vec2};
 use super::app::UiState;
 use super::command::{AppCommand, Command, DeskCommand, DialogKind, TypedPosition, ViewCommand};
 use super::desk::Desk;
-use super::marks::{CURRENT, ESTIMATED, MISSING, OPEN, PLACED, state_colour};
+use super::marks::{CURRENT, MISSING, OPEN, PLACED, state_colour};
 use super::state::{Preferences, Scan, ViewState};
 use sutura_core::landmarks::project::{LandmarkState, Method};
 use sutura_core::measure::table::measure_trial;
