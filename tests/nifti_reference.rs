@@ -289,7 +289,12 @@ fn generated_files_read_like_nibabel() {
     // written by nifti_make.py (seeded) when scripts/fetch_refdata.sh ran
     let dir = common::reference_path("nifti_made");
     let files = scans_in(&dir);
-    assert!(files.len() >= 20, "only {} files in {}", files.len(), dir.display());
+    assert!(
+        files.len() >= 20,
+        "only {} files in {}",
+        files.len(),
+        dir.display()
+    );
     let refs = reference("nifti_generated_files", &dir, &files);
     // our stored type for the converted files: the narrowest of u8/i16/u16/f32 holding the
     // values (nifti_make.py chose each range for one outcome)
@@ -367,9 +372,8 @@ fn oblique(flip: bool) -> Affine3 {
     // rotation by about 1.08 rad about (2, -1, 2)/3 from the unit quaternion (5, 2, -1, 2)/√34
     // (exact arithmetic and a square root only, so the same bits on every platform), spacing
     // 0.0125 / 0.02 / 0.035 mm
-    let q = nalgebra::UnitQuaternion::from_quaternion(nalgebra::Quaternion::new(
-        5.0, 2.0, -1.0, 2.0,
-    ));
+    let q =
+        nalgebra::UnitQuaternion::from_quaternion(nalgebra::Quaternion::new(5.0, 2.0, -1.0, 2.0));
     let r = q.to_rotation_matrix();
     let s = nalgebra::Matrix3::from_diagonal(&nalgebra::Vector3::new(
         0.0125,

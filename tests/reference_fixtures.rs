@@ -23,7 +23,14 @@ fn every_fixture_is_whole_and_made_by_its_current_script() {
         );
         let v: Value = serde_json::from_slice(&std::fs::read(&p).unwrap())
             .unwrap_or_else(|e| panic!("{name}: {e}"));
-        for key in ["script", "script_sha256", "args", "inputs", "versions", "output"] {
+        for key in [
+            "script",
+            "script_sha256",
+            "args",
+            "inputs",
+            "versions",
+            "output",
+        ] {
             assert!(v.get(key).is_some(), "{name}: no {key}");
         }
         let script = common::root()
@@ -41,7 +48,11 @@ fn every_fixture_is_whole_and_made_by_its_current_script() {
         assert!(v["versions"]["numpy"].is_string(), "{name}: versions");
         names.push(name);
     }
-    assert!(names.len() >= 20, "only {} fixtures: {names:?}", names.len());
+    assert!(
+        names.len() >= 20,
+        "only {} fixtures: {names:?}",
+        names.len()
+    );
 }
 
 #[test]

@@ -138,11 +138,14 @@ fn numpy_batched_gpa_agrees() {
     // reference: the batched numpy GPA of the project's baseline kit (algorithm copied in
     // tests/python/shape_gpa_numpy.py from /work/shared/bench/py_baseline.py gpa_vectorized).
     for (n, l, m) in [("40", "12", "3"), ("25", "9", "2")] {
-        let r = common::Reference::new(&format!("shape_gpa_numpy_{n}x{l}x{m}"), "shape_gpa_numpy.py")
-            .arg(n)
-            .arg(l)
-            .arg(m)
-            .run();
+        let r = common::Reference::new(
+            &format!("shape_gpa_numpy_{n}x{l}x{m}"),
+            "shape_gpa_numpy.py",
+        )
+        .arg(n)
+        .arg(l)
+        .arg(m)
+        .run();
         let input: Vec<DMatrix<f64>> = r["input"].as_array().unwrap().iter().map(mat).collect();
         let g = gpa(
             &Sample::from_configs(&input).unwrap(),

@@ -47,6 +47,7 @@
 
 use serde_json::Value;
 use std::collections::{BTreeMap, HashMap};
+use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::{Mutex, OnceLock};
@@ -171,7 +172,7 @@ fn digest(path: &Path) -> String {
         let mut listing = String::new();
         for f in files {
             let rel = f.strip_prefix(path).unwrap().to_string_lossy().into_owned();
-            listing.push_str(&format!("{rel}\t{}\n", digest(&f)));
+            let _ = writeln!(listing, "{rel}\t{}", digest(&f));
         }
         sha256_hex(listing.as_bytes())
     } else {
@@ -283,7 +284,7 @@ impl Reference {
             .join(format!("{}.json", self.name))
     }
 
-    fn to_placeholders(&self, s: &str) -> String {
+    fn name_placeholders(&self, s: &str) -> String {
         let mut s = s.to_owned();
         for (key, path) in &self.dirs {
             s = s.replace(path.as_str(), &format!("${{{key}}}"));
@@ -291,7 +292,7 @@ impl Reference {
         s
     }
 
-    fn from_placeholders(&self, s: &str) -> String {
+    fn expand_placeholders(&self, s: &str) -> String {
         let mut s = s.to_owned();
         for (key, path) in &self.dirs {
             s = s.replace(&format!("${{{key}}}"), path);
@@ -306,14 +307,14 @@ impl Reference {
         let args: Vec<Value> = self
             .args
             .iter()
-            .map(|a| Value::String(self.to_placeholders(a)))
+            .map(|a| Value::String(self.name_placeholders(a)))
             .collect();
         let inputs: BTreeMap<String, Value> = self
             .inputs
             .iter()
             .map(|p| {
                 (
-                    self.to_placeholders(p.to_str().expect("UTF-8 path")),
+                    self.name_placeholders(p.to_str().expect("UTF-8 path")),
                     Value::String(digest(p)),
                 )
             })
@@ -348,6 +349,37 @@ impl Reference {
         })
     }
 
+    /// Runs the script and writes its fixture.
+    fn record(&self, path: &Path, script_sha: String, args: &Value, inputs: &Value) -> Value {
+        let live = self.run_script();
+        {
+            let mut seen = recorded().lock().unwrap();
+            if let Some(before) = seen.insert(self.name.clone(), args.clone()) {
+                assert!(
+                    &before == args,
+                    "reference name {} is used for two different calls: {before} and {args}",
+                    self.name
+                );
+            }
+        }
+        let output = map_strings(&live, &|s| self.name_placeholders(s));
+        let text = format!(
+            "{{\n\"script\": {},\n\"script_sha256\": {},\n\"args\": {},\n\"inputs\": {},\n\"versions\": {},\n\"output\": {}\n}}\n",
+            Value::String(self.script.clone()),
+            Value::String(script_sha),
+            args,
+            serde_json::to_string_pretty(inputs).unwrap(),
+            package_versions(),
+            output
+        );
+        let dir = path.parent().unwrap();
+        std::fs::create_dir_all(dir).unwrap();
+        let mut tmp = tempfile::NamedTempFile::new_in(dir).unwrap();
+        std::io::Write::write_all(&mut tmp, text.as_bytes()).unwrap();
+        tmp.persist(path).unwrap();
+        live
+    }
+
     /// Answers the question: from the fixture, live, or live and recorded (see the module's
     /// documentation). Fails, never skips, when the answer cannot be had.
     pub fn run(self) -> Value {
@@ -356,33 +388,7 @@ impl Reference {
         let path = self.fixture_path();
         let rel = path.strip_prefix(root()).unwrap().display().to_string();
         if mode == Mode::Record {
-            let live = self.run_script();
-            {
-                let mut seen = recorded().lock().unwrap();
-                if let Some(before) = seen.insert(self.name.clone(), args.clone()) {
-                    assert!(
-                        before == args,
-                        "reference name {} is used for two different calls: {before} and {args}",
-                        self.name
-                    );
-                }
-            }
-            let output = map_strings(&live, &|s| self.to_placeholders(s));
-            let text = format!(
-                "{{\n\"script\": {},\n\"script_sha256\": {},\n\"args\": {},\n\"inputs\": {},\n\"versions\": {},\n\"output\": {}\n}}\n",
-                Value::String(self.script.clone()),
-                Value::String(script_sha),
-                args,
-                serde_json::to_string_pretty(&inputs).unwrap(),
-                package_versions(),
-                output
-            );
-            let dir = path.parent().unwrap();
-            std::fs::create_dir_all(dir).unwrap();
-            let mut tmp = tempfile::NamedTempFile::new_in(dir).unwrap();
-            std::io::Write::write_all(&mut tmp, text.as_bytes()).unwrap();
-            tmp.persist(&path).unwrap();
-            return live;
+            return self.record(&path, script_sha, &args, &inputs);
         }
         let text = std::fs::read_to_string(&path).unwrap_or_else(|e| {
             panic!(
@@ -437,13 +443,13 @@ impl Reference {
             ));
         }
         if mode == Mode::Fixture {
-            return map_strings(&fixture["output"], &|s| self.from_placeholders(s));
+            return map_strings(&fixture["output"], &|s| self.expand_placeholders(s));
         }
         let live = self.run_script();
         let mut drift = Vec::new();
         compare(
             &fixture["output"],
-            &map_strings(&live, &|s| self.to_placeholders(s)),
+            &map_strings(&live, &|s| self.name_placeholders(s)),
             "output",
             self.tolerance,
             &mut drift,
@@ -456,7 +462,12 @@ impl Reference {
             self.tolerance,
             fixture["versions"],
             package_versions(),
-            drift.iter().take(10).cloned().collect::<Vec<_>>().join("\n")
+            drift
+                .iter()
+                .take(10)
+                .cloned()
+                .collect::<Vec<_>>()
+                .join("\n")
         );
         live
     }

@@ -4,7 +4,7 @@
 //! A figure is described once in pixel coordinates (origin top-left) and written as SVG
 //! ([`Figure::to_svg`]); its PNG is that SVG rasterised by resvg ([`Figure::to_rgba`]), so the
 //! two always show the same thing and every glyph is a real one, set in the font the crate
-//! bundles ([`crate::render::text`], DejaVu Sans), never one looked up on the system.
+//! bundles ([`crate::render::text`], `DejaVu Sans`), never one looked up on the system.
 //! [`plots`] builds the figures from plain numbers.
 //!
 //! Imports `render` only for its font; knows nothing about shapes or volumes.

@@ -7,7 +7,7 @@
 //! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
 //! - [`pyramid`]: block min/max copies of a volume for coarse passes and empty-space skipping;
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
-//! - [`text`]: the bundled font (DejaVu Sans) and its glyphs drawn as paths, for overlays and
+//! - [`text`]: the bundled font (`DejaVu Sans`) and its glyphs drawn as paths, for overlays and
 //!   charts;
 //! - [`png`]: PNG encoding of an [`RgbaImage`].
 //!

@@ -1,7 +1,7 @@
 //! Text in rendered images: the one font the crate bundles and its glyphs drawn as
 //! anti-aliased paths.
 //!
-//! The font is DejaVu Sans 2.37 (`crates/core/fonts/DejaVuSans.ttf`, its licence beside it),
+//! The font is `DejaVu Sans` 2.37 (`crates/core/fonts/DejaVuSans.ttf`, its licence beside it),
 //! compiled into the binary with `include_bytes!` and never looked up on the system, so an
 //! overlay or a chart reads the same on every machine. Charts hand the same bytes to resvg
 //! ([`crate::chart`]); overlays ([`super::overlay`]) draw through [`draw_text`]: characters are
@@ -17,7 +17,7 @@ use std::collections::HashMap;
 use std::sync::{Mutex, OnceLock};
 use tiny_skia::{FillRule, Paint, Path, PathBuilder, Pixmap, Transform};
 
-/// The bundled font file (DejaVu Sans 2.37, Bitstream Vera and Arev licences).
+/// The bundled font file (`DejaVu Sans` 2.37, Bitstream Vera and Arev licences).
 pub static FONT: &[u8] = include_bytes!("../../fonts/DejaVuSans.ttf");
 
 /// The family name the bundled font declares, for SVG `font-family`.
