@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{root, run_python, run_sutura};
+use common::{Reference, root, run_sutura};
 use sutura_core::geometry::VoxelIndex;
 
 fn samples() -> std::path::PathBuf {
@@ -22,7 +22,10 @@ fn info_json_agrees_with_nibabel() {
     assert_eq!(ours["dims"], serde_json::json!([120, 88, 48]));
     assert_eq!(ours["dtype"], "u16");
     // reference: nibabel's reading of the same file (sum of get_fdata, affine)
-    let reference = run_python("nifti_sum.py", &[scan.to_str().unwrap()]);
+    let reference = Reference::new("cli_info_nibabel_sum", "nifti_sum.py")
+        .path_arg(&scan)
+        .input(&scan)
+        .run();
     let (a, b) = (
         ours["sum"].as_f64().unwrap(),
         reference["sum"].as_f64().unwrap(),
@@ -253,7 +256,11 @@ fn superimpose_separates_the_two_localities() {
     assert!(max0 < min1 || max1 < min0, "PC1 overlaps: {g:?}");
     // aligned coordinates have unit centroid size (partial Procrustes): check with numpy
     let npy = dir.path().join("aligned.npy");
-    let r = run_python("npy_centroid_sizes.py", &[npy.to_str().unwrap()]);
+    let r = Reference::new("cli_aligned_centroid_sizes", "npy_centroid_sizes.py")
+        .dir("out", dir.path())
+        .path_arg(&npy)
+        .input(&npy)
+        .run();
     for cs in r["centroid_sizes"].as_array().unwrap() {
         assert!((cs.as_f64().unwrap() - 1.0).abs() < 1e-9, "{cs}");
     }

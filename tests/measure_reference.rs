@@ -1,6 +1,7 @@
 //! Distances measured through a project on nibabel's own `NIfTI` test files agree with the
 //! distances nibabel's affine gives (reference: nibabel 5.x `img.affine` with
-//! `nibabel.affines.apply_affine` and `numpy.linalg.norm`, in `tests/python/measure_distances.py`).
+//! `nibabel.affines.apply_affine` and `numpy.linalg.norm`, in `tests/python/measure_distances.py`;
+//! its answer is the committed fixture `measure_nibabel_distances`, see `tests/common`).
 //!
 //! For each file a specimen is added to a project (its `world_from_voxel` as Sutura reads it),
 //! landmarks are placed by voxel coordinates — voxel (0, 0, 0) and the far corners, a centre and
@@ -10,7 +11,6 @@
 
 mod common;
 
-use std::path::PathBuf;
 use sutura_core::io::Progress;
 use sutura_core::landmarks::project::{Method, ScanRecord, Specimen, Timestamp, Trial};
 use sutura_core::landmarks::{Edit, Project};
@@ -57,14 +57,9 @@ id = "od"
 distance = ["o", "d"]
 "#;
 
-fn nibabel_data_dir() -> PathBuf {
-    let v = common::run_python("nifti_reference.py", &["--data-dir"]);
-    PathBuf::from(v["dir"].as_str().unwrap())
-}
-
 #[test]
 fn distances_match_nibabels_affine() {
-    let data = nibabel_data_dir();
+    let data = common::reference_path("nibabel");
     let dir = tempfile::tempdir().unwrap();
     let project_file = dir.path().join("p.json");
     let mut project = Project::new(SCHEME.to_owned(), "inline".into()).unwrap();
@@ -122,7 +117,10 @@ fn distances_match_nibabels_affine() {
         requests.push(serde_json::json!({"file": path, "voxels": voxels}));
     }
     let arg = serde_json::to_string(&requests).unwrap();
-    let reference = common::run_python("measure_distances.py", &[&arg]);
+    let reference = common::Reference::new("measure_nibabel_distances", "measure_distances.py")
+        .arg(arg)
+        .input(&data)
+        .run();
     let rows = measure_project(&project);
     assert_eq!(rows.len(), FILES.len() * 4);
     for (n, name) in FILES.iter().enumerate() {

@@ -4,7 +4,7 @@
 
 mod common;
 
-use common::{python, root, run_sutura, sutura};
+use common::{root, run_sutura, sutura};
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 use sutura_core::export::table::LandmarkTable;
@@ -365,18 +365,11 @@ fn create_digitise_measure_export_superimpose() {
         Some(p("snout_tip")),
         "exact through the CSV"
     );
-    let np = std::process::Command::new(python())
-        .arg("-c")
-        .arg("import json,sys,numpy as np; a=np.load(sys.argv[1]); print(json.dumps({'shape': a.shape, 'nan': int(np.isnan(a).sum()), 'x': a[0,0].tolist()}))")
-        .arg(cwd.join("l.npy"))
-        .output()
-        .unwrap();
-    assert!(
-        np.status.success(),
-        "{}",
-        String::from_utf8_lossy(&np.stderr)
-    );
-    let npv: Value = serde_json::from_slice(&np.stdout).unwrap();
+    let npv = common::Reference::new("project_landmarks_npy", "npy_summary.py")
+        .dir("work", cwd)
+        .path_arg(&cwd.join("l.npy"))
+        .input(&cwd.join("l.npy"))
+        .run();
     assert_eq!(npv["shape"], serde_json::json!([5, 25, 3]));
     let nan_points = table
         .observations

@@ -3,7 +3,9 @@
 //! Reference: `scipy.ndimage.map_coordinates(input, coords, order=1)` (`SciPy` ndimage,
 //! first-order spline = trilinear interpolation between voxel centres), evaluated by
 //! `tests/python/render_map_coordinates.py` at the same voxel coordinates, inside the hull of
-//! voxel centres `[0, n - 1]` where the edge mode plays no part.
+//! voxel centres `[0, n - 1]` where the edge mode plays no part. `SciPy`'s answers are the
+//! committed fixtures `render_*` (see `tests/common`): the volume comes from a seeded generator
+//! and the points from fixed planes, so they are the same on every run.
 
 mod common;
 
@@ -33,7 +35,7 @@ fn random_volume(dir: &std::path::Path) -> Volume {
     Volume::from_vec(DIMS, w, data).unwrap()
 }
 
-fn reference_values(dir: &std::path::Path, points: &[VoxelPoint]) -> Vec<f64> {
+fn reference_values(name: &str, dir: &std::path::Path, points: &[VoxelPoint]) -> Vec<f64> {
     let coords = dir.join("coords.f64");
     let mut f = std::fs::File::create(&coords).unwrap();
     for p in points {
@@ -44,17 +46,17 @@ fn reference_values(dir: &std::path::Path, points: &[VoxelPoint]) -> Vec<f64> {
     drop(f);
     let vol = dir.join("vol.raw");
     let d = DIMS.map(|n| n.to_string());
-    let out = common::run_python(
-        "render_map_coordinates.py",
-        &[
-            vol.to_str().unwrap(),
-            "<u2",
-            &d[0],
-            &d[1],
-            &d[2],
-            coords.to_str().unwrap(),
-        ],
-    );
+    let out = common::Reference::new(name, "render_map_coordinates.py")
+        .dir("tmp", dir)
+        .path_arg(&vol)
+        .arg("<u2")
+        .arg(d[0].as_str())
+        .arg(d[1].as_str())
+        .arg(d[2].as_str())
+        .path_arg(&coords)
+        .input(&vol)
+        .input(&coords)
+        .run();
     out["values"]
         .as_array()
         .unwrap()
@@ -90,7 +92,7 @@ fn oblique_slices_match_map_coordinates() {
         )
         .unwrap(),
     ];
-    for plane in &planes {
+    for (n, plane) in planes.iter().enumerate() {
         // pixels finer than the voxels so that most pixels sit between centres
         let g = SliceGeometry::covering(&v, plane, Some(0.013)).unwrap();
         let img = render_slice(&v, &g, Interpolation::Trilinear, None).unwrap();
@@ -108,7 +110,7 @@ fn oblique_slices_match_map_coordinates() {
             }
         }
         assert!(points.len() > 200, "only {} pixels inside", points.len());
-        let want = reference_values(dir.path(), &points);
+        let want = reference_values(&format!("render_oblique_slice_{n}"), dir.path(), &points);
         assert_eq!(want.len(), got.len());
         let bad: Vec<_> = got
             .iter()
@@ -143,7 +145,7 @@ fn volume_trilinear_matches_map_coordinates() {
     points.push(VoxelPoint::new(16.0, 12.0, 8.0));
     points.push(VoxelPoint::new(16.0, 0.5, 8.0));
     points.push(VoxelPoint::new(3.0, 12.0, 0.25));
-    let want = reference_values(dir.path(), &points);
+    let want = reference_values("render_trilinear_points", dir.path(), &points);
     for (p, w) in points.iter().zip(&want) {
         let world: WorldPoint = v.voxel_to_world(*p);
         let via_world = v.sample_trilinear(world).unwrap();

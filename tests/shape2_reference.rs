@@ -1,5 +1,6 @@
 //! Shape statistics, second half (thin-plate splines, missing landmarks, sliding, measurement
-//! error, symmetry), checked against outside references in the Python venv.
+//! error, symmetry), checked against outside references in the Python venv (their answers are
+//! the committed fixtures `shape2_*`, see `tests/common`).
 
 mod common;
 
@@ -53,7 +54,9 @@ fn tps_matches_scipy_rbf_interpolator() {
         });
         let arg =
             json!({"source": to_json(&src), "target": to_json(&tgt), "points": to_json(&points)});
-        let r = common::run_python("shape2_tps.py", &[&arg.to_string()]);
+        let r = common::Reference::new(&format!("shape2_tps_{m}d"), "shape2_tps.py")
+            .arg(arg.to_string())
+            .run();
         let expected = from_json(&r["warp"], m);
         let fit = Tps::fit(&src, &tgt).unwrap();
         let got = fit.warp(&points).unwrap();
@@ -122,7 +125,9 @@ fn procrustes_anova_matches_statsmodels() {
             procrustes_anova(&sample, &labels, &sutura_core::shape::GpaOptions::default()).unwrap();
         let rows = r.gpa.aligned.to_rows();
         let arg = json!({"data": to_json(&rows), "labels": labels});
-        let py = common::run_python("shape2_anova.py", &[&arg.to_string()]);
+        let py = common::Reference::new(&format!("shape2_anova_shape_{m}d"), "shape2_anova.py")
+            .arg(arg.to_string())
+            .run();
         let ss_ind = py["ss_individual"].as_f64().unwrap();
         let ss_err = py["ss_error"].as_f64().unwrap();
         assert!(
@@ -150,7 +155,9 @@ fn procrustes_anova_matches_statsmodels() {
             .collect();
         let arg =
             json!({"data": sizes.iter().map(|v| vec![*v]).collect::<Vec<_>>(), "labels": labels});
-        let py = common::run_python("shape2_anova.py", &[&arg.to_string()]);
+        let py = common::Reference::new(&format!("shape2_anova_size_{m}d"), "shape2_anova.py")
+            .arg(arg.to_string())
+            .run();
         let c = &py["columns"][0];
         let (f, p) = (c["F"].as_f64().unwrap(), c["p"].as_f64().unwrap());
         assert!((r.size.f - f).abs() < 1e-10 * f, "F {} vs {f}", r.size.f);

@@ -1,6 +1,8 @@
 //! Shape statistics checked against outside references: scipy's Procrustes routines, the
 //! closed-form planar full Procrustes mean, Kendall's triangle facts and the project's batched
-//! numpy GPA; plus property tests of the invariances the theory guarantees.
+//! numpy GPA; plus property tests of the invariances the theory guarantees. The Python answers
+//! are the committed fixtures `shape_*` (see `tests/common`); the scripts generate their own
+//! data from seeded generators.
 
 mod common;
 
@@ -29,7 +31,7 @@ fn f(v: &Value) -> f64 {
 fn scipy_procrustes_docstring_example_is_a_mirror_image() {
     // reference: scipy.spatial.procrustes docstring example (scipy/spatial/_procrustes.py);
     // scipy reaches disparity 0 only by reflecting (its rotation has det −1).
-    let r = common::run_python("shape_scipy.py", &[]);
+    let r = common::Reference::new("shape_scipy", "shape_scipy.py").run();
     let c = &r["procrustes_doc"];
     let (a, b) = (mat(&c["a"]), mat(&c["b"]));
     assert!(f(&c["scipy_disparity"]) < 1e-12);
@@ -48,7 +50,7 @@ fn scipy_orthogonal_procrustes_docstring_and_3d() {
     // reference: scipy.linalg.orthogonal_procrustes docstring example (A, fliplr(A)). With two
     // points a proper rotation also maps A exactly onto B, so the residual and the singular value
     // sum (scipy's `scale`) agree although scipy's R is a reflection.
-    let r = common::run_python("shape_scipy.py", &[]);
+    let r = common::Reference::new("shape_scipy", "shape_scipy.py").run();
     let c = &r["orthogonal_doc"];
     let (a, b) = (mat(&c["a"]), mat(&c["b"]));
     assert!(f(&c["det"]) < 0.0);
@@ -69,7 +71,7 @@ fn scipy_procrustes_when_reflection_does_not_matter() {
     // reference: scipy.spatial.procrustes; its disparity is 1 − (Σσ)² = sin²ρ = d_F² for
     // standardised inputs when the optimal orthogonal matrix is a rotation (Dryden & Mardia
     // 2016, §3.3: d_F = sin ρ).
-    let r = common::run_python("shape_scipy.py", &[]);
+    let r = common::Reference::new("shape_scipy", "shape_scipy.py").run();
     for c in r["proper_cases"].as_array().unwrap() {
         assert!(f(&c["scipy_det"]) > 0.0);
         let (a, b) = (mat(&c["a"]), mat(&c["b"]));
@@ -99,7 +101,7 @@ fn scipy_procrustes_when_reflection_does_not_matter() {
 fn full_gpa_matches_the_closed_form_planar_mean() {
     // reference: Kent 1994 (J. R. Stat. Soc. B 56:285–299); Dryden & Mardia 2016 §6.2: the planar
     // full Procrustes mean is the dominant eigenvector of Σ zᵢzᵢ*/(zᵢ*zᵢ).
-    let r = common::run_python("shape_kent.py", &[]);
+    let r = common::Reference::new("shape_kent", "shape_kent.py").run();
     let configs: Vec<DMatrix<f64>> = r["configs"].as_array().unwrap().iter().map(mat).collect();
     let s = Sample::from_configs(&configs).unwrap();
     let g = gpa(
@@ -136,7 +138,14 @@ fn numpy_batched_gpa_agrees() {
     // reference: the batched numpy GPA of the project's baseline kit (algorithm copied in
     // tests/python/shape_gpa_numpy.py from /work/shared/bench/py_baseline.py gpa_vectorized).
     for (n, l, m) in [("40", "12", "3"), ("25", "9", "2")] {
-        let r = common::run_python("shape_gpa_numpy.py", &[n, l, m]);
+        let r = common::Reference::new(
+            &format!("shape_gpa_numpy_{n}x{l}x{m}"),
+            "shape_gpa_numpy.py",
+        )
+        .arg(n)
+        .arg(l)
+        .arg(m)
+        .run();
         let input: Vec<DMatrix<f64>> = r["input"].as_array().unwrap().iter().map(mat).collect();
         let g = gpa(
             &Sample::from_configs(&input).unwrap(),
@@ -304,7 +313,7 @@ proptest! {
 
 #[test]
 fn distance_matrix_matches_pairwise_calls() {
-    let r = common::run_python("shape_kent.py", &[]);
+    let r = common::Reference::new("shape_kent", "shape_kent.py").run();
     let configs: Vec<DMatrix<f64>> = r["configs"]
         .as_array()
         .unwrap()

@@ -1,13 +1,18 @@
 //! TIFF reading checked against outside sources:
-//! (1) files written by tifffile in every combination that matters (`tests/python/tiff_write_refs.py`),
+//! (1) files written by tifffile in every combination that matters (`tests/python/tiff_write_refs.py`,
+//!     run by `scripts/fetch_refdata.sh` into `target/refdata/tifffile`), as tifffile reads
+//!     them (`tests/python/tiff_read_refs.py`),
 //! (2) the TIFF test images of Pillow's source distribution, classified by tifffile
 //!     (`tests/python/tiff_pillow_refs.py`), including Pillow's deliberately malformed files,
 //! and a mutation test: truncated and corrupted files must give an error, never a panic.
+//! tifffile's answers are the committed fixtures `tiff_*` (see `tests/common`); voxels are
+//! compared through the SHA-256 of their little-endian bytes in z-y-x order.
 
 mod common;
 
 use std::path::{Path, PathBuf};
 use sutura_core::io::{IoError, Limits, OpenOptions, Progress, tiff};
+use sutura_core::landmarks::scheme::sha256_hex;
 use sutura_core::volume::{DType, Volume, Voxels};
 
 fn voxel_bytes_le(v: &Volume) -> Vec<u8> {
@@ -62,12 +67,32 @@ fn open(path: &Path) -> Result<Volume, IoError> {
     sutura_core::io::open(path, &opts, &Progress::none())
 }
 
+/// The TIFF files and slice folders tifffile wrote into `target/refdata/tifffile`, sorted.
+fn tifffile_written() -> Vec<PathBuf> {
+    let dir = common::reference_path("tifffile");
+    let mut cases: Vec<PathBuf> = std::fs::read_dir(&dir)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.is_dir() || p.extension().is_some_and(|e| e == "tif"))
+        .collect();
+    cases.sort();
+    cases
+}
+
 #[test]
 fn matches_files_written_by_tifffile() {
     // reference: tifffile imwrite/imread, every compression × predictor × byte order × layout × dtype
-    let dir = tempfile::tempdir().unwrap();
-    let cases = common::run_python("tiff_write_refs.py", &[dir.path().to_str().unwrap()]);
+    let paths = tifffile_written();
+    let dir = common::reference_path("tifffile");
+    let mut r = common::Reference::new("tiff_tifffile_written", "tiff_read_refs.py")
+        .dir("files", &dir)
+        .input(&dir);
+    for p in &paths {
+        r = r.path_arg(p);
+    }
+    let cases = r.run();
     let cases = cases.as_array().unwrap();
+    assert_eq!(cases.len(), paths.len());
     assert!(
         cases.len() >= 100,
         "expected the full matrix, got {}",
@@ -75,25 +100,23 @@ fn matches_files_written_by_tifffile() {
     );
     let mut failures = Vec::new();
     let mut lzw_tiles = 0;
-    for case in cases {
+    for (case, path) in cases.iter().zip(&paths) {
         let name = case["name"].as_str().unwrap();
-        let path = PathBuf::from(case["path"].as_str().unwrap());
         // the tiff crate's streaming LZW reader refuses some of these tiles ("no lzw end code
         // found"); Sutura decodes each chunk itself with weezl, so all must match
         if name.contains("_lzw_") && name.ends_with("_tiles") {
             lzw_tiles += 1;
         }
-        let vol = match open(&path) {
+        let vol = match open(path) {
             Ok(v) => v,
             Err(e) => {
                 failures.push(format!("{name}: {e}"));
                 continue;
             }
         };
-        let expect = std::fs::read(case["raw"].as_str().unwrap()).unwrap();
         if vol.dims() != dims_of(&case["shape"])
             || vol.dtype() != dtype_of(case["dtype"].as_str().unwrap())
-            || voxel_bytes_le(&vol) != expect
+            || sha256_hex(&voxel_bytes_le(&vol)) != case["voxels_sha256"].as_str().unwrap()
         {
             failures.push(format!("{name}: voxels differ from tifffile's"));
         }
@@ -120,6 +143,9 @@ fn matches_files_written_by_tifffile() {
         lzw_tiles >= 16,
         "the matrix lost its LZW tiles: {lzw_tiles}"
     );
+    // the resolution tags are read as tifffile reads them: 80 pixels per centimetre = 0.125 mm
+    let res = cases.iter().find(|c| c["name"] == "resolution_cm").unwrap();
+    assert!((res["spacing_mm"].as_f64().unwrap() - 0.125).abs() < 1e-12);
 }
 
 #[test]
@@ -139,17 +165,11 @@ fn committed_slice_folder_carries_its_voxel_size() {
 #[test]
 fn consistent_with_tifffile_on_pillow_test_images() {
     // reference: the TIFF images in Pillow's sdist (Tests/images), read by tifffile
-    let images = common::reference_dir().join("pillow/Tests/images");
-    assert!(
-        images.is_dir(),
-        "{} missing: run scripts/fetch_refdata.sh",
-        images.display()
-    );
-    let out = tempfile::tempdir().unwrap();
-    let entries = common::run_python(
-        "tiff_pillow_refs.py",
-        &[images.to_str().unwrap(), out.path().to_str().unwrap()],
-    );
+    let images = common::reference_path("pillow/Tests/images");
+    let entries = common::Reference::new("tiff_pillow_images", "tiff_pillow_refs.py")
+        .path_arg(&images)
+        .input(&images)
+        .run();
     let (mut matched, mut unsupported, mut inconsistent, mut broken, mut known) = (0, 0, 0, 0, 0);
     let mut failures = Vec::new();
     for e in entries.as_array().unwrap() {
@@ -172,10 +192,9 @@ fn consistent_with_tifffile_on_pillow_test_images() {
         }
         match (kind, &ours) {
             ("ok", Ok(v)) => {
-                let expect = std::fs::read(e["raw"].as_str().unwrap()).unwrap();
                 if v.dims() == dims_of(&e["shape"])
                     && v.dtype() == dtype_of(e["dtype"].as_str().unwrap())
-                    && voxel_bytes_le(v) == expect
+                    && sha256_hex(&voxel_bytes_le(v)) == e["voxels_sha256"].as_str().unwrap()
                 {
                     matched += 1;
                 } else {
@@ -235,31 +254,20 @@ fn limited() -> OpenOptions {
 #[test]
 fn truncated_and_corrupted_files_fail_cleanly() {
     // no outside reference: any Ok or Err is fine, a panic is not (common practice: mutation
-    // fuzzing of a parser); files from our writer and from tifffile
+    // fuzzing of a parser); files written by tifffile (target/refdata/tifffile)
     let dir = tempfile::tempdir().unwrap();
-    let refs = common::run_python(
-        "tiff_write_refs.py",
-        &[dir.path().join("refs").to_str().unwrap()],
-    );
-    let mut sources: Vec<PathBuf> = refs
-        .as_array()
-        .unwrap()
-        .iter()
-        .filter(|c| {
-            let n = c["name"].as_str().unwrap();
-            [
-                "u16_lzw_horizontal_be_tiles",
-                "f32_zlib8_float_le_strips",
-                "u8_packbits_none_le_strips",
-                "bigtiff_u16_none_be",
-                "i16_none_none_le_strips",
-            ]
-            .contains(&n)
-        })
-        .map(|c| PathBuf::from(c["path"].as_str().unwrap()))
-        .collect();
-    assert_eq!(sources.len(), 5);
-    sources.sort();
+    let written = common::reference_path("tifffile");
+    let sources: Vec<PathBuf> = [
+        "bigtiff_u16_none_be",
+        "f32_zlib8_float_le_strips",
+        "i16_none_none_le_strips",
+        "u16_lzw_horizontal_be_tiles",
+        "u8_packbits_none_le_strips",
+    ]
+    .iter()
+    .map(|n| written.join(format!("{n}.tif")))
+    .collect();
+    assert!(sources.iter().all(|p| p.is_file()), "{sources:?}");
     let target = dir.path().join("mutant.tif");
     let mut tried = 0;
     for src in &sources {

@@ -1,10 +1,10 @@
 """Classifies the TIFF test images of Pillow's source distribution with tifffile.
 
-Usage: tiff_pillow_refs.py IMAGES_DIR OUTDIR
+Usage: tiff_pillow_refs.py IMAGES_DIR
 
 Every file under IMAGES_DIR named *.tif/*.tiff, or starting with a TIFF signature, gets one of:
   ok           tifffile reads all pages as one single-channel stack of u8/u16/i16/f32 with a
-               compression Sutura reads; OUTDIR/<n>.raw holds the voxels (little-endian, z-y-x)
+               compression Sutura reads; voxels_sha256 is the SHA-256 of its voxels (little-endian, z-y-x)
   unsupported  tifffile reads page 0 but it is multi-channel / colour / palette, another sample
                type, or another compression: Sutura must refuse it as unsupported
   inconsistent pages of different shape or type
@@ -12,6 +12,7 @@ Every file under IMAGES_DIR named *.tif/*.tiff, or starting with a TIFF signatur
 and "damaged": the warnings tifffile logged while working around a damaged structure.
 Prints a JSON list. Reference: tifffile (TiffFile.pages, TiffPage.asarray).
 """
+import hashlib
 import json
 import logging
 import os
@@ -22,8 +23,7 @@ import numpy as np
 import tifffile
 
 warnings.simplefilter("ignore")
-images, out = sys.argv[1], sys.argv[2]
-os.makedirs(out, exist_ok=True)
+images = sys.argv[1]
 SIGNATURES = (b"II*\0", b"MM\0*", b"II+\0", b"MM\0+")
 DTYPES = {np.dtype(np.uint8): "u8", np.dtype(np.uint16): "u16", np.dtype(np.int16): "i16",
           np.dtype(np.float32): "f32"}
@@ -92,10 +92,10 @@ for i, p in enumerate(files):
                     arrays.append(page.asarray())
                 else:
                     a = np.stack(arrays)
-                    raw = os.path.join(out, f"{i}.raw")
-                    a.astype(a.dtype.newbyteorder("<")).tofile(raw)
+                    le = np.ascontiguousarray(a.astype(a.dtype.newbyteorder("<")))
                     kind = "ok"
-                    entry.update(raw=raw, dtype=DTYPES[a.dtype], shape=list(a.shape))
+                    entry.update(voxels_sha256=hashlib.sha256(le.tobytes()).hexdigest(),
+                                 dtype=DTYPES[a.dtype.newbyteorder("=")], shape=list(a.shape))
             entry.update(kind=kind, why=why)
     except Exception as e:  # any failure of the reference reader counts as "cannot read"
         entry.update(kind="error", why=f"{type(e).__name__}: {e}"[:200])

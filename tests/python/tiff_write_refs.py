@@ -1,9 +1,12 @@
-"""Writes reference TIFF files with tifffile and prints JSON describing them.
+"""Writes reference TIFF files with tifffile (reference: tifffile imwrite/imread).
 
 Usage: tiff_write_refs.py OUTDIR
 
-For every case: OUTDIR/<name>.tif (or a folder of slices) and OUTDIR/<name>.raw, the voxels as
-tifffile reads them back, little-endian, z-y-x order. Reference: tifffile (imwrite/imread).
+Run once by scripts/fetch_refdata.sh into target/refdata/tifffile; the tests read the files
+there, and tifffile's own reading of them (tiff_read_refs.py) is their committed fixture. For
+every case: OUTDIR/<name>.tif, or the folder OUTDIR/folder of slices; every file is read back
+and checked against what was written. Voxels come from a seeded generator (numpy
+default_rng(20261202)), so the files are the same on every run. Prints the case names as JSON.
 """
 import json
 import os
@@ -37,19 +40,7 @@ cases = []
 
 
 def record(name, path, expect, **meta):
-    raw = os.path.join(out, name + ".raw")
-    expect.astype(np.dtype(expect.dtype).newbyteorder("<")).tofile(raw)
-    cases.append(
-        dict(
-            name=name,
-            path=path,
-            raw=raw,
-            dtype=meta.pop("dtype"),
-            shape=list(expect.shape),
-            sum=float(expect.astype(np.float64)[np.isfinite(expect)].sum()),
-            **meta,
-        )
-    )
+    cases.append(dict(name=name, **meta))
 
 
 # compression names as tifffile takes them; 8 = Adobe Deflate, 32946 = old Deflate code

@@ -56,6 +56,8 @@ pub enum AnalysisError {
     Export(#[from] ExportError),
     #[error(transparent)]
     Render(#[from] crate::render::RenderError),
+    #[error(transparent)]
+    Chart(#[from] crate::chart::ChartError),
 }
 
 /// How to run the analysis.
@@ -783,7 +785,7 @@ fn save_figure(f: &Figure, stem: &Path) -> Result<[PathBuf; 2], AnalysisError> {
     let svg = stem.with_extension("svg");
     crate::export::write_atomic(&svg, |w| w.write_all(f.to_svg().as_bytes()))?;
     let png = stem.with_extension("png");
-    crate::render::png::save_png(&png, f.width as usize, f.height as usize, &f.to_rgba())?;
+    crate::render::png::save_png(&png, f.width as usize, f.height as usize, &f.to_rgba()?)?;
     Ok([svg, png])
 }
 

@@ -1,16 +1,28 @@
 //! Charts for shape results: a morphospace scatter with group hulls, estimates with intervals,
 //! and wireframe shapes — each one scene ([`Figure`]) drawn to SVG text or to a PNG.
 //!
-//! A figure is described once in pixel coordinates (origin top-left) and rendered by two
-//! backends, so the SVG and the PNG always show the same thing: [`Figure::to_svg`] writes text,
-//! [`Figure::to_rgba`] rasterises with tiny-skia (text from the overlay bitmap font of
-//! [`crate::render::overlay`]). [`plots`] builds the figures from plain numbers.
+//! A figure is described once in pixel coordinates (origin top-left) and written as SVG
+//! ([`Figure::to_svg`]); its PNG is that SVG rasterised by resvg ([`Figure::to_rgba`]), so the
+//! two always show the same thing and every glyph is a real one, set in the font the crate
+//! bundles ([`crate::render::text`], `DejaVu Sans`), never one looked up on the system.
+//! [`plots`] builds the figures from plain numbers.
 //!
-//! Imports `render` only for its font and PNG writer; knows nothing about shapes or volumes.
+//! Imports `render` only for its font; knows nothing about shapes or volumes.
 
 pub mod plots;
 
+use resvg::{tiny_skia, usvg};
 use std::fmt::Write as _;
+use std::sync::{Arc, OnceLock};
+
+/// What can go wrong turning a figure into pixels.
+#[derive(Debug, thiserror::Error)]
+pub enum ChartError {
+    #[error("chart of {width}x{height} pixels: too large or empty to rasterise")]
+    BadSize { width: u32, height: u32 },
+    #[error("chart SVG could not be read back for rasterising: {0}")]
+    Svg(#[from] usvg::Error),
+}
 
 /// An sRGB colour with alpha.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -76,7 +88,7 @@ pub enum Item {
         fill: Rgba,
         stroke: Rgba,
     },
-    /// Text with its baseline-left (or middle/end) at `at`; `size` is the glyph height in px.
+    /// Text with its baseline-left (or middle/end) at `at`; `size` is the font size (em) in px.
     Text {
         at: (f64, f64),
         text: String,
@@ -129,9 +141,10 @@ impl Figure {
         let mut s = String::new();
         let _ = writeln!(
             s,
-            r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" font-family="sans-serif">"#,
+            r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" font-family="{family}, sans-serif">"#,
             w = self.width,
-            h = self.height
+            h = self.height,
+            family = crate::render::text::FONT_FAMILY,
         );
         let _ = writeln!(s, r#"<rect width="100%" height="100%" fill="white"/>"#);
         for item in &self.items {
@@ -216,121 +229,41 @@ impl Figure {
         s
     }
 
-    /// The figure rasterised to RGBA (row-major, 4 bytes a pixel, not premultiplied).
-    #[must_use]
-    pub fn to_rgba(&self) -> Vec<u8> {
-        use tiny_skia::{PathBuilder, Pixmap, Stroke};
-        let mut pm = Pixmap::new(self.width.max(1), self.height.max(1)).expect("non-zero size");
+    /// The figure rasterised to RGBA (row-major, 4 bytes a pixel, not premultiplied): its SVG
+    /// drawn by resvg at one pixel per SVG unit, text in the bundled font.
+    pub fn to_rgba(&self) -> Result<Vec<u8>, ChartError> {
+        let bad = ChartError::BadSize {
+            width: self.width,
+            height: self.height,
+        };
+        let mut pm = tiny_skia::Pixmap::new(self.width, self.height).ok_or(bad)?;
+        let opt = usvg::Options {
+            font_family: crate::render::text::FONT_FAMILY.to_owned(),
+            fontdb: fonts(),
+            ..usvg::Options::default()
+        };
+        let tree = usvg::Tree::from_str(&self.to_svg(), &opt)?;
         pm.fill(tiny_skia::Color::WHITE);
-        for item in &self.items {
-            match item {
-                Item::Line {
-                    from,
-                    to,
-                    colour,
-                    width,
-                } => {
-                    let mut pb = PathBuilder::new();
-                    pb.move_to(from.0 as f32, from.1 as f32);
-                    pb.line_to(to.0 as f32, to.1 as f32);
-                    if let Some(path) = pb.finish() {
-                        paint_path(&mut pm, &path, None, Some((*colour, *width)));
-                    }
-                }
-                Item::Polygon {
-                    points,
-                    fill,
-                    stroke,
-                    width,
-                } => {
-                    let mut pb = PathBuilder::new();
-                    for (n, p) in points.iter().enumerate() {
-                        if n == 0 {
-                            pb.move_to(p.0 as f32, p.1 as f32);
-                        } else {
-                            pb.line_to(p.0 as f32, p.1 as f32);
-                        }
-                    }
-                    pb.close();
-                    if let Some(path) = pb.finish() {
-                        paint_path(&mut pm, &path, Some(*fill), Some((*stroke, *width)));
-                    }
-                }
-                Item::Circle {
-                    centre,
-                    radius,
-                    fill,
-                    stroke,
-                } => {
-                    if let Some(path) =
-                        PathBuilder::from_circle(centre.0 as f32, centre.1 as f32, *radius as f32)
-                    {
-                        let hairline = f64::from(Stroke::default().width);
-                        paint_path(&mut pm, &path, Some(*fill), Some((*stroke, hairline)));
-                    }
-                }
-                Item::Text {
-                    at,
-                    text,
-                    size,
-                    colour,
-                    anchor,
-                } => {
-                    let scale = (size / 7.0).round().max(1.0) as u32;
-                    let w = f64::from(crate::render::overlay::text_width_px(text, scale));
-                    let x = match anchor {
-                        Anchor::Start => at.0,
-                        Anchor::Middle => at.0 - w / 2.0,
-                        Anchor::End => at.0 - w,
-                    };
-                    let top = at.1 - f64::from(7 * scale);
-                    crate::render::overlay::draw_text(
-                        &mut pm,
-                        x.round() as f32,
-                        top.round() as f32,
-                        text,
-                        scale as usize,
-                        [colour.0, colour.1, colour.2, colour.3],
-                    );
-                }
-            }
-        }
-        // demultiply: tiny-skia stores premultiplied alpha; the canvas is opaque white, so
-        // every pixel is opaque and the bytes are already straight RGBA
-        pm.take()
+        resvg::render(&tree, tiny_skia::Transform::identity(), &mut pm.as_mut());
+        // tiny-skia stores premultiplied alpha; the canvas is opaque white, so every pixel is
+        // opaque and the bytes are already straight RGBA
+        Ok(pm.take())
     }
 }
 
-/// Fills and/or strokes one path, anti-aliased, in straight-alpha colours.
-fn paint_path(
-    pm: &mut tiny_skia::Pixmap,
-    path: &tiny_skia::Path,
-    fill: Option<Rgba>,
-    stroke: Option<(Rgba, f64)>,
-) {
-    use tiny_skia::{FillRule, Paint, Stroke, Transform};
-    let paint = |c: Rgba| {
-        let mut p = Paint::default();
-        p.set_color_rgba8(c.0, c.1, c.2, c.3);
-        p.anti_alias = true;
-        p
-    };
-    if let Some(c) = fill {
-        pm.fill_path(
-            path,
-            &paint(c),
-            FillRule::Winding,
-            Transform::identity(),
-            None,
-        );
-    }
-    if let Some((c, width)) = stroke {
-        let st = Stroke {
-            width: width as f32,
-            ..Stroke::default()
-        };
-        pm.stroke_path(path, &paint(c), &st, Transform::identity(), None);
-    }
+/// The font database resvg sets text from: the bundled font alone, also standing for the
+/// generic `sans-serif`.
+fn fonts() -> Arc<usvg::fontdb::Database> {
+    static DB: OnceLock<Arc<usvg::fontdb::Database>> = OnceLock::new();
+    DB.get_or_init(|| {
+        let mut db = usvg::fontdb::Database::new();
+        db.load_font_source(usvg::fontdb::Source::Binary(Arc::new(
+            crate::render::text::FONT,
+        )));
+        db.set_sans_serif_family(crate::render::text::FONT_FAMILY);
+        Arc::new(db)
+    })
+    .clone()
 }
 
 fn xml_escape(s: &str) -> String {
@@ -404,13 +337,155 @@ mod tests {
     fn svg_and_png_draw_the_same_items() {
         let mut f = Figure::new(40, 30);
         f.line((0.0, 15.0), (40.0, 15.0), Rgba::BLACK, 2.0);
-        f.text((20.0, 10.0), "a<b", 7.0, Anchor::Middle);
+        f.text((20.0, 10.0), "a<b", 9.0, Anchor::Middle);
         let svg = f.to_svg();
         assert!(svg.contains("<line") && svg.contains("a&lt;b"), "{svg}");
-        let px = f.to_rgba();
+        let px = f.to_rgba().unwrap();
         assert_eq!(px.len(), 40 * 30 * 4);
         let at = |x: usize, y: usize| px[(y * 40 + x) * 4];
         assert!(at(20, 15) < 50, "line drawn");
         assert_eq!(at(20, 25), 255, "background white");
+        assert!(
+            (0..12).any(|y| (10..30).any(|x| at(x, y) < 128)),
+            "text drawn"
+        );
+    }
+
+    /// The value of an attribute of the SVG's root element.
+    fn root_attr(svg: &str, name: &str) -> u32 {
+        let head = &svg[..svg.find('>').unwrap()];
+        let from = head.find(&format!(" {name}=\"")).unwrap() + name.len() + 3;
+        head[from..from + head[from..].find('"').unwrap()]
+            .parse()
+            .unwrap()
+    }
+
+    #[test]
+    fn png_and_svg_agree_in_size() {
+        let names: Vec<String> = vec!["a".into(), "b".into()];
+        let figures = [
+            plots::scatter_with_hulls(
+                &[0.0, 1.0, 2.0, 3.0],
+                &[1.0, 0.0, 2.0, 1.0],
+                &[
+                    names[0].clone(),
+                    names[0].clone(),
+                    names[1].clone(),
+                    names[1].clone(),
+                ],
+                "PC1 (50.0%)",
+                "PC2 (30.0%)",
+                "Morphospace",
+            ),
+            plots::intervals(&names, &[1.0, 2.0], &[0.5, 1.5], &[1.5, 2.5], "x", "t"),
+        ];
+        for f in figures {
+            let svg = f.to_svg();
+            let (w, h) = (root_attr(&svg, "width"), root_attr(&svg, "height"));
+            assert_eq!((w, h), (f.width, f.height));
+            assert_eq!(f.to_rgba().unwrap().len(), (w * h * 4) as usize);
+        }
+        assert!(matches!(
+            Figure::new(0, 10).to_rgba(),
+            Err(ChartError::BadSize { .. })
+        ));
+    }
+
+    /// A figure of `like`'s size holding one text item alone.
+    fn text_alone(like: &Figure, at: (f64, f64), text: &str, size: f64) -> Vec<u8> {
+        let mut f = Figure::new(like.width, like.height);
+        f.text(at, text, size, Anchor::Start);
+        f.to_rgba().unwrap()
+    }
+
+    /// Pixels of rows `rows` and columns `cols` of an RGBA image `width` wide.
+    fn crop(
+        px: &[u8],
+        width: u32,
+        rows: std::ops::Range<usize>,
+        cols: std::ops::Range<usize>,
+    ) -> Vec<u8> {
+        let w = width as usize;
+        rows.flat_map(|y| px[(y * w + cols.start) * 4..(y * w + cols.end) * 4].to_vec())
+            .collect()
+    }
+
+    /// Columns holding ink (any channel below 128) within `rows`.
+    fn ink_columns(px: &[u8], width: u32, rows: std::ops::Range<usize>) -> Vec<usize> {
+        let w = width as usize;
+        (0..w)
+            .filter(|&x| rows.clone().any(|y| px[(y * w + x) * 4] < 128))
+            .collect()
+    }
+
+    #[test]
+    fn percent_sign_and_group_names_are_real_glyphs() {
+        let groups: Vec<String> = ["Harrowdene Clay", "Harrowdene Clay", "Harrowdene Clay"]
+            .iter()
+            .map(|s| (*s).to_owned())
+            .chain(["Tarn Flats"; 3].iter().map(|s| (*s).to_owned()))
+            .collect();
+        let f = plots::scatter_with_hulls(
+            &[0.0, 1.0, 0.5, 3.0, 4.0, 3.5],
+            &[0.0, 0.0, 1.0, 3.0, 3.0, 4.0],
+            &groups,
+            "PC1 (93.5%)",
+            "PC2 (4.1%)",
+            "Morphospace",
+        );
+        let png = f.to_rgba().unwrap();
+        // Find the items as the chart placed them.
+        let text_at = |t: &str| {
+            f.items
+                .iter()
+                .find_map(|i| match i {
+                    Item::Text { at, text, size, .. } if text == t => Some((*at, *size)),
+                    _ => None,
+                })
+                .unwrap()
+        };
+        for label in ["PC2 (4.1%)", "Harrowdene Clay"] {
+            let (at, size) = text_at(label);
+            let rows = (at.1 - size) as usize..(at.1 + 0.4 * size) as usize;
+            let cols = at.0 as usize - 2..f.width as usize;
+            // the chart's pixels there are exactly those of the text rendered alone
+            let alone = text_alone(&f, at, label, size);
+            assert_eq!(
+                crop(&png, f.width, rows.clone(), cols.clone()),
+                crop(&alone, f.width, rows.clone(), cols.clone()),
+                "{label}: the chart draws its text as the text alone would be drawn"
+            );
+        }
+        // '%' is drawn: it widens the label by about its advance, and it is not the box a
+        // missing glyph would get
+        let (at, size) = text_at("PC2 (4.1%)");
+        let rows = (at.1 - size) as usize..(at.1 + 0.4 * size) as usize;
+        let with = ink_columns(
+            &text_alone(&f, at, "PC2 (4.1%)", size),
+            f.width,
+            rows.clone(),
+        );
+        let without = ink_columns(
+            &text_alone(&f, at, "PC2 (4.1)", size),
+            f.width,
+            rows.clone(),
+        );
+        let pct = crate::render::text::text_width_px("%", size as f32);
+        let grew = (with.last().unwrap() - without.last().unwrap()) as f32;
+        assert!(
+            (grew - pct).abs() < 2.5,
+            "'%' widened the label by {grew} px, advance {pct}"
+        );
+        let glyph = text_alone(&f, at, "%", size);
+        let missing = text_alone(&f, at, "\u{E000}", size);
+        assert!(ink_columns(&glyph, f.width, rows.clone()).len() > 4);
+        assert_ne!(glyph, missing, "'%' drawn as the missing-glyph box");
+        // group names keep their case
+        let (at, size) = text_at("Harrowdene Clay");
+        assert_ne!(
+            text_alone(&f, at, "Harrowdene Clay", size),
+            text_alone(&f, at, "HARROWDENE CLAY", size)
+        );
+        assert!(f.to_svg().contains(">Harrowdene Clay</text>"));
     }
 }

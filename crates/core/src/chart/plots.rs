@@ -2,6 +2,12 @@
 
 use super::{Anchor, Figure, GROUP_COLOURS, Item, Rgba, convex_hull};
 
+/// Font sizes (em, px) of the figures' text.
+const TICK_PX: f64 = 11.0;
+const AXIS_TITLE_PX: f64 = 13.0;
+const LEGEND_PX: f64 = 12.0;
+const TITLE_PX: f64 = 17.0;
+
 /// A linear map from data to pixels on one axis, with "nice" tick values.
 struct Axis {
     lo: f64,
@@ -68,12 +74,12 @@ fn frame(f: &mut Figure, x: &Axis, y: &Axis, x_title: &str, y_title: &str, title
     for tv in x.ticks() {
         let px = x.px(tv);
         f.line((px, t), (px, b), Rgba::LIGHT, 1.0);
-        f.text((px, b + 16.0), tick_label(tv), 7.0, Anchor::Middle);
+        f.text((px, b + 16.0), tick_label(tv), TICK_PX, Anchor::Middle);
     }
     for tv in y.ticks() {
         let py = y.px(tv);
         f.line((l, py), (r, py), Rgba::LIGHT, 1.0);
-        f.text((l - 6.0, py + 4.0), tick_label(tv), 7.0, Anchor::End);
+        f.text((l - 6.0, py + 4.0), tick_label(tv), TICK_PX, Anchor::End);
     }
     for (a, z) in [
         ((l, t), (r, t)),
@@ -86,11 +92,11 @@ fn frame(f: &mut Figure, x: &Axis, y: &Axis, x_title: &str, y_title: &str, title
     f.text(
         (f64::midpoint(l, r), b + 36.0),
         x_title,
-        7.0,
+        AXIS_TITLE_PX,
         Anchor::Middle,
     );
-    f.text((l, t - 10.0), y_title, 7.0, Anchor::Start);
-    f.text((f64::midpoint(l, r), 18.0), title, 14.0, Anchor::Middle);
+    f.text((l, t - 10.0), y_title, AXIS_TITLE_PX, Anchor::Start);
+    f.text((f64::midpoint(l, r), 22.0), title, TITLE_PX, Anchor::Middle);
 }
 
 /// A scatter of two score columns coloured by group, each group's convex hull shaded, with a
@@ -146,7 +152,7 @@ pub fn scatter_with_hulls(
             fill: c,
             stroke: Rgba::WHITE,
         });
-        f.text((lx + 12.0, ly), (*name).clone(), 7.0, Anchor::Start);
+        f.text((lx + 12.0, ly), (*name).clone(), LEGEND_PX, Anchor::Start);
     }
     f
 }
@@ -180,20 +186,25 @@ pub fn intervals(
     for tv in x.ticks() {
         let px = x.px(tv);
         f.line((px, top), (px, bottom), Rgba::LIGHT, 1.0);
-        f.text((px, bottom + 16.0), tick_label(tv), 7.0, Anchor::Middle);
+        f.text((px, bottom + 16.0), tick_label(tv), TICK_PX, Anchor::Middle);
     }
     f.line((x.px_lo, bottom), (x.px_hi, bottom), Rgba::GREY, 1.0);
     f.text(
         (f64::midpoint(x.px_lo, x.px_hi), bottom + 36.0),
         x_title,
-        7.0,
+        AXIS_TITLE_PX,
         Anchor::Middle,
     );
-    f.text((f64::from(w) / 2.0, 18.0), title, 14.0, Anchor::Middle);
+    f.text((f64::from(w) / 2.0, 22.0), title, TITLE_PX, Anchor::Middle);
     for (i, name) in names.iter().enumerate() {
         let py = y.px((rows - 1 - i) as f64);
         let c = GROUP_COLOURS[i % GROUP_COLOURS.len()];
-        f.text((x.px_lo - 10.0, py + 4.0), name.clone(), 7.0, Anchor::End);
+        f.text(
+            (x.px_lo - 10.0, py + 4.0),
+            name.clone(),
+            LEGEND_PX,
+            Anchor::End,
+        );
         if lo[i].is_finite() && hi[i].is_finite() {
             f.line((x.px(lo[i]), py), (x.px(hi[i]), py), c, 3.0);
             for v in [lo[i], hi[i]] {
@@ -242,7 +253,7 @@ pub fn wireframes(
             60.0 + ph / 2.0 - (p[axes.1] - cy) * scale,
         )
     };
-    f.text((f64::from(w) / 2.0, 18.0), title, 14.0, Anchor::Middle);
+    f.text((f64::from(w) / 2.0, 22.0), title, TITLE_PX, Anchor::Middle);
     let axis_names = ["x", "y", "z"];
     f.text(
         (40.0, f64::from(h) - 20.0),
@@ -250,7 +261,7 @@ pub fn wireframes(
             "projection on {} (right) and {} (up)",
             axis_names[axes.0], axis_names[axes.1]
         ),
-        7.0,
+        TICK_PX,
         Anchor::Start,
     );
     for (si, (name, shape)) in shapes.iter().enumerate() {
@@ -276,7 +287,7 @@ pub fn wireframes(
         let ly = 60.0 + 22.0 * si as f64;
         let lx = f64::from(w) - 150.0;
         f.line((lx - 20.0, ly - 4.0), (lx - 4.0, ly - 4.0), c, 3.0);
-        f.text((lx, ly), name.clone(), 7.0, Anchor::Start);
+        f.text((lx, ly), name.clone(), LEGEND_PX, Anchor::Start);
     }
     f
 }

@@ -7,6 +7,8 @@
 //! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
 //! - [`pyramid`]: block min/max copies of a volume for coarse passes and empty-space skipping;
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
+//! - [`text`]: the bundled font (`DejaVu Sans`) and its glyphs drawn as paths, for overlays and
+//!   charts;
 //! - [`png`]: PNG encoding of an [`RgbaImage`].
 //!
 //! Image conventions, shared by every function here:
@@ -17,16 +19,16 @@
 //!   (`-up`), so the picture looks the way the camera's `up` says;
 //! - RGBA is 8-bit, straight (not premultiplied) alpha, the layout PNG stores.
 //!
-//! Only this module imports tiny-skia. Must not import `gui`.
+//! Only this module and `chart` (through resvg) draw with tiny-skia. Must not import `gui`.
 
 pub mod overlay;
 pub mod png;
 pub mod pyramid;
 pub mod raycast;
 pub mod slice;
+pub mod text;
 pub mod window;
 
-mod font;
 mod geom;
 
 pub use raycast::{Camera, MipOptions, Quality, SurfaceImage, SurfaceOptions};
