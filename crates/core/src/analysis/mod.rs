@@ -15,6 +15,10 @@
 //! Depends on `shape`, `export`, `chart` and `render::png`. Knows nothing of volumes and must
 //! not import `gui` or `cli`.
 
+pub mod checks;
+pub mod evolution;
+pub mod operators;
+
 use nalgebra::DMatrix;
 use serde_json::json;
 use std::collections::{BTreeMap, HashSet};
@@ -50,6 +54,8 @@ pub enum AnalysisError {
     Export(#[from] ExportError),
     #[error(transparent)]
     Render(#[from] crate::render::RenderError),
+    #[error(transparent)]
+    Evolution(crate::evolution::EvolutionError),
 }
 
 /// How to run the analysis.

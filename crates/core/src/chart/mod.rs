@@ -8,6 +8,7 @@
 //!
 //! Imports `render` only for its font and PNG writer; knows nothing about shapes or volumes.
 
+pub mod evolution;
 pub mod plots;
 
 use std::fmt::Write as _;

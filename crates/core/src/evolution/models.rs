@@ -194,6 +194,26 @@ fn adjustment(r: &DMatrix<f64>, pairs: &[(usize, usize)]) -> f64 {
     (&m * &m).trace() / (2.0 * pairs.len() as f64)
 }
 
+/// The profile pairwise composite log-likelihood `CL` of `y` on `tree` under one covariance
+/// (every pair of columns used), as the fits evaluate it.
+pub fn composite_log_likelihood(
+    tree: &Tree,
+    y: &DMatrix<f64>,
+    cov: Covariance,
+) -> Result<f64, EvolutionError> {
+    tree.check_for_analysis(2)?;
+    if y.nrows() != tree.n_tips() {
+        return Err(data_err(format!("{} data rows for {} tips", y.nrows(), tree.n_tips())));
+    }
+    let p = y.ncols();
+    let setup = Setup {
+        y: y.clone(),
+        pairs: (0..p).flat_map(|i| (i + 1..p).map(move |j| (i, j))).collect(),
+        times: TreeTimes::new(tree),
+    };
+    Ok(setup.profile(cov)?.0)
+}
+
 /// Options of [`compare_models`].
 #[derive(Debug, Clone, Copy)]
 pub struct ModelOptions {
