@@ -11,7 +11,9 @@ use rand_chacha::ChaCha8Rng;
 use serde_json::json;
 use sutura_core::evolution::Tree;
 use sutura_core::evolution::gls::Covariance;
-use sutura_core::evolution::models::{Model, ModelOptions, compare_models, composite_log_likelihood};
+use sutura_core::evolution::models::{
+    Model, ModelOptions, compare_models, composite_log_likelihood,
+};
 use sutura_core::evolution::rates::{compare_rates, k_mult, sigma_mult};
 use sutura_core::synth::comparative::{ComparativeSpec, TraitModel, generate_comparative};
 
@@ -40,7 +42,10 @@ fn newick_agrees_with_dendropy() {
         };
         trees.push(generate_comparative(&spec).tree.to_newick());
     }
-    trees.push(std::fs::read_to_string(common::root().join("sample_volumes/comparative/tree.nwk")).unwrap());
+    trees.push(
+        std::fs::read_to_string(common::root().join("sample_volumes/comparative/tree.nwk"))
+            .unwrap(),
+    );
     for (k, text) in trees.iter().enumerate() {
         let path = write_tree(dir.path(), &format!("t{k}.nwk"), text);
         let t = Tree::read(std::path::Path::new(&path)).unwrap();
@@ -73,7 +78,12 @@ fn newick_agrees_with_dendropy() {
             .iter()
             .map(|c| {
                 (
-                    c["tips"].as_array().unwrap().iter().map(|v| v.as_str().unwrap().to_owned()).collect(),
+                    c["tips"]
+                        .as_array()
+                        .unwrap()
+                        .iter()
+                        .map(|v| v.as_str().unwrap().to_owned())
+                        .collect(),
                     c["length"].as_f64(),
                 )
             })
@@ -85,13 +95,19 @@ fn newick_agrees_with_dendropy() {
         for (a, b) in ours.iter().zip(&theirs) {
             assert_eq!(a.0, b.0, "tree {k}");
             match (a.1, b.1) {
-                (Some(x), Some(y)) => assert!((x - y).abs() <= 1e-12 * x.abs().max(1.0), "tree {k}: {x} vs {y}"),
+                (Some(x), Some(y)) => assert!(
+                    (x - y).abs() <= 1e-12 * x.abs().max(1.0),
+                    "tree {k}: {x} vs {y}"
+                ),
                 (x, y) => assert_eq!(x, y, "tree {k}"),
             }
         }
         for (label, d) in labels.iter().zip(t.tip_depths()) {
             let want = py["root_to_tip"][*label].as_f64().unwrap();
-            assert!((d - want).abs() < 1e-9 * want.max(1.0), "tree {k} {label}: {d} vs {want}");
+            assert!(
+                (d - want).abs() < 1e-9 * want.max(1.0),
+                "tree {k} {label}: {d} vs {want}"
+            );
         }
     }
 }
@@ -116,13 +132,17 @@ fn comparative_methods_agree_with_numpy() {
     })
     .tree
     .to_newick();
-    let ultra = "((((a:1,b:1):2,c:3):1,(d:2,e:2):2):2,((f:1.5,g:1.5):3,(h:4,(i:2,j:2):2):0.5):1.5);".to_owned();
+    let ultra =
+        "((((a:1,b:1):2,c:3):1,(d:2,e:2):2):2,((f:1.5,g:1.5):3,(h:4,(i:2,j:2):2):0.5):1.5);"
+            .to_owned();
     for (k, text) in [fossil, ultra].iter().enumerate() {
         let path = write_tree(dir.path(), &format!("g{k}.nwk"), text);
         let tree = Tree::read(std::path::Path::new(&path)).unwrap();
         let n = tree.n_tips();
         let y = random_data(n, 4, 40 + k as u64);
-        let groups: Vec<String> = (0..n).map(|i| if i % 2 == 0 { "even" } else { "odd" }.into()).collect();
+        let groups: Vec<String> = (0..n)
+            .map(|i| if i % 2 == 0 { "even" } else { "odd" }.into())
+            .collect();
         let (eb_r, ou_alpha) = (-0.05, 0.2);
         let arg = json!({
             "newick": path,
@@ -134,14 +154,32 @@ fn comparative_methods_agree_with_numpy() {
         });
         let py = common::run_python("evolution_gls.py", &[&arg.to_string()]);
         let close = |a: f64, b: f64, tol: f64, what: &str| {
-            assert!((a - b).abs() <= tol * b.abs().max(1e-300), "tree {k} {what}: {a} vs {b}");
+            assert!(
+                (a - b).abs() <= tol * b.abs().max(1e-300),
+                "tree {k} {what}: {a} vs {b}"
+            );
         };
-        close(sigma_mult(&tree, &y).unwrap(), py["sigma_mult"].as_f64().unwrap(), 1e-10, "sigma_mult");
+        close(
+            sigma_mult(&tree, &y).unwrap(),
+            py["sigma_mult"].as_f64().unwrap(),
+            1e-10,
+            "sigma_mult",
+        );
         let rc = compare_rates(&tree, &y, &groups, 9, 1).unwrap();
         for g in &rc.groups {
-            close(g.sigma_mult, py["group_rates"][&g.group].as_f64().unwrap(), 1e-10, "group rate");
+            close(
+                g.sigma_mult,
+                py["group_rates"][&g.group].as_f64().unwrap(),
+                1e-10,
+                "group rate",
+            );
         }
-        close(k_mult(&tree, &y, 9, 1).unwrap().k_mult, py["k_mult"].as_f64().unwrap(), 1e-10, "k_mult");
+        close(
+            k_mult(&tree, &y, 9, 1).unwrap().k_mult,
+            py["k_mult"].as_f64().unwrap(),
+            1e-10,
+            "k_mult",
+        );
         close(
             composite_log_likelihood(&tree, &y, Covariance::Brownian).unwrap(),
             py["cl_bm"].as_f64().unwrap(),
@@ -155,13 +193,19 @@ fn comparative_methods_agree_with_numpy() {
             "CL EB",
         );
         close(
-            composite_log_likelihood(&tree, &y, Covariance::OrnsteinUhlenbeck { alpha: ou_alpha }).unwrap(),
+            composite_log_likelihood(&tree, &y, Covariance::OrnsteinUhlenbeck { alpha: ou_alpha })
+                .unwrap(),
             py["cl_ou"].as_f64().unwrap(),
             1e-10,
             "CL OU",
         );
         let m = compare_models(&tree, &y, &ModelOptions::default()).unwrap();
-        close(m.adjustment, py["adjustment"].as_f64().unwrap(), 1e-10, "adjustment");
+        close(
+            m.adjustment,
+            py["adjustment"].as_f64().unwrap(),
+            1e-10,
+            "adjustment",
+        );
         for (model, key, cl_key) in [
             (Model::EarlyBurst, "eb_best", "cl_eb_best"),
             (Model::OrnsteinUhlenbeck, "ou_best", "cl_ou_best"),
@@ -170,11 +214,18 @@ fn comparative_methods_agree_with_numpy() {
             // the maxima: our likelihood at least scipy's (to rounding), and the same place
             // unless the surface is flat there
             let cl_py = py[cl_key].as_f64().unwrap();
-            assert!(f.composite_log_likelihood >= cl_py - 1e-7, "tree {k} {key}: {} < {cl_py}", f.composite_log_likelihood);
+            assert!(
+                f.composite_log_likelihood >= cl_py - 1e-7,
+                "tree {k} {key}: {} < {cl_py}",
+                f.composite_log_likelihood
+            );
             let x = f.parameter.unwrap().value;
             let x_py = py[key].as_f64().unwrap();
             let scale = f.parameter.unwrap().upper - f.parameter.unwrap().lower;
-            assert!((x - x_py).abs() < 1e-3 * scale.max(1e-3) + 1e-6, "tree {k} {key}: {x} vs {x_py}");
+            assert!(
+                (x - x_py).abs() < 1e-3 * scale.max(1e-3) + 1e-6,
+                "tree {k} {key}: {x} vs {x_py}"
+            );
         }
         let anc = sutura_core::evolution::ancestral::ancestral_states(&tree, &y).unwrap();
         let want = py["ancestral"].as_array().unwrap();
@@ -206,7 +257,9 @@ fn operator_anova_matches_statsmodels() {
             .map(|p| p.map(|v| v + 0.08 * rng.random_range(-1.0..1.0)))
             .collect();
         for o in 0..3 {
-            let bias: Vec<[f64; 3]> = (0..6).map(|_| [0.0; 3].map(|_| 0.02 * rng.random_range(-1.0..1.0))).collect();
+            let bias: Vec<[f64; 3]> = (0..6)
+                .map(|_| [0.0; 3].map(|_| 0.02 * rng.random_range(-1.0..1.0)))
+                .collect();
             for _ in 0..2 {
                 let c = DMatrix::from_fn(6, 3, |l, d| {
                     shape[l][d] + bias[l][d] + 0.01 * rng.random_range(-1.0..1.0) + 2.0 * i as f64
@@ -225,8 +278,15 @@ fn operator_anova_matches_statsmodels() {
         .unwrap();
         let ki: Vec<usize> = keep.iter().map(|&i| ind[i]).collect();
         let ko: Vec<usize> = keep.iter().map(|&i| op[i]).collect();
-        let r = procrustes_operator_anova(&sample, &ki, &ko, &sutura_core::shape::GpaOptions::default()).unwrap();
-        let g = sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap();
+        let r = procrustes_operator_anova(
+            &sample,
+            &ki,
+            &ko,
+            &sutura_core::shape::GpaOptions::default(),
+        )
+        .unwrap();
+        let g =
+            sutura_core::shape::gpa(&sample, &sutura_core::shape::GpaOptions::default()).unwrap();
         let rows = g.aligned.to_rows();
         let arg = json!({
             "data": (0..rows.nrows()).map(|i| rows.row(i).iter().copied().collect::<Vec<f64>>()).collect::<Vec<_>>(),
@@ -238,22 +298,41 @@ fn operator_anova_matches_statsmodels() {
         for term in ["individual", "operator", "individual:operator", "residual"] {
             let ours = r.shape.term(term).unwrap();
             let ss = py["terms"][term]["ss"].as_f64().unwrap();
-            assert!((ours.ss - ss).abs() < 1e-9 * ss, "{term}: {} vs {ss}", ours.ss);
+            assert!(
+                (ours.ss - ss).abs() < 1e-9 * ss,
+                "{term}: {} vs {ss}",
+                ours.ss
+            );
             let df = py["terms"][term]["df"].as_f64().unwrap();
             assert!((ours.df - df * d).abs() < 1e-9, "{term} df");
         }
         assert_eq!(r.shape.components.is_some(), drop.is_empty());
         // one variable (centroid size): F and p are statsmodels' own
-        let sizes: Vec<f64> = (0..sample.n()).map(|i| sutura_core::shape::centroid_size(&sample.config(i))).collect();
-        let t = two_way(&DMatrix::from_column_slice(sizes.len(), 1, &sizes), &ki, &ko, 1).unwrap();
+        let sizes: Vec<f64> = (0..sample.n())
+            .map(|i| sutura_core::shape::centroid_size(&sample.config(i)))
+            .collect();
+        let t = two_way(
+            &DMatrix::from_column_slice(sizes.len(), 1, &sizes),
+            &ki,
+            &ko,
+            1,
+        )
+        .unwrap();
         let arg = json!({"data": sizes.iter().map(|v| vec![*v]).collect::<Vec<_>>(), "individual": ki, "operator": ko});
         let py = common::run_python("operator_anova.py", &[&arg.to_string()]);
         for term in ["individual", "operator", "individual:operator"] {
             let c = &py["columns"][0][term];
             let ours = t.term(term).unwrap();
             let (f, p) = (c["F"].as_f64().unwrap(), c["p"].as_f64().unwrap());
-            assert!((ours.f.unwrap() - f).abs() < 1e-8 * f, "{term} F {} vs {f}", ours.f.unwrap());
-            assert!((ours.p.unwrap() - p).abs() < 1e-8 * p.max(1e-300) + 1e-14, "{term} p");
+            assert!(
+                (ours.f.unwrap() - f).abs() < 1e-8 * f,
+                "{term} F {} vs {f}",
+                ours.f.unwrap()
+            );
+            assert!(
+                (ours.p.unwrap() - p).abs() < 1e-8 * p.max(1e-300) + 1e-14,
+                "{term} p"
+            );
             assert!((ours.ss - c["ss"].as_f64().unwrap()).abs() < 1e-9 * ours.ss.max(1e-12));
         }
     }
@@ -274,7 +353,13 @@ fn early_burst_and_brownian_data_are_classified() {
     let mut counts = [0usize; 2];
     for seed in 0..10u64 {
         for (slot, model, sigma2) in [
-            (0, TraitModel::EarlyBurst { half_life_myr: 12.0 }, 6.0e-4),
+            (
+                0,
+                TraitModel::EarlyBurst {
+                    half_life_myr: 12.0,
+                },
+                6.0e-4,
+            ),
             (1, TraitModel::BrownianMotion, 1.5e-4),
         ] {
             let s = generate_comparative(&ComparativeSpec {
@@ -298,18 +383,43 @@ fn early_burst_and_brownian_data_are_classified() {
                     })
                     .collect(),
             };
-            let a = analyse(&table, &AnalysisOptions { resamples: 9, ..AnalysisOptions::default() }).unwrap();
+            let a = analyse(
+                &table,
+                &AnalysisOptions {
+                    resamples: 9,
+                    ..AnalysisOptions::default()
+                },
+            )
+            .unwrap();
             let labels = SpecimenLabels {
                 labels: s
                     .specimens
                     .iter()
-                    .map(|sp| (sp.id.clone(), [("taxon".to_owned(), sp.taxon.clone())].into_iter().collect()))
+                    .map(|sp| {
+                        (
+                            sp.id.clone(),
+                            [("taxon".to_owned(), sp.taxon.clone())]
+                                .into_iter()
+                                .collect(),
+                        )
+                    })
                     .collect(),
                 source: "generated".into(),
             };
-            let td = TipData::assemble(&a, &labels, &s.tree, &TipMatch::Label("taxon".into()), false).unwrap();
+            let td = TipData::assemble(
+                &a,
+                &labels,
+                &s.tree,
+                &TipMatch::Label("taxon".into()),
+                false,
+            )
+            .unwrap();
             let m = compare_models(&td.tree, &td.rows, &ModelOptions::default()).unwrap();
-            let want = if slot == 0 { Model::EarlyBurst } else { Model::BrownianMotion };
+            let want = if slot == 0 {
+                Model::EarlyBurst
+            } else {
+                Model::BrownianMotion
+            };
             if m.best == want {
                 counts[slot] += 1;
             }

@@ -160,7 +160,9 @@ pub fn run_through_time(a: &ThroughTimeArgs) -> Result<()> {
         (Some(e), _, _) => BinsSpec::Edges(e.clone()),
         (None, Some(c), _) => BinsSpec::Count(c),
         (None, None, Some(n)) => BinsSpec::Names(n.clone()),
-        (None, None, None) => bail!("give the time bins: --bins EDGES, --bin-count N or --bin-names A,B,…"),
+        (None, None, None) => {
+            bail!("give the time bins: --bins EDGES, --bin-count N or --bin-names A,B,…")
+        }
     };
     let keys = AgeKeys {
         age: a.age_column.clone(),
@@ -192,7 +194,13 @@ pub fn run_through_time(a: &ThroughTimeArgs) -> Result<()> {
         let pv = &b.metrics[0];
         eprintln!(
             "{:<16} n {:>3}  Procrustes variance {:.6} [{:.6}, {:.6}]  rarefied to {}: {:.6}",
-            b.bin.label, b.n, pv.estimate, pv.boot_lower, pv.boot_upper, r.result.rarefied_to, pv.rarefied
+            b.bin.label,
+            b.n,
+            pv.estimate,
+            pv.boot_lower,
+            pv.boot_upper,
+            r.result.rarefied_to,
+            pv.rarefied
         );
     }
     report(&paths, &a.sample.output);
@@ -233,10 +241,16 @@ pub fn run_rates(a: &RatesArgs) -> Result<()> {
         a.sample.seed,
     )?;
     let paths = r.write_tables(&a.sample.output)?;
-    eprintln!("σ²mult {:.6e} over {} tips ({} dimensions)", r.sigma_mult, r.tips, r.dimensions);
+    eprintln!(
+        "σ²mult {:.6e} over {} tips ({} dimensions)",
+        r.sigma_mult, r.tips, r.dimensions
+    );
     if let Some(c) = &r.comparison {
         for g in &c.groups {
-            eprintln!("  {:<16} {:>3} tips  σ²mult {:.6e}", g.group, g.tips, g.sigma_mult);
+            eprintln!(
+                "  {:<16} {:>3} tips  σ²mult {:.6e}",
+                g.group, g.tips, g.sigma_mult
+            );
         }
         eprintln!(
             "  largest/smallest {:.3}, p = {:.4} ({} simulations)",

@@ -44,7 +44,9 @@ type Written = (
 pub fn run(a: &SampleArgs) -> Result<()> {
     std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;
     if a.comparative {
-        let s = synth::comparative::generate_comparative(&synth::comparative::ComparativeSpec::bundled());
+        let s = synth::comparative::generate_comparative(
+            &synth::comparative::ComparativeSpec::bundled(),
+        );
         let paths = s.write(&a.output)?;
         eprintln!(
             "wrote {} taxa, {} specimens ({} files) in {}",

@@ -74,7 +74,12 @@ fn position(t: &Trial, id: &str) -> Option<[f64; 3]> {
 
 /// The first complete trial of each specimen other than `specimen`.
 fn reference_trials<'a>(project: &'a Project, specimen: &str) -> Vec<(&'a Specimen, &'a Trial)> {
-    let ids: Vec<&str> = project.scheme().landmarks.iter().map(|l| l.id.as_str()).collect();
+    let ids: Vec<&str> = project
+        .scheme()
+        .landmarks
+        .iter()
+        .map(|l| l.id.as_str())
+        .collect();
     project
         .specimens()
         .iter()
@@ -151,7 +156,10 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
         .filter(|id| position(tr, id).is_some())
         .collect();
     if present.len() >= 4 {
-        let cand: Vec<[f64; 3]> = present.iter().map(|id| position(tr, id).expect("present")).collect();
+        let cand: Vec<[f64; 3]> = present
+            .iter()
+            .map(|id| position(tr, id).expect("present"))
+            .collect();
         let mut data = Vec::with_capacity(refs.len() * present.len() * 3);
         for (_, t) in &refs {
             for id in &present {
@@ -162,7 +170,8 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
             .and_then(|s| gpa(&s, &GpaOptions::default()));
         if let Ok(g) = fitted {
             let k = present.len();
-            let dist2 = |pts: &[[f64; 3]]| opa(&g.mean, &config(pts), true).map(|o| o.distance.powi(2));
+            let dist2 =
+                |pts: &[[f64; 3]]| opa(&g.mean, &config(pts), true).map(|o| o.distance.powi(2));
             let mut swapped: Vec<&str> = Vec::new();
             if let Ok(d0) = dist2(&cand) {
                 for (a, la) in present.iter().enumerate() {
@@ -231,8 +240,10 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
     }
     // measurements
     let mine = measure_trial(scheme, sp, tr);
-    let theirs: Vec<Vec<crate::measure::table::Row>> =
-        refs.iter().map(|(s, t)| measure_trial(scheme, s, t)).collect();
+    let theirs: Vec<Vec<crate::measure::table::Row>> = refs
+        .iter()
+        .map(|(s, t)| measure_trial(scheme, s, t))
+        .collect();
     for row in &mine {
         let Ok(m) = &row.result else { continue };
         let values: Vec<f64> = theirs
@@ -247,7 +258,9 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
             if z.abs() > ROBUST_Z {
                 let (lo, hi) = values
                     .iter()
-                    .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+                    .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+                        (a.min(v), b.max(v))
+                    });
                 out.flags.push(Flag {
                     kind: FlagKind::OutlyingMeasurement,
                     items: vec![row.measurement.clone()],

@@ -27,7 +27,9 @@ use crate::chart::plots;
 use crate::evolution::ancestral::{Ancestors, ancestral_states};
 use crate::evolution::models::{ModelComparison, ModelOptions, compare_models};
 use crate::evolution::rates::{Kmult, RateComparison, compare_rates, k_mult, sigma_mult};
-use crate::evolution::time::{Age, Metric, ThroughTime, TimeBins, TimeOptions, disparity_through_time};
+use crate::evolution::time::{
+    Age, Metric, ThroughTime, TimeBins, TimeOptions, disparity_through_time,
+};
 use crate::evolution::{EvolutionError, Tree};
 use crate::export::{ExportError, num, write_csv, write_json};
 use crate::shape::pca;
@@ -58,7 +60,10 @@ impl SpecimenLabels {
             .headers()
             .map_err(|e| ExportError::format(path, e.to_string()))?
             .clone();
-        let Some(c_spec) = headers.iter().position(|h| h.eq_ignore_ascii_case("specimen")) else {
+        let Some(c_spec) = headers
+            .iter()
+            .position(|h| h.eq_ignore_ascii_case("specimen"))
+        else {
             return Err(ExportError::format(path, "no 'specimen' column".to_owned()).into());
         };
         let mut labels: BTreeMap<String, BTreeMap<String, String>> = BTreeMap::new();
@@ -66,7 +71,9 @@ impl SpecimenLabels {
             let rec = rec.map_err(|e| ExportError::format(path, e.to_string()))?;
             let id = rec.get(c_spec).unwrap_or("").to_owned();
             if id.is_empty() {
-                return Err(ExportError::format(path, format!("line {}: no specimen id", n + 2)).into());
+                return Err(
+                    ExportError::format(path, format!("line {}: no specimen id", n + 2)).into(),
+                );
             }
             if labels.contains_key(&id) {
                 return Err(ExportError::format(
@@ -134,19 +141,29 @@ impl Default for AgeKeys {
 
 impl AgeKeys {
     /// A specimen's age, `Ok(None)` when it has none.
-    pub fn age_of(&self, labels: &SpecimenLabels, specimen: &str) -> Result<Option<Age>, AnalysisError> {
+    pub fn age_of(
+        &self,
+        labels: &SpecimenLabels,
+        specimen: &str,
+    ) -> Result<Option<Age>, AnalysisError> {
         if let Some(v) = labels.get(specimen, &self.age) {
             return Ok(Some(Age::parse(v)));
         }
-        match (labels.get(specimen, &self.oldest), labels.get(specimen, &self.youngest)) {
+        match (
+            labels.get(specimen, &self.oldest),
+            labels.get(specimen, &self.youngest),
+        ) {
             (Some(o), Some(y)) => {
                 let parse = |t: &str, key: &str| {
-                    t.parse::<f64>().ok().filter(|v| v.is_finite()).ok_or_else(|| {
-                        AnalysisError::Evolution(EvolutionError::Data(format!(
-                            "{}: specimen '{specimen}': {key} = '{t}' is not a number",
-                            labels.source
-                        )))
-                    })
+                    t.parse::<f64>()
+                        .ok()
+                        .filter(|v| v.is_finite())
+                        .ok_or_else(|| {
+                            AnalysisError::Evolution(EvolutionError::Data(format!(
+                                "{}: specimen '{specimen}': {key} = '{t}' is not a number",
+                                labels.source
+                            )))
+                        })
                 };
                 let (o, y) = (parse(o, &self.oldest)?, parse(y, &self.youngest)?);
                 Ok(Some(Age::Range {
@@ -154,12 +171,12 @@ impl AgeKeys {
                     youngest: o.min(y),
                 }))
             }
-            (Some(_), None) | (None, Some(_)) => Err(AnalysisError::Evolution(EvolutionError::Data(
-                format!(
+            (Some(_), None) | (None, Some(_)) => {
+                Err(AnalysisError::Evolution(EvolutionError::Data(format!(
                     "{}: specimen '{specimen}' has only one of {} and {}",
                     labels.source, self.oldest, self.youngest
-                ),
-            ))),
+                ))))
+            }
             (None, None) => Ok(labels.get(specimen, &self.bin).map(|b| Age::Bin {
                 label: b.to_owned(),
             })),
@@ -226,7 +243,9 @@ pub fn through_time_of(
         BinsSpec::Count(c) => TimeBins::equal(&ages, *c)?,
         BinsSpec::Names(n) => TimeBins::from_labels(n)?,
     };
-    let rows = DMatrix::from_fn(used.len(), a.tangent.ncols(), |r, c| a.tangent[(used[r], c)]);
+    let rows = DMatrix::from_fn(used.len(), a.tangent.ncols(), |r, c| {
+        a.tangent[(used[r], c)]
+    });
     let result = disparity_through_time(&rows, &ages, &bins, opts)?;
     for &i in &result.outside {
         left_out.push((
@@ -244,7 +263,10 @@ pub fn through_time_of(
     });
     Ok(ThroughTimeReport {
         result,
-        specimens: used.iter().map(|&i| a.observations[i].specimen.clone()).collect(),
+        specimens: used
+            .iter()
+            .map(|&i| a.observations[i].specimen.clone())
+            .collect(),
         ages,
         left_out,
         scores,
@@ -315,7 +337,13 @@ impl ThroughTimeReport {
         let changes = dir.join("bin_changes.csv");
         write_csv(
             &changes,
-            &["from_bin", "to_bin", "difference_procrustes_variance", "p_value", "permutations"],
+            &[
+                "from_bin",
+                "to_bin",
+                "difference_procrustes_variance",
+                "p_value",
+                "permutations",
+            ],
             &r.changes
                 .iter()
                 .map(|c| {
@@ -347,7 +375,9 @@ impl ThroughTimeReport {
                 .map(|((s, a), b)| {
                     let age = match a {
                         Age::Point { ma } => num(*ma),
-                        Age::Range { oldest, youngest } => format!("{}-{}", num(*oldest), num(*youngest)),
+                        Age::Range { oldest, youngest } => {
+                            format!("{}-{}", num(*oldest), num(*youngest))
+                        }
                         Age::Bin { label } => label.clone(),
                     };
                     vec![s.clone(), age, b.clone()]
@@ -384,8 +414,12 @@ impl ThroughTimeReport {
     pub fn metric_figure(&self, metric: Metric) -> Figure {
         let r = &self.result;
         let k = Metric::ALL.iter().position(|m| *m == metric).unwrap_or(0);
-        let spans: Vec<(f64, f64, f64)> =
-            r.bins.iter().enumerate().map(|(i, b)| bin_span(&b.bin, i)).collect();
+        let spans: Vec<(f64, f64, f64)> = r
+            .bins
+            .iter()
+            .enumerate()
+            .map(|(i, b)| bin_span(&b.bin, i))
+            .collect();
         let mids: Vec<f64> = spans.iter().map(|s| s.2).collect();
         let pick = |f: &dyn Fn(&crate::evolution::time::MetricResult) -> f64| -> Vec<f64> {
             r.bins.iter().map(|b| f(&b.metrics[k])).collect()
@@ -429,7 +463,9 @@ impl ThroughTimeReport {
                 groups[i].clone_from(&b.bin.label);
             }
         }
-        let keep: Vec<usize> = (0..groups.len()).filter(|&i| !groups[i].is_empty()).collect();
+        let keep: Vec<usize> = (0..groups.len())
+            .filter(|&i| !groups[i].is_empty())
+            .collect();
         Some(plots::scatter_with_hulls(
             &keep.iter().map(|&i| xs[i]).collect::<Vec<_>>(),
             &keep.iter().map(|&i| ys[i]).collect::<Vec<_>>(),
@@ -444,7 +480,10 @@ impl ThroughTimeReport {
     pub fn write_figures(&self, dir: &Path) -> Result<Vec<PathBuf>, AnalysisError> {
         std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
         let mut out = Vec::new();
-        out.extend(save_figure(&self.figure(), &dir.join("disparity_through_time"))?);
+        out.extend(save_figure(
+            &self.figure(),
+            &dir.join("disparity_through_time"),
+        )?);
         out.extend(save_figure(
             &self.metric_figure(Metric::MeanPairwiseDistance),
             &dir.join("mean_pairwise_distance_through_time"),
@@ -516,8 +555,10 @@ impl TipData {
         let tree = if missing.is_empty() {
             tree.clone()
         } else {
-            let names: Vec<String> =
-                missing.iter().map(|&t| tree.tip_labels()[t].to_owned()).collect();
+            let names: Vec<String> = missing
+                .iter()
+                .map(|&t| tree.tip_labels()[t].to_owned())
+                .collect();
             if !prune {
                 return Err(EvolutionError::Tree(format!(
                     "{} tip(s) have no specimen: {} (match tips by another label, or prune them)",
@@ -531,7 +572,9 @@ impl TipData {
                 names.len(),
                 abbreviate(&names)
             ));
-            let keep: Vec<usize> = (0..tree.n_tips()).filter(|t| !missing.contains(t)).collect();
+            let keep: Vec<usize> = (0..tree.n_tips())
+                .filter(|t| !missing.contains(t))
+                .collect();
             if keep.len() < 2 {
                 return Err(EvolutionError::Tree("fewer than 2 tips have specimens".into()).into());
             }
@@ -643,7 +686,13 @@ pub fn rates_of(
         None => None,
         Some(key) => {
             let groups = td.tip_groups(a, labels, key)?;
-            Some(compare_rates(&td.tree, &td.rows, &groups, simulations, seed)?)
+            Some(compare_rates(
+                &td.tree,
+                &td.rows,
+                &groups,
+                simulations,
+                seed,
+            )?)
         }
     };
     let k = k_mult(&td.tree, &td.rows, permutations, seed)?;
@@ -663,7 +712,11 @@ impl RatesReport {
     /// `rate_ratios.csv`, `k_mult.csv` and `rates.json`.
     pub fn write_tables(&self, dir: &Path) -> Result<Vec<PathBuf>, AnalysisError> {
         std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
-        let mut rows = vec![vec!["all".to_owned(), self.tips.to_string(), num(self.sigma_mult)]];
+        let mut rows = vec![vec![
+            "all".to_owned(),
+            self.tips.to_string(),
+            num(self.sigma_mult),
+        ]];
         if let Some(c) = &self.comparison {
             rows.extend(
                 c.groups
@@ -692,7 +745,11 @@ impl RatesReport {
                 ]
             }));
             let ratios = dir.join("rate_ratios.csv");
-            write_csv(&ratios, &["faster", "slower", "ratio", "p_value", "simulations"], &rows)?;
+            write_csv(
+                &ratios,
+                &["faster", "slower", "ratio", "p_value", "simulations"],
+                &rows,
+            )?;
             out.push(ratios);
         }
         let k = dir.join("k_mult.csv");
@@ -822,17 +879,25 @@ pub fn ancestral_of(
         Some(k) => td.tip_groups(a, labels, k)?,
         None => vec!["tips".to_owned(); td.tree.n_tips()],
     };
-    let plane = pca::pca(&td.rows).ok().filter(|p| p.variances.len() >= 2).map(|p| {
-        let project = |row: nalgebra::RowDVector<f64>| {
-            let c = row - p.center.transpose();
-            ((&c * p.loadings.column(0))[0], (&c * p.loadings.column(1))[0])
-        };
-        let tips = (0..td.rows.nrows()).map(|i| project(td.rows.row(i).into_owned())).collect();
-        let nodes = (0..anc.values.nrows())
-            .map(|i| project(anc.values.row(i).into_owned()))
-            .collect();
-        (tips, nodes, p.proportions[0], p.proportions[1])
-    });
+    let plane = pca::pca(&td.rows)
+        .ok()
+        .filter(|p| p.variances.len() >= 2)
+        .map(|p| {
+            let project = |row: nalgebra::RowDVector<f64>| {
+                let c = row - p.center.transpose();
+                (
+                    (&c * p.loadings.column(0))[0],
+                    (&c * p.loadings.column(1))[0],
+                )
+            };
+            let tips = (0..td.rows.nrows())
+                .map(|i| project(td.rows.row(i).into_owned()))
+                .collect();
+            let nodes = (0..anc.values.nrows())
+                .map(|i| project(anc.values.row(i).into_owned()))
+                .collect();
+            (tips, nodes, p.proportions[0], p.proportions[1])
+        });
     Ok(AncestralReport {
         ancestors: anc,
         configs,

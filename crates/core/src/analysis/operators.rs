@@ -110,7 +110,8 @@ pub fn operator_error(
             (def.id.clone(), r)
         })
         .collect();
-    let mut names: Vec<(usize, String)> = op_ids.iter().map(|(k, &v)| (v, (*k).to_owned())).collect();
+    let mut names: Vec<(usize, String)> =
+        op_ids.iter().map(|(k, &v)| (v, (*k).to_owned())).collect();
     names.sort();
     Ok(Some(OperatorError {
         shape: pa.shape,
@@ -126,7 +127,10 @@ impl OperatorError {
     /// Every variable's table: shape, centroid size, then the measurements that have one.
     #[must_use]
     pub fn tables(&self) -> Vec<(&str, &OperatorAnova)> {
-        let mut v = vec![("shape", &self.shape), ("centroid_size", &self.centroid_size)];
+        let mut v = vec![
+            ("shape", &self.shape),
+            ("centroid_size", &self.centroid_size),
+        ];
         for (name, r) in &self.measurements {
             if let Ok(t) = r {
                 v.push((name.as_str(), t));
@@ -164,11 +168,20 @@ impl OperatorError {
             }
         }
         let anova = dir.join("operator_anova.csv");
-        write_csv(&anova, &["variable", "term", "ss", "df", "ms", "f", "p"], &rows)?;
+        write_csv(
+            &anova,
+            &["variable", "term", "ss", "df", "ms", "f", "p"],
+            &rows,
+        )?;
         let sh = dir.join("operator_shares.csv");
         write_csv(
             &sh,
-            &["variable", "individual_share", "inter_operator_share", "intra_operator_share"],
+            &[
+                "variable",
+                "individual_share",
+                "inter_operator_share",
+                "intra_operator_share",
+            ],
             &shares,
         )?;
         let js = dir.join("operator_error.json");

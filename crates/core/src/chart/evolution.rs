@@ -110,7 +110,12 @@ pub fn tree_in_plane(
     let y = Axis::new(ys, f64::from(h) - 70.0, 50.0);
     frame(&mut f, &x, &y, x_title, y_title, title);
     for &(a, b) in edges {
-        f.line((x.px(a.0), y.px(a.1)), (x.px(b.0), y.px(b.1)), Rgba::GREY, 1.2);
+        f.line(
+            (x.px(a.0), y.px(a.1)),
+            (x.px(b.0), y.px(b.1)),
+            Rgba::GREY,
+            1.2,
+        );
     }
     for p in internal {
         f.items.push(Item::Circle {

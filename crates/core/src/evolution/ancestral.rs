@@ -36,8 +36,7 @@ pub fn ancestral_states(tree: &Tree, y: &DMatrix<f64>) -> Result<Ancestors, Evol
     let depth = tree.depths();
     let chol = s.clone().cholesky().ok_or_else(|| {
         EvolutionError::Numerical(
-            "the tree's covariance matrix is not positive definite (tips at zero distance?)"
-                .into(),
+            "the tree's covariance matrix is not positive definite (tips at zero distance?)".into(),
         )
     })?;
     let ones = DMatrix::from_element(n, 1, 1.0);
@@ -90,7 +89,11 @@ mod tests {
         let y = DMatrix::from_row_slice(3, 1, &[1.0, 3.0, 8.0]);
         let a = ancestral_states(&t, &y).unwrap();
         assert_eq!(a.nodes.len(), 2);
-        assert!((a.values[(0, 0)] - 32.0 / 7.0).abs() < 1e-12, "{}", a.values);
+        assert!(
+            (a.values[(0, 0)] - 32.0 / 7.0).abs() < 1e-12,
+            "{}",
+            a.values
+        );
         assert!((a.values[(1, 0)] - 20.0 / 7.0).abs() < 1e-12);
     }
 }

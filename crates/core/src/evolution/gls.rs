@@ -111,7 +111,8 @@ impl ContrastPlan {
         for (node, children, length) in &self.steps {
             // fold the children pairwise (a polytomy as a comb of zero-length branches)
             let first = children[0];
-            work.acc.copy_from_slice(&work.values[first * p..(first + 1) * p]);
+            work.acc
+                .copy_from_slice(&work.values[first * p..(first + 1) * p]);
             let mut v_acc = work.var[first];
             for &c in &children[1..] {
                 let vc = work.var[c];
@@ -178,7 +179,11 @@ impl TreeTimes {
         let shared = tree.shared_times();
         let tip: Vec<f64> = (0..tree.n_tips()).map(|i| shared[(i, i)]).collect();
         let height = tip.iter().copied().fold(0.0, f64::max);
-        Self { shared, tip, height }
+        Self {
+            shared,
+            tip,
+            height,
+        }
     }
 }
 
@@ -187,9 +192,13 @@ impl TreeTimes {
 pub enum Covariance {
     Brownian,
     /// Early burst with rate change `r` (≤ 0: decelerating).
-    EarlyBurst { r: f64 },
+    EarlyBurst {
+        r: f64,
+    },
     /// Ornstein–Uhlenbeck with pull `α ≥ 0`.
-    OrnsteinUhlenbeck { alpha: f64 },
+    OrnsteinUhlenbeck {
+        alpha: f64,
+    },
 }
 
 impl Covariance {
@@ -242,8 +251,7 @@ pub fn whiten(c: DMatrix<f64>, y: &DMatrix<f64>) -> Result<Whitened, EvolutionEr
     let n = c.nrows();
     let chol = c.cholesky().ok_or_else(|| {
         EvolutionError::Numerical(
-            "the tree's covariance matrix is not positive definite (tips at zero distance?)"
-                .into(),
+            "the tree's covariance matrix is not positive definite (tips at zero distance?)".into(),
         )
     })?;
     let l = chol.l();
@@ -275,12 +283,7 @@ pub fn whiten(c: DMatrix<f64>, y: &DMatrix<f64>) -> Result<Whitened, EvolutionEr
 /// 1973, *Algorithms for Minimization without Derivatives*, ch. 5), to an absolute tolerance
 /// `tol` in `x`. Returns `(x, f(x), evaluations)`. A 1-D bounded minimiser is all the model fits
 /// need; the general optimisation crates bring far more than that.
-pub fn minimise(
-    mut f: impl FnMut(f64) -> f64,
-    lo: f64,
-    hi: f64,
-    tol: f64,
-) -> (f64, f64, usize) {
+pub fn minimise(mut f: impl FnMut(f64) -> f64, lo: f64, hi: f64, tol: f64) -> (f64, f64, usize) {
     const GOLD: f64 = 0.381_966_011_250_105_1; // (3 − √5)/2
     let (mut a, mut b) = (lo.min(hi), lo.max(hi));
     let mut x = a + GOLD * (b - a);
@@ -368,9 +371,19 @@ mod tests {
         let (trace, root, log_det) = gls_trace(&c, &y);
         let plan = ContrastPlan::new(&t, &t.lengths());
         let rows: Vec<Vec<f64>> = (0..6).map(|i| y.row(i).iter().copied().collect()).collect();
-        let s = plan.run(3, |i| &rows[i], &mut ContrastWork::default()).unwrap();
-        assert!((s.trace - trace).abs() < 1e-12 * trace, "{} {trace}", s.trace);
-        assert!((s.log_det - log_det).abs() < 1e-12, "{} {log_det}", s.log_det);
+        let s = plan
+            .run(3, |i| &rows[i], &mut ContrastWork::default())
+            .unwrap();
+        assert!(
+            (s.trace - trace).abs() < 1e-12 * trace,
+            "{} {trace}",
+            s.trace
+        );
+        assert!(
+            (s.log_det - log_det).abs() < 1e-12,
+            "{} {log_det}",
+            s.log_det
+        );
         for j in 0..3 {
             assert!((s.root[j] - root[j]).abs() < 1e-12);
         }
@@ -387,7 +400,9 @@ mod tests {
         let t = Tree::parse("(A:1,B:3);", "t").unwrap();
         let plan = ContrastPlan::new(&t, &t.lengths());
         let rows = [vec![2.0], vec![6.0]];
-        let s = plan.run(1, |i| &rows[i], &mut ContrastWork::default()).unwrap();
+        let s = plan
+            .run(1, |i| &rows[i], &mut ContrastWork::default())
+            .unwrap();
         assert!((s.root[0] - 3.0).abs() < 1e-15);
         assert!((s.trace - 4.0).abs() < 1e-15); // ((2 − 6)/2)²
         assert!((s.log_det - 3f64.ln()).abs() < 1e-15);
@@ -399,7 +414,10 @@ mod tests {
         let t = Tree::parse("((A:0,B:0):1,C:1);", "t").unwrap();
         let plan = ContrastPlan::new(&t, &t.lengths());
         let rows = [vec![1.0], vec![2.0], vec![3.0]];
-        assert!(plan.run(1, |i| &rows[i], &mut ContrastWork::default()).is_err());
+        assert!(
+            plan.run(1, |i| &rows[i], &mut ContrastWork::default())
+                .is_err()
+        );
     }
 
     #[test]

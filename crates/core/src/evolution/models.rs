@@ -203,12 +203,18 @@ pub fn composite_log_likelihood(
 ) -> Result<f64, EvolutionError> {
     tree.check_for_analysis(2)?;
     if y.nrows() != tree.n_tips() {
-        return Err(data_err(format!("{} data rows for {} tips", y.nrows(), tree.n_tips())));
+        return Err(data_err(format!(
+            "{} data rows for {} tips",
+            y.nrows(),
+            tree.n_tips()
+        )));
     }
     let p = y.ncols();
     let setup = Setup {
         y: y.clone(),
-        pairs: (0..p).flat_map(|i| (i + 1..p).map(move |j| (i, j))).collect(),
+        pairs: (0..p)
+            .flat_map(|i| (i + 1..p).map(move |j| (i, j)))
+            .collect(),
         times: TreeTimes::new(tree),
     };
     Ok(setup.profile(cov)?.0)
@@ -346,7 +352,9 @@ pub fn compare_models(
     };
 
     // One-parameter fits: grid (denser near the Brownian end), then Brent around the best.
-    let fit_one = |make: &(dyn Fn(f64) -> Covariance + Sync), bound: f64| -> Result<(f64, f64, DMatrix<f64>, Estimate, usize), EvolutionError> {
+    let fit_one = |make: &(dyn Fn(f64) -> Covariance + Sync),
+                   bound: f64|
+     -> Result<(f64, f64, DMatrix<f64>, Estimate, usize), EvolutionError> {
         const GRID: usize = 16;
         let xs: Vec<f64> = (0..GRID)
             .map(|i| bound * (i as f64 / (GRID - 1) as f64).powi(2))
@@ -432,10 +440,11 @@ pub fn compare_models(
 
     let eb_bound = (1e-5f64).ln() / height;
     let alpha_bound = 2f64.ln() / (0.01 * height);
-    let (_, cl_eb, r_eb, r_est, eb_evals) =
-        fit_one(&|r| Covariance::EarlyBurst { r }, eb_bound)?;
-    let (alpha, cl_ou, r_ou, a_est, ou_evals) =
-        fit_one(&|alpha| Covariance::OrnsteinUhlenbeck { alpha }, alpha_bound)?;
+    let (_, cl_eb, r_eb, r_est, eb_evals) = fit_one(&|r| Covariance::EarlyBurst { r }, eb_bound)?;
+    let (alpha, cl_ou, r_ou, a_est, ou_evals) = fit_one(
+        &|alpha| Covariance::OrnsteinUhlenbeck { alpha },
+        alpha_bound,
+    )?;
 
     let nf = n as f64;
     let aicc = |ll: f64, k: usize| {
@@ -479,7 +488,11 @@ pub fn compare_models(
             weight: 0.0,
             rate: rate_estimate(&r_ou),
             parameter: Some(a_est),
-            half_life: Some(if alpha > 0.0 { 2f64.ln() / alpha } else { f64::INFINITY }),
+            half_life: Some(if alpha > 0.0 {
+                2f64.ln() / alpha
+            } else {
+                f64::INFINITY
+            }),
             evaluations: ou_evals,
         },
     ];
@@ -521,7 +534,9 @@ mod tests {
     fn adjustment_of_independent_variables_is_p_minus_one() {
         let p = 7;
         let r = DMatrix::from_fn(p, p, |i, j| if i == j { 1.0 + i as f64 } else { 0.0 });
-        let pairs: Vec<(usize, usize)> = (0..p).flat_map(|i| (i + 1..p).map(move |j| (i, j))).collect();
+        let pairs: Vec<(usize, usize)> = (0..p)
+            .flat_map(|i| (i + 1..p).map(move |j| (i, j)))
+            .collect();
         assert!((adjustment(&r, &pairs) - (p - 1) as f64).abs() < 1e-12);
         // two variables: c = tr(I)/2 = 1 whatever R
         let r2 = DMatrix::from_row_slice(2, 2, &[2.0, 0.7, 0.7, 1.0]);

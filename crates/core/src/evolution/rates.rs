@@ -62,7 +62,11 @@ pub fn sigma_mult(tree: &Tree, y: &DMatrix<f64>) -> Result<f64, EvolutionError> 
     let p = y.ncols();
     let flat = row_major(y);
     let plan = ContrastPlan::new(tree, &tree.lengths());
-    let s = plan.run(p, |t| &flat[t * p..(t + 1) * p], &mut ContrastWork::default())?;
+    let s = plan.run(
+        p,
+        |t| &flat[t * p..(t + 1) * p],
+        &mut ContrastWork::default(),
+    )?;
     Ok(s.trace / (tree.n_tips() * p) as f64)
 }
 
@@ -116,7 +120,9 @@ pub fn compare_rates(
         )));
     }
     if simulations == 0 {
-        return Err(EvolutionError::Option("at least one simulation is needed".into()));
+        return Err(EvolutionError::Option(
+            "at least one simulation is needed".into(),
+        ));
     }
     let mut members: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
     for (t, g) in groups.iter().enumerate() {
@@ -140,18 +146,23 @@ pub fn compare_rates(
         .iter()
         .map(|(g, m)| {
             let sub = tree.keep_tips(m)?;
-            Ok(((*g).to_owned(), m.clone(), ContrastPlan::new(&sub, &sub.lengths())))
+            Ok((
+                (*g).to_owned(),
+                m.clone(),
+                ContrastPlan::new(&sub, &sub.lengths()),
+            ))
         })
         .collect::<Result<_, EvolutionError>>()?;
-    let rates_of = |data: &[f64], q: usize, work: &mut ContrastWork| -> Result<Vec<f64>, EvolutionError> {
-        plans
-            .iter()
-            .map(|(_, m, plan)| {
-                let s = plan.run(q, |t| &data[m[t] * q..(m[t] + 1) * q], work)?;
-                Ok(s.trace / (m.len() * p) as f64)
-            })
-            .collect()
-    };
+    let rates_of =
+        |data: &[f64], q: usize, work: &mut ContrastWork| -> Result<Vec<f64>, EvolutionError> {
+            plans
+                .iter()
+                .map(|(_, m, plan)| {
+                    let s = plan.run(q, |t| &data[m[t] * q..(m[t] + 1) * q], work)?;
+                    Ok(s.trace / (m.len() * p) as f64)
+                })
+                .collect()
+        };
     let mut work = ContrastWork::default();
     let observed = rates_of(&flat, p, &mut work)?;
     let whole = ContrastPlan::new(tree, &tree.lengths());
@@ -173,7 +184,8 @@ pub fn compare_rates(
     let q = sd.len();
     let sim = BrownianPlan::new(tree, &tree.lengths());
     let g = plans.len();
-    let pair_ratio = |rates: &[f64], a: usize, b: usize| rates[a].max(rates[b]) / rates[a].min(rates[b]);
+    let pair_ratio =
+        |rates: &[f64], a: usize, b: usize| rates[a].max(rates[b]) / rates[a].min(rates[b]);
     let overall = |rates: &[f64]| {
         let (lo, hi) = rates
             .iter()
@@ -220,7 +232,11 @@ pub fn compare_rates(
     let mut k = 0;
     for a in 0..g {
         for b in a + 1..g {
-            let (fa, sl) = if observed[a] >= observed[b] { (a, b) } else { (b, a) };
+            let (fa, sl) = if observed[a] >= observed[b] {
+                (a, b)
+            } else {
+                (b, a)
+            };
             pairs.push(RatePair {
                 faster: plans[fa].0.clone(),
                 slower: plans[sl].0.clone(),
@@ -268,7 +284,9 @@ pub fn k_mult(
     tree.check_for_analysis(3)?;
     check_data(tree, y)?;
     if permutations == 0 {
-        return Err(EvolutionError::Option("at least one permutation is needed".into()));
+        return Err(EvolutionError::Option(
+            "at least one permutation is needed".into(),
+        ));
     }
     let (n, p) = y.shape();
     let flat = row_major(y);
@@ -323,7 +341,10 @@ mod tests {
         assert!((sigma_mult(&t, &y).unwrap() - 2.0 / 3.0).abs() < 1e-15);
         let k = k_mult(&t, &y, 9, 1).unwrap();
         assert!((k.k_mult - 1.0).abs() < 1e-12);
-        assert!((k.p_value - 1.0).abs() < 1e-12, "every permutation ties: p = 1");
+        assert!(
+            (k.p_value - 1.0).abs() < 1e-12,
+            "every permutation ties: p = 1"
+        );
     }
 
     /// Two clades simulated with rates 1 and 16: the faster is found and the difference is
@@ -352,7 +373,13 @@ mod tests {
         let p = 6;
         for (fast, significant) in [(16.0f64, true), (1.0, false)] {
             let mut rng = crate::evolution::rng_for(11, 0);
-            let y0 = brownian(&tree, &tree.lengths(), &vec![0.0; p], &DMatrix::identity(p, p), &mut rng);
+            let y0 = brownian(
+                &tree,
+                &tree.lengths(),
+                &vec![0.0; p],
+                &DMatrix::identity(p, p),
+                &mut rng,
+            );
             // scale clade b's own evolution: its tips' deviations from the clade's root
             let b: Vec<usize> = (0..32).filter(|&t| groups[t] == "b").collect();
             let mut y = y0.clone();

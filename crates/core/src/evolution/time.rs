@@ -366,7 +366,11 @@ impl Measures<'_> {
         // sum of variances, column by column (its own formula)
         let mut sov = 0.0;
         for (c, b) in buf.iter().enumerate() {
-            sov += idx.iter().map(|&i| (self.rows[(i, c)] - b).powi(2)).sum::<f64>() / (n - 1.0);
+            sov += idx
+                .iter()
+                .map(|&i| (self.rows[(i, c)] - b).powi(2))
+                .sum::<f64>()
+                / (n - 1.0);
         }
         let mut dsum = 0.0;
         for (a, &i) in idx.iter().enumerate() {
@@ -396,12 +400,13 @@ pub fn disparity_through_time(
         return Err(data_err(format!("{} ages for {n} specimens", ages.len())));
     }
     if rows.iter().any(|v| !v.is_finite()) {
-        return Err(data_err("the coordinates contain values that are not finite"));
+        return Err(data_err(
+            "the coordinates contain values that are not finite",
+        ));
     }
     if opts.resamples == 0 || !(opts.level > 0.0 && opts.level < 1.0) {
         return Err(EvolutionError::Option(
-            "disparity through time needs at least one resample and a level between 0 and 1"
-                .into(),
+            "disparity through time needs at least one resample and a level between 0 and 1".into(),
         ));
     }
     bins.check(ages)?;
@@ -459,8 +464,9 @@ pub fn disparity_through_time(
                 let mut rare = Vec::with_capacity(nb);
                 for mb in &m {
                     if mb.len() >= 2 {
-                        let pick: Vec<usize> =
-                            (0..mb.len()).map(|_| mb[rng.random_range(0..mb.len())]).collect();
+                        let pick: Vec<usize> = (0..mb.len())
+                            .map(|_| mb[rng.random_range(0..mb.len())])
+                            .collect();
                         boot.push(Some(measures.of(&pick, buf)));
                     } else {
                         boot.push(None);
@@ -611,10 +617,15 @@ mod tests {
         let rows = DMatrix::from_row_slice(5, 1, &[0.0, 2.0, 0.0, 3.0, 6.0]);
         let ages = [95.0, 90.0, 70.0, 65.0, 62.0].map(|ma| Age::Point { ma });
         let bins = TimeBins::from_edges(&[100.0, 80.0, 60.0]).unwrap();
-        let t = disparity_through_time(&rows, &ages, &bins, &TimeOptions {
-            resamples: 200,
-            ..TimeOptions::default()
-        })
+        let t = disparity_through_time(
+            &rows,
+            &ages,
+            &bins,
+            &TimeOptions {
+                resamples: 200,
+                ..TimeOptions::default()
+            },
+        )
         .unwrap();
         let m = |b: usize, k: usize| t.bins[b].metrics[k].estimate;
         assert_eq!([m(0, 0), m(0, 1), m(0, 2)], [2.0, 2.0, 2.0]);
@@ -639,15 +650,24 @@ mod tests {
             youngest: 76.0,
         };
         let bins = TimeBins::from_edges(&[100.0, 80.0, 60.0]).unwrap();
-        let t = disparity_through_time(&rows, &ages, &bins, &TimeOptions {
-            resamples: 400,
-            ..TimeOptions::default()
-        })
+        let t = disparity_through_time(
+            &rows,
+            &ages,
+            &bins,
+            &TimeOptions {
+                resamples: 400,
+                ..TimeOptions::default()
+            },
+        )
         .unwrap();
         assert!(t.age_draws);
         // the interval's midpoint, 80, is the older bin's youngest edge: it counts there, and
         // half of the draws (80–84 of 76–84) do too
         assert_eq!(t.bins[0].n, 4);
-        assert!(t.bins[0].n_mean > 3.3 && t.bins[0].n_mean < 3.7, "{}", t.bins[0].n_mean);
+        assert!(
+            t.bins[0].n_mean > 3.3 && t.bins[0].n_mean < 3.7,
+            "{}",
+            t.bins[0].n_mean
+        );
     }
 }

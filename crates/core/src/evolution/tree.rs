@@ -56,7 +56,9 @@ impl Tree {
         for (i, n) in nodes.iter().enumerate() {
             for &c in &n.children {
                 if nodes.get(c).and_then(|c| c.parent) != Some(i) {
-                    return Err(tree_err(format!("node {c} does not point back to node {i}")));
+                    return Err(tree_err(format!(
+                        "node {c} does not point back to node {i}"
+                    )));
                 }
             }
         }
@@ -65,7 +67,11 @@ impl Tree {
             root,
             tips: Vec::new(),
         };
-        t.tips = t.preorder().into_iter().filter(|&i| t.nodes[i].children.is_empty()).collect();
+        t.tips = t
+            .preorder()
+            .into_iter()
+            .filter(|&i| t.nodes[i].children.is_empty())
+            .collect();
         Ok(t)
     }
 
@@ -182,7 +188,10 @@ impl Tree {
                 }
                 b';' => {
                     if !open.is_empty() {
-                        return Err(err(pos, format!("{} '(' not closed before ';'", open.len())));
+                        return Err(err(
+                            pos,
+                            format!("{} '(' not closed before ';'", open.len()),
+                        ));
                     }
                     pos += 1;
                     skip(&mut pos)?;
@@ -207,9 +216,9 @@ impl Tree {
                         pos += 1;
                     }
                     let t = &text[start..pos];
-                    let v: f64 = t.parse().map_err(|_| {
-                        err(start, format!("branch length '{t}' is not a number"))
-                    })?;
+                    let v: f64 = t
+                        .parse()
+                        .map_err(|_| err(start, format!("branch length '{t}' is not a number")))?;
                     if !v.is_finite() || v < 0.0 {
                         return Err(err(
                             start,
@@ -439,7 +448,10 @@ impl Tree {
         let mut seen = std::collections::HashSet::new();
         for (t, l) in self.tip_labels().iter().enumerate() {
             if l.is_empty() {
-                return Err(tree_err(format!("tip {} (in file order) has no label", t + 1)));
+                return Err(tree_err(format!(
+                    "tip {} (in file order) has no label",
+                    t + 1
+                )));
             }
             if !seen.insert(*l) {
                 return Err(tree_err(format!("tip label '{l}' appears twice")));
@@ -542,7 +554,9 @@ impl Tree {
         let d = self.tip_depths();
         let (lo, hi) = d
             .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+                (a.min(v), b.max(v))
+            });
         hi - lo <= ULTRAMETRIC_TOLERANCE * hi.max(f64::MIN_POSITIVE)
     }
 
@@ -696,7 +710,9 @@ mod tests {
             assert!(e.starts_with("x.nwk: line 1, column"), "{e}");
             assert!(e.contains(want), "{text}: {e}");
         }
-        let e = Tree::parse("(A:1,\n  B:oops);", "y.nwk").unwrap_err().to_string();
+        let e = Tree::parse("(A:1,\n  B:oops);", "y.nwk")
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("line 2, column 5"), "{e}");
     }
 
@@ -720,7 +736,9 @@ mod tests {
         assert!(t.check_for_analysis(3).is_ok());
         let e = Tree::parse("(A:1,B);", "t").unwrap().check_for_analysis(2);
         assert!(e.unwrap_err().to_string().contains("tip 'B'"));
-        let e = Tree::parse("(A:1,A:1);", "t").unwrap().check_for_analysis(2);
+        let e = Tree::parse("(A:1,A:1);", "t")
+            .unwrap()
+            .check_for_analysis(2);
         assert!(e.unwrap_err().to_string().contains("twice"));
     }
 

@@ -7,12 +7,11 @@
 //!
 //! The model, step by step (all randomness from `ChaCha8Rng` seeded by [`ComparativeSpec::seed`],
 //! one stream per purpose):
-//! 1. **Tree**: a pure-birth (Yule) process from a root split, one lineage splitting at a time
-//!    with equal rates, until `taxa` lineages exist; then every lineage runs on for an
-//!    exponential waiting time of the `taxa`-lineage process, and the tree is scaled to
-//!    `duration_myr`. Each tip then ends, with probability `extinct_share`, at a uniform point
-//!    of its own terminal branch (a taxon last seen before the present): the tree is not
-//!    ultrametric. Tip ages are `root_age_ma − time`.
+//! 1. **Tree**: a birth–death process from a root split (speciation rate 1, extinction rate
+//!    `turnover`), started again if the clade dies out, until the lineages living and extinct
+//!    number `taxa`; the living run on for one more waiting time, and the tree is scaled to
+//!    `duration_myr`. Every extinct lineage is a fossil tip at its extinction (its last
+//!    appearance), so the tree is not ultrametric. Tip ages are `root_age_ma − time`.
 //! 2. **Shapes**: the mean skull of the sample's long-snouted group; every coordinate of every
 //!    landmark evolves independently down the tree by Brownian motion with rate `sigma2`
 //!    (mm² per Myr), or by early burst with rate `sigma2 · e^{r t}`, `r = −ln 2 / half-life`
@@ -46,7 +45,9 @@ pub const COMPARATIVE_VERSION: &str = "1";
 pub enum TraitModel {
     BrownianMotion,
     /// Rate halving every `half_life_myr`.
-    EarlyBurst { half_life_myr: f64 },
+    EarlyBurst {
+        half_life_myr: f64,
+    },
 }
 
 /// What to generate.
@@ -56,7 +57,8 @@ pub struct ComparativeSpec {
     pub seed: u64,
     pub root_age_ma: f64,
     pub duration_myr: f64,
-    pub extinct_share: f64,
+    /// Extinction rate over speciation rate.
+    pub turnover: f64,
     pub model: TraitModel,
     /// Rate per coordinate at the root, mm² per Myr.
     pub sigma2: f64,
@@ -75,7 +77,7 @@ impl ComparativeSpec {
             seed: 2024,
             root_age_ma: 140.0,
             duration_myr: 60.0,
-            extinct_share: 0.8,
+            turnover: 0.9,
             model: TraitModel::EarlyBurst {
                 half_life_myr: 12.0,
             },
@@ -118,80 +120,86 @@ fn stream(seed: u64, s: u64) -> ChaCha8Rng {
     r
 }
 
-/// A Yule tree scaled to `duration`, tips possibly ending early (module docs, step 1).
-fn yule_tree(spec: &ComparativeSpec, rng: &mut ChaCha8Rng) -> Tree {
-    // nodes: (parent, start time, end time or None while alive)
-    let mut parent: Vec<Option<usize>> = vec![None, Some(0), Some(0)];
-    let mut start = vec![0.0, 0.0, 0.0];
-    let mut end: Vec<Option<f64>> = vec![Some(0.0), None, None];
-    let mut alive: Vec<usize> = vec![1, 2];
-    let mut t = 0.0;
-    while alive.len() < spec.taxa {
-        let k = alive.len() as f64;
-        t += rng.sample(Exp::new(k).expect("positive rate"));
-        let pick = rng.random_range(0..alive.len());
-        let node = alive.swap_remove(pick);
-        end[node] = Some(t);
-        for _ in 0..2 {
-            parent.push(Some(node));
-            start.push(t);
-            end.push(None);
-            alive.push(parent.len() - 1);
-        }
-    }
-    t += rng.sample(Exp::new(spec.taxa as f64).expect("positive rate"));
-    let scale = spec.duration_myr / t;
-    let mut nodes: Vec<Node> = (0..parent.len())
-        .map(|i| Node {
-            parent: parent[i],
-            children: Vec::new(),
-            length: None,
-            label: None,
-        })
-        .collect();
-    for i in 1..parent.len() {
-        let p = parent[i].expect("not the root");
-        nodes[p].children.push(i);
-        let e = end[i].unwrap_or_else(|| {
-            // a tip: extant, or last seen somewhere along its terminal branch
-            if rng.random_bool(spec.extinct_share) {
-                start[i] + rng.random_range(0.15..1.0) * (t - start[i])
+/// A birth–death tree scaled to `duration` (module docs, step 1).
+fn fossil_tree(spec: &ComparativeSpec, rng: &mut ChaCha8Rng) -> Tree {
+    let (birth, death) = (1.0, spec.turnover);
+    loop {
+        // nodes: parent, start time, end time (None while the lineage lives)
+        let mut parent: Vec<Option<usize>> = vec![None, Some(0), Some(0)];
+        let mut start = vec![0.0, 0.0, 0.0];
+        let mut end: Vec<Option<f64>> = vec![Some(0.0), None, None];
+        let mut alive: Vec<usize> = vec![1, 2];
+        let mut tips_ended = 0usize;
+        let mut t = 0.0;
+        while !alive.is_empty() && alive.len() + tips_ended < spec.taxa {
+            let k = alive.len() as f64;
+            t += rng.sample(Exp::new(k * (birth + death)).expect("positive rate"));
+            let pick = rng.random_range(0..alive.len());
+            let node = alive.swap_remove(pick);
+            end[node] = Some(t);
+            if rng.random_bool(birth / (birth + death)) {
+                for _ in 0..2 {
+                    parent.push(Some(node));
+                    start.push(t);
+                    end.push(None);
+                    alive.push(parent.len() - 1);
+                }
             } else {
-                t
+                tips_ended += 1;
             }
-        });
-        nodes[i].length = Some((e - start[i]) * scale);
+        }
+        if alive.is_empty() {
+            continue; // the clade died out: start again
+        }
+        t += rng.sample(Exp::new(alive.len() as f64 * (birth + death)).expect("positive rate"));
+        let scale = spec.duration_myr / t;
+        let mut nodes: Vec<Node> = (0..parent.len())
+            .map(|i| Node {
+                parent: parent[i],
+                children: Vec::new(),
+                length: None,
+                label: None,
+            })
+            .collect();
+        for i in 1..parent.len() {
+            let p = parent[i].expect("not the root");
+            nodes[p].children.push(i);
+            nodes[i].length = Some((end[i].unwrap_or(t) - start[i]) * scale);
+        }
+        let mut tree = Tree::from_nodes(nodes).expect("a simulated tree is a tree");
+        // name the tips in their tree order
+        let tips = tree.tips().to_vec();
+        let mut nodes = tree.nodes().to_vec();
+        for (k, &tip) in tips.iter().enumerate() {
+            nodes[tip].label = Some(format!("OB{:02}", k + 1));
+        }
+        tree = Tree::from_nodes(nodes).expect("relabelled");
+        // lengths rounded to 6 decimals and nodes renumbered as a reader numbers them, so the
+        // Newick file carries this very tree
+        let mut nodes = tree.nodes().to_vec();
+        for n in &mut nodes {
+            n.length = n.length.map(|l| (l * 1e6).round() / 1e6);
+        }
+        let rounded = Tree::from_nodes(nodes).expect("rounded");
+        return Tree::parse(&rounded.to_newick(), "simulated tree")
+            .expect("our own Newick reads back");
     }
-    let mut tree = Tree::from_nodes(nodes).expect("a simulated tree is a tree");
-    // name the tips in their tree order
-    let tips = tree.tips().to_vec();
-    let mut nodes = tree.nodes().to_vec();
-    for (k, &tip) in tips.iter().enumerate() {
-        nodes[tip].label = Some(format!("OB{:02}", k + 1));
-    }
-    tree = Tree::from_nodes(nodes).expect("relabelled");
-    // lengths rounded to 6 decimals and nodes renumbered as a reader numbers them, so the
-    // Newick file carries this very tree
-    let mut nodes = tree.nodes().to_vec();
-    for n in &mut nodes {
-        n.length = n.length.map(|l| (l * 1e6).round() / 1e6);
-    }
-    let rounded = Tree::from_nodes(nodes).expect("rounded");
-    Tree::parse(&rounded.to_newick(), "simulated tree").expect("our own Newick reads back")
 }
 
 /// Generates the sample (module docs).
 #[must_use]
 pub fn generate_comparative(spec: &ComparativeSpec) -> ComparativeSample {
     let mut tree_rng = stream(spec.seed, 1);
-    let tree = yule_tree(spec, &mut tree_rng);
+    let tree = fossil_tree(spec, &mut tree_rng);
     let skull = super::Skull::new(&super::SkullParams::group_mean(true));
     let defs = super::scheme();
     let landmarks: Vec<String> = defs.iter().map(|d| d.id.to_owned()).collect();
     let mean: Vec<f64> = defs
         .iter()
         .flat_map(|d| {
-            let p = skull.landmark(d.id).expect("the mean skull has every landmark");
+            let p = skull
+                .landmark(d.id)
+                .expect("the mean skull has every landmark");
             [p.x, p.y, p.z]
         })
         .collect();
@@ -205,7 +213,12 @@ pub fn generate_comparative(spec: &ComparativeSpec) -> ComparativeSample {
     let plan = BrownianPlan::new(&tree, &lengths);
     let mut shape_rng = stream(spec.seed, 2);
     let (mut work, mut tips) = (Vec::new(), Vec::new());
-    plan.run(&vec![spec.sigma2.sqrt(); p], &mut shape_rng, &mut work, &mut tips);
+    plan.run(
+        &vec![spec.sigma2.sqrt(); p],
+        &mut shape_rng,
+        &mut work,
+        &mut tips,
+    );
 
     let depth = tree.tip_depths();
     let root = tree.root();
@@ -301,7 +314,11 @@ impl ComparativeSample {
             }
         }
         let lm_path = dir.join("landmarks.csv");
-        write_csv(&lm_path, &["specimen", "landmark", "x", "y", "z", "group"], &rows)?;
+        write_csv(
+            &lm_path,
+            &["specimen", "landmark", "x", "y", "z", "group"],
+            &rows,
+        )?;
         let rows: Vec<Vec<String>> = self
             .specimens
             .iter()
@@ -341,7 +358,7 @@ impl ComparativeSample {
             "version": COMPARATIVE_VERSION,
             "scenario": "Orrin Basin radiation (invented)",
             "spec": self.spec,
-            "tree": "pure-birth (Yule) tree scaled to duration_myr; tips end at a uniform point of their terminal branch with probability extinct_share",
+            "tree": "birth-death tree (speciation 1, extinction = turnover) until taxa lineages living and extinct, scaled to duration_myr; extinct lineages are fossil tips at their extinction",
             "shapes": "mean skull of the sample's long-snouted group; each coordinate evolves independently by the model with rate sigma2 (mm^2/Myr) at the root",
             "specimens": "1..max_specimens per taxon with within_sd mm of noise per coordinate, scaled by 0.9-1.1, rotated and moved",
         });

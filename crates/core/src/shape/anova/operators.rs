@@ -155,9 +155,11 @@ pub fn two_way(
     let smax = svd.singular_values.max();
     let eps = smax * 1e-10 * (n.max(a + b)) as f64;
     let rank_add = svd.singular_values.iter().filter(|&&s| s > eps).count();
-    let coef = svd
-        .solve(data, eps)
-        .map_err(|_| AnovaError::Shape(crate::shape::ShapeError::NoConvergence("the operator ANOVA's fit")))?;
+    let coef = svd.solve(data, eps).map_err(|_| {
+        AnovaError::Shape(crate::shape::ShapeError::NoConvergence(
+            "the operator ANOVA's fit",
+        ))
+    })?;
     let rss_add = (data - &x * coef).norm_squared();
     let repeats = n > c;
     let dims_f = dims as f64;
@@ -166,11 +168,7 @@ pub fn two_way(
     let (mut terms, ss_res, df_res) = if repeats {
         let df_int = (c - rank_add) as f64;
         let t = vec![
-            (
-                "individual",
-                (tss - rss_ind).max(0.0),
-                df_ind,
-            ),
+            ("individual", (tss - rss_ind).max(0.0), df_ind),
             ("operator", (rss_ind - rss_add).max(0.0), df_op),
             ("individual:operator", (rss_add - rss_cell).max(0.0), df_int),
         ];
@@ -221,8 +219,8 @@ pub fn two_way(
         p: None,
     });
     // balanced: every cell present, equal sizes
-    let balanced_repeats = (c == a * b && cell_sizes.iter().all(|&s| s == cell_sizes[0]))
-        .then_some(cell_sizes[0]);
+    let balanced_repeats =
+        (c == a * b && cell_sizes.iter().all(|&s| s == cell_sizes[0])).then_some(cell_sizes[0]);
     let components = balanced_repeats.map(|r| {
         let (af, bf, rf) = (a as f64, b as f64, r as f64);
         let ms = |name: &str| out.iter().find(|t| t.term == name).map_or(0.0, |t| t.ms);
