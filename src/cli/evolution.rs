@@ -331,3 +331,57 @@ pub fn run_ancestral(a: &AncestralArgs) -> Result<()> {
     report(&paths, &a.sample.output);
     Ok(())
 }
+
+#[derive(Debug, Args)]
+pub struct MeasurementErrorArgs {
+    /// The project (its trials by two or more operators).
+    project: PathBuf,
+
+    /// Output folder.
+    #[arg(short, long)]
+    output: PathBuf,
+}
+
+pub fn run_measurement_error(a: &MeasurementErrorArgs) -> Result<()> {
+    let project = sutura_core::landmarks::Project::load(&a.project)?;
+    let Some(r) = sutura_core::analysis::operators::operator_error(
+        &project,
+        &AnalysisOptions::default(),
+    )
+    .with_context(|| a.project.display().to_string())?
+    else {
+        bail!(
+            "{}: every trial is by one operator; the operator ANOVA needs two or more (`sutura superimpose` gives the one-way measurement error)",
+            a.project.display()
+        );
+    };
+    for n in &r.notes {
+        eprintln!("note: {n}");
+    }
+    for (name, e) in &r.measurements {
+        if let Err(e) = e {
+            eprintln!("note: {name}: no operator ANOVA: {e}");
+        }
+    }
+    let paths = r.write_tables(&a.output)?;
+    for (name, t) in r.tables() {
+        let share = t.components.map_or_else(
+            || "shares need a balanced design".to_owned(),
+            |c| {
+                format!(
+                    "inter-operator {:.1}%, intra-operator {:.1}%",
+                    100.0 * c.inter_operator_share,
+                    100.0 * c.intra_operator_share
+                )
+            },
+        );
+        let op = t.term("operator").expect("every table has an operator term");
+        eprintln!(
+            "{name:<24} operator F {:.3}, p {:.4}; {share}",
+            op.f.unwrap_or(f64::NAN),
+            op.p.unwrap_or(f64::NAN)
+        );
+    }
+    report(&paths, &a.output);
+    Ok(())
+}

@@ -80,6 +80,9 @@ enum Command {
     Models(evolution::ModelsArgs),
     /// Ancestral shapes (GLS) at the root and every node, and the tree in the morphospace.
     AncestralShapes(evolution::AncestralArgs),
+    /// Measurement error with operator as a factor: Procrustes ANOVA of individual, operator,
+    /// their interaction and repeats, for shape, centroid size and each measurement.
+    MeasurementError(evolution::MeasurementErrorArgs),
 }
 
 #[derive(Debug, Args)]
@@ -172,6 +175,7 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Rates(a) => evolution::run_rates(&a),
         Command::Models(a) => evolution::run_models(&a),
         Command::AncestralShapes(a) => evolution::run_ancestral(&a),
+        Command::MeasurementError(a) => evolution::run_measurement_error(&a),
     }
 }
 
