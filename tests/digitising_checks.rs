@@ -32,7 +32,13 @@ fn clean_sample_raises_no_flag() {
     assert!(checks.len() >= 10);
     for c in &checks {
         assert!(c.not_checked.is_none(), "{c:?}");
-        assert!(c.flags.is_empty(), "{}/{}: {:?}", c.specimen, c.trial, c.flags);
+        assert!(
+            c.flags.is_empty(),
+            "{}/{}: {:?}",
+            c.specimen,
+            c.trial,
+            c.flags
+        );
     }
 }
 
@@ -49,12 +55,24 @@ fn swapped_pair_is_flagged() {
     let before = p.clone();
     let c = check_trial(&p, "HDC-003", "1");
     assert!(p == before, "checks never change data");
-    let swaps: Vec<_> = c.flags.iter().filter(|f| f.kind == FlagKind::SwappedPair).collect();
+    let swaps: Vec<_> = c
+        .flags
+        .iter()
+        .filter(|f| f.kind == FlagKind::SwappedPair)
+        .collect();
     assert_eq!(swaps.len(), 1, "{:?}", c.flags);
     assert_eq!(swaps[0].items, ["orbit_anterior_L", "orbit_anterior_R"]);
-    assert!(swaps[0].reason.contains("look swapped"), "{}", swaps[0].reason);
+    assert!(
+        swaps[0].reason.contains("look swapped"),
+        "{}",
+        swaps[0].reason
+    );
     // the swapped points are explained by the swap, not flagged again as outliers
-    assert!(c.flags.iter().all(|f| f.kind != FlagKind::OutlyingLandmark), "{:?}", c.flags);
+    assert!(
+        c.flags.iter().all(|f| f.kind != FlagKind::OutlyingLandmark),
+        "{:?}",
+        c.flags
+    );
 }
 
 #[test]
@@ -65,8 +83,19 @@ fn point_moved_by_one_millimetre_is_flagged() {
         ("TF-001", "orbit_centre_R", [0.0, -1.0, 0.0]),
     ] {
         let mut p = sample();
-        let at = p.specimen(specimen).unwrap().trial("1").unwrap().position(landmark).unwrap();
-        set(&mut p, specimen, landmark, [at[0] + shift[0], at[1] + shift[1], at[2] + shift[2]]);
+        let at = p
+            .specimen(specimen)
+            .unwrap()
+            .trial("1")
+            .unwrap()
+            .position(landmark)
+            .unwrap();
+        set(
+            &mut p,
+            specimen,
+            landmark,
+            [at[0] + shift[0], at[1] + shift[1], at[2] + shift[2]],
+        );
         let c = check_trial(&p, specimen, "1");
         let hit = c
             .flags
@@ -96,14 +125,27 @@ fn project_check_prints_flags() {
         }
     }
     let mut p = sample();
-    let at = p.specimen("TF-003").unwrap().trial("1").unwrap().position("crest_top").unwrap();
+    let at = p
+        .specimen("TF-003")
+        .unwrap()
+        .trial("1")
+        .unwrap()
+        .position("crest_top")
+        .unwrap();
     set(&mut p, "TF-003", "crest_top", [at[0], at[1], at[2] + 1.0]);
     let path = dir.path().join("moved.json");
     p.save(&path).unwrap();
-    let (ok, out, err) = common::run_sutura(&["project", "check", path.to_str().unwrap()], dir.path());
+    let (ok, out, err) =
+        common::run_sutura(&["project", "check", path.to_str().unwrap()], dir.path());
     assert!(ok, "{err}");
     // the point, and the two measurements that use it
     assert!(out.contains("digitising checks: 3 flag(s)"), "{out}");
-    assert!(out.contains("TF-003           trial 1    crest_top lies"), "{out}");
-    assert!(out.contains("crest_height = ") && out.contains("profile_angle = "), "{out}");
+    assert!(
+        out.contains("TF-003           trial 1    crest_top lies"),
+        "{out}"
+    );
+    assert!(
+        out.contains("crest_height = ") && out.contains("profile_angle = "),
+        "{out}"
+    );
 }

@@ -428,7 +428,6 @@ fn early_burst_and_brownian_data_are_classified() {
             if m.best == want {
                 counts[slot] += 1;
             }
-
         }
     }
     assert!(counts[0] >= 9, "early burst chosen {} of 10", counts[0]);

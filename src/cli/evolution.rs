@@ -344,11 +344,9 @@ pub struct MeasurementErrorArgs {
 
 pub fn run_measurement_error(a: &MeasurementErrorArgs) -> Result<()> {
     let project = sutura_core::landmarks::Project::load(&a.project)?;
-    let Some(r) = sutura_core::analysis::operators::operator_error(
-        &project,
-        &AnalysisOptions::default(),
-    )
-    .with_context(|| a.project.display().to_string())?
+    let Some(r) =
+        sutura_core::analysis::operators::operator_error(&project, &AnalysisOptions::default())
+            .with_context(|| a.project.display().to_string())?
     else {
         bail!(
             "{}: every trial is by one operator; the operator ANOVA needs two or more (`sutura superimpose` gives the one-way measurement error)",
@@ -375,7 +373,9 @@ pub fn run_measurement_error(a: &MeasurementErrorArgs) -> Result<()> {
                 )
             },
         );
-        let op = t.term("operator").expect("every table has an operator term");
+        let op = t
+            .term("operator")
+            .expect("every table has an operator term");
         eprintln!(
             "{name:<24} operator F {:.3}, p {:.4}; {share}",
             op.f.unwrap_or(f64::NAN),

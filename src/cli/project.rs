@@ -460,7 +460,11 @@ fn run_check(a: &CheckArgs) -> Result<()> {
             _ = writeln!(out, "{:<16} trial {:<4} {}", c.specimen, c.trial, f.reason);
         }
         if let Some(why) = &c.not_checked {
-            _ = writeln!(out, "{:<16} trial {:<4} not checked: {why}", c.specimen, c.trial);
+            _ = writeln!(
+                out,
+                "{:<16} trial {:<4} not checked: {why}",
+                c.specimen, c.trial
+            );
         }
     }
     super::emit(&out)?;

@@ -224,7 +224,9 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
                     (0..k).filter(|&l| swapped.contains(&present[l])).collect();
                 while k - left_out.len() >= 4 {
                     let fit_rows: Vec<usize> = (0..k).filter(|l| !left_out.contains(l)).collect();
-                    let sub = |m: &DMatrix<f64>| DMatrix::from_fn(fit_rows.len(), 3, |r, c| m[(fit_rows[r], c)]);
+                    let sub = |m: &DMatrix<f64>| {
+                        DMatrix::from_fn(fit_rows.len(), 3, |r, c| m[(fit_rows[r], c)])
+                    };
                     let Ok(fit) = opa(&sub(&g.mean), &sub(&config(&cand)), true) else {
                         break;
                     };
@@ -233,10 +235,19 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
                         .iter()
                         .map(|&l| {
                             let r = (0..3)
-                                .map(|d| (placed[(l, d)] + fit.translation[d] - g.mean[(l, d)]).powi(2))
+                                .map(|d| {
+                                    (placed[(l, d)] + fit.translation[d] - g.mean[(l, d)]).powi(2)
+                                })
                                 .sum::<f64>()
                                 .sqrt();
-                            (l, if ref_median[l] > 0.0 { r / ref_median[l] } else { 0.0 })
+                            (
+                                l,
+                                if ref_median[l] > 0.0 {
+                                    r / ref_median[l]
+                                } else {
+                                    0.0
+                                },
+                            )
                         })
                         .max_by(|a, b| a.1.total_cmp(&b.1));
                     let Some((l, ratio)) = worst else { break };
@@ -275,7 +286,9 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
         }
         let (lo, hi) = values
             .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+                (a.min(v), b.max(v))
+            });
         let width = hi - lo;
         let beyond = (lo - m.value).max(m.value - hi);
         if width > 0.0 && beyond > RANGE_FACTOR * width {

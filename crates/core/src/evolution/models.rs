@@ -553,16 +553,25 @@ mod tests {
         let text = "((((a:1,b:1):1,(c:1.5,d:0.5):0.5):1,((e:2,f:2):0.5,g:2.5):0.5):1,                    (((h:1,i:1):2,(j:2.5,k:2.5):0.5):0.5,((l:1,m:1):1,(n:0.5,o:0.5):1.5):1.5):0.5);";
         let tree = Tree::parse(text, "t").unwrap();
         let p = 5;
-        let f = DMatrix::from_fn(p, p, |i, j| if i <= j { 1.0 / (1.0 + (j - i) as f64) } else { 0.0 });
+        let f = DMatrix::from_fn(p, p, |i, j| {
+            if i <= j {
+                1.0 / (1.0 + (j - i) as f64)
+            } else {
+                0.0
+            }
+        });
         let r_true = f.transpose() * &f;
-        let pairs: Vec<(usize, usize)> = (0..p).flat_map(|i| (i + 1..p).map(move |j| (i, j))).collect();
+        let pairs: Vec<(usize, usize)> = (0..p)
+            .flat_map(|i| (i + 1..p).map(move |j| (i, j)))
+            .collect();
         let c = adjustment(&r_true, &pairs);
         let h = 1e-3;
         let mut rng = crate::evolution::rng_for(21, 0);
         let (mut scores, mut curv) = (Vec::new(), Vec::new());
         for _ in 0..400 {
             let y = brownian(&tree, &tree.lengths(), &vec![0.0; p], &f, &mut rng);
-            let l = |r: f64| composite_log_likelihood(&tree, &y, Covariance::EarlyBurst { r }).unwrap();
+            let l =
+                |r: f64| composite_log_likelihood(&tree, &y, Covariance::EarlyBurst { r }).unwrap();
             let (lm, l0, lp) = (l(-h), l(0.0), l(h));
             scores.push((lp - lm) / (2.0 * h));
             curv.push(-(lp - 2.0 * l0 + lm) / (h * h));
