@@ -405,7 +405,7 @@ pub fn compare_models(
                 return Ok((end, true));
             }
             let (mut inside, mut outside) = (x, end);
-            for _ in 0..40 {
+            for _ in 0..24 {
                 let mid = 0.5 * (inside + outside);
                 evals += 1;
                 if drop(mid)? < 0.0 {
@@ -440,11 +440,13 @@ pub fn compare_models(
 
     let eb_bound = (1e-5f64).ln() / height;
     let alpha_bound = 2f64.ln() / (0.01 * height);
-    let (_, cl_eb, r_eb, r_est, eb_evals) = fit_one(&|r| Covariance::EarlyBurst { r }, eb_bound)?;
-    let (alpha, cl_ou, r_ou, a_est, ou_evals) = fit_one(
-        &|alpha| Covariance::OrnsteinUhlenbeck { alpha },
-        alpha_bound,
-    )?;
+    // the two fits are independent: run them side by side
+    let (eb, ou) = rayon::join(
+        || fit_one(&|r| Covariance::EarlyBurst { r }, eb_bound),
+        || fit_one(&|alpha| Covariance::OrnsteinUhlenbeck { alpha }, alpha_bound),
+    );
+    let (_, cl_eb, r_eb, r_est, eb_evals) = eb?;
+    let (alpha, cl_ou, r_ou, a_est, ou_evals) = ou?;
 
     let nf = n as f64;
     let aicc = |ll: f64, k: usize| {
