@@ -102,9 +102,15 @@ fn main() {
         let groups: Vec<String> = (0..tree.n_tips())
             .map(|i| if i % 2 == 0 { "a" } else { "b" }.to_owned())
             .collect();
-        let a = secs(|| drop(compare_rates(&tree, &y, &groups, 999, 1).unwrap()));
-        let b = secs(|| drop(k_mult(&tree, &y, 999, 1).unwrap()));
-        let m = secs(|| drop(compare_models(&tree, &y, &ModelOptions::default()).unwrap()));
+        let a = secs(|| {
+            std::hint::black_box(compare_rates(&tree, &y, &groups, 999, 1).unwrap());
+        });
+        let b = secs(|| {
+            std::hint::black_box(k_mult(&tree, &y, 999, 1).unwrap());
+        });
+        let m = secs(|| {
+            std::hint::black_box(compare_models(&tree, &y, &ModelOptions::default()).unwrap());
+        });
         let b0 = *base.get_or_insert([a, b, m]);
         println!(
             "  {taxa:>5} {lm:>9} {a:>7.2} ({:>4.1}×) {b:>5.2} ({:>4.1}×) {m:>5.2} ({:>4.1}×)",

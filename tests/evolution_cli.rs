@@ -31,6 +31,10 @@ fn bundled_comparative_sample_is_current() {
 }
 
 #[test]
+#[allow(
+    clippy::too_many_lines,
+    reason = "the walk-through's four commands in order"
+)]
 fn walk_through_commands_write_their_outputs() {
     let dir = tempfile::tempdir().unwrap();
     let d = comparative();

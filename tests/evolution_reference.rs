@@ -1,4 +1,4 @@
-//! Checks of the comparative methods against the outside world: Newick trees against DendroPy,
+//! Checks of the comparative methods against the outside world: Newick trees against `DendroPy`,
 //! σ²mult, Kmult, the composite likelihoods, their maxima, the adjustment and the ancestral
 //! states against numpy/scipy code written from the published formulas
 //! (`tests/python/evolution_gls.py`), and the operator ANOVA against statsmodels' `anova_lm`.
@@ -23,8 +23,8 @@ fn write_tree(dir: &std::path::Path, name: &str, text: &str) -> String {
     p.display().to_string()
 }
 
-/// Our reading of each tree equals DendroPy's: tip labels in file order, every clade (as its
-/// set of tips) with its branch length, and root-to-tip distances (reference: DendroPy 5's
+/// Our reading of each tree equals `DendroPy`'s: tip labels in file order, every clade (as its
+/// set of tips) with its branch length, and root-to-tip distances (reference: `DendroPy` 5's
 /// Newick reader, `tests/python/evolution_newick.py`).
 #[test]
 fn newick_agrees_with_dendropy() {
@@ -123,6 +123,10 @@ fn random_data(n: usize, p: usize, seed: u64) -> DMatrix<f64> {
 /// Goolsby 2016; Harmon et al. 2010; Hansen 1997; Martins & Hansen 1997), on a fossil
 /// (non-ultrametric) tree with a polytomy-free random topology and on an ultrametric one.
 #[test]
+#[allow(
+    clippy::too_many_lines,
+    reason = "every method against its reference, in order"
+)]
 fn comparative_methods_agree_with_numpy() {
     let dir = tempfile::tempdir().unwrap();
     let fossil = generate_comparative(&ComparativeSpec {
@@ -247,7 +251,13 @@ fn operator_anova_matches_statsmodels() {
     use sutura_core::shape::anova::{procrustes_operator_anova, shape_dims, two_way};
     let mut rng = ChaCha8Rng::seed_from_u64(5);
     let base: Vec<[f64; 3]> = (0..6)
-        .map(|l| [(l as f64).cos(), (l as f64 * 1.3).sin(), 0.3 * l as f64])
+        .map(|l| {
+            [
+                f64::from(l).cos(),
+                (f64::from(l) * 1.3).sin(),
+                0.3 * f64::from(l),
+            ]
+        })
         .collect();
     let mut configs = Vec::new();
     let (mut ind, mut op) = (Vec::new(), Vec::new());
@@ -340,13 +350,13 @@ fn operator_anova_matches_statsmodels() {
 
 /// Data simulated on the bundled sample's kind of tree (48 fossil taxa, 17 landmarks in 3D,
 /// 1–3 specimens per taxon posed at random, superimposed, averaged per taxon) are classified by
-/// AICc as the model that made them: early burst with a rate half-life of 12 Myr over 60 Myr
+/// `AICc` as the model that made them: early burst with a rate half-life of 12 Myr over 60 Myr
 /// (the rate falls 32-fold; σ² = 6·10⁻⁴ mm²/Myr, within-taxon noise 0.008 mm) is chosen in at
 /// least 9 of 10 data sets, Brownian motion (σ² = 1.5·10⁻⁴ mm²/Myr, no within-taxon noise) in
 /// at least 9 of 10. (Under Brownian motion the adjusted ratio for one extra parameter is about
-/// χ²₁ with half its mass at the boundary, so AICc picks a richer model about 8 % of the time
+/// χ²₁ with half its mass at the boundary, so `AICc` picks a richer model about 8 % of the time
 /// per alternative.) Within-taxon noise left in Brownian data looks like a pull towards an
-/// optimum: with 0.008 mm of it, OU won 3 of these 10 (by ΔAICc 1–12), the bias towards OU from
+/// optimum: with 0.008 mm of it, OU won 3 of these 10 (by `ΔAICc` 1–12), the bias towards OU from
 /// measurement error that Cooper et al. 2016 (*Biol. J. Linn. Soc.* 118:64–77) warn of.
 #[test]
 fn early_burst_and_brownian_data_are_classified() {

@@ -76,7 +76,7 @@ enum Command {
     /// phylogenetic signal (Kmult).
     Rates(evolution::RatesArgs),
     /// Brownian motion, early burst and Ornstein-Uhlenbeck compared on all shape dimensions
-    /// (pairwise composite likelihood, AICc).
+    /// (pairwise composite likelihood and its information criterion).
     Models(evolution::ModelsArgs),
     /// Ancestral shapes (GLS) at the root and every node, and the tree in the morphospace.
     AncestralShapes(evolution::AncestralArgs),

@@ -193,10 +193,11 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
                     }
                     let mut sw = cand.clone();
                     sw.swap(a, b);
-                    if let Ok(d1) = dist2(&sw) {
-                        if d1 <= 0.5 * d0 {
-                            swapped.extend([*la, partner]);
-                            out.flags.push(Flag {
+                    if let Ok(d1) = dist2(&sw)
+                        && d1 <= 0.5 * d0
+                    {
+                        swapped.extend([*la, partner]);
+                        out.flags.push(Flag {
                                 kind: FlagKind::SwappedPair,
                                 items: vec![(*la).to_owned(), partner.to_owned()],
                                 reason: format!(
@@ -206,7 +207,6 @@ pub fn check_trial(project: &Project, specimen: &str, trial: &str) -> TrialCheck
                                 ),
                                 score: d1 / d0,
                             });
-                        }
                     }
                 }
                 // residuals per landmark, the trial fitted to the mean without the landmarks
@@ -322,6 +322,7 @@ pub fn check_project(project: &Project) -> Vec<TrialChecks> {
 }
 
 #[cfg(test)]
+#[allow(clippy::float_cmp, reason = "medians of small exact values")]
 mod tests {
     use super::*;
 

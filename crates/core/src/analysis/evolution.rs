@@ -274,19 +274,19 @@ pub fn through_time_of(
 }
 
 fn bin_span(b: &crate::evolution::time::Bin, index: usize) -> (f64, f64, f64) {
-    match (b.oldest_ma, b.youngest_ma) {
-        (Some(o), Some(y)) => (o, y, 0.5 * (o + y)),
+    if let (Some(o), Some(y)) = (b.oldest_ma, b.youngest_ma) {
+        (o, y, 0.5 * (o + y))
+    } else {
         // named bins: one unit each, oldest first, drawn on a count of bins before present
-        _ => {
-            let o = -(index as f64);
-            (o, o - 1.0, o - 0.5)
-        }
+        let o = -(index as f64);
+        (o, o - 1.0, o - 0.5)
     }
 }
 
 impl ThroughTimeReport {
     /// Writes `disparity_through_time.csv` (one row per bin and metric), `bin_changes.csv`,
     /// `time_specimens.csv` and `through_time.json`.
+    #[allow(clippy::too_many_lines, reason = "four files, one after another")]
     pub fn write_tables(&self, dir: &Path) -> Result<Vec<PathBuf>, AnalysisError> {
         std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
         let r = &self.result;
@@ -360,7 +360,7 @@ impl ThroughTimeReport {
         let mut bin_of = vec![String::new(); self.specimens.len()];
         for b in &r.bins {
             for &i in &b.members {
-                bin_of[i] = b.bin.label.clone();
+                bin_of[i].clone_from(&b.bin.label);
             }
         }
         let sp = dir.join("time_specimens.csv");
@@ -848,6 +848,9 @@ pub fn models_of(td: &TipData, opts: &ModelOptions) -> Result<ModelComparison, A
     Ok(compare_models(&td.tree, &td.rows, opts)?)
 }
 
+/// Tip and node positions on PC1 and PC2, and the two components' shares of the variance.
+pub type Plane = (Vec<(f64, f64)>, Vec<(f64, f64)>, f64, f64);
+
 /// Ancestral shapes and the tree in the morphospace.
 #[derive(Clone, Debug)]
 pub struct AncestralReport {
@@ -857,7 +860,7 @@ pub struct AncestralReport {
     /// A name per internal node (its label, or the tips it joins).
     pub names: Vec<String>,
     /// Tip and node scores on PC1 and PC2 of the tips' PCA, when there are two PCs.
-    pub plane: Option<(Vec<(f64, f64)>, Vec<(f64, f64)>, f64, f64)>,
+    pub plane: Option<Plane>,
     pub tip_groups: Vec<String>,
 }
 

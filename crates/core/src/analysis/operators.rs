@@ -15,6 +15,9 @@ use crate::landmarks::project::points::flatten;
 use crate::measure::table::measure_project;
 use crate::shape::anova::{OperatorAnova, procrustes_operator_anova, two_way};
 
+/// One measurement's values with the individual and operator of each.
+type Column = (Vec<f64>, Vec<usize>, Vec<usize>);
+
 /// The operator ANOVAs of a project.
 #[derive(Clone, Debug)]
 pub struct OperatorError {
@@ -81,7 +84,8 @@ pub fn operator_error(
     }
     // measurements, by (specimen, trial)
     let rows = measure_project(project);
-    let mut by_name: BTreeMap<String, (Vec<f64>, Vec<usize>, Vec<usize>)> = BTreeMap::new();
+    // per measurement: values, their individuals, their operators
+    let mut by_name: BTreeMap<String, Column> = BTreeMap::new();
     for def in &project.scheme().measurements {
         by_name.insert(def.id.clone(), (Vec::new(), Vec::new(), Vec::new()));
     }

@@ -90,6 +90,9 @@ pub fn through_time(
     f
 }
 
+/// A line from one point to another.
+pub type Segment = ((f64, f64), (f64, f64));
+
 /// A tree in a plane: `edges` join node positions (`nodes`), tips drawn as points coloured by
 /// `tip_groups`, internal nodes as small grey points.
 #[must_use]
@@ -97,7 +100,7 @@ pub fn tree_in_plane(
     tips: &[(f64, f64)],
     tip_groups: &[String],
     internal: &[(f64, f64)],
-    edges: &[((f64, f64), (f64, f64))],
+    edges: &[Segment],
     x_title: &str,
     y_title: &str,
     title: &str,
@@ -172,7 +175,9 @@ mod tests {
             .items
             .iter()
             .filter_map(|i| match i {
-                Item::Circle { centre, radius, .. } if *radius == 4.5 => Some(centre.0),
+                Item::Circle { centre, radius, .. } if (*radius - 4.5).abs() < 1e-12 => {
+                    Some(centre.0)
+                }
                 _ => None,
             })
             .collect();

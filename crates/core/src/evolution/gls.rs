@@ -9,7 +9,7 @@
 //! unchanged. The sum of the outer products of the standardised contrasts equals the GLS form
 //! `(Y − 1â)ᵀ C⁻¹ (Y − 1â)`, the value at the root is the GLS estimate `â = (1ᵀC⁻¹1)⁻¹ 1ᵀC⁻¹Y`,
 //! and `log |C| = Σ log(vᵢ + vⱼ) + log v_root` (the transform from tips to contrasts and root
-//! has unit Jacobian; FitzJohn 2012, *Methods Ecol. Evol.* 3:1084, from memory). All of it in
+//! has unit Jacobian; `FitzJohn` 2012, *Methods Ecol. Evol.* 3:1084, from memory). All of it in
 //! `O(n·p)`: the simulations and permutations of `rates` run on it.
 //!
 //! **Covariances** for the model fits, from the shared times `s_ij` (root to the most recent
@@ -283,6 +283,10 @@ pub fn whiten(c: DMatrix<f64>, y: &DMatrix<f64>) -> Result<Whitened, EvolutionEr
 /// 1973, *Algorithms for Minimization without Derivatives*, ch. 5), to an absolute tolerance
 /// `tol` in `x`. Returns `(x, f(x), evaluations)`. A 1-D bounded minimiser is all the model fits
 /// need; the general optimisation crates bring far more than that.
+#[allow(
+    clippy::float_cmp,
+    reason = "Brent's method compares its own stored abscissae, which are equal only when copied"
+)]
 pub fn minimise(mut f: impl FnMut(f64) -> f64, lo: f64, hi: f64, tol: f64) -> (f64, f64, usize) {
     const GOLD: f64 = 0.381_966_011_250_105_1; // (3 − √5)/2
     let (mut a, mut b) = (lo.min(hi), lo.max(hi));
@@ -354,6 +358,10 @@ pub fn minimise(mut f: impl FnMut(f64) -> f64, lo: f64, hi: f64, tol: f64) -> (f
 }
 
 #[cfg(test)]
+#[allow(
+    clippy::float_cmp,
+    reason = "a value that is exactly 0 by construction"
+)]
 mod tests {
     use super::*;
 

@@ -67,6 +67,7 @@ pub(crate) fn tree_err(msg: impl Into<String>) -> EvolutionError {
 
 /// Quantile with linear interpolation between order statistics (Hyndman & Fan 1996, type 7,
 /// numpy's default) of an ascending slice; `NaN` when empty.
+#[must_use]
 pub fn quantile(sorted: &[f64], q: f64) -> f64 {
     if sorted.is_empty() {
         return f64::NAN;

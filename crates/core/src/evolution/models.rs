@@ -21,7 +21,7 @@
 //! least 1 % of the height) by a grid and Brent's method.
 //!
 //! **Adjusting for the composite likelihood.** A composite likelihood counts each variable in
-//! `p − 1` pairs, so its ratios are too large for a χ² and a raw AICc would favour the richer
+//! `p − 1` pairs, so its ratios are too large for a χ² and a raw `AICc` would favour the richer
 //! model. The adjustment here divides `CL` by `c = J/H`, the ratio of the variability to the
 //! sensitivity of the composite score for `θ` (Godambe information; Varin & Vidoni 2005,
 //! *Biometrika* 92:519–528, whose composite-likelihood information criterion penalises by
@@ -36,7 +36,7 @@
 //! - `ℓ* = CL / c` is the log-likelihood the criterion uses;
 //! - `AICc = −2ℓ* + 2k + 2k(k + 1)/(n − k − 1)`, with `k` the model's parameters per variable
 //!   (rate and root state, plus `r` or `α`: 2, 3, 3) and `n` the tips; the other entries of `R`
-//!   are shared by all three models and left out, so only differences of AICc mean anything;
+//!   are shared by all three models and left out, so only differences of `AICc` mean anything;
 //! - intervals for `r`, `α` and the rate are those where `2(ℓ*(θ̂) − ℓ*(θ)) ≤ χ²₁(level)`.
 //!
 //! The rate reported is `σ² = tr(R̂)/p`, the mean per-dimension rate (σ²mult, Adams 2014) at
@@ -119,7 +119,7 @@ pub struct ModelFit {
 #[derive(Debug, Clone, Serialize)]
 pub struct ModelComparison {
     pub fits: Vec<ModelFit>,
-    /// The model with the smallest AICc.
+    /// The model with the smallest `AICc`.
     pub best: Model,
     pub tips: usize,
     /// Variables used (columns with no variance are left out).
@@ -443,7 +443,12 @@ pub fn compare_models(
     // the two fits are independent: run them side by side
     let (eb, ou) = rayon::join(
         || fit_one(&|r| Covariance::EarlyBurst { r }, eb_bound),
-        || fit_one(&|alpha| Covariance::OrnsteinUhlenbeck { alpha }, alpha_bound),
+        || {
+            fit_one(
+                &|alpha| Covariance::OrnsteinUhlenbeck { alpha },
+                alpha_bound,
+            )
+        },
     );
     let (_, cl_eb, r_eb, r_est, eb_evals) = eb?;
     let (alpha, cl_ou, r_ou, a_est, ou_evals) = ou?;

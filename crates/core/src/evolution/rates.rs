@@ -101,6 +101,10 @@ pub struct RateComparison {
     pub seed: u64,
 }
 
+#[allow(
+    clippy::too_many_lines,
+    reason = "observed rates, simulations and the table in one pass"
+)]
 /// Compares σ²mult between the groups `groups[t]` of the tips (each group at least 3 tips,
 /// at least two groups) by `simulations` Brownian simulations with the pooled rate matrix.
 pub fn compare_rates(

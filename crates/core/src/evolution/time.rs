@@ -11,7 +11,7 @@
 //!   Fortey 1994, *Paleobiology* 20:93–130). On the same coordinates it equals the Procrustes
 //!   variance; both are given because studies report either;
 //! - **mean pairwise distance**: the mean Euclidean (partial Procrustes) distance over all
-//!   pairs of specimens (Ciampaglio, Kemp & McShea 2001, *Paleobiology* 27:695–715).
+//!   pairs of specimens (Ciampaglio, Kemp & `McShea` 2001, *Paleobiology* 27:695–715).
 //!
 //! The estimate puts interval ages at their midpoints. Each of `resamples` replicates first
 //! draws every interval age uniformly within its interval (carrying age uncertainty into the
@@ -52,21 +52,21 @@ impl Age {
     #[must_use]
     pub fn parse(text: &str) -> Self {
         let t = text.trim();
-        if let Ok(v) = t.parse::<f64>() {
-            if v.is_finite() {
-                return Self::Point { ma: v };
-            }
+        if let Ok(v) = t.parse::<f64>()
+            && v.is_finite()
+        {
+            return Self::Point { ma: v };
         }
         for sep in ['–', '—', '-', '/'] {
-            if let Some((a, b)) = t.split_once(sep) {
-                if let (Ok(a), Ok(b)) = (a.trim().parse::<f64>(), b.trim().parse::<f64>()) {
-                    if a.is_finite() && b.is_finite() {
-                        return Self::Range {
-                            oldest: a.max(b),
-                            youngest: a.min(b),
-                        };
-                    }
-                }
+            if let Some((a, b)) = t.split_once(sep)
+                && let (Ok(a), Ok(b)) = (a.trim().parse::<f64>(), b.trim().parse::<f64>())
+                && a.is_finite()
+                && b.is_finite()
+            {
+                return Self::Range {
+                    oldest: a.max(b),
+                    youngest: a.min(b),
+                };
             }
         }
         Self::Bin {
@@ -115,7 +115,7 @@ impl TimeBins {
             ));
         }
         e.sort_by(|a, b| b.total_cmp(a));
-        if e.windows(2).any(|w| w[0] == w[1]) {
+        if e.windows(2).any(|w| w[0].total_cmp(&w[1]).is_eq()) {
             return Err(EvolutionError::Option("time bin edges repeat".into()));
         }
         Ok(Self {
@@ -185,7 +185,7 @@ impl TimeBins {
             .iter()
             .enumerate()
             .position(|(i, b)| match (b.oldest_ma, b.youngest_ma) {
-                (Some(o), Some(y)) => ma >= y && (ma < o || (ma == o && i == 0)),
+                (Some(o), Some(y)) => ma >= y && (ma < o || (i == 0 && ma.total_cmp(&o).is_eq())),
                 _ => false,
             })
     }
@@ -383,6 +383,13 @@ impl Measures<'_> {
     }
 }
 
+// Replicates: per bin, per metric, bootstrap and rarefied values; plus bin sizes.
+struct Rep {
+    boot: Vec<Option<[f64; 3]>>,
+    rare: Vec<Option<[f64; 3]>>,
+    sizes: Vec<usize>,
+}
+
 /// Disparity per bin of `rows` (`n × p` superimposed coordinates) with `ages[i]` the age of row
 /// `i` (see the module docs).
 #[allow(
@@ -431,12 +438,6 @@ pub fn disparity_through_time(
     let measures = Measures { rows, dist };
     let age_draws = ages.iter().any(|a| matches!(a, Age::Range { .. }));
 
-    // Replicates: per bin, per metric, bootstrap and rarefied values; plus bin sizes.
-    struct Rep {
-        boot: Vec<Option<[f64; 3]>>,
-        rare: Vec<Option<[f64; 3]>>,
-        sizes: Vec<usize>,
-    }
     let reps: Vec<Rep> = (0..opts.resamples)
         .into_par_iter()
         .map_init(
@@ -494,6 +495,10 @@ pub fn disparity_through_time(
     let mut buf = vec![0.0; p];
     let mut out = Vec::with_capacity(nb);
     let mut notes = Vec::new();
+    #[allow(
+        clippy::needless_range_loop,
+        reason = "b indexes bins, members, replicates alike"
+    )]
     for b in 0..nb {
         let est = if members[b].len() >= 2 {
             measures.of(&members[b], &mut buf)
@@ -581,6 +586,7 @@ pub fn disparity_through_time(
 }
 
 #[cfg(test)]
+#[allow(clippy::float_cmp, reason = "hand values exact in binary")]
 mod tests {
     use super::*;
 

@@ -30,6 +30,9 @@ pub struct Node {
     pub label: Option<String>,
 }
 
+/// While merging: node, new parent, length and label carried down from merged nodes.
+type Pending = (usize, Option<usize>, Option<f64>, Option<String>);
+
 /// A rooted tree (see the module docs).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Tree {
@@ -298,8 +301,7 @@ impl Tree {
         let mut new_nodes: Vec<Node> = Vec::with_capacity(self.nodes.len());
         let mut new_id = vec![usize::MAX; self.nodes.len()];
         // Walk preorder, carrying (new parent id, extra length, fallback label) from merged nodes.
-        let mut stack: Vec<(usize, Option<usize>, Option<f64>, Option<String>)> =
-            vec![(self.root, None, None, None)];
+        let mut stack: Vec<Pending> = vec![(self.root, None, None, None)];
         while let Some((i, parent, extra, label)) = stack.pop() {
             let node = &self.nodes[i];
             let add = |a: Option<f64>, b: Option<f64>| match (a, b) {
@@ -614,10 +616,10 @@ impl Tree {
         // a node is kept when a wanted tip lies under it
         let mut under = wanted.clone();
         for i in self.postorder() {
-            if let Some(p) = self.nodes[i].parent {
-                if under[i] {
-                    under[p] = true;
-                }
+            if let Some(p) = self.nodes[i].parent
+                && under[i]
+            {
+                under[p] = true;
             }
         }
         let mut new_nodes: Vec<Node> = Vec::new();

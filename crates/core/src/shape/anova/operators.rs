@@ -294,17 +294,18 @@ pub fn procrustes_operator_anova(
 }
 
 #[cfg(test)]
+#[allow(clippy::float_cmp, reason = "degrees of freedom are whole numbers")]
 mod tests {
     use super::*;
 
     /// Hand case, balanced 2 individuals × 2 operators × 2 repeats, one variable:
     /// cells (i1,o1) = {1, 3}, (i1,o2) = {3, 5}, (i2,o1) = {5, 7}, (i2,o2) = {9, 11}.
     /// Cell means 2, 4, 6, 10; individual means 3, 8; operator means 4, 7; grand 5.5.
-    /// SS_ind = 4·(2.5² + 2.5²) = 50; SS_op = 4·(1.5² + 1.5²) = 18;
-    /// SS_int = 2·Σ(cell − ind − op + grand)² = 2·4·0.5² = 2; SS_res = 8·1 = 8; total 78.
+    /// `SS_ind` = 4·(2.5² + 2.5²) = 50; `SS_op` = 4·(1.5² + 1.5²) = 18;
+    /// `SS_int` = 2·Σ(cell − ind − op + grand)² = 2·4·0.5² = 2; `SS_res` = 8·1 = 8; total 78.
     /// MS: 50, 18, 2, 2 (df 1, 1, 1, 4); F = 25, 9, 1.
-    /// Components (r = 2, a = b = 2): σ²_res = 2, σ²_int = (2 − 2)/2 = 0,
-    /// σ²_op = (18 − 2)/4 = 4, σ²_ind = (50 − 2)/4 = 12; total 18: inter-operator 4/18,
+    /// Components (r = 2, a = b = 2): `σ²_res` = 2, `σ²_int` = (2 − 2)/2 = 0,
+    /// `σ²_op` = (18 − 2)/4 = 4, `σ²_ind` = (50 − 2)/4 = 12; total 18: inter-operator 4/18,
     /// intra-operator 2/18.
     #[test]
     fn balanced_hand_case() {
