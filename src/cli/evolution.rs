@@ -60,7 +60,7 @@ pub struct TreeInput {
 
 /// Superimposes the input (each specimen's first trial) and reads its specimen data.
 fn load(s: &SampleInput) -> Result<(Analysis, SpecimenLabels)> {
-    let (table, project) = if is_project(&s.input)? {
+    let (table, project) = if sutura_core::landmarks::project::is_project_file(&s.input) {
         let project = sutura_core::landmarks::Project::load(&s.input)?;
         let e = sutura_core::landmarks::project::points::flatten(&project, None, false);
         if e.not_digitised > 0 {
@@ -89,15 +89,6 @@ fn load(s: &SampleInput) -> Result<(Analysis, SpecimenLabels)> {
     };
     let a = analyse(&table, &opts).with_context(|| s.input.display().to_string())?;
     Ok((a, labels))
-}
-
-fn is_project(path: &Path) -> Result<bool> {
-    use std::io::Read;
-    let mut head = [0u8; 64];
-    let n = std::fs::File::open(path)
-        .and_then(|mut f| f.read(&mut head))
-        .with_context(|| path.display().to_string())?;
-    Ok(head[..n].iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'{'))
 }
 
 fn tip_data(a: &Analysis, labels: &SpecimenLabels, t: &TreeInput) -> Result<TipData> {

@@ -6,7 +6,7 @@ use clap::{Args, ValueEnum};
 use nalgebra::Vector3;
 use std::path::PathBuf;
 
-use sutura_core::geometry::{Plane, WorldPoint};
+use sutura_core::geometry::{LengthMm, Plane, Triple, WorldPoint};
 use sutura_core::render::overlay::{AxisNames, Overlay};
 use sutura_core::render::{
     AxisPlane, Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RgbaImage, Slab,
@@ -37,8 +37,8 @@ impl From<Colours> for ColourMap {
 pub struct ToneArgs {
     /// Window as `CENTRE,WIDTH` in the scan's (rescaled) intensity units. Default: from the
     /// 0.5th to the 99.5th percentile of the image.
-    #[arg(long, value_name = "CENTRE,WIDTH", allow_hyphen_values = true)]
-    window: Option<String>,
+    #[arg(long, value_name = "CENTRE,WIDTH", allow_hyphen_values = true, value_parser = window_arg)]
+    window: Option<WindowLevel>,
 
     /// Colour map.
     #[arg(long, value_enum, default_value = "grey")]
@@ -51,34 +51,18 @@ pub struct ToneArgs {
 
 impl ToneArgs {
     fn window_for(&self, img: &F32Image) -> Result<WindowLevel> {
-        if let Some(w) = &self.window {
-            let v = parse_floats(w, 2).with_context(|| format!("--window {w}"))?;
-            return WindowLevel::new(v[0], v[1])
-                .with_context(|| format!("--window {w}: the width must be positive"));
+        if let Some(w) = self.window {
+            return Ok(w);
         }
         WindowLevel::from_image_percentiles(img, 0.5, 99.5)
             .context("the image holds no voxel values to set a window from")
     }
 }
 
-fn parse_floats(text: &str, n: usize) -> Result<Vec<f64>> {
-    let v: Vec<f64> = text
-        .split(',')
-        .map(|s| {
-            s.trim()
-                .parse::<f64>()
-                .with_context(|| format!("'{s}' is not a number"))
-        })
-        .collect::<Result<_>>()?;
-    if v.len() != n || v.iter().any(|x| !x.is_finite()) {
-        bail!("expected {n} comma-separated numbers");
-    }
-    Ok(v)
-}
-
-fn point3(text: &str) -> Result<Vector3<f64>> {
-    let v = parse_floats(text, 3)?;
-    Ok(Vector3::new(v[0], v[1], v[2]))
+/// `CENTRE,WIDTH` with a positive width.
+fn window_arg(text: &str) -> Result<WindowLevel, String> {
+    let [c, w] = super::pair(text)?;
+    WindowLevel::new(c, w).ok_or_else(|| format!("'{text}': the width must be positive"))
 }
 
 /// Voxel axes by the names a user gives them.
@@ -111,11 +95,11 @@ pub struct SliceArgs {
 
     /// Oblique plane by its normal `NX,NY,NZ` in world coordinates, through `--centre`.
     #[arg(long, value_name = "NX,NY,NZ", allow_hyphen_values = true)]
-    normal: Option<String>,
+    normal: Option<Triple>,
 
     /// Centre of an oblique plane `X,Y,Z` in world mm (default: the centre of the scan).
     #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
-    centre: Option<String>,
+    centre: Option<Triple>,
 
     /// Oblique plane through three world points (mm): `X,Y,Z;X,Y,Z;X,Y,Z`.
     #[arg(long, value_name = "P;Q;R", allow_hyphen_values = true)]
@@ -123,7 +107,7 @@ pub struct SliceArgs {
 
     /// Thick slab: thickness along the normal, e.g. `0.2mm` or `150um`.
     #[arg(long, value_name = "LEN")]
-    slab: Option<String>,
+    slab: Option<LengthMm>,
 
     /// How a slab combines its samples.
     #[arg(long, value_enum, default_value = "max")]
@@ -131,7 +115,7 @@ pub struct SliceArgs {
 
     /// Output pixel size, e.g. `10um` (default: the smallest voxel spacing).
     #[arg(long, value_name = "LEN")]
-    pixel: Option<String>,
+    pixel: Option<LengthMm>,
 
     /// Nearest-voxel sampling instead of trilinear.
     #[arg(long)]
@@ -149,11 +133,7 @@ pub enum SlabModeArg {
 
 pub fn run_slice(a: &SliceArgs) -> Result<()> {
     let v = a.scan.open()?;
-    let pixel_mm = a
-        .pixel
-        .as_deref()
-        .map(sutura_core::geometry::parse_length_mm)
-        .transpose()?;
+    let pixel_mm = a.pixel.map(|l| l.0);
     let plane = oblique_plane(a, &v)?;
     let geometry = if let Some(p) = plane {
         slice::SliceGeometry::covering(&v, &p, pixel_mm)?
@@ -172,19 +152,13 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
         }
         slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
     };
-    let slab = a
-        .slab
-        .as_deref()
-        .map(|s| -> Result<Slab> {
-            Ok(Slab {
-                thickness_mm: sutura_core::geometry::parse_length_mm(s)?,
-                mode: match a.slab_mode {
-                    SlabModeArg::Mean => SlabMode::Mean,
-                    SlabModeArg::Max => SlabMode::Max,
-                },
-            })
-        })
-        .transpose()?;
+    let slab = a.slab.map(|s| Slab {
+        thickness_mm: s.0,
+        mode: match a.slab_mode {
+            SlabModeArg::Mean => SlabMode::Mean,
+            SlabModeArg::Max => SlabMode::Max,
+        },
+    });
     let interp = if a.nearest {
         Interpolation::Nearest
     } else {
@@ -213,7 +187,7 @@ fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
     if let Some(t) = &a.through {
         let pts: Vec<Vector3<f64>> = t
             .split(';')
-            .map(point3)
+            .map(|p| -> Result<Vector3<f64>> { Ok(Vector3::from(p.parse::<Triple>()?.0)) })
             .collect::<Result<_>>()
             .with_context(|| format!("--through {t}"))?;
         if pts.len() != 3 {
@@ -226,16 +200,16 @@ fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
             w(&pts[2]),
         )?));
     }
-    if let Some(n) = &a.normal {
-        let n = point3(n).with_context(|| format!("--normal {n}"))?;
-        let c = match &a.centre {
-            Some(c) => {
-                let p = point3(c).with_context(|| format!("--centre {c}"))?;
-                WorldPoint::new(p.x, p.y, p.z)
-            }
-            None => v.centre_world(),
-        };
-        return Ok(Some(Plane::from_normal(c, n, Vector3::z())?));
+    if let Some(n) = a.normal {
+        let c = a.centre.map_or_else(
+            || v.centre_world(),
+            |c| WorldPoint::new(c.0[0], c.0[1], c.0[2]),
+        );
+        return Ok(Some(Plane::from_normal(
+            c,
+            Vector3::from(n.0),
+            Vector3::z(),
+        )?));
     }
     Ok(None)
 }
@@ -258,7 +232,7 @@ fn annotate(
 pub enum ViewMode {
     /// Maximum-intensity projection.
     Projection,
-    /// Shaded surface at an intensity threshold.
+    /// Shaded surface at the scan's iso-value.
     Surface,
 }
 
@@ -274,19 +248,20 @@ pub struct View3dArgs {
     #[arg(long, value_enum, default_value = "surface")]
     mode: ViewMode,
 
-    /// Surface threshold in intensity units (default: halfway between the median and the
-    /// 99.5th percentile, a first guess for dense material in a lighter matrix).
-    #[arg(long, allow_hyphen_values = true)]
-    threshold: Option<f64>,
+    /// The surface's iso-value in the scan's grey values (default: the scan's ISO-50, the
+    /// value the workstation's 3D view, snapping and `landmark pick` use).
+    #[arg(long, value_name = "GREY", allow_hyphen_values = true)]
+    iso_value: Option<f64>,
 
     /// Viewing direction by azimuth (about world z, from +x) and elevation, in degrees.
     #[arg(
         long,
         value_name = "AZ,EL",
         default_value = "30,25",
-        allow_hyphen_values = true
+        allow_hyphen_values = true,
+        value_parser = super::pair
     )]
-    orbit: String,
+    orbit: [f64; 2],
 
     /// Image size in pixels (square).
     #[arg(long, default_value_t = 512)]
@@ -309,8 +284,7 @@ pub fn orbit_direction(az_deg: f64, el_deg: f64) -> Vector3<f64> {
 
 pub fn run_view3d(a: &View3dArgs) -> Result<()> {
     let v = a.scan.open()?;
-    let o = parse_floats(&a.orbit, 2).with_context(|| format!("--orbit {}", a.orbit))?;
-    let dir = orbit_direction(o[0], o[1]);
+    let dir = orbit_direction(a.orbit[0], a.orbit[1]);
     let up = if dir.cross(&Vector3::z()).norm() < 1e-6 {
         Vector3::y()
     } else {
@@ -329,17 +303,15 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             wl.colourize(&img, a.tone.colours.into())
         }
         ViewMode::Surface => {
-            let threshold = if let Some(t) = a.threshold {
-                t
-            } else {
-                let p = v.percentiles(&[50.0, 99.5]);
-                0.5 * (p[0] + p[1])
-            };
+            let iso = a.iso_value.map_or_else(
+                || sutura_core::landmarks::pick::default_iso_value(&v),
+                sutura_core::landmarks::pick::IsoValue::given,
+            );
             let bricks = raycast::Bricks::new(&v);
-            let mut opts = SurfaceOptions::new(threshold);
+            let mut opts = SurfaceOptions::new(iso.value);
             opts.quality = quality;
             let s = raycast::surface(&v, &camera, &opts, Some(&bricks))?;
-            eprintln!("surface threshold {threshold:.1}");
+            eprintln!("surface at the {}", iso.describe());
             s.image
         }
     };

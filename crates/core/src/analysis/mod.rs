@@ -17,7 +17,12 @@
 
 pub mod checks;
 pub mod evolution;
+pub mod exports;
 pub mod operators;
+pub mod project;
+
+pub use exports::{ExportKind, ExportSource, Exported, write_export, write_export_into};
+pub use project::{ProjectAnalysisOptions, TrialChoice, analyse_project};
 
 use nalgebra::DMatrix;
 use serde_json::json;
@@ -59,7 +64,7 @@ pub enum AnalysisError {
 }
 
 /// How to run the analysis.
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Copy, Debug, PartialEq)]
 pub struct AnalysisOptions {
     /// Procrustes fit and convergence.
     pub gpa: GpaOptions,
