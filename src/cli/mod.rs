@@ -6,6 +6,7 @@
 //! call the GUI makes too.
 
 mod convert;
+mod evolution;
 mod info;
 mod landmark;
 mod landmark_export;
@@ -69,6 +70,20 @@ enum Command {
     Measure(measure::MeasureArgs),
     /// Export a project's landmarks: long or wide CSV, JSON, .npy arrays, PLY point sets.
     Export(landmark_export::ExportArgs),
+    /// Disparity per time bin (Procrustes variance, sum of variances, mean pairwise distance)
+    /// with bootstrap intervals, rarefaction, age uncertainty and tests between bins.
+    DisparityThroughTime(evolution::ThroughTimeArgs),
+    /// Rates of shape evolution on a tree (σ²mult, compared between groups) and
+    /// phylogenetic signal (Kmult).
+    Rates(evolution::RatesArgs),
+    /// Brownian motion, early burst and Ornstein-Uhlenbeck compared on all shape dimensions
+    /// (pairwise composite likelihood and its information criterion).
+    Models(evolution::ModelsArgs),
+    /// Ancestral shapes (GLS) at the root and every node, and the tree in the morphospace.
+    AncestralShapes(evolution::AncestralArgs),
+    /// Measurement error with operator as a factor: Procrustes ANOVA of individual, operator,
+    /// their interaction and repeats, for shape, centroid size and each measurement.
+    MeasurementError(evolution::MeasurementErrorArgs),
 }
 
 #[derive(Debug, Args)]
@@ -196,6 +211,11 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Curve(c) => landmark::run_curve(&c),
         Command::Measure(a) => measure::run(&a),
         Command::Export(a) => landmark_export::run(&a),
+        Command::DisparityThroughTime(a) => evolution::run_through_time(&a),
+        Command::Rates(a) => evolution::run_rates(&a),
+        Command::Models(a) => evolution::run_models(&a),
+        Command::AncestralShapes(a) => evolution::run_ancestral(&a),
+        Command::MeasurementError(a) => evolution::run_measurement_error(&a),
     }
 }
 

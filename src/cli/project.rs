@@ -29,7 +29,9 @@ pub enum ProjectCommand {
     New(NewArgs),
     /// Add one specimen and its scan.
     Add(AddArgs),
-    /// Check every specimen's scan against its fingerprint (exit code 1 on a mismatch).
+    /// Check every specimen's scan against its fingerprint (exit code 1 on a mismatch), and
+    /// each trial against the rest of the sample: swapped bilateral pairs, outlying landmarks
+    /// and measurements (reported only; they never change data or the exit code).
     Check(CheckArgs),
     /// Show each specimen's scan and how far each trial has got.
     Status(StatusArgs),
@@ -340,6 +342,21 @@ fn run_check(a: &CheckArgs) -> Result<()> {
                 bad += 1;
                 _ = writeln!(out, "{:<16} MISMATCH {m}", s.id);
             }
+        }
+    }
+    let checks = sutura_core::analysis::checks::check_project(&project);
+    let flagged: usize = checks.iter().map(|c| c.flags.len()).sum();
+    _ = writeln!(out, "digitising checks: {flagged} flag(s)");
+    for c in &checks {
+        for f in &c.flags {
+            _ = writeln!(out, "{:<16} trial {:<4} {}", c.specimen, c.trial, f.reason);
+        }
+        if let Some(why) = &c.not_checked {
+            _ = writeln!(
+                out,
+                "{:<16} trial {:<4} not checked: {why}",
+                c.specimen, c.trial
+            );
         }
     }
     super::emit(&out)?;

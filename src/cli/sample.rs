@@ -15,8 +15,13 @@ pub struct SampleArgs {
     output: PathBuf,
 
     /// How many of the series' specimens to write (default: all).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "comparative")]
     count: Option<usize>,
+
+    /// Write the synthetic comparative sample instead (a tree of fossil taxa with ages and
+    /// landmark configurations evolved by early burst; `sample_volumes/comparative`).
+    #[arg(long)]
+    comparative: bool,
 }
 
 /// The file a specimen's scan is written to: the first as a folder of TIFF slices, the rest
@@ -38,6 +43,20 @@ type Written = (
 
 pub fn run(a: &SampleArgs) -> Result<()> {
     std::fs::create_dir_all(&a.output).with_context(|| a.output.display().to_string())?;
+    if a.comparative {
+        let s = synth::comparative::generate_comparative(
+            &synth::comparative::ComparativeSpec::bundled(),
+        );
+        let paths = s.write(&a.output)?;
+        eprintln!(
+            "wrote {} taxa, {} specimens ({} files) in {}",
+            s.tree.n_tips(),
+            s.specimens.len(),
+            paths.len(),
+            a.output.display()
+        );
+        return Ok(());
+    }
     let mut specs = synth::default_series();
     if let Some(n) = a.count {
         specs.truncate(n.max(1));

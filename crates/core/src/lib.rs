@@ -7,6 +7,7 @@
 
 pub mod analysis;
 pub mod chart;
+pub mod evolution;
 pub mod export;
 pub mod geometry;
 pub mod io;

@@ -15,7 +15,10 @@
 //! Depends on `shape`, `export`, `chart` and `render::png`. Knows nothing of volumes and must
 //! not import `gui` or `cli`.
 
+pub mod checks;
+pub mod evolution;
 pub mod exports;
+pub mod operators;
 pub mod project;
 
 pub use exports::{ExportKind, ExportSource, Exported, write_export, write_export_into};
@@ -58,6 +61,8 @@ pub enum AnalysisError {
     Render(#[from] crate::render::RenderError),
     #[error(transparent)]
     Chart(#[from] crate::chart::ChartError),
+    #[error(transparent)]
+    Evolution(crate::evolution::EvolutionError),
 }
 
 /// How to run the analysis.

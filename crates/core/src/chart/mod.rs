@@ -9,6 +9,7 @@
 //!
 //! Imports `render` only for its font; knows nothing about shapes or volumes.
 
+pub mod evolution;
 pub mod plots;
 
 use resvg::{tiny_skia, usvg};

@@ -9,15 +9,15 @@ const LEGEND_PX: f64 = 12.0;
 const TITLE_PX: f64 = 17.0;
 
 /// A linear map from data to pixels on one axis, with "nice" tick values.
-struct Axis {
-    lo: f64,
-    hi: f64,
-    px_lo: f64,
-    px_hi: f64,
+pub(super) struct Axis {
+    pub(super) lo: f64,
+    pub(super) hi: f64,
+    pub(super) px_lo: f64,
+    pub(super) px_hi: f64,
 }
 
 impl Axis {
-    fn new(values: impl Iterator<Item = f64>, px_lo: f64, px_hi: f64) -> Self {
+    pub(super) fn new(values: impl Iterator<Item = f64>, px_lo: f64, px_hi: f64) -> Self {
         let (mut lo, mut hi) = values
             .filter(|v| v.is_finite())
             .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
@@ -39,12 +39,12 @@ impl Axis {
         }
     }
 
-    fn px(&self, v: f64) -> f64 {
+    pub(super) fn px(&self, v: f64) -> f64 {
         self.px_lo + (v - self.lo) / (self.hi - self.lo) * (self.px_hi - self.px_lo)
     }
 
     /// Tick values on a 1-2-5 series, about five of them.
-    fn ticks(&self) -> Vec<f64> {
+    pub(super) fn ticks(&self) -> Vec<f64> {
         let raw = (self.hi - self.lo) / 5.0;
         let mag = 10f64.powf(raw.log10().floor());
         let step = [1.0, 2.0, 5.0, 10.0]
@@ -62,15 +62,17 @@ impl Axis {
     }
 }
 
-fn tick_label(v: f64) -> String {
+pub(super) fn tick_label(v: f64) -> String {
     let s = format!("{v:.4}");
     let s = s.trim_end_matches('0').trim_end_matches('.');
     if s == "-0" { "0".into() } else { s.to_owned() }
 }
 
-/// Frame, ticks and titles of a two-axis chart.
-fn frame(f: &mut Figure, x: &Axis, y: &Axis, x_title: &str, y_title: &str, title: &str) {
-    let (l, r, t, b) = (x.px_lo, x.px_hi, y.px_hi, y.px_lo);
+/// Frame, ticks and titles of a two-axis chart (either axis may run backwards, e.g. time in Ma
+/// growing to the left).
+pub(super) fn frame(f: &mut Figure, x: &Axis, y: &Axis, x_title: &str, y_title: &str, title: &str) {
+    let (l, r) = (x.px_lo.min(x.px_hi), x.px_lo.max(x.px_hi));
+    let (t, b) = (y.px_hi.min(y.px_lo), y.px_hi.max(y.px_lo));
     for tv in x.ticks() {
         let px = x.px(tv);
         f.line((px, t), (px, b), Rgba::LIGHT, 1.0);

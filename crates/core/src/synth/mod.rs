@@ -21,8 +21,10 @@
 //! then values are rounded to a multiple of [`QUANTUM`] and clipped to u16.
 //!
 //! The skull geometry and landmark constructions live in [`skull`], the landmark scheme in
-//! [`scheme`]. This module imports only `geometry` and `volume`.
+//! [`scheme`]. This module imports only `geometry` and `volume`; [`comparative`] (a tree of
+//! fossil taxa and shapes evolved on it) also `evolution` and `export`.
 
+pub mod comparative;
 pub mod scheme;
 pub mod skull;
 

@@ -32,6 +32,12 @@ use thiserror::Error;
 
 use super::{Gpa, GpaOptions, Sample, ShapeError, centroid_size, gpa};
 
+mod operators;
+pub use operators::{
+    OperatorAnova, OperatorTerm, ProcrustesOperatorAnova, VarianceComponents,
+    procrustes_operator_anova, two_way,
+};
+
 /// Failures of the ANOVA.
 #[derive(Debug, Error, Clone, PartialEq)]
 pub enum AnovaError {
@@ -55,6 +61,9 @@ pub enum AnovaError {
     /// Superimposition failed.
     #[error("superimposition for the ANOVA: {0}")]
     Shape(#[from] ShapeError),
+    /// Fewer than two operators.
+    #[error("{0} operator(s): the operator ANOVA needs at least 2")]
+    TooFewOperators(usize),
 }
 
 /// One row of an ANOVA table.
@@ -86,7 +95,7 @@ pub struct AnovaTable {
 }
 
 /// Group index (0..a) of each row, in order of first appearance, and the group sizes.
-fn groups(labels: &[usize]) -> (Vec<usize>, Vec<usize>) {
+pub(super) fn groups(labels: &[usize]) -> (Vec<usize>, Vec<usize>) {
     let mut seen: Vec<usize> = Vec::new();
     let mut index = Vec::with_capacity(labels.len());
     let mut sizes = Vec::new();
