@@ -150,6 +150,13 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         analyse_sliding(&table, &opts, sliding).with_context(|| a.table.display().to_string())?;
     analysis.write_tables(&a.output, &a.table.display().to_string())?;
     analysis.write_figures(&a.output)?;
+    let report = analysis.report();
+    for o in &report.not_produced {
+        eprintln!("not produced: {}: {}", o.output, o.reason);
+    }
+    for n in &report.notes {
+        eprintln!("note: {n}");
+    }
     let g = &analysis.gpa;
     if let Some(s) = &analysis.sliding {
         eprintln!(

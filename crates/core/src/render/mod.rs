@@ -66,6 +66,9 @@ pub enum RenderError {
         #[source]
         source: image::ImageError,
     },
+    /// The file could not be written (full disk, no permission…).
+    #[error(transparent)]
+    Write(#[from] crate::export::ExportError),
 }
 
 /// The largest image side accepted, so that a bad parameter cannot ask for terabytes.
