@@ -25,6 +25,7 @@ use sutura_core::geometry::{WorldPoint, parse_length_mm};
 use sutura_core::io::Progress;
 use sutura_core::landmarks::pick;
 use sutura_core::landmarks::project::{Edit, LandmarkState, Method, PickRecord, Project, Trial};
+use sutura_core::message::numbers;
 
 #[derive(Debug, Subcommand)]
 pub enum LandmarkCommand {
@@ -308,12 +309,13 @@ pub fn position(project: &Project, specimen: &str, p: &PositionArgs) -> Result<[
     if !s.scan.contains(world) {
         let v = s.scan.voxel_from_world_point(world);
         bail!(
-            "{specimen}: {world:?} mm is outside the scan (voxel {:.1}, {:.1}, {:.1} of {:?}); \
+            "{specimen}: {} mm is outside the scan (voxel {:.1}, {:.1}, {:.1} of {}); \
              positions are world millimetres",
+            numbers(&world),
             v[0],
             v[1],
             v[2],
-            s.scan.fingerprint.dims
+            dims(s.scan.fingerprint.dims)
         );
     }
     Ok(world)
@@ -374,10 +376,10 @@ pub fn place(
     }
     session.save()?;
     eprintln!(
-        "{} trial {trial}: {} at {:?} mm ({})",
+        "{} trial {trial}: {} at {} mm ({})",
         t.specimen,
         t.landmark,
-        p,
+        numbers(&p),
         method.name()
     );
     Ok(p)
@@ -458,9 +460,10 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     )?
     .with_context(|| {
         format!(
-            "{}: the ray from {origin:?} mm meets no surface at threshold {threshold} \
+            "{}: the ray from {} mm meets no surface at threshold {threshold} \
              within the scan{}",
             t.specimen,
+            numbers(&origin),
             a.max_distance
                 .as_ref()
                 .map(|l| format!(" and {l}"))
@@ -569,7 +572,11 @@ fn run_trace(a: &TraceArgs) -> Result<()> {
                 q
             };
             if !s.scan.contains(w) {
-                bail!("{}: traced point {w:?} mm is outside the scan", t.specimen);
+                bail!(
+                    "{}: traced point {} mm is outside the scan",
+                    t.specimen,
+                    numbers(&w)
+                );
             }
             pts.push(w);
         }
@@ -659,4 +666,9 @@ fn run_list(a: &ListArgs) -> Result<()> {
         }
     }
     super::emit(&out)
+}
+
+/// A grid size for a message: `64x64x44`.
+fn dims(d: [usize; 3]) -> String {
+    format!("{}x{}x{}", d[0], d[1], d[2])
 }

@@ -82,11 +82,15 @@ fn read_input(a: &SuperimposeArgs) -> Result<(LandmarkTable, Vec<Curve>)> {
     let mut head = [0u8; 64];
     let n = {
         use std::io::Read;
-        std::fs::File::open(&a.table)
+        sutura_core::io::require_regular_file(&a.table)
+            .and_then(|_| std::fs::File::open(&a.table))
             .and_then(|mut f| f.read(&mut head))
             .with_context(|| a.table.display().to_string())?
     };
-    if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
+    let text = head[..n]
+        .strip_prefix(b"\xEF\xBB\xBF")
+        .unwrap_or(&head[..n]);
+    if text.iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
         if a.slide_curves.is_some() {
             bail!(
                 "{}: --slide-curves needs a project (a landmark table does not say which points form curves)",

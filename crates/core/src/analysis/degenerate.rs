@@ -235,7 +235,9 @@ fn very_dissimilar_triangles_draw_a_scaled_excursion() {
         })
         .collect();
     assert!(
-        legend.iter().any(|t| t.contains("leaves the tangent space")),
+        legend
+            .iter()
+            .any(|t| t.contains("leaves the tangent space")),
         "{legend:?}"
     );
     let scaled: f64 = legend
@@ -255,7 +257,8 @@ fn very_dissimilar_triangles_draw_a_scaled_excursion() {
         report
             .not_produced
             .iter()
-            .any(|o| o.output.starts_with("morphospace") && o.reason.contains("one principal component")),
+            .any(|o| o.output.starts_with("morphospace")
+                && o.reason.contains("one principal component")),
         "{report:?}"
     );
     assert_eq!(report.notes, vec![note]);

@@ -458,8 +458,8 @@ fn group_disparities(
             level: 0.95,
             resamples: 0,
         };
-        let computed = disparity::procrustes_variance(tan, &idx, Divisor::NMinusOne)
-            .and_then(|pv| {
+        let computed =
+            disparity::procrustes_variance(tan, &idx, Divisor::NMinusOne).and_then(|pv| {
                 let sv = disparity::sum_of_variances(tan, &idx)?;
                 let interval = disparity::bootstrap(
                     tan,
@@ -516,14 +516,8 @@ fn group_test(
     }
     let mut it = gi.iter();
     let ((n1, g1), (n2, g2)) = (it.next()?, it.next()?);
-    let result = disparity::permutation_test(
-        tan,
-        g1,
-        g2,
-        Divisor::NMinusOne,
-        opts.resamples,
-        opts.seed,
-    );
+    let result =
+        disparity::permutation_test(tan, g1, g2, Divisor::NMinusOne, opts.resamples, opts.seed);
     match result {
         Ok(t) => Some(t),
         Err(e) => {
@@ -555,7 +549,10 @@ fn allometry(
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &c| {
             (l.min(c), h.max(c))
         });
-    #[allow(clippy::float_cmp, reason = "equal sizes leave no variance to regress on")]
+    #[allow(
+        clippy::float_cmp,
+        reason = "equal sizes leave no variance to regress on"
+    )]
     let why = if lo == hi {
         Some(format!(
             "all centroid sizes are equal ({} mm), so shape cannot be regressed on size",

@@ -391,9 +391,10 @@ impl Analysis {
         };
         for f in self.figures() {
             if let Err(why) = &f.figure {
-                report
-                    .not_produced
-                    .push(Omission::new(format!("{0}.svg, {0}.png", f.name), why.clone()));
+                report.not_produced.push(Omission::new(
+                    format!("{0}.svg, {0}.png", f.name),
+                    why.clone(),
+                ));
             }
             report.notes.extend(f.note);
         }
@@ -534,7 +535,6 @@ fn save_figure(f: &Figure, stem: &Path) -> Result<[PathBuf; 2], AnalysisError> {
     crate::render::png::save_png(&png, f.width as usize, f.height as usize, &f.to_rgba())?;
     Ok([svg, png])
 }
-
 
 #[cfg(test)]
 mod tests {

@@ -43,7 +43,7 @@ impl ExportError {
     pub(crate) fn format(path: &Path, what: impl Into<String>) -> Self {
         Self::Format {
             path: path.to_owned(),
-            what: what.into(),
+            what: crate::message::one_line(&what.into(), crate::message::MAX_DETAIL_CHARS),
         }
     }
 }
@@ -297,6 +297,51 @@ mod tests {
             std::fs::read_dir(dir.path()).unwrap().count(),
             2,
             "no temp files left"
+        );
+    }
+
+    /// Temporary files of killed writers (dead PIDs) are removed; a live writer's stay, and so
+    /// do files that only look similar.
+    #[test]
+    fn stale_temp_files_of_dead_writers_are_removed() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.json");
+        let bak = dir.path().join("p.json.bak");
+        let mut child = std::process::Command::new("sleep")
+            .arg("30")
+            .spawn()
+            .unwrap();
+        // PIDs on Linux stay below 2^22 (pid_max), so these writers are gone
+        let dead = [".p.json.tmp-999999991", ".p.json.bak.tmp-999999992"];
+        let alive = [
+            format!(".p.json.tmp-{}", std::process::id()),
+            format!(".p.json.tmp-{}", child.id()),
+        ];
+        let others = [".p.json.tmp-notapid", ".q.json.tmp-999999993", "p.json"];
+        for n in dead
+            .iter()
+            .copied()
+            .chain(alive.iter().map(String::as_str))
+            .chain(others)
+        {
+            std::fs::write(dir.path().join(n), "x").unwrap();
+        }
+        let mut removed = remove_stale_temp_files(&p, Some(&bak));
+        removed.sort();
+        let names: Vec<String> = removed
+            .iter()
+            .map(|r| r.file_name().unwrap().to_string_lossy().into_owned())
+            .collect();
+        assert_eq!(names, vec![dead[1].to_owned(), dead[0].to_owned()]);
+        for n in alive.iter().map(String::as_str).chain(others) {
+            assert!(dir.path().join(n).exists(), "{n} kept");
+        }
+        child.kill().unwrap();
+        child.wait().unwrap();
+        assert_eq!(
+            remove_stale_temp_files(&p, Some(&bak)).len(),
+            1,
+            "the child's, once it is gone"
         );
     }
 

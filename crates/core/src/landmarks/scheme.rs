@@ -227,10 +227,12 @@ impl Scheme {
     /// Reads and validates a scheme file; returns it with the file's text (which a project
     /// stores verbatim).
     pub fn load(path: &Path) -> Result<(Self, String), SchemeError> {
-        let text = std::fs::read_to_string(path).map_err(|source| SchemeError::Os {
-            path: path.to_owned(),
-            source,
-        })?;
+        let text = crate::io::require_regular_file(path)
+            .and_then(|_| std::fs::read_to_string(path))
+            .map_err(|source| SchemeError::Os {
+                path: path.to_owned(),
+                source,
+            })?;
         let scheme = Self::parse(&text, &path.display().to_string())?;
         Ok((scheme, text))
     }

@@ -548,6 +548,9 @@ fn newer_versions_are_refused_and_bad_files_named() {
     let p = sample_project();
     let text = String::from_utf8(p.to_bytes()).unwrap();
     let at = Path::new("x.json");
+    // a UTF-8 byte-order mark (as some editors write) is accepted, as in a scheme file
+    let with_bom = format!("\u{feff}{text}");
+    assert_eq!(Project::from_slice(with_bom.as_bytes(), at).unwrap(), p);
     let newer = text.replace("\"format_version\": 2,", "\"format_version\": 3,");
     let e = Project::from_slice(newer.as_bytes(), at)
         .unwrap_err()
@@ -581,7 +584,11 @@ fn newer_versions_are_refused_and_bad_files_named() {
         ),
         (
             text.replace("\"state\": \"placed\"", "\"state\": \"missing\""),
-            "state missing does not go with",
+            "landmark 'tip': is marked missing but has a position",
+        ),
+        (
+            text.replacen("\"state\": \"placed\"", "\"state\": \"estimated\"", 1),
+            "is marked estimated but its method is",
         ),
         (
             text.replace("2025-03-01T10:00:01Z", "2025-03-01T11:00:01+01:00"),
