@@ -299,7 +299,28 @@ impl LandmarkTable {
 }
 
 fn csv_error(path: &Path, e: &csv::Error) -> ExportError {
-    ExportError::format(path, format!("not a readable CSV: {e}"))
+    let line = |pos: &Option<csv::Position>| {
+        pos.as_ref()
+            .map_or_else(String::new, |p| format!("line {}: ", p.line()))
+    };
+    let what = match e.kind() {
+        csv::ErrorKind::Utf8 { pos, err } => format!(
+            "{}field {} is not UTF-8 text (save the table as UTF-8)",
+            line(pos),
+            err.field() + 1
+        ),
+        csv::ErrorKind::UnequalLengths {
+            pos,
+            expected_len,
+            len,
+        } => format!(
+            "{}{len} fields where the rows before have {expected_len}",
+            line(pos)
+        ),
+        csv::ErrorKind::Io(io) => return ExportError::os(path, std::io::Error::new(io.kind(), io.to_string())),
+        _ => format!("not a readable CSV: {e}"),
+    };
+    ExportError::format(path, what)
 }
 
 #[cfg(test)]

@@ -376,7 +376,10 @@ fn plan(
     if !vo.is_finite() || vo < 0.0 || vo.fract() != 0.0 || vo > 9.0e15 {
         return Err(IoError::corrupt(
             path,
-            format!("vox_offset {vo} is not a byte offset"),
+            format!(
+                "vox_offset {} is not a byte offset",
+                crate::message::number(vo)
+            ),
         ));
     }
     let mut offset = vo as u64;
