@@ -79,8 +79,13 @@ fn seed_volume() -> Volume {
     for k in 0..dims[2] {
         for j in 0..dims[1] {
             for i in 0..dims[0] {
-                let r2 = (i as f64 - 7.5).powi(2) + (j as f64 - 5.5).powi(2) + (k as f64 - 3.0).powi(2);
-                data.push(if r2 < 12.0 { 30_000u16 } else { 1_000 + (i * 7 + j * 3 + k) as u16 });
+                let r2 =
+                    (i as f64 - 7.5).powi(2) + (j as f64 - 5.5).powi(2) + (k as f64 - 3.0).powi(2);
+                data.push(if r2 < 12.0 {
+                    30_000u16
+                } else {
+                    1_000 + (i * 7 + j * 3 + k) as u16
+                });
             }
         }
     }
@@ -109,9 +114,14 @@ fn seeds(dir: &Path) -> Vec<Seed> {
     let read = |p: &str| std::fs::read(root.join(p)).unwrap();
     let mut csv = String::from("specimen,trial,group,landmark,x,y,z,state\n");
     for s in 0..5 {
-        for (l, p) in [[0.0, 0.0, 0.0], [1.0, 0.1, 0.0], [0.2, 1.1, 0.1], [0.4, 0.3, 0.9]]
-            .iter()
-            .enumerate()
+        for (l, p) in [
+            [0.0, 0.0, 0.0],
+            [1.0, 0.1, 0.0],
+            [0.2, 1.1, 0.1],
+            [0.4, 0.3, 0.9],
+        ]
+        .iter()
+        .enumerate()
         {
             let w = f64::from(s) * 0.03;
             csv.push_str(&format!(
@@ -124,14 +134,46 @@ fn seeds(dir: &Path) -> Vec<Seed> {
         }
     }
     vec![
-        Seed { kind: Kind::Nifti, name: "nifti1", bytes: nii_bytes.clone() },
-        Seed { kind: Kind::Nifti, name: "nifti2", bytes: nii2 },
-        Seed { kind: Kind::NiftiGz, name: "nifti1-gz", bytes: nii_bytes },
-        Seed { kind: Kind::Tiff, name: "tiff", bytes: tif("seed.tif", false) },
-        Seed { kind: Kind::Tiff, name: "tiff-deflate", bytes: tif("seed-deflate.tif", true) },
-        Seed { kind: Kind::Project, name: "project", bytes: read("tests/fixtures/project_v1.json") },
-        Seed { kind: Kind::Scheme, name: "scheme", bytes: read("sample_volumes/scheme.toml") },
-        Seed { kind: Kind::Csv, name: "csv", bytes: csv.into_bytes() },
+        Seed {
+            kind: Kind::Nifti,
+            name: "nifti1",
+            bytes: nii_bytes.clone(),
+        },
+        Seed {
+            kind: Kind::Nifti,
+            name: "nifti2",
+            bytes: nii2,
+        },
+        Seed {
+            kind: Kind::NiftiGz,
+            name: "nifti1-gz",
+            bytes: nii_bytes,
+        },
+        Seed {
+            kind: Kind::Tiff,
+            name: "tiff",
+            bytes: tif("seed.tif", false),
+        },
+        Seed {
+            kind: Kind::Tiff,
+            name: "tiff-deflate",
+            bytes: tif("seed-deflate.tif", true),
+        },
+        Seed {
+            kind: Kind::Project,
+            name: "project",
+            bytes: read("tests/fixtures/project_v1.json"),
+        },
+        Seed {
+            kind: Kind::Scheme,
+            name: "scheme",
+            bytes: read("sample_volumes/scheme.toml"),
+        },
+        Seed {
+            kind: Kind::Csv,
+            name: "csv",
+            bytes: csv.into_bytes(),
+        },
     ]
 }
 
@@ -141,37 +183,119 @@ fn seeds(dir: &Path) -> Vec<Seed> {
 /// Extreme values for binary fields, as little-endian bytes of each width.
 fn extreme_bytes(rng: &mut ChaCha8Rng, width: usize, float: bool) -> Vec<u8> {
     if float && width == 4 {
-        let v: f32 = [0.0, -0.0, -1.0, 1e-45, 1e-38, 3.4e38, f32::NAN, f32::INFINITY, f32::NEG_INFINITY, 1e20, 1.6e-31, 512.0]
-            [rng.random_range(0..12)];
+        let v: f32 = [
+            0.0,
+            -0.0,
+            -1.0,
+            1e-45,
+            1e-38,
+            3.4e38,
+            f32::NAN,
+            f32::INFINITY,
+            f32::NEG_INFINITY,
+            1e20,
+            1.6e-31,
+            512.0,
+        ][rng.random_range(0..12)];
         return v.to_le_bytes().to_vec();
     }
     if float && width == 8 {
-        let v: f64 = [0.0, -1.0, 5e-324, 1e-300, 1e300, f64::MAX, f64::NAN, f64::INFINITY, -1e20, 1e20]
-            [rng.random_range(0..10)];
+        let v: f64 = [
+            0.0,
+            -1.0,
+            5e-324,
+            1e-300,
+            1e300,
+            f64::MAX,
+            f64::NAN,
+            f64::INFINITY,
+            -1e20,
+            1e20,
+        ][rng.random_range(0..10)];
         return v.to_le_bytes().to_vec();
     }
-    let v: u64 = [0, 1, 2, 0x7f, 0xff, 0x7fff, 0x8000, 0xffff, 0x7fff_ffff, 0x8000_0000, 0xffff_ffff, u64::MAX, i64::MAX as u64, 1 << 32]
-        [rng.random_range(0..14)];
+    let v: u64 = [
+        0,
+        1,
+        2,
+        0x7f,
+        0xff,
+        0x7fff,
+        0x8000,
+        0xffff,
+        0x7fff_ffff,
+        0x8000_0000,
+        0xffff_ffff,
+        u64::MAX,
+        i64::MAX as u64,
+        1 << 32,
+    ][rng.random_range(0..14)];
     v.to_le_bytes()[..width].to_vec()
 }
 
 /// `(offset, width, float)` of the NIfTI-1 header fields (nifti1.h).
 const NIFTI1_FIELDS: &[(usize, usize, bool)] = &[
-    (0, 4, false), (40, 2, false), (42, 2, false), (44, 2, false), (46, 2, false), (48, 2, false),
-    (50, 2, false), (52, 2, false), (54, 2, false), (68, 2, false), (70, 2, false), (72, 2, false),
-    (76, 4, true), (80, 4, true), (84, 4, true), (88, 4, true), (108, 4, true), (112, 4, true),
-    (116, 4, true), (123, 1, false), (252, 2, false), (254, 2, false), (256, 4, true),
-    (260, 4, true), (264, 4, true), (268, 4, true), (280, 4, true), (284, 4, true),
-    (292, 4, true), (296, 4, true), (300, 4, true), (312, 4, true), (320, 4, true),
+    (0, 4, false),
+    (40, 2, false),
+    (42, 2, false),
+    (44, 2, false),
+    (46, 2, false),
+    (48, 2, false),
+    (50, 2, false),
+    (52, 2, false),
+    (54, 2, false),
+    (68, 2, false),
+    (70, 2, false),
+    (72, 2, false),
+    (76, 4, true),
+    (80, 4, true),
+    (84, 4, true),
+    (88, 4, true),
+    (108, 4, true),
+    (112, 4, true),
+    (116, 4, true),
+    (123, 1, false),
+    (252, 2, false),
+    (254, 2, false),
+    (256, 4, true),
+    (260, 4, true),
+    (264, 4, true),
+    (268, 4, true),
+    (280, 4, true),
+    (284, 4, true),
+    (292, 4, true),
+    (296, 4, true),
+    (300, 4, true),
+    (312, 4, true),
+    (320, 4, true),
     (344, 4, false),
 ];
 
 /// The same for NIfTI-2 (nifti2.h).
 const NIFTI2_FIELDS: &[(usize, usize, bool)] = &[
-    (0, 4, false), (12, 2, false), (14, 2, false), (16, 8, false), (24, 8, false), (32, 8, false),
-    (40, 8, false), (48, 8, false), (104, 8, true), (112, 8, true), (120, 8, true), (128, 8, true),
-    (168, 8, false), (176, 8, true), (184, 8, true), (344, 4, false), (348, 4, false),
-    (352, 8, true), (400, 8, true), (408, 8, true), (440, 8, true), (472, 8, true), (500, 4, false),
+    (0, 4, false),
+    (12, 2, false),
+    (14, 2, false),
+    (16, 8, false),
+    (24, 8, false),
+    (32, 8, false),
+    (40, 8, false),
+    (48, 8, false),
+    (104, 8, true),
+    (112, 8, true),
+    (120, 8, true),
+    (128, 8, true),
+    (168, 8, false),
+    (176, 8, true),
+    (184, 8, true),
+    (344, 4, false),
+    (348, 4, false),
+    (352, 8, true),
+    (400, 8, true),
+    (408, 8, true),
+    (440, 8, true),
+    (472, 8, true),
+    (500, 4, false),
 ];
 
 /// The entries of a classic little-endian TIFF's directories: `(entry offset, IFD offset)`.
@@ -265,7 +389,10 @@ fn mutate_binary(rng: &mut ChaCha8Rng, seed: &Seed) -> (Vec<u8>, String) {
                 put(&mut b, at, &extreme_bytes(rng, width, float));
                 what.push(at.to_string());
             }
-            (b, format!("header fields at {} set to extremes", what.join(",")))
+            (
+                b,
+                format!("header fields at {} set to extremes", what.join(",")),
+            )
         }
     }
 }
@@ -274,8 +401,25 @@ fn mutate_binary(rng: &mut ChaCha8Rng, seed: &Seed) -> (Vec<u8>, String) {
 fn mutate_text(rng: &mut ChaCha8Rng, seed: &Seed) -> (Vec<u8>, String) {
     let text = String::from_utf8_lossy(&seed.bytes).into_owned();
     let extremes = [
-        "1e308", "-1e308", "1e-320", "NaN", "inf", "-0", "", "99999999999999999999999", "0",
-        "-1", "\"\"", "null", "[]", "{}", "1e400", "0x10", "\u{feff}", "é", "\"a\"",
+        "1e308",
+        "-1e308",
+        "1e-320",
+        "NaN",
+        "inf",
+        "-0",
+        "",
+        "99999999999999999999999",
+        "0",
+        "-1",
+        "\"\"",
+        "null",
+        "[]",
+        "{}",
+        "1e400",
+        "0x10",
+        "\u{feff}",
+        "é",
+        "\"a\"",
     ];
     match rng.random_range(0..6) {
         0 | 1 => {
@@ -330,7 +474,10 @@ fn mutate_text(rng: &mut ChaCha8Rng, seed: &Seed) -> (Vec<u8>, String) {
         }
         _ => {
             let cut = rng.random_range(0..text.len());
-            (text.as_bytes()[..cut].to_vec(), format!("truncated to {cut} bytes"))
+            (
+                text.as_bytes()[..cut].to_vec(),
+                format!("truncated to {cut} bytes"),
+            )
         }
     }
 }
@@ -351,7 +498,12 @@ fn exercise_volume(v: &Volume) {
         let _ = raycast::mip(v, &cam, MipOptions::default());
         let bricks = Bricks::new(v);
         let p = v.percentiles(&[50.0, 99.5]);
-        let _ = raycast::surface(v, &cam, &SurfaceOptions::new(0.5 * (p[0] + p[1])), Some(&bricks));
+        let _ = raycast::surface(
+            v,
+            &cam,
+            &SurfaceOptions::new(0.5 * (p[0] + p[1])),
+            Some(&bricks),
+        );
     }
     let c = v.centre_world().0;
     let far = v.spacing_mm().iter().fold(0.0, |a: f64, s| a.max(*s)) * 100.0;
@@ -361,7 +513,10 @@ fn exercise_volume(v: &Volume) {
 }
 
 fn exercise_table(t: &LandmarkTable) {
-    let opts = AnalysisOptions { resamples: 9, ..AnalysisOptions::default() };
+    let opts = AnalysisOptions {
+        resamples: 9,
+        ..AnalysisOptions::default()
+    };
     if let Ok(a) = analyse(t, &opts) {
         let _ = a.report();
         for f in a.figures() {
@@ -413,7 +568,14 @@ fn message_fault(msg: &str) -> Option<&'static str> {
             return Some("a number written out in full");
         }
     }
-    for marker in ["Some(", "Unknown(", "os error 22", "Invalid argument", "LimitsExceeded", "[Unknown"] {
+    for marker in [
+        "Some(",
+        "Unknown(",
+        "os error 22",
+        "Invalid argument",
+        "LimitsExceeded",
+        "[Unknown",
+    ] {
         if msg.contains(marker) {
             return Some("debug formatting or a bare OS error");
         }
@@ -457,7 +619,10 @@ struct Tally {
 type Job = Box<dyn FnOnce() -> Result<(), String> + Send>;
 
 #[test]
-#[allow(clippy::too_many_lines, reason = "one run over all seeds with its bookkeeping")]
+#[allow(
+    clippy::too_many_lines,
+    reason = "one run over all seeds with its bookkeeping"
+)]
 fn mutated_inputs_never_panic_hang_or_overallocate() {
     let cases: usize = std::env::var("SUTURA_MUTATION_CASES")
         .ok()
@@ -541,7 +706,10 @@ fn mutated_inputs_never_panic_hang_or_overallocate() {
             Err(_) => {
                 t.hangs += 1;
                 let p = save(&format!("hang-{case}"), s.kind, &bytes);
-                failures.push(format!("{label}: still running after {deadline:?} ({})", p.display()));
+                failures.push(format!(
+                    "{label}: still running after {deadline:?} ({})",
+                    p.display()
+                ));
                 break;
             }
         };
@@ -572,7 +740,10 @@ fn mutated_inputs_never_panic_hang_or_overallocate() {
                 if let Some(why) = message_fault(&msg) {
                     t.bad_messages += 1;
                     let p = save(&format!("message-{case}"), s.kind, &bytes);
-                    failures.push(format!("{label}: message with {why}: {msg} ({})", p.display()));
+                    failures.push(format!(
+                        "{label}: message with {why}: {msg} ({})",
+                        p.display()
+                    ));
                 }
                 let n = msg.chars().count();
                 t.longest.push((n, msg));
@@ -600,9 +771,17 @@ fn mutated_inputs_never_panic_hang_or_overallocate() {
             eprintln!("    longest message ({n} characters): {m}");
         }
     }
-    assert!(failures.is_empty(), "{} failures:\n{}", failures.len(), failures.join("\n"));
+    assert!(
+        failures.is_empty(),
+        "{} failures:\n{}",
+        failures.len(),
+        failures.join("\n")
+    );
     // a run that refuses everything tests nothing past the first check
     for (k, t) in &tallies {
-        assert!(t.read > 0 || t.cases < 20, "{k:?}: no mutant was read at all");
+        assert!(
+            t.read > 0 || t.cases < 20,
+            "{k:?}: no mutant was read at all"
+        );
     }
 }

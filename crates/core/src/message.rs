@@ -86,7 +86,11 @@ fn short_numbers(text: &str) -> std::borrow::Cow<'_, str> {
             end = j + d.len_utf8();
             chars.next();
         }
-        let start = if i > 0 && text[..i].ends_with('-') { i - 1 } else { i };
+        let start = if i > 0 && text[..i].ends_with('-') {
+            i - 1
+        } else {
+            i
+        };
         if end - start > LONG_NUMBER
             && let Ok(v) = text[start..end].parse::<f64>()
         {
@@ -151,7 +155,10 @@ mod tests {
         // numbers printed in full are shortened
         let zeros = format!("size {} mm", 1.6e-31);
         assert_eq!(one_line(&zeros, 100), "size 1.6e-31 mm");
-        assert_eq!(one_line(&format!("{} is no count", -1e308), 100), "-1e308 is no count");
+        assert_eq!(
+            one_line(&format!("{} is no count", -1e308), 100),
+            "-1e308 is no count"
+        );
         assert_eq!(one_line("line 12345 of 678", 100), "line 12345 of 678");
     }
 

@@ -317,7 +317,9 @@ fn csv_error(path: &Path, e: &csv::Error) -> ExportError {
             "{}{len} fields where the rows before have {expected_len}",
             line(pos)
         ),
-        csv::ErrorKind::Io(io) => return ExportError::os(path, std::io::Error::new(io.kind(), io.to_string())),
+        csv::ErrorKind::Io(io) => {
+            return ExportError::os(path, std::io::Error::new(io.kind(), io.to_string()));
+        }
         _ => format!("not a readable CSV: {e}"),
     };
     ExportError::format(path, what)
