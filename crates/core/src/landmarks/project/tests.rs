@@ -748,3 +748,34 @@ fn version_1_files_are_upgraded() {
         .to_string();
     assert!(e.contains("upgrading from format_version 1 to 2"), "{e}");
 }
+
+/// Temporary files of saves that were killed (their process gone) are removed when the project
+/// is next opened or saved; the project, its backup and a live writer's file stay.
+#[test]
+fn stale_temporary_files_go_on_the_next_load_and_save() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("p.json");
+    let p = sample_project();
+    p.save(&path).unwrap();
+    p.save(&path).unwrap();
+    // PIDs on Linux stay below 2^22: these writers are gone
+    let stale = [
+        ".p.json.tmp-999999991",
+        ".p.json.bak.tmp-999999992",
+        ".p.json.autosave.tmp-999999993",
+    ];
+    let mine = format!(".p.json.tmp-{}", std::process::id());
+    for n in stale.iter().copied().chain([mine.as_str()]) {
+        std::fs::write(dir.path().join(n), "half a save").unwrap();
+    }
+    Project::load(&path).unwrap();
+    for n in stale {
+        assert!(!dir.path().join(n).exists(), "{n} removed on load");
+    }
+    assert!(dir.path().join(&mine).exists(), "a live writer's file stays");
+    std::fs::write(dir.path().join(stale[0]), "again").unwrap();
+    p.save(&path).unwrap();
+    assert!(!dir.path().join(stale[0]).exists(), "removed on save");
+    assert_eq!(Project::load(&path).unwrap(), p);
+    assert!(backup_path(&path).exists());
+}
