@@ -414,7 +414,7 @@ fn every_corpus_file_gives_its_outcome() {
             })
             .collect();
         // generous for a debug build on a busy machine; a hang ran for minutes
-        let (code, _, stderr, took) = run(&args, Duration::from_secs(120));
+        let (code, _, stderr, took) = run(&args, Duration::from_mins(2));
         for f in check(case, code, &stderr, out.path()) {
             faults.push(format!(
                 "case {i} ({} {}): {f}\n    stderr: {stderr}",
@@ -471,7 +471,7 @@ fn the_summary_lists_what_was_not_produced() {
             "-o".into(),
             out.path().to_string_lossy().into_owned(),
         ],
-        Duration::from_secs(120),
+        Duration::from_mins(2),
     );
     assert_eq!(code, Some(0), "{stderr}");
     let summary: serde_json::Value =

@@ -1,5 +1,5 @@
-//! Seeded mutation testing of every reader of a user's file: NIfTI (`.nii`, `.nii.gz`,
-//! NIfTI-2), TIFF (classic, Deflate, BigTIFF), the project file, the landmark scheme and the
+//! Seeded mutation testing of every reader of a user's file: `NIfTI` (`.nii`, `.nii.gz`,
+//! `NIfTI`-2), TIFF (classic, Deflate, `BigTIFF`), the project file, the landmark scheme and the
 //! landmark table. Each case takes a valid seed file, damages it (bit flips, random bytes,
 //! truncation, a header field or a TIFF directory entry set to an extreme, a number in a text
 //! file replaced by an extreme, lines dropped or repeated) and reads it the way the command line
@@ -19,6 +19,7 @@
 mod common;
 
 use std::collections::BTreeMap;
+use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
@@ -124,13 +125,14 @@ fn seeds(dir: &Path) -> Vec<Seed> {
         .enumerate()
         {
             let w = f64::from(s) * 0.03;
-            csv.push_str(&format!(
-                "S{s},1,{},L{l},{},{},{},placed\n",
+            let _ = writeln!(
+                csv,
+                "S{s},1,{},L{l},{},{},{},placed",
                 ["a", "b"][s as usize % 2],
                 p[0] + w,
                 p[1] - w * f64::from(l as u8),
                 p[2] + 0.5 * w
-            ));
+            );
         }
     }
     vec![
@@ -332,7 +334,7 @@ fn mutate_binary(rng: &mut ChaCha8Rng, seed: &Seed) -> (Vec<u8>, String) {
         0 => {
             let n = rng.random_range(1..=8);
             for _ in 0..n {
-                let i = rng.random_range(0..len.min(1024).max(1));
+                let i = rng.random_range(0..len.clamp(1, 1024));
                 b[i] ^= 1 << rng.random_range(0..8);
             }
             (b, format!("{n} bit flips in the first KiB"))
@@ -701,17 +703,14 @@ fn mutated_inputs_never_panic_hang_or_overallocate() {
             .unwrap();
         let t = tallies.entry(s.kind).or_default();
         t.cases += 1;
-        let outcome = match done_rx.recv_timeout(deadline) {
-            Ok(r) => r,
-            Err(_) => {
-                t.hangs += 1;
-                let p = save(&format!("hang-{case}"), s.kind, &bytes);
-                failures.push(format!(
-                    "{label}: still running after {deadline:?} ({})",
-                    p.display()
-                ));
-                break;
-            }
+        let Ok(outcome) = done_rx.recv_timeout(deadline) else {
+            t.hangs += 1;
+            let p = save(&format!("hang-{case}"), s.kind, &bytes);
+            failures.push(format!(
+                "{label}: still running after {deadline:?} ({})",
+                p.display()
+            ));
+            break;
         };
         let took = started.elapsed();
         t.slowest = t.slowest.max(took);
@@ -747,7 +746,7 @@ fn mutated_inputs_never_panic_hang_or_overallocate() {
                 }
                 let n = msg.chars().count();
                 t.longest.push((n, msg));
-                t.longest.sort_by(|a, b| b.0.cmp(&a.0));
+                t.longest.sort_by_key(|m| std::cmp::Reverse(m.0));
                 t.longest.truncate(2);
             }
         }

@@ -11,6 +11,8 @@
 //!
 //! Imports nothing from the crate.
 
+use std::fmt::Write as _;
+
 /// The longest message, in characters, that a front end shows.
 pub const MAX_MESSAGE_CHARS: usize = 400;
 
@@ -50,7 +52,7 @@ pub fn one_line(text: &str, max_chars: usize) -> String {
     let trimmed = out.trim_end().len();
     out.truncate(trimmed);
     if dropped > 0 {
-        out.push_str(&format!("… ({dropped} more characters)"));
+        let _ = write!(out, "… ({dropped} more characters)");
     }
     out
 }

@@ -68,13 +68,13 @@ impl AnalysisError {
     /// The error with a specimen index in it rewritten to name that specimen by `names[i]`.
     fn naming(self, names: &[String]) -> Self {
         let indexed = match &self {
-            Self::Shape(e) => shape_index(e),
+            Self::Shape(e)
+            | Self::Missing(MissingError::Shape(e))
+            | Self::Sliding(SlideProcedureError::Shape(e)) => shape_index(e),
             Self::Missing(
                 MissingError::TooFewPresent { specimen, .. } | MissingError::Tps { specimen, .. },
-            ) => Some(*specimen),
-            Self::Missing(MissingError::Shape(e)) => shape_index(e),
-            Self::Sliding(SlideProcedureError::Shape(e)) => shape_index(e),
-            Self::Sliding(SlideProcedureError::Sliding(
+            )
+            | Self::Sliding(SlideProcedureError::Sliding(
                 SlidingError::NoTangent { specimen, .. } | SlidingError::ZeroSize(specimen),
             )) => Some(*specimen),
             _ => None,

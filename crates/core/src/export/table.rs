@@ -131,7 +131,7 @@ impl LandmarkTable {
             if let Some(c) = c_z {
                 cells.push(("z", parse(c, "z")?));
             }
-            let state_cell = c_state.map(field).unwrap_or("");
+            let state_cell = c_state.map_or("", field);
             let state = match state_cell {
                 "" | "placed" => State::Placed,
                 "missing" => State::Missing,

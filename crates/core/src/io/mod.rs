@@ -239,11 +239,11 @@ pub enum Format {
 /// pipe waits for a writer forever, and a device or socket is no document. Every reader of a
 /// user's file (scan, project, scheme, landmark table) calls this first.
 pub fn require_regular_file(path: &Path) -> std::io::Result<std::fs::Metadata> {
+    use std::os::unix::fs::FileTypeExt;
     let meta = std::fs::metadata(path)?;
     if meta.is_file() {
         return Ok(meta);
     }
-    use std::os::unix::fs::FileTypeExt;
     let t = meta.file_type();
     let what = if meta.is_dir() {
         "a folder"

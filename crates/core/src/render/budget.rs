@@ -26,7 +26,7 @@ pub const DEFAULT_MAX_PIXELS: usize = 64_000_000;
 
 /// A length for a message, also when it is far below a micrometre.
 fn length(mm: f64) -> String {
-    if mm >= 1e-4 && mm < 1e6 {
+    if (1e-4..1e6).contains(&mm) {
         format_length_mm(mm)
     } else {
         format!("{mm:.3e} mm")

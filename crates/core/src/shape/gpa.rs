@@ -209,7 +209,9 @@ pub(crate) fn centre_scaled(x: &mut [f64], m: usize) -> (f64, f64) {
     if !(scale > 0.0 && scale.is_finite()) {
         return (scale, 0.0);
     }
-    x.iter_mut().for_each(|v| *v /= scale);
+    for v in x.iter_mut() {
+        *v /= scale;
+    }
     centre_in_place(x, m);
     (scale, sum_sq(x).sqrt())
 }
@@ -382,10 +384,14 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
             let (scale, unit_size) = centre_scaled(c, m);
             if opts.scale {
                 if unit_size > 0.0 {
-                    c.iter_mut().for_each(|v| *v /= unit_size);
+                    for v in c.iter_mut() {
+                        *v /= unit_size;
+                    }
                 }
             } else {
-                c.iter_mut().for_each(|v| *v *= scale);
+                for v in c.iter_mut() {
+                    *v *= scale;
+                }
             }
             scale * unit_size
         })
@@ -465,7 +471,9 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
             return Err(ShapeError::FullFitCollapse(i));
         }
         for (c, b) in x.chunks_exact_mut(km).zip(&beta) {
-            c.iter_mut().for_each(|v| *v *= b);
+            for v in c.iter_mut() {
+                *v *= b;
+            }
         }
     }
     Ok(Gpa {

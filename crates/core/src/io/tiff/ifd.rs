@@ -4,7 +4,7 @@
 //! print a debug line to stderr and allocate before it fails, and a directory offset beyond the
 //! file ends in an operating-system error ("Invalid argument") that says nothing about the
 //! file. [`check`] reads the header and one directory itself (TIFF 6.0 §2 "Image File
-//! Directory"; BigTIFF: 8-byte counts and offsets) and refuses, in words, a directory that runs
+//! Directory"; `BigTIFF`: 8-byte counts and offsets) and refuses, in words, a directory that runs
 //! past the end of the file and any tag the crate or Sutura reads whose values do not fit in the
 //! file or that holds text where numbers belong. It reads a few hundred bytes and allocates
 //! nothing that the file's length does not bound.
@@ -58,7 +58,7 @@ pub(super) fn tag_label(tag: u16) -> String {
         .map_or_else(|| format!("tag {tag}"), |t| format!("tag {tag} ({})", t.1))
 }
 
-/// Bytes per value of a field type (TIFF 6.0 §2, BigTIFF adds 16–18); `None` if unknown.
+/// Bytes per value of a field type (TIFF 6.0 §2, `BigTIFF` adds 16–18); `None` if unknown.
 fn type_size(t: u16) -> Option<u64> {
     Some(match t {
         1 | 2 | 6 | 7 => 1,
@@ -134,7 +134,7 @@ impl Layout {
         }
     }
 
-    /// An offset field (4 bytes, or 8 in a BigTIFF).
+    /// An offset field (4 bytes, or 8 in a `BigTIFF`).
     fn offset(self, b: &[u8]) -> u64 {
         if self.bigtiff {
             self.u64(b)

@@ -131,6 +131,10 @@ pub fn lock_path(project_file: &Path) -> PathBuf {
 /// Removes the temporary files of the project, its backup and its autosave that a save killed
 /// mid-way left behind (`.NAME.tmp-PID`, whose process is gone; see
 /// `export::remove_stale_temp_files`). Runs on every load and save; returns what it removed.
+#[allow(
+    clippy::must_use_candidate,
+    reason = "called for its effect; the list is for tests"
+)]
 pub fn remove_stale_temp_files(project_file: &Path) -> Vec<PathBuf> {
     let mut removed =
         crate::export::remove_stale_temp_files(project_file, Some(&backup_path(project_file)));

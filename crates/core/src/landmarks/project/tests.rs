@@ -772,7 +772,10 @@ fn stale_temporary_files_go_on_the_next_load_and_save() {
     for n in stale {
         assert!(!dir.path().join(n).exists(), "{n} removed on load");
     }
-    assert!(dir.path().join(&mine).exists(), "a live writer's file stays");
+    assert!(
+        dir.path().join(&mine).exists(),
+        "a live writer's file stays"
+    );
     std::fs::write(dir.path().join(stale[0]), "again").unwrap();
     p.save(&path).unwrap();
     assert!(!dir.path().join(stale[0]).exists(), "removed on save");
