@@ -169,10 +169,11 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         );
     }
     eprintln!(
-        "superimposed {} specimens x {} landmarks in {} iterations (converged: {}); results in {}",
+        "superimposed {} specimens x {} landmarks in {} iteration{} (converged: {}); results in {}",
         analysis.n(),
         analysis.landmarks.len(),
         g.iterations,
+        if g.iterations == 1 { "" } else { "s" },
         g.converged,
         a.output.display()
     );
