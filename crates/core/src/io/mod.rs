@@ -167,7 +167,11 @@ impl Limits {
                     "{}x{}x{} voxels of {bytes_per_voxel} bytes",
                     dims[0], dims[1], dims[2]
                 ),
-                limit: format!("{} bytes", self.max_voxel_bytes),
+                limit: if self.max_voxel_bytes % (1 << 30) == 0 {
+                    format!("{} GiB", self.max_voxel_bytes >> 30)
+                } else {
+                    format!("{} bytes", self.max_voxel_bytes)
+                },
             }),
         }
     }
