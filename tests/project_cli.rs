@@ -479,13 +479,40 @@ fn a_swapped_scan_is_detected_by_its_fingerprint() {
     )
     .unwrap();
     let (success, out, err) = run_sutura(&["project", "check", "p.json"], cwd);
-    assert!(!success && err.contains("1 of 2 scans differ"), "{err}");
+    assert!(
+        !success && err.contains("1 of 2 scans are missing, moved, unreadable or not"),
+        "{err}"
+    );
     assert!(
         out.contains("HDC-002          MISMATCH")
             && out.contains("is not the scan this specimen was digitised on"),
         "{out}"
     );
     assert!(out.contains("TF-001           ok"), "{out}");
+    // a scan moved into a subfolder, then gone: every specimen still gets its line
+    std::fs::create_dir(cwd.join("scans/old")).unwrap();
+    std::fs::rename(
+        cwd.join("scans/TF-001.nii.gz"),
+        cwd.join("scans/old/TF-001.nii.gz"),
+    )
+    .unwrap();
+    let (success, out, err) = run_sutura(&["project", "check", "p.json", "--full"], cwd);
+    assert!(!success && err.contains("2 of 2 scans"), "{err}");
+    assert!(out.contains("HDC-002          MISMATCH"), "{out}");
+    assert!(
+        out.contains("TF-001           MOVED")
+            && out.contains("a scan matching the record is at")
+            && out.contains("old/TF-001.nii.gz"),
+        "{out}"
+    );
+    std::fs::remove_file(cwd.join("scans/old/TF-001.nii.gz")).unwrap();
+    let (success, out, _) = run_sutura(&["project", "check", "p.json"], cwd);
+    assert!(!success, "{out}");
+    assert!(
+        out.contains("TF-001           MISSING") && out.contains("no such file or folder"),
+        "{out}"
+    );
+    assert!(out.contains("HDC-002          MISMATCH"), "{out}");
     // the library reports voxel and header differences when the scan is opened
     let project = Project::load(&cwd.join("p.json")).unwrap();
     let (_, mismatch) = project

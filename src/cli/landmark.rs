@@ -27,6 +27,7 @@ use sutura_core::landmarks::project::{
     Edit, LandmarkState, Method, PickRecord, Project, Session, Trial,
 };
 use sutura_core::landmarks::{mirror, pick};
+use sutura_core::message::numbers;
 
 #[derive(Debug, Subcommand)]
 pub enum LandmarkCommand {
@@ -313,12 +314,13 @@ pub fn position(project: &Project, specimen: &str, p: &PositionArgs) -> Result<[
     if !s.scan.contains(world) {
         let v = s.scan.voxel_from_world_point(world);
         bail!(
-            "{specimen}: {world:?} mm is outside the scan (voxel {:.1}, {:.1}, {:.1} of {:?}); \
+            "{specimen}: {} mm is outside the scan (voxel {:.1}, {:.1}, {:.1} of {}); \
              positions are world millimetres",
+            numbers(&world),
             v[0],
             v[1],
             v[2],
-            s.scan.fingerprint.dims
+            dims(s.scan.fingerprint.dims)
         );
     }
     Ok(world)
@@ -380,10 +382,10 @@ pub fn place(
     }
     session.save()?;
     eprintln!(
-        "{} trial {trial}: {} at {:?} mm ({})",
+        "{} trial {trial}: {} at {} mm ({})",
         t.specimen,
         t.landmark,
-        p,
+        numbers(&p),
         method.name()
     );
     Ok(p)
@@ -464,8 +466,9 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     )?
     .with_context(|| {
         format!(
-            "{}: the ray from {origin:?} mm meets no surface at the {} within the scan{}",
+            "{}: the ray from {} mm meets no surface at the {} within the scan{}",
             t.specimen,
+            numbers(&origin),
             iso.describe(),
             a.max_distance
                 .map(|l| format!(" and {}", sutura_core::geometry::format_length_mm(l.0)))
@@ -620,7 +623,11 @@ fn run_trace(a: &TraceArgs) -> Result<()> {
                 q
             };
             if !s.scan.contains(w) {
-                bail!("{}: traced point {w:?} mm is outside the scan", t.specimen);
+                bail!(
+                    "{}: traced point {} mm is outside the scan",
+                    t.specimen,
+                    numbers(&w)
+                );
             }
             pts.push(w);
         }
@@ -710,4 +717,9 @@ fn run_list(a: &ListArgs) -> Result<()> {
         }
     }
     super::emit(&out)
+}
+
+/// A grid size for a message: `64x64x44`.
+fn dims(d: [usize; 3]) -> String {
+    format!("{}x{}x{}", d[0], d[1], d[2])
 }

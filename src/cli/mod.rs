@@ -232,7 +232,8 @@ fn emit(text: &str) -> Result<()> {
     }
 }
 
-/// An error and its causes on one line, outermost first, without repeats.
+/// An error and its causes on one line, outermost first, without repeats, cleaned and capped
+/// by the library's message rule ([`sutura_core::message::one_line`]).
 fn one_line(e: &anyhow::Error) -> String {
     let mut parts: Vec<String> = Vec::new();
     for cause in e.chain() {
@@ -241,5 +242,5 @@ fn one_line(e: &anyhow::Error) -> String {
             parts.push(s);
         }
     }
-    parts.join(": ").replace('\n', " ")
+    sutura_core::message::one_line(&parts.join(": "), sutura_core::message::MAX_MESSAGE_CHARS)
 }

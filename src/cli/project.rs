@@ -331,17 +331,16 @@ fn run_check(a: &CheckArgs) -> Result<()> {
     let project = load(&a.project)?;
     let mut bad = 0;
     for s in project.specimens() {
-        let mismatch = if a.full {
-            s.scan.open(&a.project, &Progress::none())?.1
+        let status = s.scan.status(&a.project, a.full);
+        if status.is_fine() {
+            _ = writeln!(out, "{:<16} {:<10} {}", s.id, status.label(), s.scan.path);
         } else {
-            s.scan.check_files(&a.project)?
-        };
-        match mismatch {
-            None => _ = writeln!(out, "{:<16} ok       {}", s.id, s.scan.path),
-            Some(m) => {
-                bad += 1;
-                _ = writeln!(out, "{:<16} MISMATCH {m}", s.id);
-            }
+            bad += 1;
+            let text = sutura_core::message::one_line(
+                &status.to_string(),
+                sutura_core::message::MAX_MESSAGE_CHARS,
+            );
+            _ = writeln!(out, "{:<16} {:<10} {text}", s.id, status.label());
         }
     }
     let checks = sutura_core::analysis::checks::check_project(&project);
@@ -362,7 +361,7 @@ fn run_check(a: &CheckArgs) -> Result<()> {
     super::emit(&out)?;
     if bad > 0 {
         bail!(
-            "{}: {bad} of {} scans differ from the ones digitised",
+            "{}: {bad} of {} scans are missing, moved, unreadable or not the ones digitised",
             a.project.display(),
             project.specimens().len()
         );

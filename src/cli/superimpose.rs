@@ -116,6 +116,8 @@ impl SuperimposeArgs {
 /// Reads the input: a project file (by its content) or a long CSV; with `--slide-curves`,
 /// also the project's sliding curves.
 fn read_input(a: &SuperimposeArgs) -> Result<(LandmarkTable, Vec<Curve>)> {
+    sutura_core::io::require_regular_file(&a.table)
+        .with_context(|| a.table.display().to_string())?;
     if !sutura_core::landmarks::project::is_project_file(&a.table) {
         if a.slide_curves.is_some() {
             bail!(
@@ -158,6 +160,13 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         analyse_sliding(&table, &opts, sliding).with_context(|| a.table.display().to_string())?;
     analysis.write_tables(&a.output, &a.table.display().to_string())?;
     analysis.write_figures(&a.output)?;
+    let report = analysis.report();
+    for o in &report.not_produced {
+        eprintln!("not produced: {}: {}", o.output, o.reason);
+    }
+    for n in &report.notes {
+        eprintln!("note: {n}");
+    }
     let g = &analysis.gpa;
     if let Some(s) = &analysis.sliding {
         eprintln!(
@@ -166,10 +175,11 @@ pub fn run(a: &SuperimposeArgs) -> Result<()> {
         );
     }
     eprintln!(
-        "superimposed {} specimens x {} landmarks in {} iterations (converged: {}); results in {}",
+        "superimposed {} specimens x {} landmarks in {} iteration{} (converged: {}); results in {}",
         analysis.n(),
         analysis.landmarks.len(),
         g.iterations,
+        if g.iterations == 1 { "" } else { "s" },
         g.converged,
         a.output.display()
     );

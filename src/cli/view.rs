@@ -121,8 +121,25 @@ pub struct SliceArgs {
     #[arg(long)]
     nearest: bool,
 
+    /// The largest picture to make, in megapixels: with the default pixel size a larger one
+    /// is drawn with coarser pixels, with a `--pixel` that would pass it the command stops.
+    #[arg(long, value_name = "N", default_value_t = default_megapixels())]
+    max_megapixels: usize,
+
     #[command(flatten)]
     tone: ToneArgs,
+}
+
+fn default_megapixels() -> usize {
+    sutura_core::render::DEFAULT_MAX_PIXELS.div_ceil(1_000_000)
+}
+
+/// The pixel limit from `--max-megapixels`.
+fn max_pixels(megapixels: usize) -> Result<usize> {
+    if megapixels == 0 {
+        bail!("--max-megapixels must be at least 1");
+    }
+    Ok(megapixels.saturating_mul(1_000_000))
 }
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -135,8 +152,21 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     let v = a.scan.open()?;
     let pixel_mm = a.pixel.map(|l| l.0);
     let plane = oblique_plane(a, &v)?;
-    let geometry = if let Some(p) = plane {
-        slice::SliceGeometry::covering(&v, &p, pixel_mm)?
+    let limit = max_pixels(a.max_megapixels)?;
+    let hint = |e: sutura_core::render::RenderError| {
+        let path = a.scan.scan.display();
+        if sutura_core::render::budget::limit_can_be_raised(&e) {
+            anyhow::anyhow!("{path}: {e}: give a coarser --pixel or raise --max-megapixels")
+        } else if matches!(e, sutura_core::render::RenderError::TooManyPixels { .. }) {
+            anyhow::anyhow!("{path}: {e}: give a coarser --pixel")
+        } else {
+            anyhow::anyhow!("{path}: {e}")
+        }
+    };
+    let slab_mm = a.slab.map(|l| l.0);
+    let (geometry, note) = if let Some(p) = plane {
+        slice::SliceGeometry::section(&v, &p, pixel_mm, 0.5 * slab_mm.unwrap_or(0.0), limit)
+            .map_err(hint)?
     } else {
         let axis = match a.plane {
             Axis::I => 0,
@@ -150,10 +180,14 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
                 v.dims()[axis]
             );
         }
-        slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
+        slice::SliceGeometry::axis_within(&v, AxisPlane { axis, index }, pixel_mm, limit)
+            .map_err(hint)?
     };
-    let slab = a.slab.map(|s| Slab {
-        thickness_mm: s.0,
+    if let Some(n) = note {
+        eprintln!("note: {n}");
+    }
+    let slab = slab_mm.map(|thickness_mm| Slab {
+        thickness_mm,
         mode: match a.slab_mode {
             SlabModeArg::Mean => SlabMode::Mean,
             SlabModeArg::Max => SlabMode::Max,
@@ -165,7 +199,10 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
         Interpolation::Trilinear
     };
     let img = slice::render_slice(&v, &geometry, interp, slab)?;
-    let wl = a.tone.window_for(&img)?;
+    let wl = a
+        .tone
+        .window_for(&img)
+        .with_context(|| a.scan.scan.display().to_string())?;
     let mut rgba = wl.colourize(&img, a.tone.colours.into());
     if !a.tone.bare {
         rgba = annotate(&rgba, img.pixel_mm, Some((&geometry.u, &geometry.v)))?;
@@ -271,6 +308,10 @@ pub struct View3dArgs {
     #[arg(long)]
     coarse: bool,
 
+    /// The largest picture to make, in megapixels (`--size` squared must fit).
+    #[arg(long, value_name = "N", default_value_t = default_megapixels())]
+    max_megapixels: usize,
+
     #[command(flatten)]
     tone: ToneArgs,
 }
@@ -290,6 +331,8 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
     } else {
         Vector3::z()
     };
+    sutura_core::render::check_pixels(a.size, a.size, max_pixels(a.max_megapixels)?)
+        .with_context(|| format!("--size {} (raise --max-megapixels to allow it)", a.size))?;
     let camera = Camera::fit(&v, dir, up, a.size, a.size)?;
     let quality = if a.coarse {
         Quality::coarse()
@@ -299,7 +342,10 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
     let rgba = match a.mode {
         ViewMode::Projection => {
             let img = raycast::mip(&v, &camera, MipOptions { quality })?;
-            let wl = a.tone.window_for(&img)?;
+            let wl = a
+                .tone
+                .window_for(&img)
+                .with_context(|| a.scan.scan.display().to_string())?;
             wl.colourize(&img, a.tone.colours.into())
         }
         ViewMode::Surface => {

@@ -13,6 +13,7 @@ pub mod geometry;
 pub mod io;
 pub mod landmarks;
 pub mod measure;
+pub mod message;
 pub mod render;
 pub mod shape;
 pub mod synth;

@@ -20,7 +20,8 @@ use serde_json::json;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-use super::{Analysis, AnalysisError, save_figure};
+use super::output::save_figure;
+use super::{Analysis, AnalysisError};
 use crate::chart::Figure;
 use crate::chart::evolution::{TimeSeries, through_time, tree_in_plane};
 use crate::chart::plots;

@@ -9,8 +9,16 @@
 //! two groups' disparity, Procrustes distances, allometry, and, where specimens were digitised
 //! more than once, measurement error by Procrustes ANOVA over all trials.
 //!
-//! [`Analysis::write_tables`] and [`Analysis::write_figures`] write every output in open
-//! formats (CSV, JSON, `.npy`, SVG, PNG); the README documents each column.
+//! [`Analysis::write_tables`] and [`Analysis::write_figures`] ([`output`]) write every output
+//! in open formats (CSV, JSON, `.npy`, SVG, PNG); the README documents each column.
+//!
+//! **What it cannot produce, it says.** Only the core can fail the analysis: too few
+//! specimens, missing landmarks that cannot be estimated, the superimposition (and sliding)
+//! itself. Every later step is optional: when one cannot be computed on this sample (regression
+//! on size when all centroid sizes are equal, a group's disparity with one specimen, a figure
+//! of principal components when the shapes do not vary) the analysis goes on, and
+//! [`Analysis::report`] lists each output left out with its reason, for `summary.json`, the
+//! command line's stderr and the workstation. Errors about one specimen name it by its id.
 //!
 //! Depends on `shape`, `export`, `chart` and `render::png`. Knows nothing of volumes and must
 //! not import `gui` or `cli`.
@@ -19,26 +27,26 @@ pub mod checks;
 pub mod evolution;
 pub mod exports;
 pub mod operators;
+mod output;
 pub mod project;
 
 pub use exports::{ExportKind, ExportSource, Exported, write_export, write_export_into};
 pub use project::{ProjectAnalysisOptions, TrialChoice, analyse_project};
 
-use nalgebra::DMatrix;
-use serde_json::json;
-use std::collections::{BTreeMap, HashSet};
-use std::path::{Path, PathBuf};
+pub use output::PlannedFigure;
 
-use crate::chart::{Figure, plots};
+use nalgebra::{DMatrix, DVector};
+use std::collections::{BTreeMap, HashSet};
+
+use crate::export::ExportError;
 use crate::export::table::{LandmarkTable, Observation, State};
-use crate::export::{ExportError, num, write_csv, write_json, write_npy_f64};
-use crate::shape::anova::{self, AnovaError, AnovaTable, ProcrustesAnova};
+use crate::shape::anova::{self, AnovaError, ProcrustesAnova};
 use crate::shape::disparity::{self, Divisor, Interval, PermutationTest};
 use crate::shape::distance::{Distance, distance_matrix};
 use crate::shape::missing::{MissingError, MissingMethod, MissingOptions, estimate_missing};
 use crate::shape::pca::{Allometry, Pca};
 use crate::shape::sliding::{
-    Curve, SlideCriterion, SlideOptions, SlideProcedureError, slide_semilandmarks,
+    Curve, SlideCriterion, SlideOptions, SlideProcedureError, SlidingError, slide_semilandmarks,
 };
 use crate::shape::{Gpa, GpaOptions, Sample, ShapeError, gpa, pca, tangent};
 
@@ -63,6 +71,88 @@ pub enum AnalysisError {
     Chart(#[from] crate::chart::ChartError),
     #[error(transparent)]
     Evolution(crate::evolution::EvolutionError),
+    /// A fault of one specimen, named by its id (and trial where it has several).
+    #[error("specimen {specimen}: {what}")]
+    Specimen { specimen: String, what: String },
+}
+
+impl AnalysisError {
+    /// The error with a specimen index in it rewritten to name that specimen by `names[i]`.
+    fn naming(self, names: &[String]) -> Self {
+        let indexed = match &self {
+            Self::Shape(e)
+            | Self::Missing(MissingError::Shape(e))
+            | Self::Sliding(SlideProcedureError::Shape(e)) => shape_index(e),
+            Self::Missing(
+                MissingError::TooFewPresent { specimen, .. } | MissingError::Tps { specimen, .. },
+            )
+            | Self::Sliding(SlideProcedureError::Sliding(
+                SlidingError::NoTangent { specimen, .. } | SlidingError::ZeroSize(specimen),
+            )) => Some(*specimen),
+            _ => None,
+        };
+        let Some(i) = indexed.filter(|&i| i < names.len()) else {
+            return self;
+        };
+        let text = self.to_string();
+        // the inner messages read "specimen {i}: …" or "specimen {i}, landmark …: …"; keep
+        // what follows the index
+        let tag = format!("specimen {i}");
+        let what = text
+            .match_indices(&tag)
+            .map(|(at, _)| &text[at + tag.len()..])
+            .find(|rest| rest.starts_with([':', ',']))
+            .map_or(text.as_str(), |rest| {
+                rest.trim_start_matches([':', ',']).trim_start()
+            });
+        let what = match &self {
+            Self::Missing(_) => format!("estimating missing landmarks: {what}"),
+            Self::Sliding(_) => format!("sliding semilandmarks: {what}"),
+            _ => what.to_owned(),
+        };
+        Self::Specimen {
+            specimen: names[i].clone(),
+            what,
+        }
+    }
+}
+
+fn shape_index(e: &ShapeError) -> Option<usize> {
+    match e {
+        ShapeError::ZeroSize(i) | ShapeError::TooLarge(i) | ShapeError::FullFitCollapse(i) => {
+            Some(*i)
+        }
+        ShapeError::NonFinite { specimen, .. } => Some(*specimen),
+        _ => None,
+    }
+}
+
+/// An output the analysis could not produce, and why.
+#[derive(Clone, Debug, PartialEq, Eq, serde::Serialize)]
+pub struct Omission {
+    /// The result or file left out (`allometry`, `pc1_shapes.png/.svg`, …).
+    pub output: String,
+    /// Why, in a sentence about this sample.
+    pub reason: String,
+}
+
+impl Omission {
+    fn new(output: impl Into<String>, reason: impl Into<String>) -> Self {
+        Self {
+            output: output.into(),
+            reason: reason.into(),
+        }
+    }
+}
+
+/// What an analysis left out and what it changed to produce a result: the list
+/// `summary.json`, the command line and the workstation show.
+#[derive(Clone, Debug, Default, PartialEq, Eq, serde::Serialize)]
+pub struct Report {
+    /// Outputs not produced, with the reason.
+    pub not_produced: Vec<Omission>,
+    /// Outputs produced differently than usual, and how (e.g. a figure's excursion scaled).
+    pub notes: Vec<String>,
 }
 
 /// How to run the analysis.
@@ -123,6 +213,8 @@ pub struct GroupDisparity {
     /// Distances to the grand mean / (N − 1); sums to the total over groups.
     pub partial: f64,
     pub partial_share: f64,
+    /// Why a figure of this row is missing (NaN), e.g. the disparity of a group of one.
+    pub note: Option<String>,
 }
 
 /// Everything the analysis computed, in the order of [`Analysis::observations`].
@@ -146,11 +238,16 @@ pub struct Analysis {
     pub total_variance: f64,
     /// Permutation test of the difference in disparity, when there are exactly two groups.
     pub group_test: Option<PermutationTest>,
-    /// Procrustes angles ρ (radians) between specimens.
-    pub distances: DMatrix<f64>,
-    pub allometry: Allometry,
-    /// Over all trials, when some specimen was digitised more than once.
+    /// Procrustes angles ρ (radians) between specimens (`None`: see [`Self::omitted`]).
+    pub distances: Option<DMatrix<f64>>,
+    /// Regression of shape on size (`None`: see [`Self::omitted`]).
+    pub allometry: Option<Allometry>,
+    /// Over all trials, when some specimen was digitised more than once (and the ANOVA could
+    /// be computed: else see [`Self::omitted`]).
     pub measurement_error: Option<ProcrustesAnova>,
+    /// The optional steps that could not be computed on this sample, with the reason. The
+    /// figures' omissions are added by [`Self::report`].
+    pub omitted: Vec<Omission>,
     /// When semilandmarks were slid before the superimposition.
     pub sliding: Option<SlidingSummary>,
     pub options: AnalysisOptions,
@@ -242,11 +339,18 @@ pub fn analyse_sliding(
     if idx.len() < 3 {
         return Err(AnalysisError::TooFewSpecimens(idx.len()));
     }
-    let (sample, estimated) = to_sample(table, &idx, opts)?;
+    let names: Vec<String> = idx
+        .iter()
+        .map(|&i| table.observations[i].specimen.clone())
+        .collect();
+    let (sample, estimated) = to_sample(table, &idx, opts).map_err(|e| e.naming(&names))?;
     let (g, sliding_summary) = match &sliding {
-        None => (gpa(&sample, &opts.gpa)?, None),
+        None => (
+            gpa(&sample, &opts.gpa).map_err(|e| AnalysisError::from(e).naming(&names))?,
+            None,
+        ),
         Some(s) => {
-            let (_, g, summary) = slide(&sample, s, opts)?;
+            let (_, g, summary) = slide(&sample, s, opts).map_err(|e| e.naming(&names))?;
             (g, Some(summary))
         }
     };
@@ -258,51 +362,52 @@ pub fn analyse_sliding(
         .collect();
 
     let tan = tangent::tangent_coordinates(&g);
-    let p = pca::pca(&tan)?;
-
-    let by_group = disparity::disparity_by_group(&tan, &groups, Divisor::NMinusOne)?;
-    let (partials, total_variance) = disparity::partial_disparity(&tan, &groups)?;
-    let gi = disparity::group_indices(&groups);
-    let mut disp = Vec::with_capacity(by_group.len());
-    for (d, pd) in by_group.iter().zip(&partials) {
-        let interval = disparity::bootstrap(
-            &tan,
-            &gi[&d.label],
-            Divisor::NMinusOne,
-            opts.resamples,
-            0.95,
-            opts.seed,
-        )?;
-        disp.push(GroupDisparity {
-            group: d.label.clone(),
-            n: d.n,
-            procrustes_variance: d.procrustes_variance,
-            interval,
-            sum_of_variances: d.sum_of_variances,
-            partial: pd.partial,
-            partial_share: pd.share,
-        });
-    }
-    let group_test = if gi.len() == 2 {
-        let mut it = gi.values();
-        let (g1, g2) = (
-            it.next().expect("two groups"),
-            it.next().expect("two groups"),
-        );
-        Some(disparity::permutation_test(
-            &tan,
-            g1,
-            g2,
-            Divisor::NMinusOne,
-            opts.resamples,
-            opts.seed,
-        )?)
-    } else {
-        None
+    let mut omitted = Vec::new();
+    // Shapes of unit size that differ only by rounding (the same shape in other poses) have
+    // tangent coordinates about 1e-16 apart: a standard deviation under 1e-12 is no variation.
+    let floor = if g.scaled { 1e-24 } else { 0.0 };
+    let (p, no_variation) = match pca::pca_above(&tan, floor) {
+        Ok(p) => {
+            let none = p.variances.is_empty();
+            (p, none)
+        }
+        Err(e) => {
+            omitted.push(Omission::new(
+                "principal components (pc_scores.csv, pc_variance.csv, pc_loadings.csv)",
+                e.to_string(),
+            ));
+            (no_components(tan.nrows(), tan.ncols()), false)
+        }
     };
-    let distances = distance_matrix(&g.aligned, Distance::Angle)?;
-    let allometry = pca::allometry(&tan, &g.centroid_sizes, opts.resamples, opts.seed)?;
-    let measurement_error = measurement_error(table, opts, sliding.as_ref())?;
+    let (disp, total_variance) = group_disparities(&tan, &groups, opts, &mut omitted);
+    let group_test = group_test(&tan, &groups, opts, &mut omitted);
+    let distances = distance_matrix(&g.aligned, Distance::Angle)
+        .map_err(|e| {
+            omitted.push(Omission::new(
+                "procrustes_distances.csv",
+                AnalysisError::from(e).naming(&names).to_string(),
+            ));
+        })
+        .ok();
+    let allometry = if no_variation {
+        omitted.push(Omission::new(
+            "allometry",
+            "no shape variation: every specimen has the same shape, so there is nothing to regress on size",
+        ));
+        None
+    } else {
+        allometry(&tan, &g, opts, &mut omitted)
+    };
+    let measurement_error = match measurement_error(table, opts, sliding.as_ref()) {
+        Ok(me) => me,
+        Err(e) => {
+            omitted.push(Omission::new(
+                "measurement error (anova.csv)",
+                e.to_string(),
+            ));
+            None
+        }
+    };
     Ok(Analysis {
         landmarks: table.landmarks.clone(),
         dim: table.dim,
@@ -318,9 +423,163 @@ pub fn analyse_sliding(
         distances,
         allometry,
         measurement_error,
+        omitted,
         sliding: sliding_summary,
         options: *opts,
     })
+}
+
+/// A principal component analysis with no components, for a sample whose PCA failed.
+fn no_components(n: usize, p: usize) -> Pca {
+    Pca {
+        center: DVector::zeros(p),
+        loadings: DMatrix::zeros(p, 0),
+        variances: Vec::new(),
+        proportions: Vec::new(),
+        scores: DMatrix::zeros(n, 0),
+        total_variance: 0.0,
+    }
+}
+
+/// Disparity of every group (a group of one gets NaN and a note: its variance is undefined)
+/// and the total Procrustes variance.
+fn group_disparities(
+    tan: &DMatrix<f64>,
+    groups: &[String],
+    opts: &AnalysisOptions,
+    omitted: &mut Vec<Omission>,
+) -> (Vec<GroupDisparity>, f64) {
+    let (partials, total_variance) = match disparity::partial_disparity(tan, groups) {
+        Ok((p, t)) => (p.into_iter().map(|d| (d.partial, d.share)).collect(), t),
+        Err(e) => {
+            omitted.push(Omission::new(
+                "partial disparity and total Procrustes variance",
+                e.to_string(),
+            ));
+            (Vec::new(), f64::NAN)
+        }
+    };
+    let mut out = Vec::new();
+    for (gi, (label, idx)) in disparity::group_indices(groups).into_iter().enumerate() {
+        let (partial, partial_share) = partials.get(gi).copied().unwrap_or((f64::NAN, f64::NAN));
+        let undefined = Interval {
+            estimate: f64::NAN,
+            resample_mean: f64::NAN,
+            lower: f64::NAN,
+            upper: f64::NAN,
+            level: 0.95,
+            resamples: 0,
+        };
+        let computed =
+            disparity::procrustes_variance(tan, &idx, Divisor::NMinusOne).and_then(|pv| {
+                let sv = disparity::sum_of_variances(tan, &idx)?;
+                let interval = disparity::bootstrap(
+                    tan,
+                    &idx,
+                    Divisor::NMinusOne,
+                    opts.resamples,
+                    0.95,
+                    opts.seed,
+                )?;
+                Ok((pv, sv, interval))
+            });
+        let (procrustes_variance, sum_of_variances, interval, note) = match computed {
+            Ok((pv, sv, interval)) => (pv, sv, interval, None),
+            Err(e) => {
+                let why = if idx.len() < 2 {
+                    format!(
+                        "undefined for a group of {} specimen (a variance needs at least 2)",
+                        idx.len()
+                    )
+                } else {
+                    e.to_string()
+                };
+                omitted.push(Omission::new(
+                    format!("disparity of group {label}"),
+                    why.clone(),
+                ));
+                (f64::NAN, f64::NAN, undefined, Some(why))
+            }
+        };
+        out.push(GroupDisparity {
+            group: label,
+            n: idx.len(),
+            procrustes_variance,
+            interval,
+            sum_of_variances,
+            partial,
+            partial_share,
+            note,
+        });
+    }
+    (out, total_variance)
+}
+
+/// The permutation test of two groups' disparity: with exactly two groups of two or more.
+fn group_test(
+    tan: &DMatrix<f64>,
+    groups: &[String],
+    opts: &AnalysisOptions,
+    omitted: &mut Vec<Omission>,
+) -> Option<PermutationTest> {
+    let gi = disparity::group_indices(groups);
+    if gi.len() != 2 {
+        return None;
+    }
+    let mut it = gi.iter();
+    let ((n1, g1), (n2, g2)) = (it.next()?, it.next()?);
+    let result =
+        disparity::permutation_test(tan, g1, g2, Divisor::NMinusOne, opts.resamples, opts.seed);
+    match result {
+        Ok(t) => Some(t),
+        Err(e) => {
+            let why = if g1.len() < 2 || g2.len() < 2 {
+                format!(
+                    "groups {n1} ({}) and {n2} ({}): each needs at least 2 specimens",
+                    g1.len(),
+                    g2.len()
+                )
+            } else {
+                e.to_string()
+            };
+            omitted.push(Omission::new("group difference test", why));
+            None
+        }
+    }
+}
+
+/// Regression of shape on log centroid size, or why it cannot be run.
+fn allometry(
+    tan: &DMatrix<f64>,
+    g: &Gpa,
+    opts: &AnalysisOptions,
+    omitted: &mut Vec<Omission>,
+) -> Option<Allometry> {
+    let cs = &g.centroid_sizes;
+    let (lo, hi) = cs
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &c| {
+            (l.min(c), h.max(c))
+        });
+    #[allow(
+        clippy::float_cmp,
+        reason = "equal sizes leave no variance to regress on"
+    )]
+    let why = if lo == hi {
+        Some(format!(
+            "all centroid sizes are equal ({} mm), so shape cannot be regressed on size",
+            crate::export::num(lo)
+        ))
+    } else {
+        None
+    };
+    let result = match why {
+        Some(w) => Err(w),
+        None => pca::allometry(tan, cs, opts.resamples, opts.seed).map_err(|e| e.to_string()),
+    };
+    result
+        .map_err(|why| omitted.push(Omission::new("allometry", why)))
+        .ok()
 }
 
 /// Procrustes ANOVA over every trial of every specimen, when some specimen has several.
@@ -343,11 +602,22 @@ fn measurement_error(
         .iter()
         .map(|o| ids[o.specimen.as_str()])
         .collect();
-    let (mut sample, _) = to_sample(t, &all, opts)?;
+    let names: Vec<String> = t
+        .observations
+        .iter()
+        .map(|o| format!("{} (trial {})", o.specimen, o.trial))
+        .collect();
+    let name = |e: AnalysisError| e.naming(&names);
+    let (mut sample, _) = to_sample(t, &all, opts).map_err(name)?;
     if let Some(s) = sliding {
-        sample = slide(&sample, s, opts)?.0;
+        sample = slide(&sample, s, opts).map_err(name)?.0;
     }
-    Ok(Some(anova::procrustes_anova(&sample, &labels, &opts.gpa)?))
+    anova::procrustes_anova(&sample, &labels, &opts.gpa)
+        .map(Some)
+        .map_err(|e| match e {
+            AnovaError::Shape(e) => name(e.into()),
+            other => other.into(),
+        })
 }
 
 impl Analysis {
@@ -401,418 +671,14 @@ impl Analysis {
                 .collect(),
         }
     }
-
-    /// Writes every table into `dir` (created if needed) and returns the paths written.
-    /// `source` names the input in `summary.json`.
-    #[allow(
-        clippy::too_many_lines,
-        reason = "one file after another, in the README's order"
-    )]
-    pub fn write_tables(&self, dir: &Path, source: &str) -> Result<Vec<PathBuf>, AnalysisError> {
-        std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
-        let out = |name: &str| dir.join(name);
-        let (n, k, m) = (self.n(), self.landmarks.len(), self.dim);
-        let mut written = Vec::new();
-
-        let aligned = self.aligned_table();
-        aligned.write_long_csv(&out("aligned_long.csv"))?;
-        aligned.write_wide_csv(&out("aligned_wide.csv"))?;
-        write_npy_f64(
-            &out("aligned.npy"),
-            &[n as u64, k as u64, m as u64],
-            self.gpa.aligned.data(),
-        )?;
-        written.extend(["aligned_long.csv", "aligned_wide.csv", "aligned.npy"].map(out));
-
-        let id_rows: Vec<Vec<String>> = (0..n)
-            .map(|s| {
-                let o = &self.observations[s];
-                let n_est = (0..k).filter(|l| self.estimated[s * k + l]).count();
-                vec![
-                    s.to_string(),
-                    o.specimen.clone(),
-                    o.trial.clone(),
-                    self.groups[s].clone(),
-                    num(self.gpa.centroid_sizes[s]),
-                    n_est.to_string(),
-                ]
-            })
-            .collect();
-        write_csv(
-            &out("specimens.csv"),
-            &[
-                "index",
-                "specimen",
-                "trial",
-                "group",
-                "centroid_size_mm",
-                "estimated_landmarks",
-            ],
-            &id_rows,
-        )?;
-        written.push(out("specimens.csv"));
-
-        written.extend(self.write_pca_tables(dir)?);
-
-        let disp_rows: Vec<Vec<String>> = self
-            .disparity
-            .iter()
-            .map(|d| {
-                vec![
-                    d.group.clone(),
-                    d.n.to_string(),
-                    num(d.procrustes_variance),
-                    num(d.interval.lower),
-                    num(d.interval.upper),
-                    d.interval.resamples.to_string(),
-                    num(d.sum_of_variances),
-                    num(d.partial),
-                    num(d.partial_share),
-                ]
-            })
-            .collect();
-        write_csv(
-            &out("disparity.csv"),
-            &[
-                "group",
-                "n",
-                "procrustes_variance",
-                "ci95_lower",
-                "ci95_upper",
-                "resamples",
-                "sum_of_variances",
-                "partial_disparity",
-                "partial_share",
-            ],
-            &disp_rows,
-        )?;
-        written.push(out("disparity.csv"));
-
-        written.push(self.write_distances(dir)?);
-
-        let anova_summary = match &self.measurement_error {
-            None => serde_json::Value::Null,
-            Some(pa) => {
-                write_anova(&out("anova.csv"), pa)?;
-                written.push(out("anova.csv"));
-                json!({
-                    "shape_repeatability": pa.shape.repeatability,
-                    "size_repeatability": pa.size.repeatability,
-                    "individuals": pa.shape.individuals,
-                    "measurements": pa.shape.measurements,
-                })
-            }
-        };
-        let g = &self.gpa;
-        let allo = &self.allometry;
-        write_json(
-            &out("summary.json"),
-            &json!({
-                "table": source,
-                "specimens": n, "landmarks": k, "dims": m,
-                "fit": format!("{:?}", self.options.gpa.fit).to_lowercase(),
-                "tolerance": self.options.gpa.tolerance,
-                "iterations": g.iterations, "converged": g.converged, "final_change": g.final_change,
-                "estimated_landmarks": self.estimated.iter().filter(|&&e| e).count(),
-                "total_procrustes_variance": self.total_variance,
-                "disparity_divisor": "n - 1",
-                "group_difference_test": self.group_test,
-                "allometry": {"r_squared": allo.r_squared, "p_value": allo.p_value, "permutations": allo.permutations},
-                "measurement_error": anova_summary,
-                "sliding": self.sliding,
-            }),
-        )?;
-        written.push(out("summary.json"));
-        Ok(written)
-    }
-
-    /// `procrustes_distances.csv`: the square matrix of Procrustes angles.
-    fn write_distances(&self, dir: &Path) -> Result<PathBuf, AnalysisError> {
-        let path = dir.join("procrustes_distances.csv");
-        let n = self.n();
-        let labels: Vec<String> = self
-            .observations
-            .iter()
-            .map(|o| o.specimen.clone())
-            .collect();
-        let mut dh: Vec<String> = vec!["specimen".into()];
-        dh.extend(labels.iter().cloned());
-        let drows: Vec<Vec<String>> = (0..n)
-            .map(|i| {
-                let mut r = vec![labels[i].clone()];
-                r.extend((0..n).map(|j| num(self.distances[(i, j)])));
-                r
-            })
-            .collect();
-        write_csv_owned(&path, &dh, &drows)?;
-
-        Ok(path)
-    }
-
-    /// `pc_scores.csv`, `pc_variance.csv` and `pc_loadings.csv`.
-    fn write_pca_tables(&self, dir: &Path) -> Result<[PathBuf; 3], AnalysisError> {
-        let out = |name: &str| dir.join(name);
-        let (n, m) = (self.n(), self.dim);
-        let k = self.landmarks.len();
-        let ncomp = self.components();
-        let p = &self.pca;
-        let pcs: Vec<String> = (1..=ncomp).map(|c| format!("PC{c}")).collect();
-        let with_pcs = |first: &[&str]| -> Vec<String> {
-            first
-                .iter()
-                .map(|s| (*s).to_owned())
-                .chain(pcs.iter().cloned())
-                .collect()
-        };
-        let rows: Vec<Vec<String>> = (0..n)
-            .map(|s| {
-                let o = &self.observations[s];
-                let mut r = vec![o.specimen.clone(), o.trial.clone(), self.groups[s].clone()];
-                r.extend((0..ncomp).map(|c| num(p.scores[(s, c)])));
-                r
-            })
-            .collect();
-        write_csv_owned(
-            &out("pc_scores.csv"),
-            &with_pcs(&["specimen", "trial", "group"]),
-            &rows,
-        )?;
-        let mut cum = 0.0;
-        let var_rows: Vec<Vec<String>> = (0..ncomp)
-            .map(|c| {
-                cum += p.proportions[c];
-                vec![
-                    format!("PC{}", c + 1),
-                    num(p.variances[c]),
-                    num(p.proportions[c]),
-                    num(cum),
-                ]
-            })
-            .collect();
-        write_csv(
-            &out("pc_variance.csv"),
-            &["component", "variance", "proportion", "cumulative"],
-            &var_rows,
-        )?;
-        let load_rows: Vec<Vec<String>> = (0..k * m)
-            .map(|r| {
-                let mut row = vec![
-                    self.landmarks[r / m].clone(),
-                    ["x", "y", "z"][r % m].to_owned(),
-                ];
-                row.extend((0..ncomp).map(|c| num(p.loadings[(r, c)])));
-                row
-            })
-            .collect();
-        write_csv_owned(
-            &out("pc_loadings.csv"),
-            &with_pcs(&["landmark", "axis"]),
-            &load_rows,
-        )?;
-
-        Ok(["pc_scores.csv", "pc_variance.csv", "pc_loadings.csv"].map(out))
-    }
-
-    /// The PC1–PC2 scatter with group hulls (`None` with fewer than two components).
-    #[must_use]
-    pub fn morphospace_figure(&self) -> Option<Figure> {
-        if self.components() < 2 {
-            return None;
-        }
-        let p = &self.pca;
-        let xs: Vec<f64> = (0..self.n()).map(|s| p.scores[(s, 0)]).collect();
-        let ys: Vec<f64> = (0..self.n()).map(|s| p.scores[(s, 1)]).collect();
-        Some(plots::scatter_with_hulls(
-            &xs,
-            &ys,
-            &self.groups,
-            &format!("PC1 ({:.1}%)", 100.0 * p.proportions[0]),
-            &format!("PC2 ({:.1}%)", 100.0 * p.proportions[1]),
-            "Morphospace",
-        ))
-    }
-
-    /// Procrustes variance per group with its bootstrap interval.
-    #[must_use]
-    pub fn disparity_figure(&self) -> Figure {
-        let names: Vec<String> = self.disparity.iter().map(|d| d.group.clone()).collect();
-        let est: Vec<f64> = self
-            .disparity
-            .iter()
-            .map(|d| d.procrustes_variance)
-            .collect();
-        let lo: Vec<f64> = self.disparity.iter().map(|d| d.interval.lower).collect();
-        let hi: Vec<f64> = self.disparity.iter().map(|d| d.interval.upper).collect();
-        plots::intervals(
-            &names,
-            &est,
-            &lo,
-            &hi,
-            "Procrustes variance (95% bootstrap interval)",
-            "Disparity by group",
-        )
-    }
-
-    /// The mean shape and the shapes at ±2 SD along PC1, as wireframes in the x–y plane.
-    pub fn pc1_shapes_figure(&self) -> Result<Figure, AnalysisError> {
-        let (g, p, m) = (&self.gpa, &self.pca, self.dim);
-        let mean = to_points(&g.mean, m);
-        let sd = p.variances[0].sqrt();
-        let minus = to_points(&p.shape_at(&g.mean, g.scaled, 0, -2.0)?, m);
-        let plus = to_points(&p.shape_at(&g.mean, g.scaled, 0, 2.0)?, m);
-        let edges = spanning_tree(&mean);
-        let shapes = vec![
-            ("mean".to_owned(), mean),
-            ("PC1 -2 SD".to_owned(), minus),
-            ("PC1 +2 SD".to_owned(), plus),
-        ];
-        Ok(plots::wireframes(
-            &shapes,
-            &edges,
-            (0, 1),
-            &format!("PC1 shapes (SD {sd:.4})"),
-        ))
-    }
-
-    /// Writes the figures as SVG and PNG into `dir` and returns the paths written.
-    pub fn write_figures(&self, dir: &Path) -> Result<Vec<PathBuf>, AnalysisError> {
-        std::fs::create_dir_all(dir).map_err(|e| ExportError::os(dir, e))?;
-        let mut figures = Vec::new();
-        if let Some(f) = self.morphospace_figure() {
-            figures.push(("morphospace", f));
-        }
-        figures.push(("disparity", self.disparity_figure()));
-        figures.push(("pc1_shapes", self.pc1_shapes_figure()?));
-        let mut written = Vec::new();
-        for (name, f) in figures {
-            let stem = dir.join(name);
-            written.extend(save_figure(&f, &stem)?);
-        }
-        Ok(written)
-    }
 }
 
-fn write_csv_owned(
-    path: &Path,
-    header: &[String],
-    rows: &[Vec<String>],
-) -> Result<(), ExportError> {
-    let h: Vec<&str> = header.iter().map(String::as_str).collect();
-    write_csv(path, &h, rows)
-}
-
-fn write_anova(path: &Path, pa: &ProcrustesAnova) -> Result<(), ExportError> {
-    let row = |term: &str, tab: &AnovaTable| {
-        vec![
-            vec![
-                term.to_owned(),
-                "individual".into(),
-                num(tab.individual.ss),
-                num(tab.individual.df),
-                num(tab.individual.ms),
-                num(tab.f),
-                num(tab.p),
-                num(tab.repeatability),
-            ],
-            vec![
-                term.to_owned(),
-                "error".into(),
-                num(tab.error.ss),
-                num(tab.error.df),
-                num(tab.error.ms),
-                String::new(),
-                String::new(),
-                String::new(),
-            ],
-        ]
-    };
-    let mut rows = row("shape", &pa.shape);
-    rows.extend(row("centroid_size", &pa.size));
-    write_csv(
-        path,
-        &[
-            "variable",
-            "effect",
-            "ss",
-            "df",
-            "ms",
-            "f",
-            "p",
-            "repeatability",
-        ],
-        &rows,
-    )
-}
-
-fn to_points(c: &DMatrix<f64>, m: usize) -> Vec<[f64; 3]> {
-    (0..c.nrows())
-        .map(|r| {
-            let mut p = [0.0; 3];
-            for (d, v) in p.iter_mut().enumerate().take(m) {
-                *v = c[(r, d)];
-            }
-            p
-        })
-        .collect()
-}
-
-/// Links for a wireframe when the table carries none: the minimum spanning tree of the mean
-/// shape (Prim's algorithm), which joins each landmark to its nearest neighbours.
-fn spanning_tree(pts: &[[f64; 3]]) -> Vec<(usize, usize)> {
-    let n = pts.len();
-    if n < 2 {
-        return Vec::new();
-    }
-    let d = |a: usize, b: usize| (0..3).map(|c| (pts[a][c] - pts[b][c]).powi(2)).sum::<f64>();
-    let mut in_tree = vec![false; n];
-    let mut best: Vec<(f64, usize)> = (0..n).map(|j| (d(0, j), 0)).collect();
-    in_tree[0] = true;
-    let mut edges = Vec::with_capacity(n - 1);
-    for _ in 1..n {
-        let (j, _) = (0..n)
-            .filter(|&j| !in_tree[j])
-            .map(|j| (j, best[j].0))
-            .min_by(|a, b| a.1.total_cmp(&b.1))
-            .expect("a vertex remains");
-        in_tree[j] = true;
-        edges.push((best[j].1, j));
-        for q in 0..n {
-            if !in_tree[q] && d(j, q) < best[q].0 {
-                best[q] = (d(j, q), j);
-            }
-        }
-    }
-    edges
-}
-
-/// Writes `stem.svg` and `stem.png`.
-fn save_figure(f: &Figure, stem: &Path) -> Result<[PathBuf; 2], AnalysisError> {
-    let svg = stem.with_extension("svg");
-    crate::export::write_atomic(&svg, |w| w.write_all(f.to_svg().as_bytes()))?;
-    let png = stem.with_extension("png");
-    crate::render::png::save_png(&png, f.width as usize, f.height as usize, &f.to_rgba()?)?;
-    Ok([svg, png])
-}
+#[cfg(test)]
+mod degenerate;
 
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn spanning_tree_links_every_landmark_once() {
-        let pts = [
-            [0.0, 0.0, 0.0],
-            [1.0, 0.0, 0.0],
-            [5.0, 0.0, 0.0],
-            [1.0, 1.0, 0.0],
-        ];
-        let e = spanning_tree(&pts);
-        assert_eq!(e.len(), 3);
-        assert!(
-            e.contains(&(0, 1)) && e.contains(&(1, 3)) && e.contains(&(1, 2)),
-            "{e:?}"
-        );
-    }
 
     /// Two groups of four noisy triangles-plus-apex (3D): the analysis runs end to end, the
     /// group whose shapes vary more has the larger Procrustes variance, and partial disparity

@@ -159,7 +159,8 @@ pub fn scatter_with_hulls(
     f
 }
 
-/// Estimates with intervals, one row per name (e.g. disparity per group).
+/// Estimates with intervals, one row per name (e.g. disparity per group). A row whose estimate
+/// is not a number (a group of one has no variance) says "undefined" instead of a point.
 #[must_use]
 pub fn intervals(
     names: &[String],
@@ -213,12 +214,16 @@ pub fn intervals(
                 f.line((x.px(v), py - 7.0), (x.px(v), py + 7.0), c, 2.0);
             }
         }
-        f.items.push(Item::Circle {
-            centre: (x.px(estimate[i]), py),
-            radius: 5.5,
-            fill: c,
-            stroke: Rgba::BLACK,
-        });
+        if estimate[i].is_finite() {
+            f.items.push(Item::Circle {
+                centre: (x.px(estimate[i]), py),
+                radius: 5.5,
+                fill: c,
+                stroke: Rgba::BLACK,
+            });
+        } else {
+            f.text((x.px_lo + 8.0, py + 4.0), "undefined", 7.0, Anchor::Start);
+        }
     }
     f
 }

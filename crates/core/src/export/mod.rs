@@ -43,7 +43,7 @@ impl ExportError {
     pub(crate) fn format(path: &Path, what: impl Into<String>) -> Self {
         Self::Format {
             path: path.to_owned(),
-            what: what.into(),
+            what: crate::message::one_line(&what.into(), crate::message::MAX_DETAIL_CHARS),
         }
     }
 }
@@ -53,6 +53,15 @@ impl ExportError {
 pub fn write_atomic(
     path: &Path,
     fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> Result<(), ExportError> {
+    write_atomic_inner(path, None, |w| fill(w))
+}
+
+/// As [`write_atomic`], for writers that also seek (a TIFF encoder goes back to patch offsets):
+/// `fill` gets the buffered temporary file itself.
+pub fn write_atomic_seekable(
+    path: &Path,
+    fill: impl FnOnce(&mut std::io::BufWriter<std::fs::File>) -> std::io::Result<()>,
 ) -> Result<(), ExportError> {
     write_atomic_inner(path, None, fill)
 }
@@ -67,7 +76,7 @@ pub fn write_atomic_keeping_backup(
     backup: &Path,
     fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
 ) -> Result<(), ExportError> {
-    write_atomic_inner(path, Some(backup), fill)
+    write_atomic_inner(path, Some(backup), |w| fill(w))
 }
 
 /// The temporary name beside `path` used while writing it: `.NAME.tmp-PID`.
@@ -76,16 +85,62 @@ fn temp_name(dir: &Path, path: &Path) -> Result<PathBuf, ExportError> {
         .file_name()
         .ok_or_else(|| ExportError::format(path, "not a file name"))?;
     Ok(dir.join(format!(
-        ".{}.tmp-{}",
-        name.to_string_lossy(),
+        "{}{}",
+        temp_prefix(&name.to_string_lossy()),
         std::process::id()
     )))
+}
+
+/// `.NAME.tmp-`: what every temporary file of `NAME` starts with, before the writer's PID.
+fn temp_prefix(name: &str) -> String {
+    format!(".{name}.tmp-")
+}
+
+/// Removes the temporary files a killed writer left beside `path` (`.NAME.tmp-PID` and the
+/// backup's `.NAME.bak.tmp-PID`, see [`write_atomic_keeping_backup`]) whose process is gone.
+/// A writer that still runs keeps its file; so does one whose liveness cannot be told (no
+/// `/proc`), since removing a live writer's file would lose its save. Returns the files
+/// removed. Call it while holding the lock that keeps writers of `path` out (a project's lock).
+pub fn remove_stale_temp_files(path: &Path, backup: Option<&Path>) -> Vec<PathBuf> {
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d.to_owned(),
+        _ => PathBuf::from("."),
+    };
+    let prefixes: Vec<String> = [Some(path), backup]
+        .into_iter()
+        .flatten()
+        .filter_map(|p| p.file_name())
+        .map(|n| temp_prefix(&n.to_string_lossy()))
+        .collect();
+    let Ok(entries) = std::fs::read_dir(&dir) else {
+        return Vec::new();
+    };
+    let proc_fs = Path::new("/proc/self").exists();
+    let mut removed = Vec::new();
+    for entry in entries.filter_map(Result::ok) {
+        let name = entry.file_name().to_string_lossy().into_owned();
+        let Some(pid) = prefixes
+            .iter()
+            .find_map(|p| name.strip_prefix(p.as_str()))
+            .and_then(|rest| rest.parse::<u32>().ok())
+        else {
+            continue;
+        };
+        let alive = pid == std::process::id()
+            || !proc_fs
+            || Path::new("/proc").join(pid.to_string()).exists();
+        let is_file = entry.file_type().is_ok_and(|t| t.is_file());
+        if !alive && is_file && std::fs::remove_file(entry.path()).is_ok() {
+            removed.push(entry.path());
+        }
+    }
+    removed
 }
 
 fn write_atomic_inner(
     path: &Path,
     backup: Option<&Path>,
-    fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    fill: impl FnOnce(&mut std::io::BufWriter<std::fs::File>) -> std::io::Result<()>,
 ) -> Result<(), ExportError> {
     let dir = match path.parent() {
         Some(d) if !d.as_os_str().is_empty() => d.to_owned(),
@@ -242,6 +297,51 @@ mod tests {
             std::fs::read_dir(dir.path()).unwrap().count(),
             2,
             "no temp files left"
+        );
+    }
+
+    /// Temporary files of killed writers (dead PIDs) are removed; a live writer's stay, and so
+    /// do files that only look similar.
+    #[test]
+    fn stale_temp_files_of_dead_writers_are_removed() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.json");
+        let bak = dir.path().join("p.json.bak");
+        let mut child = std::process::Command::new("sleep")
+            .arg("30")
+            .spawn()
+            .unwrap();
+        // PIDs on Linux stay below 2^22 (pid_max), so these writers are gone
+        let dead = [".p.json.tmp-999999991", ".p.json.bak.tmp-999999992"];
+        let alive = [
+            format!(".p.json.tmp-{}", std::process::id()),
+            format!(".p.json.tmp-{}", child.id()),
+        ];
+        let others = [".p.json.tmp-notapid", ".q.json.tmp-999999993", "p.json"];
+        for n in dead
+            .iter()
+            .copied()
+            .chain(alive.iter().map(String::as_str))
+            .chain(others)
+        {
+            std::fs::write(dir.path().join(n), "x").unwrap();
+        }
+        let mut removed = remove_stale_temp_files(&p, Some(&bak));
+        removed.sort();
+        let names: Vec<String> = removed
+            .iter()
+            .map(|r| r.file_name().unwrap().to_string_lossy().into_owned())
+            .collect();
+        assert_eq!(names, vec![dead[1].to_owned(), dead[0].to_owned()]);
+        for n in alive.iter().map(String::as_str).chain(others) {
+            assert!(dir.path().join(n).exists(), "{n} kept");
+        }
+        child.kill().unwrap();
+        child.wait().unwrap();
+        assert_eq!(
+            remove_stale_temp_files(&p, Some(&bak)).len(),
+            1,
+            "the child's, once it is gone"
         );
     }
 

@@ -5,14 +5,17 @@
 //! - `trial` (optional, default `1`): the digitisation trial, for measurement error;
 //! - `landmark` (required): the landmark id;
 //! - `x`, `y` (required), `z` (optional: without it the table is 2D), in mm;
-//! - `state` (optional): `placed`, `missing` or `estimated`; a row with empty coordinates
-//!   is missing whatever its state says;
+//! - `state` (optional): `placed`, `missing` or `estimated`. A row marked missing is missing
+//!   whatever coordinates it holds; a row without a state and without coordinates (empty, `NaN`
+//!   or `NA`) is missing; a row marked placed or estimated must have all its coordinates, and
+//!   a row with some coordinates but not all is refused;
 //! - `group` (optional): a group label of the specimen (all its rows must agree).
 //!
 //! Every specimen × trial must name the same landmarks; the order of first appearance fixes the
 //! order of landmarks and of observations.
 
 use super::{ExportError, num, write_csv};
+use crate::message::quoted;
 use serde::Serialize;
 use std::collections::HashMap;
 use std::path::Path;
@@ -64,6 +67,7 @@ impl LandmarkTable {
     )]
     pub fn read_csv(path: &Path) -> Result<Self, ExportError> {
         type Rows = Vec<(usize, Option<[f64; 3]>, State)>;
+        crate::io::require_regular_file(path).map_err(|e| ExportError::os(path, e))?;
         let mut rdr = csv::ReaderBuilder::new()
             .trim(csv::Trim::All)
             .from_path(path)
@@ -107,41 +111,69 @@ impl LandmarkTable {
             } else {
                 trial
             };
-            let parse = |c: usize, name: &str| -> Result<Option<f64>, ExportError> {
+            // each coordinate: a number, or absent (empty, NaN or NA: common practice for a
+            // missing value in landmark tables)
+            let parse = |c: usize, name: &str| -> Result<Result<f64, String>, ExportError> {
                 let t = field(c);
-                if t.is_empty() || t.eq_ignore_ascii_case("nan") || t.eq_ignore_ascii_case("na") {
-                    return Ok(None);
+                if t.is_empty() {
+                    return Ok(Err("empty".into()));
+                }
+                if t.eq_ignore_ascii_case("nan") || t.eq_ignore_ascii_case("na") {
+                    return Ok(Err(quoted(t)));
                 }
                 t.parse::<f64>()
                     .ok()
                     .filter(|v| v.is_finite())
-                    .map(Some)
-                    .ok_or_else(|| at(format!("{name} = '{t}' is not a finite number")))
+                    .map(Ok)
+                    .ok_or_else(|| at(format!("{name} = {} is not a finite number", quoted(t))))
             };
-            let x = parse(c_x, "x")?;
-            let y = parse(c_y, "y")?;
-            let z = match c_z {
-                Some(c) => parse(c, "z")?,
-                None => Some(0.0),
-            };
-            let mut state = match c_state.map(field) {
-                None | Some("" | "placed") => State::Placed,
-                Some("missing") => State::Missing,
-                Some("estimated") => State::Estimated,
-                Some(s) => {
+            let mut cells = vec![("x", parse(c_x, "x")?), ("y", parse(c_y, "y")?)];
+            if let Some(c) = c_z {
+                cells.push(("z", parse(c, "z")?));
+            }
+            let state_cell = c_state.map_or("", field);
+            let state = match state_cell {
+                "" | "placed" => State::Placed,
+                "missing" => State::Missing,
+                "estimated" => State::Estimated,
+                s => {
                     return Err(at(format!(
-                        "state '{s}' is not placed, missing or estimated"
+                        "state {} is not placed, missing or estimated",
+                        quoted(s)
                     )));
                 }
             };
-            let coords = match (x, y, z) {
-                (Some(x), Some(y), Some(z)) if state != State::Missing => Some([x, y, z]),
-                (None, None, None) | (_, _, _) if state == State::Missing => None,
-                (None, None, None) => {
-                    state = State::Missing;
-                    None
+            let absent: Vec<(&str, &String)> = cells
+                .iter()
+                .filter_map(|(n, c)| c.as_ref().err().map(|why| (*n, why)))
+                .collect();
+            let (coords, state) = if state == State::Missing {
+                // a row marked missing is missing, whatever coordinates it still holds
+                (None, State::Missing)
+            } else if absent.is_empty() {
+                let mut p = [0.0; 3];
+                for (slot, (_, c)) in p.iter_mut().zip(&cells) {
+                    *slot = *c.as_ref().unwrap_or(&0.0);
                 }
-                _ => return Err(at("some coordinates given, others empty".into())),
+                (Some(p), state)
+            } else if absent.len() < cells.len() {
+                let given: Vec<&str> = cells
+                    .iter()
+                    .filter(|(_, c)| c.is_ok())
+                    .map(|(n, _)| *n)
+                    .collect();
+                let (n, why) = absent[0];
+                return Err(at(format!(
+                    "{lm}: {n} is {why} but {} {} given; a landmark has all its coordinates, or none (state missing)",
+                    given.join(" and "),
+                    if given.len() == 1 { "is" } else { "are" }
+                )));
+            } else if state_cell.is_empty() {
+                (None, State::Missing)
+            } else {
+                return Err(at(format!(
+                    "{lm} is marked {state_cell} but has no coordinates; give them, or mark it missing"
+                )));
             };
             let li = *lm_index.entry(lm.clone()).or_insert_with(|| {
                 landmarks.push(lm.clone());
@@ -267,7 +299,30 @@ impl LandmarkTable {
 }
 
 fn csv_error(path: &Path, e: &csv::Error) -> ExportError {
-    ExportError::format(path, format!("not a readable CSV: {e}"))
+    let line = |pos: &Option<csv::Position>| {
+        pos.as_ref()
+            .map_or_else(String::new, |p| format!("line {}: ", p.line()))
+    };
+    let what = match e.kind() {
+        csv::ErrorKind::Utf8 { pos, err } => format!(
+            "{}field {} is not UTF-8 text (save the table as UTF-8)",
+            line(pos),
+            err.field() + 1
+        ),
+        csv::ErrorKind::UnequalLengths {
+            pos,
+            expected_len,
+            len,
+        } => format!(
+            "{}{len} fields where the rows before have {expected_len}",
+            line(pos)
+        ),
+        csv::ErrorKind::Io(io) => {
+            return ExportError::os(path, std::io::Error::new(io.kind(), io.to_string()));
+        }
+        _ => format!("not a readable CSV: {e}"),
+    };
+    ExportError::format(path, what)
 }
 
 #[cfg(test)]
@@ -332,11 +387,27 @@ mod tests {
                 .contains("no 'landmark' column")
         );
         let p = write(dir.path(), "specimen,landmark,x,y\na,tip,1,\n");
+        let e = LandmarkTable::read_csv(&p).unwrap_err().to_string();
+        assert!(e.contains("line 2: tip: y is empty but x is given"), "{e}");
+        let p = write(dir.path(), "specimen,landmark,x,y,z\na,tip,NaN,1,2\n");
+        let e = LandmarkTable::read_csv(&p).unwrap_err().to_string();
+        assert!(e.contains("x is 'NaN' but y and z are given"), "{e}");
+        // placed with no coordinates is a contradiction, not a missing landmark
+        let p = write(dir.path(), "specimen,landmark,x,y,state\na,tip,,,placed\n");
+        let e = LandmarkTable::read_csv(&p).unwrap_err().to_string();
         assert!(
-            LandmarkTable::read_csv(&p)
-                .unwrap_err()
-                .to_string()
-                .contains("some coordinates")
+            e.contains("tip is marked placed but has no coordinates"),
+            "{e}"
         );
+        // NA everywhere without a state: missing
+        let p = write(
+            dir.path(),
+            "specimen,landmark,x,y\na,tip,NA,NA\na,base,1,2\n",
+        );
+        let t = LandmarkTable::read_csv(&p).unwrap();
+        assert_eq!(t.observations[0].states[0], State::Missing);
+        // a byte-order mark before the header is not part of the first column's name
+        let p = write(dir.path(), "\u{feff}specimen,landmark,x,y\na,tip,1,2\n");
+        assert!(LandmarkTable::read_csv(&p).is_ok());
     }
 }

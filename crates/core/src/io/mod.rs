@@ -33,7 +33,7 @@ pub enum IoError {
     #[error("{}: unsupported: {what}", path.display())]
     Unsupported { path: PathBuf, what: String },
     /// The header asks for more than the decode limits allow.
-    #[error("{}: {what} exceeds the limit of {limit} (raise it with the decode limits if the file is genuine)", path.display())]
+    #[error("{}: {what} exceeds Sutura's limit of {limit}: the header is damaged, or the scan is larger than Sutura opens", path.display())]
     LimitExceeded {
         path: PathBuf,
         what: String,
@@ -61,34 +61,49 @@ impl IoError {
     pub(crate) fn corrupt(path: &Path, what: impl Into<String>) -> Self {
         Self::Corrupt {
             path: path.to_owned(),
-            what: what.into(),
+            what: detail(what),
         }
     }
 
     pub(crate) fn unsupported(path: &Path, what: impl Into<String>) -> Self {
         Self::Unsupported {
             path: path.to_owned(),
-            what: what.into(),
+            what: detail(what),
         }
     }
 
     pub(crate) fn inconsistent(path: &Path, what: impl Into<String>) -> Self {
         Self::Inconsistent {
             path: path.to_owned(),
-            what: what.into(),
+            what: detail(what),
         }
     }
 
     pub(crate) fn usage(path: &Path, what: impl Into<String>) -> Self {
         Self::Usage {
             path: path.to_owned(),
-            what: what.into(),
+            what: detail(what),
         }
     }
 
     pub(crate) fn volume(path: &Path, e: &VolumeError) -> Self {
         Self::corrupt(path, e.to_string())
     }
+}
+
+/// An error of the atomic writer (`export::write_atomic`) as an error of the file written.
+impl From<crate::export::ExportError> for IoError {
+    fn from(e: crate::export::ExportError) -> Self {
+        match e {
+            crate::export::ExportError::Os { path, source } => Self::os(&path, source),
+            crate::export::ExportError::Format { path, what } => Self::usage(&path, what),
+        }
+    }
+}
+
+/// What is wrong inside a file, as one bounded line (see [`crate::message`]).
+fn detail(what: impl Into<String>) -> String {
+    crate::message::one_line(&what.into(), crate::message::MAX_DETAIL_CHARS)
 }
 
 /// Decode limits: a header that claims more is refused before anything is allocated.
@@ -153,7 +168,11 @@ impl Limits {
                     "{}x{}x{} voxels of {bytes_per_voxel} bytes",
                     dims[0], dims[1], dims[2]
                 ),
-                limit: format!("{} bytes", self.max_voxel_bytes),
+                limit: if self.max_voxel_bytes % (1 << 30) == 0 {
+                    format!("{} GiB", self.max_voxel_bytes >> 30)
+                } else {
+                    format!("{} bytes", self.max_voxel_bytes)
+                },
             }),
         }
     }
@@ -221,12 +240,40 @@ pub enum Format {
     Nifti,
 }
 
+/// Checks that `path` is a regular file (following links) without opening it: opening a named
+/// pipe waits for a writer forever, and a device or socket is no document. Every reader of a
+/// user's file (scan, project, scheme, landmark table) calls this first.
+pub fn require_regular_file(path: &Path) -> std::io::Result<std::fs::Metadata> {
+    use std::os::unix::fs::FileTypeExt;
+    let meta = std::fs::metadata(path)?;
+    if meta.is_file() {
+        return Ok(meta);
+    }
+    let t = meta.file_type();
+    let what = if meta.is_dir() {
+        "a folder"
+    } else if t.is_fifo() {
+        "a named pipe (FIFO)"
+    } else if t.is_socket() {
+        "a socket"
+    } else if t.is_block_device() || t.is_char_device() {
+        "a device"
+    } else {
+        "not a regular file"
+    };
+    Err(std::io::Error::new(
+        std::io::ErrorKind::InvalidInput,
+        format!("{what}, not a file Sutura can read"),
+    ))
+}
+
 /// Tells the format of a path from the file system and the first bytes of the file.
 pub fn detect(path: &Path) -> Result<Format, IoError> {
     let meta = std::fs::metadata(path).map_err(|e| IoError::os(path, e))?;
     if meta.is_dir() {
         return Ok(Format::TiffFolder);
     }
+    require_regular_file(path).map_err(|e| IoError::os(path, e))?;
     let mut magic = [0u8; 4];
     {
         use std::io::Read;

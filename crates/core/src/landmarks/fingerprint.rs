@@ -111,9 +111,9 @@ impl Fingerprint {
         let mut differences = Vec::new();
         if volume.dims() != self.dims {
             differences.push(format!(
-                "grid {:?}, recorded {:?}",
-                volume.dims(),
-                self.dims
+                "grid {}, recorded {}",
+                crate::message::numbers(&volume.dims()),
+                crate::message::numbers(&self.dims)
             ));
         }
         if volume.dtype().name() != self.dtype {

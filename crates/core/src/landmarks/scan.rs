@@ -24,7 +24,10 @@ pub fn open_scan(
     {
         return Err(IoError::usage(
             path,
-            format!("voxel size {s:?} mm is not positive and finite"),
+            format!(
+                "voxel size {} x {} x {} mm is not positive and finite",
+                s[0], s[1], s[2]
+            ),
         ));
     }
     let options = OpenOptions {
@@ -55,9 +58,10 @@ pub fn set_voxel_size(volume: &mut Volume, format: Format, s: [f64; 3]) {
             }
             let t = volume.world_from_voxel().translation();
             volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
-            volume
-                .notes
-                .push(format!("voxel size overridden by the user: {s:?} mm"));
+            volume.notes.push(format!(
+                "voxel size overridden by the user: {} x {} x {} mm",
+                s[0], s[1], s[2]
+            ));
         }
         Format::Tiff | Format::TiffFolder => {
             volume.set_world_from_voxel(Affine3::from_spacing(s));

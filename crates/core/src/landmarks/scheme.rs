@@ -67,14 +67,14 @@ pub enum SchemeError {
         source: std::io::Error,
     },
     /// The text is not TOML, or a key has the wrong type or is unknown.
-    #[error("{origin}{}: {message}", at_line(*line))]
+    #[error("{origin}{}: {}", at_line(*line), clean(message))]
     Syntax {
         origin: String,
         line: Option<usize>,
         message: String,
     },
     /// The TOML is well formed but the scheme breaks a rule; `key` says where.
-    #[error("{origin}{}: {key}: {what}", at_line(*line))]
+    #[error("{origin}{}: {}: {}", at_line(*line), clean(key), clean(what))]
     Invalid {
         origin: String,
         line: Option<usize>,
@@ -86,6 +86,11 @@ pub enum SchemeError {
          ({SCHEME_FORMAT_VERSION}); update Sutura to use it"
     )]
     Newer { origin: String, found: i64 },
+}
+
+/// A part of a message, as one bounded line (see [`crate::message`]).
+fn clean(text: &str) -> String {
+    crate::message::one_line(text, crate::message::MAX_DETAIL_CHARS)
 }
 
 fn at_line(line: Option<usize>) -> String {
@@ -227,10 +232,12 @@ impl Scheme {
     /// Reads and validates a scheme file; returns it with the file's text (which a project
     /// stores verbatim).
     pub fn load(path: &Path) -> Result<(Self, String), SchemeError> {
-        let text = std::fs::read_to_string(path).map_err(|source| SchemeError::Os {
-            path: path.to_owned(),
-            source,
-        })?;
+        let text = crate::io::require_regular_file(path)
+            .and_then(|_| std::fs::read_to_string(path))
+            .map_err(|source| SchemeError::Os {
+                path: path.to_owned(),
+                source,
+            })?;
         let scheme = Self::parse(&text, &path.display().to_string())?;
         Ok((scheme, text))
     }

@@ -6,6 +6,7 @@
 //! - [`window`]: window/level to grey, colour maps to RGBA;
 //! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
 //! - [`pyramid`]: block min/max copies of a volume for coarse passes and empty-space skipping;
+//! - [`budget`]: the pixel limit, and slices framed to where the plane crosses the scan;
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
 //! - [`text`]: the bundled font (`DejaVu Sans`) and its glyphs drawn as paths, for overlays and
 //!   charts;
@@ -21,6 +22,7 @@
 //!
 //! Only this module and `chart` (through resvg) draw with tiny-skia. Must not import `gui`.
 
+pub mod budget;
 pub mod overlay;
 pub mod png;
 pub mod pyramid;
@@ -31,6 +33,7 @@ pub mod window;
 
 mod geom;
 
+pub use budget::{DEFAULT_MAX_PIXELS, check_pixels};
 pub use raycast::{Camera, MipOptions, Quality, SurfaceImage, SurfaceOptions};
 pub use slice::{AxisPlane, Interpolation, Slab, SlabMode, SliceGeometry};
 pub use window::{ColourMap, WindowLevel};
@@ -68,6 +71,24 @@ pub enum RenderError {
         #[source]
         source: image::ImageError,
     },
+    /// The picture would pass the pixel limit (see [`budget`]).
+    #[error(
+        "a {} x {} pixel picture {}",
+        budget::count(*width),
+        budget::count(*height),
+        budget::what_is_passed(*width, *height, *max_pixels)
+    )]
+    TooManyPixels {
+        width: f64,
+        height: f64,
+        max_pixels: usize,
+    },
+    /// The plane (or slab) does not cross the volume's box.
+    #[error("the plane does not cross the scan")]
+    MissesVolume,
+    /// The file could not be written (full disk, no permission…).
+    #[error(transparent)]
+    Write(#[from] crate::export::ExportError),
 }
 
 /// The largest image side accepted, so that a bad parameter cannot ask for terabytes.

@@ -18,20 +18,27 @@ fn check_buffer(width: usize, height: usize, rgba: &[u8]) -> Result<(u32, u32), 
     Ok((width as u32, height as u32))
 }
 
-/// Writes `rgba` (`4·width·height` bytes, row-major, top row first) to `path` as PNG.
+/// Writes `rgba` (`4·width·height` bytes, row-major, top row first) to `path` as PNG,
+/// atomically (`export::write_atomic`): a full disk or a crash leaves the previous file or none,
+/// never a PNG cut short.
 pub fn save_png(path: &Path, width: usize, height: usize, rgba: &[u8]) -> Result<(), RenderError> {
     let (w, h) = check_buffer(width, height, rgba)?;
-    image::save_buffer_with_format(
-        path,
-        rgba,
-        w,
-        h,
-        image::ExtendedColorType::Rgba8,
-        image::ImageFormat::Png,
-    )
-    .map_err(|source| RenderError::Png {
-        path: path.display().to_string(),
-        source,
+    let mut failure = None;
+    crate::export::write_atomic(path, |out| {
+        image::codecs::png::PngEncoder::new(out)
+            .write_image(rgba, w, h, image::ExtendedColorType::Rgba8)
+            .map_err(|e| {
+                let io = std::io::Error::other(e.to_string());
+                failure = Some(e);
+                io
+            })
+    })
+    .map_err(|e| match failure {
+        Some(source) => RenderError::Png {
+            path: path.display().to_string(),
+            source,
+        },
+        None => RenderError::Write(e),
     })
 }
 

@@ -295,9 +295,20 @@ pub fn render_slice_into(
         Some(s) => {
             let t = check_positive("slab thickness", s.thickness_mm)?;
             let sp = volume.spacing_mm();
-            let h = 0.5 * sp[0].min(sp[1]).min(sp[2]);
-            let intervals = ((t / h).ceil() as usize).clamp(1, 1 << 16);
-            let dn = a.apply_vector(geometry.normal() * (t / intervals as f64));
+            // half the smallest spacing, but never less than half a voxel / √3 along the
+            // normal's major voxel axis (the same for ordinary voxels; bounded for a spacing
+            // of 1e-31 mm beside 0.07 mm)
+            let nv = a.apply_vector(geometry.normal());
+            let h = (0.5 * sp[0].min(sp[1]).min(sp[2])).max(0.5 / (3f64.sqrt() * nv.amax()));
+            // samples beyond the box count for nothing: a slab thicker than the box is sampled
+            // at the same spacing only as far as the box reaches
+            let reach = cell_corners(volume)
+                .iter()
+                .map(|c| (c - geometry.origin.0).dot(&geometry.normal()).abs())
+                .fold(0.0, f64::max);
+            let span = t.min(2.0 * reach + 2.0 * h);
+            let intervals = ((span / h).ceil() as usize).clamp(1, 1 << 16);
+            let dn = a.apply_vector(geometry.normal() * (span / intervals as f64));
             Some((intervals + 1, dn, s.mode))
         }
     };

@@ -200,6 +200,22 @@ pub(crate) fn rotate_in_place(x: &mut [f64], r: &[f64; 9], s: f64, m: usize) {
     }
 }
 
+/// Divides a flat configuration by its largest magnitude, centres it, and returns that
+/// magnitude and the centred configuration's size: the centroid size is their product, and
+/// neither over- nor underflows on the way (coordinates of 1e300 or 1e-300 are sized exactly).
+/// An all-zero configuration gives `(0, 0)`; a non-finite one `(∞ or NaN, …)`.
+pub(crate) fn centre_scaled(x: &mut [f64], m: usize) -> (f64, f64) {
+    let scale = x.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+    if !(scale > 0.0 && scale.is_finite()) {
+        return (scale, 0.0);
+    }
+    for v in x.iter_mut() {
+        *v /= scale;
+    }
+    centre_in_place(x, m);
+    (scale, sum_sq(x).sqrt())
+}
+
 /// Centres a flat configuration in place and returns its centroid.
 pub(crate) fn centre_in_place(x: &mut [f64], m: usize) -> [f64; 3] {
     let k = x.len() / m;
@@ -360,43 +376,63 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
     }
     let km = k * m;
     let mut x = sample.data().to_vec();
+    // Centre and size each specimen on coordinates divided by their largest magnitude, so that
+    // neither 1e300 mm nor 1e-300 mm over- or underflows the sum of squares.
     let centroid_sizes: Vec<f64> = x
         .par_chunks_mut(km)
         .map(|c| {
-            centre_in_place(c, m);
-            let cs = sum_sq(c).sqrt();
-            if opts.scale && cs > 0.0 {
+            let (scale, unit_size) = centre_scaled(c, m);
+            if opts.scale {
+                if unit_size > 0.0 {
+                    for v in c.iter_mut() {
+                        *v /= unit_size;
+                    }
+                }
+            } else {
                 for v in c.iter_mut() {
-                    *v /= cs;
+                    *v *= scale;
                 }
             }
-            cs
+            scale * unit_size
         })
         .collect();
+    if let Some(i) = centroid_sizes.iter().position(|c| !c.is_finite()) {
+        return Err(ShapeError::TooLarge(i));
+    }
     if opts.scale
         && let Some(i) = centroid_sizes.iter().position(|&c| c == 0.0)
     {
         return Err(ShapeError::ZeroSize(i));
     }
+    // The full fit scales each specimen by β = cos ρ to the mean. `x` keeps the unit-size
+    // preshapes (rotated onto the mean each round) and `beta` the scales, applied when the mean
+    // is formed and at the end: a specimen 90° from the mean in one round (β = 0) keeps its
+    // shape for the next, where scaling it in place would have lost it.
+    let full = opts.fit == Fit::Full;
+    let mut beta = vec![1.0; n];
     let mut mean = x[..km].to_vec();
     let mut iterations = 0;
     let mut change = f64::INFINITY;
     let mut converged = false;
-    let full = opts.fit == Fit::Full;
     while iterations < opts.max_iterations {
         iterations += 1;
         let mu = &mean;
         let sum = x
             .par_chunks_mut(km)
+            .zip(beta.par_iter_mut())
             .with_min_len(32)
             .try_fold(
                 || vec![0.0; km],
-                |mut acc, c| {
+                |mut acc, (c, b)| {
                     let h = cross(c, mu, m);
                     let (r, trace) = proper_rotation(&h, m)?;
-                    let s = if full { trace / sum_sq(c) } else { 1.0 };
-                    rotate_in_place(c, &r, s, m);
-                    acc.iter_mut().zip(c.iter()).for_each(|(a, v)| *a += v);
+                    rotate_in_place(c, &r, 1.0, m);
+                    if full {
+                        // ‖c‖ = ‖μ‖ = 1, so tr(Rᵀ H) is cos ρ
+                        *b = trace.max(0.0);
+                    }
+                    let bv = *b;
+                    acc.iter_mut().zip(c.iter()).for_each(|(a, v)| *a += bv * v);
                     Ok::<_, ShapeError>(acc)
                 },
             )
@@ -410,8 +446,8 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
         let mut new_mean: Vec<f64> = sum.iter().map(|v| v / n as f64).collect();
         if opts.scale {
             let size = sum_sq(&new_mean).sqrt();
-            if size == 0.0 {
-                return Err(ShapeError::ZeroSize(0));
+            if !(size > 0.0 && size.is_finite()) {
+                return Err(ShapeError::ZeroMean);
             }
             for v in &mut new_mean {
                 *v /= size;
@@ -427,6 +463,17 @@ pub fn gpa(sample: &Sample, opts: &GpaOptions) -> Result<Gpa, ShapeError> {
         if change < opts.tolerance {
             converged = true;
             break;
+        }
+    }
+    if full {
+        // cos ρ below 1e-9: the specimen lies 90° from the mean and the fit shrinks it to a point
+        if let Some(i) = beta.iter().position(|&b| b < 1e-9) {
+            return Err(ShapeError::FullFitCollapse(i));
+        }
+        for (c, b) in x.chunks_exact_mut(km).zip(&beta) {
+            for v in c.iter_mut() {
+                *v *= b;
+            }
         }
     }
     Ok(Gpa {

@@ -80,6 +80,18 @@ pub enum ShapeError {
     /// All landmarks of a configuration coincide, so it has no shape.
     #[error("specimen {0}: all landmarks coincide (centroid size 0)")]
     ZeroSize(usize),
+    /// A configuration's centroid size exceeds the largest floating-point number.
+    #[error("specimen {0}: coordinates too large (centroid size beyond 1.8e308)")]
+    TooLarge(usize),
+    /// In a full Procrustes fit a specimen lies 90° (the largest Procrustes distance) from the
+    /// mean shape, so the fit scales it by cos 90° = 0 and it loses its shape.
+    #[error(
+        "specimen {0}: 90° from the mean shape (as far apart as shapes can be), so a full Procrustes fit scales it to a point; use the partial fit"
+    )]
+    FullFitCollapse(usize),
+    /// The specimens cancel out: their mean configuration has size 0.
+    #[error("the specimens' mean configuration has size 0 (they cancel out); no mean shape")]
+    ZeroMean,
     /// A decomposition failed to converge.
     #[error("{0} did not converge")]
     NoConvergence(&'static str),

@@ -40,6 +40,13 @@ pub struct Pca {
 
 /// PCA of `data` (`n × p`, one specimen per row). Needs `n ≥ 2`.
 pub fn pca(data: &DMatrix<f64>) -> Result<Pca, ShapeError> {
+    pca_above(data, 0.0)
+}
+
+/// [`pca`], also dropping the components whose variance is at most `min_variance`: for data
+/// in known units, the variation that rounding alone makes (tangent coordinates of shapes that
+/// are the same up to pose and size differ by about 1e-16).
+pub fn pca_above(data: &DMatrix<f64>, min_variance: f64) -> Result<Pca, ShapeError> {
     let (n, p) = data.shape();
     if n < 2 {
         return Err(ShapeError::TooFewSpecimens {
@@ -87,7 +94,7 @@ pub fn pca(data: &DMatrix<f64>) -> Result<Pca, ShapeError> {
     let max_c = (n - 1).min(p);
     let keep: Vec<usize> = order
         .into_iter()
-        .filter(|&i| var[i] > 1e-12 * total_variance)
+        .filter(|&i| var[i] > 1e-12 * total_variance && var[i] > min_variance)
         .take(max_c)
         .collect();
     let c = keep.len();
@@ -133,6 +140,24 @@ impl Pca {
             )));
         }
         Ok(&self.center + self.loadings.column(pc) * (sd * self.variances[pc].sqrt()))
+    }
+
+    /// The largest `s ≤ sd` (in standard deviations) for which both tangent vectors
+    /// [`Self::tangent_at`]`(pc, ±s)` have length at most `max_norm`: with `c` the centre and
+    /// `d = √variance · loading`, the positive root of `‖c‖² + 2s|c·d| + s²‖d‖² = max_norm²`.
+    /// 0 when the centre itself is that long.
+    pub fn largest_excursion(&self, pc: usize, sd: f64, max_norm: f64) -> Result<f64, ShapeError> {
+        let d = self.tangent_at(pc, 1.0)? - &self.center;
+        let a = d.norm_squared();
+        let b = self.center.dot(&d).abs();
+        let c = self.center.norm_squared() - max_norm * max_norm;
+        if c >= 0.0 {
+            return Ok(0.0);
+        }
+        // roots of a s² + 2 b s + c; c < 0, so one is positive: (−b + √(b² − a c)) / a,
+        // written without the cancellation of −b + √…
+        let root = -c / (b + (b * b - a * c).sqrt());
+        Ok(root.min(sd))
     }
 
     /// The configuration `sd` standard deviations along component `pc` from the mean, mapped

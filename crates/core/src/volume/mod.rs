@@ -189,9 +189,9 @@ impl Rescale {
 /// Why a volume cannot be built from its parts.
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum VolumeError {
-    #[error("dimensions {0:?} hold {1} voxels but {2} were given")]
+    #[error("dimensions {}x{}x{} hold {} voxels but {} were given", .0[0], .0[1], .0[2], .1, .2)]
     LengthMismatch([usize; 3], usize, usize),
-    #[error("dimensions {0:?} have a zero or overflow")]
+    #[error("dimensions {}x{}x{} have a zero or overflow", .0[0], .0[1], .0[2])]
     BadDims([usize; 3]),
 }
 

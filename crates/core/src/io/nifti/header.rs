@@ -62,7 +62,7 @@ pub enum HeaderError {
     TooShort(usize),
     #[error("sizeof_hdr is {0} in both byte orders, expected 348 (NIfTI-1) or 540 (NIfTI-2)")]
     BadSize(u32),
-    #[error("no NIfTI magic (found {0:?}); an Analyze 7.5 header is not read")]
+    #[error("no NIfTI magic (found {}); an Analyze 7.5 header is not read", crate::message::quoted(.0))]
     BadMagic(String),
 }
 

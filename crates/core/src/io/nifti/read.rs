@@ -275,7 +275,10 @@ fn placement(
     if !finite_all(&h.pixdim[1..4]) {
         return Err(IoError::corrupt(
             path,
-            format!("pixdim {:?} is not finite", &h.pixdim[1..4]),
+            format!(
+                "pixdim[1..3] = {} is not finite",
+                crate::message::numbers(&h.pixdim[1..4])
+            ),
         ));
     }
     let mm_per_unit = h.mm_per_unit().unwrap_or_else(|| {
@@ -300,23 +303,46 @@ fn placement(
         }
         if h.pixdim[1..4].iter().any(|&d| d <= 0.0) {
             notes.push(format!(
-                "pixdim {:?} has a non-positive voxel size; 1 used for it in the qform (nifti1_io rule)",
-                &h.pixdim[1..4]
+                "pixdim[1..3] = {} has a non-positive voxel size; 1 used for it in the qform (nifti1_io rule)",
+                crate::message::numbers(&h.pixdim[1..4])
             ));
         }
         (h.qform_matrix(), "qform")
     } else {
         if h.pixdim[1..4].contains(&0.0) {
             notes.push(format!(
-                "pixdim {:?} has a zero voxel size; 1 used for it",
-                &h.pixdim[1..4]
+                "pixdim[1..3] = {} has a zero voxel size; 1 used for it",
+                crate::message::numbers(&h.pixdim[1..4])
             ));
         }
         notes.push("no sform or qform: voxels placed by pixdim scaling alone".into());
         (h.pixdim_matrix(), "pixdim")
     };
-    header::affine(header::to_mm(&m, mm_per_unit))
-        .map_err(|e| IoError::corrupt(path, format!("{method}: {e}")))
+    let affine = header::affine(header::to_mm(&m, mm_per_unit))
+        .map_err(|e| IoError::corrupt(path, format!("{method}: {e}")))?;
+    // Every length, area and step downstream comes from these column lengths: refuse one that
+    // is infinite or zero (a column whose squared length over- or underflows f64).
+    for (axis, len) in affine.column_lengths().into_iter().enumerate() {
+        if !(len.is_finite() && len > 0.0) {
+            let field = match method {
+                "sform" => format!("column {} of srow_x/srow_y/srow_z", axis + 1),
+                _ => format!("pixdim[{}]", axis + 1),
+            };
+            let why = if len.is_finite() {
+                "its length underflows to 0"
+            } else {
+                "its length overflows"
+            };
+            return Err(IoError::corrupt(
+                path,
+                format!(
+                    "{method}: the voxel size along {} ({field}) is {len} mm: {why}",
+                    ["i", "j", "k"][axis]
+                ),
+            ));
+        }
+    }
+    Ok(affine)
 }
 
 fn plan(
@@ -350,7 +376,10 @@ fn plan(
     if !vo.is_finite() || vo < 0.0 || vo.fract() != 0.0 || vo > 9.0e15 {
         return Err(IoError::corrupt(
             path,
-            format!("vox_offset {vo} is not a byte offset"),
+            format!(
+                "vox_offset {} is not a byte offset",
+                crate::message::number(vo)
+            ),
         ));
     }
     let mut offset = vo as u64;

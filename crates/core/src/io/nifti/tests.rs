@@ -196,7 +196,7 @@ fn refuses_bad_headers_with_the_reason() {
         b[42..44].copy_from_slice(&30000i16.to_le_bytes());
         b[44..46].copy_from_slice(&30000i16.to_le_bytes());
     });
-    assert!(e.contains("exceeds the limit"), "{e}");
+    assert!(e.contains("exceeds Sutura's limit"), "{e}");
 }
 
 #[test]

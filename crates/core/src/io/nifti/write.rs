@@ -15,7 +15,7 @@
 use super::header::{Header, Version, linear_to_quatern};
 use crate::io::IoError;
 use crate::volume::{DType, Volume};
-use std::io::{BufWriter, Write};
+use std::io::Write;
 use std::path::Path;
 
 /// Bytes handed to the file (or the deflater) per `write` call.
@@ -101,33 +101,24 @@ pub fn write(volume: &Volume, path: &Path) -> Result<(), IoError> {
         ));
     }
     let header = header_for(volume).to_bytes();
-    let file = std::fs::File::create(path).map_err(|e| IoError::os(path, e))?;
-    let os = |e| IoError::os(path, e);
     let body: &[u8] = crate::with_voxels!(volume.voxels(), |s| bytemuck::cast_slice(s));
-    if name.ends_with(".gz") {
-        let mut enc = flate2::write::GzEncoder::new(
-            BufWriter::with_capacity(1 << 20, file),
-            flate2::Compression::new(6),
-        );
-        enc.write_all(&header).map_err(os)?;
-        for c in body.chunks(WRITE_CHUNK_BYTES) {
-            enc.write_all(c).map_err(os)?;
+    // atomically: a crash or a full disk leaves the previous file or none, never half a scan
+    crate::export::write_atomic(path, |w| {
+        if name.ends_with(".gz") {
+            let mut enc = flate2::write::GzEncoder::new(w, flate2::Compression::new(6));
+            enc.write_all(&header)?;
+            for c in body.chunks(WRITE_CHUNK_BYTES) {
+                enc.write_all(c)?;
+            }
+            enc.finish().map(|_| ())
+        } else {
+            w.write_all(&header)?;
+            for c in body.chunks(WRITE_CHUNK_BYTES) {
+                w.write_all(c)?;
+            }
+            Ok(())
         }
-        let w = enc.finish().map_err(os)?;
-        w.into_inner()
-            .map_err(|e| IoError::os(path, e.into_error()))?
-            .sync_all()
-            .map_err(os)?;
-    } else {
-        let mut w = BufWriter::with_capacity(1 << 20, file);
-        w.write_all(&header).map_err(os)?;
-        for c in body.chunks(WRITE_CHUNK_BYTES) {
-            w.write_all(c).map_err(os)?;
-        }
-        w.into_inner()
-            .map_err(|e| IoError::os(path, e.into_error()))?
-            .sync_all()
-            .map_err(os)?;
-    }
+    })
+    .map_err(IoError::from)?;
     Ok(())
 }

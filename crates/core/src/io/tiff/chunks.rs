@@ -185,6 +185,25 @@ pub(super) fn plan(
     if offsets.len() < n_chunks || counts.len() < n_chunks {
         return Ok(None);
     }
+    let file_len = dec
+        .inner()
+        .get_ref()
+        .metadata()
+        .map_err(|e| IoError::os(path, e))?
+        .len();
+    if let Some((i, &o)) = offsets[..n_chunks]
+        .iter()
+        .enumerate()
+        .find(|&(_, &o)| o > file_len)
+    {
+        let kind = if tiled { "tile" } else { "strip" };
+        return Err(IoError::corrupt(
+            path,
+            format!(
+                "{kind} {i} starts at offset {o}, beyond the end of the file ({file_len} bytes)"
+            ),
+        ));
+    }
     Ok(Some(ChunkPlan {
         codec,
         predictor,

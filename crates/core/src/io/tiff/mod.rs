@@ -21,6 +21,7 @@
 
 mod chunks;
 mod folder;
+mod ifd;
 mod page;
 mod write;
 
@@ -47,9 +48,9 @@ pub fn open_folder(
 ) -> Result<Volume, IoError> {
     let files = list_slices(path, options.limits.max_slices)?;
     let first_path = &files[0];
-    let mut first_dec = page::open_decoder(first_path)?;
+    let (mut first_dec, walk) = page::open_decoder(first_path)?;
     let first = page::probe(&mut first_dec, first_path)?;
-    let described = page::described_voxel_size(&mut first_dec, first_path)?;
+    let described = page::described_voxel_size(&mut first_dec, &walk, first_path)?;
     drop(first_dec);
     let dims = [
         u64::from(first.shape.width),
@@ -70,7 +71,7 @@ pub fn open_folder(
                     path: path.to_owned(),
                 });
             }
-            let mut dec = page::open_decoder(file)?;
+            let (mut dec, _) = page::open_decoder(file)?;
             let info = page::probe(&mut dec, file)?;
             if info.shape != first.shape {
                 return Err(IoError::inconsistent(
@@ -104,9 +105,9 @@ pub fn open_file(
 ) -> Result<Volume, IoError> {
     // One sequential walk over the directory chain: every page's shape, and the byte ranges of
     // uncompressed pages. The crate refuses cyclic chains; the count is capped by the limits.
-    let mut dec = page::open_decoder(path)?;
+    let (mut dec, mut walk) = page::open_decoder(path)?;
     let first = page::probe(&mut dec, path)?;
-    let described = page::described_voxel_size(&mut dec, path)?;
+    let described = page::described_voxel_size(&mut dec, &walk, path)?;
     let mut infos = vec![first];
     while dec.more_images() {
         if infos.len() as u64 >= options.limits.max_axis {
@@ -117,7 +118,7 @@ pub fn open_file(
             });
         }
         let index = infos.len();
-        page::catch(path, || dec.next_image()).map_err(|e| page::with_page(e, path, index))?;
+        page::next_image(&mut dec, &mut walk, path)?;
         let info = page::probe(&mut dec, path).map_err(|e| page::with_page(e, path, index))?;
         if info.shape != infos[0].shape {
             return Err(IoError::inconsistent(
@@ -181,7 +182,8 @@ pub fn open_file(
             .enumerate()
             .try_for_each_init(Scratch::default, |scratch, (run, dst_run)| {
                 let start = run * per_run;
-                let mut dec = page::open_decoder(path)?;
+                // every directory was checked in the walk above
+                let (mut dec, _) = page::open_decoder(path)?;
                 page::catch(path, || dec.seek_to_image(start))
                     .map_err(|e| page::with_page(e, path, start))?;
                 for (offset, dst) in dst_run.chunks_mut(page_bytes).enumerate() {
@@ -286,7 +288,10 @@ fn voxel_size(
         }
         return Err(IoError::usage(
             path,
-            format!("voxel size {s:?} mm is not positive and finite"),
+            format!(
+                "voxel size {} x {} x {} mm is not positive and finite",
+                s[0], s[1], s[2]
+            ),
         ));
     }
     if let Some(r) = resolution {

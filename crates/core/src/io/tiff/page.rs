@@ -1,12 +1,17 @@
 //! One TIFF page: what its directory says ([`probe`]) and its pixels ([`decode`]).
 //!
-//! The `tiff` crate parses directories and decodes compressed data. Its errors are mapped onto
-//! [`IoError`] categories; as a last resort every call into it runs under `catch_unwind`, so that
-//! a panic inside the crate on a malformed file becomes a `Corrupt` error instead of taking the
-//! program down (a guard, not a known bug: no panic is known in tiff 0.11).
+//! The `tiff` crate parses directories and decodes compressed data. Every directory is checked
+//! by [`super::ifd`] before the crate reads it ([`open_decoder`], [`next_image`]), so that
+//! counts and offsets a damaged file makes up are refused in words, before the crate allocates
+//! for them or prints its own debug output. The crate's errors are mapped onto [`IoError`]
+//! categories in Sutura's words (no debug formatting of its enums); as a last resort every
+//! call into it runs under `catch_unwind`, so that a panic inside the crate on a malformed file
+//! becomes a `Corrupt` error instead of taking the program down (a guard, not a known bug: no
+//! panic is known in tiff 0.11).
 
 use super::FileDecoder;
 use super::chunks::{self, ChunkPlan, Scratch};
+use super::ifd;
 use crate::io::IoError;
 use crate::volume::DType;
 use std::fs::File;
@@ -66,8 +71,14 @@ pub(super) const DESCRIPTION_KEY: &str = "voxel_size_mm";
 /// is `Err` with what is wrong, for a note.
 pub(super) fn described_voxel_size(
     dec: &mut FileDecoder,
+    walk: &Walk,
     path: &Path,
 ) -> Result<Result<Option<[f64; 3]>, String>, IoError> {
+    if let Some(why) = &walk.unreadable_description {
+        return Ok(Err(format!(
+            "{why}; the description (and any voxel size in it) is ignored"
+        )));
+    }
     let Some(tiff::decoder::ifd::Value::Ascii(text)) =
         catch(path, || dec.find_tag(Tag::ImageDescription))?
     else {
@@ -107,18 +118,95 @@ pub(super) fn catch<T>(path: &Path, f: impl FnOnce() -> TiffResult<T>) -> Result
 }
 
 fn map_err(path: &Path, e: TiffError) -> IoError {
+    use std::io::ErrorKind;
+    use tiff::{TiffFormatError as F, TiffUnsupportedError as U};
+    let tag = |t: Tag| ifd::tag_label(t.to_u16());
     match e {
-        TiffError::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
-            IoError::corrupt(path, format!("truncated or incomplete data: {io}"))
-        }
-        TiffError::IoError(io) => IoError::corrupt(path, format!("cannot decode: {io}")),
-        TiffError::UnsupportedError(u) => IoError::unsupported(path, u.to_string()),
-        TiffError::LimitsExceeded => IoError::LimitExceeded {
-            path: path.to_owned(),
-            what: "a TIFF directory value or strip".into(),
-            limit: "the decoder's internal buffer limit".into(),
+        TiffError::IoError(io) => match io.kind() {
+            ErrorKind::UnexpectedEof => IoError::corrupt(
+                path,
+                "truncated: data the directory points to run past the end of the file",
+            ),
+            // a seek past any file's size (an offset of 2^63 or more)
+            ErrorKind::InvalidInput => IoError::corrupt(
+                path,
+                "an offset in the file points far beyond its end (damaged file)",
+            ),
+            _ => IoError::os(path, io),
         },
-        other => IoError::corrupt(path, other.to_string()),
+        TiffError::FormatError(f) => IoError::corrupt(
+            path,
+            match f {
+                F::TiffSignatureNotFound | F::TiffSignatureInvalid => {
+                    "not a TIFF file (bad header)".to_owned()
+                }
+                F::ImageFileDirectoryNotFound => "a page's directory is missing".to_owned(),
+                F::InvalidDimensions(w, h) => format!("page is {w}x{h} pixels"),
+                F::InvalidTagValueType(t) => format!("{} has a value of the wrong type", tag(t)),
+                F::RequiredTagNotFound(t) => format!("{} is missing", tag(t)),
+                F::InvalidCountForTag(t, n) => format!("{} has {n} values, a wrong number", tag(t)),
+                F::UnknownPredictor(p) => format!("unknown predictor {p}"),
+                F::UnknownPlanarConfiguration(c) => format!("unknown planar configuration {c}"),
+                F::CycleInOffsets => {
+                    "its pages form a loop (a directory points back to an earlier one)".to_owned()
+                }
+                F::SamplesPerPixelIsZero => "0 samples per pixel".to_owned(),
+                F::CompressedDataCorrupt(m) => format!("compressed data damaged: {m}"),
+                F::StripTileTagConflict => {
+                    "a page has both strips and tiles, or neither".to_owned()
+                }
+                _ => "a page's directory is damaged (an invalid tag, type or size)".to_owned(),
+            },
+        ),
+        TiffError::UnsupportedError(u) => IoError::unsupported(
+            path,
+            match u {
+                U::UnsupportedSampleFormat(v) => format!(
+                    "sample format tag with {} values{}; Sutura reads one sample per pixel, unsigned, signed or float",
+                    v.len(),
+                    if v.len() == 1 {
+                        ""
+                    } else {
+                        " (one per sample)"
+                    }
+                ),
+                U::InconsistentBitsPerSample(v) => {
+                    format!(
+                        "bits per sample differ between the {} samples of a pixel",
+                        v.len()
+                    )
+                }
+                U::UnsupportedSampleDepth(n) => format!("{n} samples per pixel"),
+                U::UnsupportedBitsPerChannel(n) => format!("{n} bits per sample"),
+                U::UnsupportedPlanarConfig(_) => "this planar configuration".to_owned(),
+                U::UnknownInterpretation | U::UnsupportedInterpretation(_) => {
+                    "this photometric interpretation (colour model)".to_owned()
+                }
+                U::UnknownCompressionMethod | U::UnsupportedCompressionMethod(_) => {
+                    "this compression method".to_owned()
+                }
+                U::FloatingPointPredictor(_) | U::HorizontalPredictor(_) => {
+                    "this predictor on these samples".to_owned()
+                }
+                _ => "a TIFF feature Sutura does not read (colour, subsampling or odd bit depths)"
+                    .to_owned(),
+            },
+        ),
+        TiffError::LimitsExceeded => IoError::corrupt(
+            path,
+            format!(
+                "a tag's value is larger than {} MiB, more than a scan's TIFF directory holds (damaged file)",
+                ifd::MAX_TEXT_BYTES >> 20
+            ),
+        ),
+        TiffError::IntSizeError => IoError::corrupt(
+            path,
+            "a size or offset in the file is larger than this computer can address",
+        ),
+        TiffError::UsageError(_) => IoError::corrupt(
+            path,
+            "the TIFF decoder was asked for data the page does not have (damaged directory)",
+        ),
     }
 }
 
@@ -136,18 +224,53 @@ pub(super) fn with_page(e: IoError, path: &Path, index: usize) -> IoError {
     }
 }
 
-/// Opens a file and reads its first directory.
-pub(super) fn open_decoder(path: &Path) -> Result<FileDecoder, IoError> {
+/// Where a decoder is in the file's chain of directories, checked one ahead of the crate.
+pub(super) struct Walk {
+    layout: ifd::Layout,
+    /// Offset of the next directory (0: none).
+    next: u64,
+    /// Index of the current page.
+    index: usize,
+    /// Why the current page's `ImageDescription` is not read, if it is not.
+    pub unreadable_description: Option<String>,
+}
+
+/// Opens a file and reads its first directory (checked first, see [`super::ifd`]).
+pub(super) fn open_decoder(path: &Path) -> Result<(FileDecoder, Walk), IoError> {
     let file = File::open(path).map_err(|e| IoError::os(path, e))?;
+    let (layout, first) = ifd::header(&file, path)?;
+    let dir = ifd::check(&file, path, layout, first, 0)?;
+    let walk = Walk {
+        layout,
+        next: dir.next,
+        index: 0,
+        unreadable_description: dir.unreadable_description,
+    };
     // Pixels are decoded into the caller's buffer (sized by our own limits), never into a
     // crate-allocated result, so the crate's `decoding_buffer_size` only bounds the arrays it
     // allocates for tag values (strip offsets etc.): 16 MiB is ample for 65,536 strips and
     // keeps a corrupt count from asking for exabytes. The other limits stay at their defaults.
     let mut limits = tiff::decoder::Limits::default();
     limits.decoding_buffer_size = 16 << 20;
-    catch(path, || {
+    let dec = catch(path, || {
         Decoder::new(BufReader::new(file)).map(|d| d.with_limits(limits))
-    })
+    })?;
+    Ok((dec, walk))
+}
+
+/// Moves the decoder to the next page, checking its directory first.
+pub(super) fn next_image(
+    dec: &mut FileDecoder,
+    walk: &mut Walk,
+    path: &Path,
+) -> Result<(), IoError> {
+    let index = walk.index + 1;
+    let dir = ifd::check(dec.inner().get_ref(), path, walk.layout, walk.next, index)?;
+    catch(path, || dec.next_image()).map_err(|e| with_page(e, path, index))?;
+    walk.next = dir.next;
+    walk.index = index;
+    walk.unreadable_description = dir.unreadable_description;
+    Ok(())
 }
 
 pub(super) fn first_u16(

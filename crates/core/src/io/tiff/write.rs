@@ -63,13 +63,10 @@ pub fn write_stack_with(
     let digits = nz.saturating_sub(1).to_string().len().max(4);
     (0..nz).into_par_iter().try_for_each(|k| {
         let path = dir.join(format!("slice_{k:0digits$}.tif"));
-        let file = File::create(&path).map_err(|e| IoError::os(&path, e))?;
-        let mut enc = TiffEncoder::new(BufWriter::new(file))
-            .map_err(|e| encode_err(&path, &e))?
-            .with_compression(compression(options));
-        write_pages(&mut enc, volume, w, h, k..k + 1).map_err(|e| encode_err(&path, &e))?;
-        drop(enc);
-        Ok::<_, IoError>(())
+        atomic(&path, |out| {
+            let mut enc = TiffEncoder::new(out)?.with_compression(compression(options));
+            write_pages(&mut enc, volume, w, h, k..k + 1)
+        })
     })?;
     Ok(notes(volume))
 }
@@ -82,24 +79,40 @@ pub fn write_multipage(
 ) -> Result<Vec<String>, IoError> {
     let (w, h) = page_size(volume, path)?;
     let nz = volume.dims()[2];
-    let file = File::create(path).map_err(|e| IoError::os(path, e))?;
-    let writer = BufWriter::with_capacity(1 << 20, file);
     // room for each page's directory and tags beside the pixel data (common practice: a few
     // hundred bytes per directory; 4 KiB is generous)
     let needed = volume.voxel_bytes() as u64 + nz as u64 * 4096;
-    let result = if needed > u64::from(u32::MAX) {
-        let mut enc = TiffEncoder::new_big(writer)
-            .map_err(|e| encode_err(path, &e))?
-            .with_compression(compression(options));
-        write_pages(&mut enc, volume, w, h, 0..nz)
-    } else {
-        let mut enc = TiffEncoder::new(writer)
-            .map_err(|e| encode_err(path, &e))?
-            .with_compression(compression(options));
-        write_pages(&mut enc, volume, w, h, 0..nz)
-    };
-    result.map_err(|e| encode_err(path, &e))?;
+    atomic(path, |out| {
+        if needed > u64::from(u32::MAX) {
+            let mut enc = TiffEncoder::new_big(out)?.with_compression(compression(options));
+            write_pages(&mut enc, volume, w, h, 0..nz)
+        } else {
+            let mut enc = TiffEncoder::new(out)?.with_compression(compression(options));
+            write_pages(&mut enc, volume, w, h, 0..nz)
+        }
+    })?;
     Ok(notes(volume))
+}
+
+/// Writes one TIFF file atomically (`export::write_atomic_seekable`): a crash or a full disk
+/// leaves the previous file or none, never a file cut short.
+fn atomic(
+    path: &Path,
+    fill: impl FnOnce(&mut BufWriter<File>) -> TiffResult<()>,
+) -> Result<(), IoError> {
+    let mut failure = None;
+    let written = crate::export::write_atomic_seekable(path, |out| {
+        fill(out).map_err(|e| {
+            let io = std::io::Error::other(e.to_string());
+            failure = Some(e);
+            io
+        })
+    });
+    match (written, failure) {
+        (Ok(()), _) => Ok(()),
+        (Err(_), Some(e)) => Err(encode_err(path, &e)),
+        (Err(e), None) => Err(e.into()),
+    }
 }
 
 fn compression(options: WriteOptions) -> Compression {

@@ -244,7 +244,8 @@ impl Edit {
             } => {
                 if !position_mm.iter().all(|v| v.is_finite()) {
                     return Err(EditError::Invalid(format!(
-                        "position {position_mm:?} mm is not finite"
+                        "position {} mm is not finite",
+                        crate::message::numbers(&position_mm)
                     )));
                 }
                 if let Some(p) = &pick {

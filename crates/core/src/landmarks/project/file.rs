@@ -150,6 +150,23 @@ pub fn lock_path(project_file: &Path) -> PathBuf {
     super::project_dir(project_file).join(format!(".{name}.lock"))
 }
 
+/// Removes the temporary files of the project, its backup and its autosave that a save killed
+/// mid-way left behind (`.NAME.tmp-PID`, whose process is gone; see
+/// `export::remove_stale_temp_files`). Runs on every load and save; returns what it removed.
+#[allow(
+    clippy::must_use_candidate,
+    reason = "called for its effect; the list is for tests"
+)]
+pub fn remove_stale_temp_files(project_file: &Path) -> Vec<PathBuf> {
+    let mut removed =
+        crate::export::remove_stale_temp_files(project_file, Some(&backup_path(project_file)));
+    removed.extend(crate::export::remove_stale_temp_files(
+        &autosave_path(project_file),
+        None,
+    ));
+    removed
+}
+
 /// An exclusive advisory lock on a project, held until dropped, so two programs (the command
 /// line and the GUI, or two scripts) cannot both read, change and save it and lose one's work.
 #[derive(Debug)]
@@ -253,10 +270,13 @@ struct OnDiskRef<'a> {
 impl Project {
     /// Reads a project file (migrating an older format in memory).
     pub fn load(path: &Path) -> Result<Self, ProjectError> {
-        let bytes = std::fs::read(path).map_err(|source| ProjectError::Os {
-            path: path.to_owned(),
-            source,
-        })?;
+        let bytes = crate::io::require_regular_file(path)
+            .and_then(|_| std::fs::read(path))
+            .map_err(|source| ProjectError::Os {
+                path: path.to_owned(),
+                source,
+            })?;
+        remove_stale_temp_files(path);
         Self::from_slice(&bytes, path)
     }
 
@@ -264,8 +284,10 @@ impl Project {
     pub fn from_slice(bytes: &[u8], path: &Path) -> Result<Self, ProjectError> {
         let corrupt = |what: String| ProjectError::Corrupt {
             path: path.to_owned(),
-            what,
+            what: crate::message::one_line(&what, crate::message::MAX_DETAIL_CHARS),
         };
+        // a UTF-8 byte-order mark, as some editors write, is not part of the JSON
+        let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
         let mut value: serde_json::Value = serde_json::from_slice(bytes)
             .map_err(|e| corrupt(format!("not a readable JSON file: {e}")))?;
         if value.get("format").and_then(|f| f.as_str()) != Some(FORMAT_NAME) {
@@ -338,8 +360,10 @@ impl Project {
         out
     }
 
-    /// Saves atomically, keeping the previous file as [`backup_path`].
+    /// Saves atomically, keeping the previous file as [`backup_path`]; first removes the
+    /// temporary files that killed saves left behind ([`remove_stale_temp_files`]).
     pub fn save(&self, path: &Path) -> Result<(), ProjectError> {
+        remove_stale_temp_files(path);
         write_atomic_keeping_backup(path, &backup_path(path), |w| self.write_to(w))?;
         Ok(())
     }

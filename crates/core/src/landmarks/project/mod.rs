@@ -28,16 +28,18 @@
 //! GUI's undo stack is a stack of inverses. The file format lives in [`file`]; [`points`]
 //! flattens the landmarks for export.
 
+mod check;
 pub mod create;
 mod edit;
 pub mod file;
 pub mod points;
 pub mod session;
 
+pub use check::ScanStatus;
 pub use edit::{Edit, EditError};
 pub use file::{
     AutosaveStatus, FORMAT_NAME, FORMAT_VERSION, ProjectError, ProjectLock, autosave_path,
-    autosave_status, backup_path, is_project_file, lock_path,
+    autosave_status, backup_path, is_project_file, lock_path, remove_stale_temp_files,
 };
 pub use session::{Session, SessionError};
 
@@ -641,6 +643,37 @@ fn finite(p: &[f64; 3]) -> bool {
     p.iter().all(|v| v.is_finite())
 }
 
+/// Why a landmark's state, position and method do not go together, in words.
+fn state_mismatch(
+    state: LandmarkState,
+    position: Option<[f64; 3]>,
+    method: Option<Method>,
+) -> String {
+    let name = state.name();
+    match (state, position, method) {
+        (LandmarkState::Missing, Some(_), _) => {
+            "is marked missing but has a position (remove position_mm, or mark it placed)".into()
+        }
+        (LandmarkState::Missing, None, Some(m)) => format!(
+            "is marked missing but has a method ({}); a missing landmark has none",
+            m.name()
+        ),
+        (_, None, _) => format!("is marked {name} but has no position (position_mm)"),
+        (_, Some(p), _) if !finite(&p) => {
+            format!("is marked {name} but its position_mm is not three finite numbers")
+        }
+        (_, Some(_), None) => format!("is marked {name} but has no method"),
+        (LandmarkState::Estimated, _, Some(m)) => format!(
+            "is marked estimated but its method is {}; an estimated landmark has method estimated",
+            m.name()
+        ),
+        (LandmarkState::Placed, _, Some(Method::Estimated)) => {
+            "is marked placed but its method is estimated; mark it estimated".into()
+        }
+        _ => format!("state {name} does not go with its position and method"),
+    }
+}
+
 fn validate_specimen(scheme: &Scheme, s: &Specimen) -> Result<(), String> {
     if !is_valid_id(&s.id) {
         return Err(format!(
@@ -659,7 +692,8 @@ fn validate_specimen(scheme: &Scheme, s: &Specimen) -> Result<(), String> {
     let v = &s.scan.voxel_size_mm;
     if !v.iter().all(|x| x.is_finite() && *x > 0.0) {
         return Err(at(format!(
-            "voxel size {v:?} mm is not positive and finite"
+            "voxel size {} x {} x {} mm is not positive and finite",
+            v[0], v[1], v[2]
         )));
     }
     if s.scan.path.is_empty() {
@@ -714,11 +748,9 @@ pub(crate) fn validate_trial(scheme: &Scheme, t: &Trial) -> Result<(), String> {
         }
         if !ok {
             return Err(format!(
-                "landmark '{}': state {} does not go with position {:?} and method {:?}",
+                "landmark '{}': {}",
                 l.id,
-                l.state.name(),
-                l.position_mm,
-                l.method.map(Method::name)
+                state_mismatch(l.state, l.position_mm, l.method)
             ));
         }
     }

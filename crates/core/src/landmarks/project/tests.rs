@@ -548,6 +548,9 @@ fn newer_versions_are_refused_and_bad_files_named() {
     let p = sample_project();
     let text = String::from_utf8(p.to_bytes()).unwrap();
     let at = Path::new("x.json");
+    // a UTF-8 byte-order mark (as some editors write) is accepted, as in a scheme file
+    let with_bom = format!("\u{feff}{text}");
+    assert_eq!(Project::from_slice(with_bom.as_bytes(), at).unwrap(), p);
     let newer = text.replace("\"format_version\": 2,", "\"format_version\": 3,");
     let e = Project::from_slice(newer.as_bytes(), at)
         .unwrap_err()
@@ -581,7 +584,11 @@ fn newer_versions_are_refused_and_bad_files_named() {
         ),
         (
             text.replace("\"state\": \"placed\"", "\"state\": \"missing\""),
-            "state missing does not go with",
+            "landmark 'tip': is marked missing but has a position",
+        ),
+        (
+            text.replacen("\"state\": \"placed\"", "\"state\": \"estimated\"", 1),
+            "is marked estimated but its method is",
         ),
         (
             text.replace("2025-03-01T10:00:01Z", "2025-03-01T11:00:01+01:00"),
@@ -740,4 +747,38 @@ fn version_1_files_are_upgraded() {
         .unwrap_err()
         .to_string();
     assert!(e.contains("upgrading from format_version 1 to 2"), "{e}");
+}
+
+/// Temporary files of saves that were killed (their process gone) are removed when the project
+/// is next opened or saved; the project, its backup and a live writer's file stay.
+#[test]
+fn stale_temporary_files_go_on_the_next_load_and_save() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("p.json");
+    let p = sample_project();
+    p.save(&path).unwrap();
+    p.save(&path).unwrap();
+    // PIDs on Linux stay below 2^22: these writers are gone
+    let stale = [
+        ".p.json.tmp-999999991",
+        ".p.json.bak.tmp-999999992",
+        ".p.json.autosave.tmp-999999993",
+    ];
+    let mine = format!(".p.json.tmp-{}", std::process::id());
+    for n in stale.iter().copied().chain([mine.as_str()]) {
+        std::fs::write(dir.path().join(n), "half a save").unwrap();
+    }
+    Project::load(&path).unwrap();
+    for n in stale {
+        assert!(!dir.path().join(n).exists(), "{n} removed on load");
+    }
+    assert!(
+        dir.path().join(&mine).exists(),
+        "a live writer's file stays"
+    );
+    std::fs::write(dir.path().join(stale[0]), "again").unwrap();
+    p.save(&path).unwrap();
+    assert!(!dir.path().join(stale[0]).exists(), "removed on save");
+    assert_eq!(Project::load(&path).unwrap(), p);
+    assert!(backup_path(&path).exists());
 }

@@ -209,10 +209,17 @@ struct AxisStep {
 
 impl AxisStep {
     fn new(shift: f64, n: usize) -> Self {
-        let offset = shift.floor();
+        let mut offset = shift.floor();
+        let mut frac = shift - offset;
+        if frac >= 1.0 {
+            // a shift a hair below an integer (-1e-30) rounds to `offset + 1.0`: the sample
+            // sits on that integer, so say so rather than carry a weight of exactly 1
+            offset += 1.0;
+            frac = 0.0;
+        }
         Self {
             offset: offset as i64,
-            frac: shift - offset,
+            frac,
             n,
         }
     }
@@ -622,6 +629,32 @@ mod tests {
         // right = dir × up must run along +b for the grids to match
         assert!(cam.frame().unwrap().right[b] > 0.99, "axis {axis}");
         cam
+    }
+
+    /// A shift a hair below zero (a view a hair off a voxel axis, or a voxel 1e-31 mm thick)
+    /// rounds its fraction to 1: the step must still sit in `[0, 1)` and index inside the row.
+    #[test]
+    fn a_shift_a_hair_below_an_integer_stays_in_range() {
+        for shift in [-1e-30, -1e-17, 2.0 - 1e-17, -3.0 - 1e-300] {
+            let s = AxisStep::new(shift, 8);
+            assert!((0.0..1.0).contains(&s.frac), "{shift}: {s:?}");
+            let (lo, _) = s.interior();
+            assert!(lo + s.offset >= 0, "{shift}: {s:?}");
+        }
+        // the whole projection, through a scan whose slices are 1.6e-31 mm thick
+        let v = random_volume(
+            [16, 12, 5],
+            Affine3::from_spacing([0.072, 0.036, 1.6e-31]),
+            3,
+        );
+        for dir in [
+            Vector3::new(-0.75, -0.43, -0.5),
+            Vector3::new(0.3, 0.2, -0.9),
+        ] {
+            let cam = Camera::fit(&v, dir, Vector3::z(), 64, 64).unwrap();
+            let img = mip(&v, &cam, MipOptions::default()).unwrap();
+            assert!(img.pixels.iter().any(|p| p.is_finite()), "{dir:?}");
+        }
     }
 
     #[test]

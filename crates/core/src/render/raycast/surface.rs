@@ -235,7 +235,14 @@ pub fn surface(
     let cam = camera.downsampled(ds);
     let rays = VoxelRays::new(volume, &cam)?;
     let sp = volume.spacing_mm();
-    let step_mm = step_vox * sp[0].min(sp[1]).min(sp[2]);
+    // Half a voxel of the smallest spacing, but never a step that moves less than
+    // step_vox / √3 voxels along the ray's major axis: with extreme anisotropy (a spacing of
+    // 1e-31 mm beside 0.07 mm) the smallest spacing alone would take 1e30 steps across the
+    // box. So a ray takes at most √3 · (longest side + 1) / step_vox steps whatever the
+    // voxel sizes; for ordinary voxels (anisotropy under √3) the step is the usual one.
+    let dmax = rays.dir.amax();
+    let step_mm = (step_vox * sp[0].min(sp[1]).min(sp[2])).max(step_vox / (3f64.sqrt() * dmax));
+    let max_samples = max_samples(volume.dims(), step_vox);
     // compare in "sign · stored" units so that inside is always the larger side
     let (sign, raw_thr) = match volume.rescale() {
         Some(r) => {
@@ -268,7 +275,16 @@ pub fn surface(
                 for c in 0..w {
                     let o = rays.grid.at(c, r);
                     let hit = clip_to_cells(&o, &rays.dir, dims).and_then(|(t0, t1)| {
-                        first_crossing(&field, bricks, &o, &rays.dir, t0, t1, step_mm, raw_thr)
+                        first_crossing(
+                            &field,
+                            bricks,
+                            &o,
+                            &rays.dir,
+                            (t0, t1),
+                            step_mm,
+                            raw_thr,
+                            max_samples,
+                        )
                     });
                     let px = &mut line[4 * c..4 * c + 4];
                     let Some(hit) = hit else {
@@ -391,9 +407,25 @@ impl<T: Voxel> Field<'_, '_, T> {
     }
 }
 
+/// The most samples a ray needs to cross a box of `dims` in steps of at least `step_vox / √3`
+/// voxels along its major axis (see [`surface`]), with room for the skips' small overshoots:
+/// the bound that makes every ray end, whatever rounding does to the ray parameter.
+fn max_samples(dims: [usize; 3], step_vox: f64) -> usize {
+    let longest = dims.iter().copied().max().unwrap_or(1) as f64 + 1.0;
+    (2.0 * 3f64.sqrt() * longest / step_vox).ceil() as usize + 64
+}
+
+/// The next ray parameter after `t`: `t + step`, or the next representable number when the
+/// step is below `t`'s precision, so that a march always moves on.
+#[inline]
+fn advance(t: f64, step: f64) -> f64 {
+    let next = t + step;
+    if next > t { next } else { t.next_up() }
+}
+
 /// Steps along `o + t·d` over `[t0, t1]` until the field reaches `thr`, skipping groups and
 /// bricks whose maximum is below it; refines the crossing by bisection to 1/16 voxel and a
-/// final linear interpolation.
+/// final linear interpolation. Takes at most `max_samples` steps.
 #[allow(
     clippy::too_many_arguments,
     reason = "one ray's state, kept flat in the hot loop"
@@ -403,17 +435,19 @@ fn first_crossing<T: Voxel>(
     bricks: Option<&Bricks>,
     o: &Vector3<f64>,
     d: &Vector3<f64>,
-    t0: f64,
-    t1: f64,
+    (t0, t1): (f64, f64),
     step_mm: f64,
     thr: f32,
+    max_samples: usize,
 ) -> Option<Hit> {
     let mut t = t0;
     let mut below: Option<f64> = None;
     // the ray parameter up to which the current brick is known to hold something: no
     // skipping checks until then
     let mut occupied_until = f64::NEG_INFINITY;
-    while t <= t1 {
+    let mut samples = 0usize;
+    while t <= t1 && samples < max_samples {
+        samples += 1;
         let p = o + d * t;
         if let Some(b) = bricks
             && t >= occupied_until
@@ -436,7 +470,7 @@ fn first_crossing<T: Voxel>(
                 }
             }
             if let Some(exit) = skip {
-                let next = t + exit + 1e-6 * step_mm;
+                let next = advance(t, exit + 1e-6 * step_mm);
                 below = Some(next.min(t1));
                 t = next;
                 continue;
@@ -455,6 +489,9 @@ fn first_crossing<T: Voxel>(
             let len_vox = d.norm();
             while (hi - lo) * len_vox > 1.0 / 16.0 {
                 let mid = 0.5 * (lo + hi);
+                if mid <= lo || mid >= hi {
+                    break; // no number between: as fine as the ray parameter resolves
+                }
                 let fm = f.at(&(o + d * mid));
                 if fm >= thr {
                     (hi, f_hi) = (mid, fm);
@@ -474,7 +511,7 @@ fn first_crossing<T: Voxel>(
             });
         }
         below = Some(t);
-        t += step_mm;
+        t = advance(t, step_mm);
     }
     None
 }
