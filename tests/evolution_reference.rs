@@ -255,6 +255,7 @@ fn comparative_methods_agree_with_numpy() {
 /// the same data: a balanced design (6 individuals × 3 operators × 2 repeats) and an unbalanced
 /// one (some repeats dropped); shape sums of squares summed over coordinates with df × D.
 #[test]
+#[allow(clippy::too_many_lines)] // reason: a balanced and an unbalanced design, each checked term by term
 fn operator_anova_matches_statsmodels() {
     use sutura_core::shape::anova::{procrustes_operator_anova, shape_dims, two_way};
     let mut rng = ChaCha8Rng::seed_from_u64(5);

@@ -168,7 +168,7 @@ impl Limits {
                     "{}x{}x{} voxels of {bytes_per_voxel} bytes",
                     dims[0], dims[1], dims[2]
                 ),
-                limit: if self.max_voxel_bytes % (1 << 30) == 0 {
+                limit: if self.max_voxel_bytes.is_multiple_of(1 << 30) {
                     format!("{} GiB", self.max_voxel_bytes >> 30)
                 } else {
                     format!("{} bytes", self.max_voxel_bytes)
