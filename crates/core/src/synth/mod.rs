@@ -23,6 +23,7 @@
 //! The skull geometry and landmark constructions live in [`skull`], the landmark scheme in
 //! [`scheme`]. This module imports only `geometry` and `volume`.
 
+pub mod rock;
 pub mod scheme;
 pub mod skull;
 
