@@ -7,9 +7,11 @@
 
 mod convert;
 mod info;
+mod labels;
 mod landmark;
 mod landmark_export;
 mod measure;
+mod mesh;
 mod project;
 mod sample;
 mod superimpose;
@@ -68,6 +70,12 @@ enum Command {
     Measure(measure::MeasureArgs),
     /// Export a project's landmarks: long or wide CSV, JSON, .npy arrays, PLY point sets.
     Export(landmark_export::ExportArgs),
+    /// Virtual preparation: label a scan's specimen, matrix and inclusions.
+    #[command(subcommand)]
+    Labels(labels::LabelsCommand),
+    /// Write the surface of a scan's material or of a label as PLY, STL or OBJ, with its area,
+    /// volume and pieces.
+    Mesh(mesh::MeshArgs),
 }
 
 #[derive(Debug, Args)]
@@ -156,6 +164,8 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Curve(c) => landmark::run_curve(&c),
         Command::Measure(a) => measure::run(&a),
         Command::Export(a) => landmark_export::run(&a),
+        Command::Labels(c) => labels::run(&c),
+        Command::Mesh(a) => mesh::run(&a),
     }
 }
 

@@ -13,7 +13,7 @@
 use std::ops::Range;
 
 use super::{BitMask, LabelsError};
-use crate::volume::{Voxel, Volume};
+use crate::volume::{Volume, Voxel};
 
 /// Which voxels touch.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
@@ -77,22 +77,47 @@ pub fn threshold(
     within: Option<&BitMask>,
     bounds: Option<&[Range<usize>; 3]>,
 ) -> BitMask {
-    let dims = volume.dims();
     let (lo, hi) = range.raw(volume);
-    let full = [0..dims[0], 0..dims[1], 0..dims[2]];
-    let b = bounds.unwrap_or(&full);
-    crate::with_voxels!(volume.voxels(), |s| {
-        BitMask::from_fn(dims, |i, j, k| {
-            if !(b[0].contains(&i) && b[1].contains(&j) && b[2].contains(&k)) {
-                return false;
+    let mut m = crate::with_voxels!(volume.voxels(), |s| in_range_bits(
+        s,
+        volume.dims(),
+        lo,
+        hi
+    ));
+    if let Some(w) = within {
+        m.and_with(w);
+    }
+    if let Some(b) = bounds {
+        m.keep_box(b);
+    }
+    m
+}
+
+/// The voxels with `lo ≤ value ≤ hi`, 64 at a time, planes in parallel.
+fn in_range_bits<T: Voxel>(s: &[T], dims: [usize; 3], lo: f64, hi: f64) -> BitMask {
+    use rayon::prelude::*;
+    let [nx, ny, _] = dims;
+    let mut m = BitMask::new(dims);
+    let wpr = m.words_per_row();
+    if wpr == 0 || ny == 0 {
+        return m;
+    }
+    m.words_mut()
+        .par_chunks_mut(wpr * ny)
+        .zip(s.par_chunks(nx * ny))
+        .for_each(|(plane, voxels)| {
+            for (row, vox) in plane.chunks_mut(wpr).zip(voxels.chunks(nx)) {
+                for (word, chunk) in row.iter_mut().zip(vox.chunks(64)) {
+                    let mut w = 0u64;
+                    for (b, v) in chunk.iter().enumerate() {
+                        let v = v.to_f64();
+                        w |= u64::from(lo <= v && v <= hi) << b;
+                    }
+                    *word = w;
+                }
             }
-            if within.is_some_and(|m| !m.get(i, j, k)) {
-                return false;
-            }
-            let v = s[i + dims[0] * (j + dims[1] * k)].to_f64();
-            lo <= v && v <= hi
-        })
-    })
+        });
+    m
 }
 
 /// What a region grows through.
@@ -107,6 +132,9 @@ pub struct GrowOptions {
 /// The connected region of voxels in range that holds `seed`, growing only through voxels of
 /// `within` when given (e.g. voxels no other label holds). Fails when the seed itself is not
 /// in range or not in `within`.
+///
+/// The voxels it may enter are found first, 64 at a time ([`threshold`] with `within`, rows
+/// cut to the distance limit); the flood then works on whole words of that mask.
 pub fn grow(
     volume: &Volume,
     seed: [usize; 3],
@@ -115,22 +143,28 @@ pub fn grow(
 ) -> Result<BitMask, LabelsError> {
     let dims = volume.dims();
     if (0..3).any(|a| seed[a] >= dims[a]) {
-        return Err(LabelsError::Outside(
-            format!("seed voxel {seed:?}"),
-            dims,
-        ));
+        return Err(LabelsError::Outside(format!("seed voxel {seed:?}"), dims));
     }
-    let (lo, hi) = options.range.raw(volume);
-    let spacing = volume.spacing_mm();
-    let limit = options.max_distance_mm.map(|d| Limit {
-        seed,
-        spacing,
-        r2: d * d,
-    });
-    let out = crate::with_voxels!(volume.voxels(), |s| {
-        grow_typed(s, dims, seed, lo, hi, options.connectivity, limit, within)
-    });
-    if out.is_empty() {
+    let mut allowed = threshold(volume, options.range, within, None);
+    if let Some(d) = options.max_distance_mm {
+        let limit = Limit {
+            seed,
+            spacing: volume.spacing_mm(),
+            r2: d * d,
+        };
+        let [nx, ny, nz] = dims;
+        for k in 0..nz {
+            for j in 0..ny {
+                let r = limit.row(j, k, nx);
+                let mut keep = vec![0u64; allowed.words_per_row()];
+                super::mask::set_bits(&mut keep, r);
+                for (w, m) in allowed.row_mut(j, k).iter_mut().zip(&keep) {
+                    *w &= m;
+                }
+            }
+        }
+    }
+    if !allowed.get(seed[0], seed[1], seed[2]) {
         let v = volume.value(crate::geometry::VoxelIndex::new(seed[0], seed[1], seed[2]));
         return Err(LabelsError::Invalid(format!(
             "the seed voxel {seed:?} (value {}) is not in the range {}..{}{}",
@@ -144,7 +178,7 @@ pub fn grow(
             }
         )));
     }
-    Ok(out)
+    Ok(flood(&allowed, seed, options.connectivity))
 }
 
 /// A distance limit around the seed.
@@ -160,7 +194,7 @@ impl Limit {
     fn row(&self, j: usize, k: usize, nx: usize) -> Range<usize> {
         let dy = (j as f64 - self.seed[1] as f64) * self.spacing[1];
         let dz = (k as f64 - self.seed[2] as f64) * self.spacing[2];
-        let rest = self.r2 - dy * dy - dz * dz;
+        let rest = self.r2 * (1.0 + 1e-9) - dy * dy - dz * dz;
         if rest < 0.0 {
             return 0..0;
         }
@@ -171,28 +205,14 @@ impl Limit {
     }
 }
 
-#[allow(
-    clippy::too_many_arguments,
-    reason = "the inner loop's inputs, typed once"
-)]
-fn grow_typed<T: Voxel>(
-    s: &[T],
-    dims: [usize; 3],
-    seed: [usize; 3],
-    lo: f64,
-    hi: f64,
-    connectivity: Connectivity,
-    limit: Option<Limit>,
-    within: Option<&BitMask>,
-) -> BitMask {
+/// The connected piece of `allowed` holding `seed` (which must be set): a scan-line flood on
+/// whole words.
+#[must_use]
+pub fn flood(allowed: &BitMask, seed: [usize; 3], connectivity: Connectivity) -> BitMask {
+    let dims = allowed.dims();
     let [nx, ny, nz] = dims;
     let mut visited = BitMask::new(dims);
-    let wpr = visited.words_per_row();
-    let row_range = |j: usize, k: usize| limit.map_or(0..nx, |l| l.row(j, k, nx));
-    let value_ok = |idx: usize| {
-        let v = s[idx].to_f64();
-        lo <= v && v <= hi
-    };
+    let wpr = allowed.words_per_row();
     let offsets: &[(isize, isize)] = match connectivity {
         Connectivity::Faces6 => &[(-1, 0), (1, 0), (0, -1), (0, 1)],
         Connectivity::All26 => &[
@@ -207,42 +227,43 @@ fn grow_typed<T: Voxel>(
         ],
     };
     let widen = usize::from(connectivity == Connectivity::All26);
-    let mut stack: Vec<(u32, u32, u32)> = Vec::new();
-    {
-        let r = row_range(seed[1], seed[2]);
-        let idx = seed[0] + nx * (seed[1] + ny * seed[2]);
-        if r.contains(&seed[0])
-            && value_ok(idx)
-            && within.is_none_or(|m| m.get(seed[0], seed[1], seed[2]))
-        {
-            stack.push((seed[0] as u32, seed[1] as u32, seed[2] as u32));
-        }
-    }
+    let bit = |row: &[u64], x: usize| row[x / 64] >> (x % 64) & 1 == 1;
+    let mut stack: Vec<(u32, u32, u32)> = vec![(seed[0] as u32, seed[1] as u32, seed[2] as u32)];
     while let Some((i, j, k)) = stack.pop() {
         let (i, j, k) = (i as usize, j as usize, k as usize);
-        let rs = visited.row_start(j, k);
-        if visited.words()[rs + i / 64] >> (i % 64) & 1 == 1 {
+        let rs = allowed.row_start(j, k);
+        let free_word = |w: usize, vis: &[u64]| allowed.words()[rs + w] & !vis[rs + w];
+        if !bit(&allowed.words()[rs..rs + wpr], i) || bit(&visited.words()[rs..rs + wpr], i) {
             continue;
         }
-        let r = row_range(j, k);
-        let base = nx * (j + ny * k);
-        let allowed = within.map(|m| m.row(j, k));
-        let free = |x: usize, vis: &[u64]| {
-            vis[x / 64] >> (x % 64) & 1 == 0
-                && allowed.is_none_or(|a| a[x / 64] >> (x % 64) & 1 == 1)
-                && value_ok(base + x)
-        };
-        let (mut i0, mut i1) = (i, i);
-        {
-            let vis = &visited.words()[rs..rs + wpr];
-            while i0 > r.start && free(i0 - 1, vis) {
-                i0 -= 1;
-            }
-            while i1 + 1 < r.end && free(i1 + 1, vis) {
-                i1 += 1;
+        // the run of free voxels through i: to the right, then to the left
+        let vis = visited.words();
+        let mut i1 = i;
+        loop {
+            let w = i1 / 64;
+            let f = free_word(w, vis) >> (i1 % 64);
+            let ones = (!f).trailing_zeros() as usize; // free bits from i1 on in this word
+            let ones = ones.min(64 - i1 % 64);
+            i1 += ones;
+            if ones == 0 || i1 % 64 != 0 || i1 >= nx {
+                break;
             }
         }
-        visited.set_run(j, k, i0..i1 + 1);
+        let i1 = i1.min(nx); // exclusive end
+        let mut i0 = i + 1; // exclusive start going down: run is i0..i1 once done
+        loop {
+            // free bits below i0 in its word
+            let w = (i0 - 1) / 64;
+            let top = (i0 - 1) % 64; // highest bit index to look at
+            let f = free_word(w, vis) << (63 - top);
+            let ones = (!f).leading_zeros() as usize;
+            let ones = ones.min(top + 1);
+            i0 -= ones;
+            if i0 % 64 != 0 || i0 == 0 || ones == 0 {
+                break;
+            }
+        }
+        visited.set_run(j, k, i0..i1);
         for &(dj, dk) in offsets {
             let (Some(nj), Some(nk)) = (j.checked_add_signed(dj), k.checked_add_signed(dk))
             else {
@@ -251,33 +272,29 @@ fn grow_typed<T: Voxel>(
             if nj >= ny || nk >= nz {
                 continue;
             }
-            let nr = row_range(nj, nk);
-            let a = i0.saturating_sub(widen).max(nr.start);
-            let b = (i1 + 1 + widen).min(nx).min(nr.end);
-            if a >= b {
-                continue;
-            }
-            let nbase = nx * (nj + ny * nk);
-            let nrs = visited.row_start(nj, nk);
-            let vis = &visited.words()[nrs..nrs + wpr];
-            let nallowed = within.map(|m| m.row(nj, nk));
-            let mut in_run = false;
-            let mut x = a;
-            while x < b {
-                // skip whole visited words
-                if x % 64 == 0 && vis[x / 64] == u64::MAX && x + 64 <= b {
-                    in_run = false;
-                    x += 64;
-                    continue;
+            let a = i0.saturating_sub(widen);
+            let b = (i1 + widen).min(nx);
+            let nrs = allowed.row_start(nj, nk);
+            let vis = visited.words();
+            // free bits of the neighbour row within a..b; push the start of each run
+            let mut prev = false;
+            for w in a / 64..=(b - 1) / 64 {
+                let mut span = u64::MAX;
+                if w == a / 64 {
+                    span &= u64::MAX << (a % 64);
                 }
-                let ok = vis[x / 64] >> (x % 64) & 1 == 0
-                    && nallowed.is_none_or(|m| m[x / 64] >> (x % 64) & 1 == 1)
-                    && value_ok(nbase + x);
-                if ok && !in_run {
-                    stack.push((x as u32, nj as u32, nk as u32));
+                if w == (b - 1) / 64 && b % 64 != 0 {
+                    span &= (1u64 << (b % 64)) - 1;
                 }
-                in_run = ok;
-                x += 1;
+                let f = allowed.words()[nrs + w] & !vis[nrs + w] & span;
+                let starts = f & !(f << 1 | u64::from(prev));
+                let mut st = starts;
+                while st != 0 {
+                    let t = st.trailing_zeros() as usize;
+                    stack.push(((w * 64 + t) as u32, nj as u32, nk as u32));
+                    st &= st - 1;
+                }
+                prev = f >> 63 & 1 == 1;
             }
         }
     }
@@ -577,6 +594,19 @@ mod tests {
         .unwrap();
         assert_eq!(near.count(), 3);
         assert!(grow(&v, [0, 0, 0], &opt(Connectivity::Faces6), None).is_err());
+    }
+
+    #[test]
+    fn flood_crosses_words_and_stops_at_their_edges() {
+        // a run ending exactly at a word boundary (i = 63) and rows of 150 voxels
+        let dims = [150, 4, 3];
+        let allowed = BitMask::from_fn(dims, |i, j, k| (i < 64 && j == 1) || (j == 2 && k == 1) || (i == 140 && k == 1));
+        let f = flood(&allowed, [10, 1, 1], Connectivity::Faces6);
+        // row j = 1 (i < 64) in every plane joins row j = 2 of plane 1 (all 150), which
+        // reaches i = 140 of rows 0, 1, 3 in plane 1
+        assert_eq!(f.count(), 3 * 64 + 150 + 3);
+        let brute = BitMask::from_fn(dims, |i, j, k| allowed.get(i, j, k));
+        assert_eq!(pieces(&brute, Connectivity::Faces6).count(), 1);
     }
 
     #[test]

@@ -305,28 +305,80 @@ fn slab(field: &dyn Field, world_from_voxel: &Affine3, z0: isize, z1: isize, fli
         let w = world_from_voxel.voxel_to_world(VoxelPoint::new(p[0], p[1], p[2]));
         [w.0.x, w.0.y, w.0.z]
     };
-    let mut inside_lo = vec![false; px * py];
-    let mut inside_hi = vec![false; px * py];
-    for (n, v) in lo.iter().enumerate() {
-        inside_lo[n] = *v >= iso;
-    }
+    // inside bits of each padded row, 64 cells at a time, to skip cells with no crossing
+    let wpx = px.div_ceil(64);
+    let bits_of = |plane: &[f32], out: &mut Vec<u64>| {
+        out.clear();
+        out.resize(wpx * py, 0);
+        for jj in 0..py {
+            let row = &plane[jj * px..(jj + 1) * px];
+            for (w, chunk) in row.chunks(64).enumerate() {
+                let mut word = 0u64;
+                for (b, v) in chunk.iter().enumerate() {
+                    word |= u64::from(*v >= iso) << b;
+                }
+                out[jj * wpx + w] = word;
+            }
+        }
+    };
+    let (mut inside_lo, mut inside_hi) = (Vec::new(), Vec::new());
+    bits_of(&lo, &mut inside_lo);
+    let inside = |bits: &[u64], n: usize| {
+        let (jj, ii) = (n / px, n % px);
+        bits[jj * wpx + ii / 64] >> (ii % 64) & 1 == 1
+    };
     for z in z0..z1 {
         read_plane(z + 1, &mut hi, &mut scratch);
-        for (n, v) in hi.iter().enumerate() {
-            inside_hi[n] = *v >= iso;
-        }
+        bits_of(&hi, &mut inside_hi);
         ze.fill(none);
         xe_hi.fill(none);
         ye_hi.fill(none);
         for jj in 0..py - 1 {
             let r0 = jj * px;
             let r1 = r0 + px;
-            for ii in 0..px - 1 {
+            for w in 0..wpx {
+                let rows = [
+                    inside_lo[jj * wpx + w],
+                    inside_lo[(jj + 1) * wpx + w],
+                    inside_hi[jj * wpx + w],
+                    inside_hi[(jj + 1) * wpx + w],
+                ];
+                let next = |q: usize| {
+                    [
+                        inside_lo[q * wpx + w + 1],
+                        inside_lo[(q + 1) * wpx + w + 1],
+                        inside_hi[q * wpx + w + 1],
+                        inside_hi[(q + 1) * wpx + w + 1],
+                    ]
+                };
+                let (any, all) = (
+                    rows.iter().fold(0, |a, r| a | r),
+                    rows.iter().fold(u64::MAX, |a, r| a & r),
+                );
+                // the cell at bit b spans corners b and b + 1
+                let carry = if w + 1 < wpx {
+                    let n = next(jj);
+                    (n.iter().fold(0, |a, r| a | r) & 1, n.iter().fold(u64::MAX, |a, r| a & r) & 1)
+                } else {
+                    (0, 0)
+                };
+                let any2 = any | (any >> 1 | carry.0 << 63);
+                let all2 = all & (all >> 1 | carry.1 << 63);
+                let mut mixed = any2 & !all2;
+                // cells exist for ii < px − 1
+                let last = px - 1;
+                if (w + 1) * 64 > last {
+                    let keep = last - w * 64;
+                    mixed &= if keep >= 64 { u64::MAX } else { (1u64 << keep) - 1 };
+                }
+                while mixed != 0 {
+                let ii = w * 64 + mixed.trailing_zeros() as usize;
+                mixed &= mixed - 1;
                 let n = [r0 + ii, r0 + ii + 1, r1 + ii, r1 + ii + 1];
                 let mut case = 0u8;
                 for (b, &m) in n.iter().enumerate() {
-                    case |= u8::from(inside_lo[m]) << b;
-                    case |= u8::from(inside_hi[m]) << (b + 4);
+                    case |= u8::from(inside(&inside_lo, m)) << b;
+                    case |= u8::from(inside(&inside_hi, m)) << (b + 4);
                 }
                 if case == 0 || case == 255 {
                     continue;
@@ -424,6 +476,7 @@ fn slab(field: &dyn Field, world_from_voxel: &Affine3, z0: isize, z1: isize, fli
                         tri.swap(1, 2);
                     }
                     out.triangles.push(tri);
+                }
                 }
             }
         }

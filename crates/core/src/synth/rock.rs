@@ -276,3 +276,4 @@ pub fn generate_in_rock(spec: &SpecimenSpec) -> Result<RockSpecimen, SynthError>
         pores: n_pores,
     })
 }
+
