@@ -8,10 +8,10 @@ mod common;
 use std::path::Path;
 
 use sutura_core::geometry::Affine3;
+use sutura_core::labels::morph::{MorphOp, morph};
 use sutura_core::labels::region::{
     Connectivity, GrowOptions, IntensityRange, fill_holes, grow, pieces,
 };
-use sutura_core::labels::morph::{MorphOp, morph};
 use sutura_core::labels::{BitMask, Combine, LabelVolume, zarr};
 use sutura_core::mesh::march::extract;
 use sutura_core::mesh::{IntensityField, write};
@@ -22,9 +22,12 @@ use sutura_core::volume::Volume;
 fn blobs(dims: [usize; 3]) -> BitMask {
     BitMask::from_fn(dims, |i, j, k| {
         let (x, y, z) = (i as f64, j as f64, k as f64);
-        let b1 = ((x - 20.0) / 13.0).powi(2) + ((y - 18.0) / 11.0).powi(2) + ((z - 10.0) / 7.0).powi(2);
-        let b2 = ((x - 44.0) / 9.0).powi(2) + ((y - 22.0) / 12.0).powi(2) + ((z - 12.0) / 6.0).powi(2);
-        let cavity = ((x - 20.0) / 4.0).powi(2) + ((y - 18.0) / 3.0).powi(2) + ((z - 10.0) / 2.0).powi(2);
+        let b1 =
+            ((x - 20.0) / 13.0).powi(2) + ((y - 18.0) / 11.0).powi(2) + ((z - 10.0) / 7.0).powi(2);
+        let b2 =
+            ((x - 44.0) / 9.0).powi(2) + ((y - 22.0) / 12.0).powi(2) + ((z - 12.0) / 6.0).powi(2);
+        let cavity =
+            ((x - 20.0) / 4.0).powi(2) + ((y - 18.0) / 3.0).powi(2) + ((z - 10.0) / 2.0).powi(2);
         let speck = (i * 31 + j * 17 + k * 7) % 97 == 0;
         let bar = j == 35 && k == 4 && i > 5;
         ((b1 < 1.0 && cavity > 1.0) || b2 < 1.0 || speck || bar) && !(i == 30 && j < 30)
@@ -79,15 +82,24 @@ fn morphology_holes_and_pieces_match_scipy_ndimage() {
                 ours.count(),
                 theirs.count()
             );
-            assert!(ours == theirs, "{name} r={radius_mm}: voxels differ from scipy");
+            assert!(
+                ours == theirs,
+                "{name} r={radius_mm}: voxels differ from scipy"
+            );
         }
         // scipy.ndimage.binary_fill_holes (face-connected background)
         let theirs = read_mask(dims, out["fill"].as_str().unwrap());
         assert!(fill_holes(&mask) == theirs, "fill holes differs from scipy");
-        assert!(fill_holes(&mask).count() > mask.count(), "the test mask has a cavity");
+        assert!(
+            fill_holes(&mask).count() > mask.count(),
+            "the test mask has a cavity"
+        );
         // scipy.ndimage.label with generate_binary_structure(3, 1) and (3, 3): same pieces in
         // the same order
-        for (key, conn) in [("sizes6", Connectivity::Faces6), ("sizes26", Connectivity::All26)] {
+        for (key, conn) in [
+            ("sizes6", Connectivity::Faces6),
+            ("sizes26", Connectivity::All26),
+        ] {
             let want: Vec<u64> = out[key]
                 .as_array()
                 .unwrap()
@@ -167,9 +179,13 @@ fn ball(dims: [usize; 3], spacing: [f64; 3]) -> Volume {
     for k in 0..dims[2] {
         for j in 0..dims[1] {
             for i in 0..dims[0] {
-                let p = [i as f64 * spacing[0], j as f64 * spacing[1], k as f64 * spacing[2]];
-                let d = ((p[0] - c[0]).powi(2) + (p[1] - c[1]).powi(2) + (p[2] - c[2]).powi(2))
-                    .sqrt();
+                let p = [
+                    i as f64 * spacing[0],
+                    j as f64 * spacing[1],
+                    k as f64 * spacing[2],
+                ];
+                let d =
+                    ((p[0] - c[0]).powi(2) + (p[1] - c[1]).powi(2) + (p[2] - c[2]).powi(2)).sqrt();
                 data.push((100.0 + 900.0 / (1.0 + ((d - r) / 0.04).exp())) as f32);
             }
         }
@@ -185,12 +201,19 @@ fn marching_cubes_matches_skimage() {
     let volume = ball(dims, spacing);
     let path = dir.path().join("ball.raw");
     let bytes: Vec<u8> = match volume.voxels() {
-        sutura_core::volume::Voxels::F32(b) => b.as_slice().iter().flat_map(|v| v.to_le_bytes()).collect(),
+        sutura_core::volume::Voxels::F32(b) => {
+            b.as_slice().iter().flat_map(|v| v.to_le_bytes()).collect()
+        }
         _ => unreachable!(),
     };
     write_bytes(&path, &bytes);
     let iso = 550.0;
-    let field = IntensityField { volume: &volume, iso, outside: 100.0, within: None };
+    let field = IntensityField {
+        volume: &volume,
+        iso,
+        outside: 100.0,
+        within: None,
+    };
     let mesh = extract(&field, volume.world_from_voxel());
     let rep = mesh.report();
     let out = common::run_python(
@@ -211,13 +234,24 @@ fn marching_cubes_matches_skimage() {
     // more crossings can split them along other diagonals, so the area (mesh_surface_area) and
     // volume agree closely but not exactly.
     assert_eq!(rep.vertices as u64, out["vertices"].as_u64().unwrap());
-    let (area, vol) = (out["area"].as_f64().unwrap(), out["volume"].as_f64().unwrap());
+    let (area, vol) = (
+        out["area"].as_f64().unwrap(),
+        out["volume"].as_f64().unwrap(),
+    );
     eprintln!(
         "ours: {} triangles, area {:.6}, volume {:.6}; skimage: {} faces, area {area:.6}, volume {vol:.6}",
         rep.triangles, rep.area_mm2, rep.volume_mm3, out["faces"]
     );
-    assert!((rep.area_mm2 / area - 1.0).abs() < 2e-4, "area {} vs skimage {area}", rep.area_mm2);
-    assert!((rep.volume_mm3 / vol - 1.0).abs() < 2e-4, "volume {} vs {vol}", rep.volume_mm3);
+    assert!(
+        (rep.area_mm2 / area - 1.0).abs() < 2e-4,
+        "area {} vs skimage {area}",
+        rep.area_mm2
+    );
+    assert!(
+        (rep.volume_mm3 / vol - 1.0).abs() < 2e-4,
+        "volume {} vs {vol}",
+        rep.volume_mm3
+    );
     assert!(rep.closed && rep.pieces == 1 && rep.euler_characteristic == 2);
 }
 
@@ -225,7 +259,12 @@ fn marching_cubes_matches_skimage() {
 fn exported_meshes_read_back_in_trimesh() {
     let dir = tempfile::tempdir().unwrap();
     let volume = ball([40, 36, 30], [0.05, 0.055, 0.07]);
-    let field = IntensityField { volume: &volume, iso: 550.0, outside: 100.0, within: None };
+    let field = IntensityField {
+        volume: &volume,
+        iso: 550.0,
+        outside: 100.0,
+        within: None,
+    };
     let mesh = extract(&field, volume.world_from_voxel());
     let rep = mesh.report();
     let files: Vec<String> = ["m.ply", "m.stl", "m.obj"]
@@ -240,13 +279,25 @@ fn exported_meshes_read_back_in_trimesh() {
     for f in &files {
         let m = &out[f.as_str()];
         // trimesh 5, trimesh.load(process=False): STL stores three vertices per triangle
-        let want_vertices = if f.ends_with(".stl") { 3 * rep.triangles } else { rep.vertices };
+        let want_vertices = if f.ends_with(".stl") {
+            3 * rep.triangles
+        } else {
+            rep.vertices
+        };
         assert_eq!(m["vertices"].as_u64().unwrap(), want_vertices as u64, "{f}");
         assert_eq!(m["faces"].as_u64().unwrap(), rep.triangles as u64, "{f}");
         // 32-bit floats in PLY and STL: agreement to about 1e-6
         let (a, v) = (m["area"].as_f64().unwrap(), m["volume"].as_f64().unwrap());
-        assert!((a / rep.area_mm2 - 1.0).abs() < 1e-5, "{f}: area {a} vs {}", rep.area_mm2);
-        assert!((v / rep.volume_mm3 - 1.0).abs() < 1e-5, "{f}: volume {v} vs {}", rep.volume_mm3);
+        assert!(
+            (a / rep.area_mm2 - 1.0).abs() < 1e-5,
+            "{f}: area {a} vs {}",
+            rep.area_mm2
+        );
+        assert!(
+            (v / rep.volume_mm3 - 1.0).abs() < 1e-5,
+            "{f}: volume {v} vs {}",
+            rep.volume_mm3
+        );
         if !f.ends_with(".stl") {
             assert!(m["watertight"].as_bool().unwrap(), "{f}");
         }
@@ -262,8 +313,13 @@ fn label_image_opens_in_zarr_python() {
     let matrix = lv.add_label("matrix").unwrap();
     let m = blobs(dims);
     lv.apply(&m, skull, Combine::Add, false).unwrap();
-    lv.apply(&BitMask::from_fn(dims, |i, _, k| i > 100 && k > 60), matrix, Combine::Add, false)
-        .unwrap();
+    lv.apply(
+        &BitMask::from_fn(dims, |i, _, k| i > 100 && k > 60),
+        matrix,
+        Combine::Add,
+        false,
+    )
+    .unwrap();
     let path = dir.path().join("RM-001.labels.zarr");
     zarr::save(&lv, &path).unwrap();
     let out = common::run_python("prep_zarr.py", &[path.to_str().unwrap()]);
@@ -274,7 +330,11 @@ fn label_image_opens_in_zarr_python() {
     assert_eq!(out["chunks"], serde_json::json!([64, 64, 64]));
     let counts = lv.counts();
     for v in [0u8, skull, matrix] {
-        assert_eq!(out["counts"][v.to_string()].as_u64().unwrap(), counts[usize::from(v)], "value {v}");
+        assert_eq!(
+            out["counts"][v.to_string()].as_u64().unwrap(),
+            counts[usize::from(v)],
+            "value {v}"
+        );
     }
     // NGFF image-label metadata: colours and names by label value
     let ome = &out["ome"];

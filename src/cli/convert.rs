@@ -27,7 +27,12 @@ pub struct ConvertArgs {
     crop_to_label: Option<String>,
 
     /// Voxels added around the label's box by --crop-to-label.
-    #[arg(long, value_name = "N", default_value_t = 0, requires = "crop_to_label")]
+    #[arg(
+        long,
+        value_name = "N",
+        default_value_t = 0,
+        requires = "crop_to_label"
+    )]
     margin: usize,
 
     /// Average blocks of N×N×N voxels into one (after cropping); the voxel size grows N-fold.

@@ -395,9 +395,9 @@ fn point_voxel(
         (Some(t), _) => {
             let [x, y, z] = parse_triple(t, what)?;
             let v = volume.world_to_voxel(WorldPoint::new(x, y, z));
-            let VoxelIndex { i, j, k } = v.nearest_index(volume.dims()).with_context(|| {
-                format!("{what} {t} mm lies outside the scan")
-            })?;
+            let VoxelIndex { i, j, k } = v
+                .nearest_index(volume.dims())
+                .with_context(|| format!("{what} {t} mm lies outside the scan"))?;
             Ok([i, j, k])
         }
         (None, Some(t)) => parse_voxel(t, what, volume.dims()),
@@ -509,7 +509,14 @@ fn run_threshold(a: &ThresholdArgs) -> Result<()> {
         .map(|b| super::convert::parse_crop(b, volume.dims()))
         .transpose()?;
     let sel = labels::region::threshold(&volume, range, within.as_ref(), bounds.as_ref());
-    commit(lv, &a.target, &sel, a.mode.mode.into(), a.mode.overwrite, "threshold")
+    commit(
+        lv,
+        &a.target,
+        &sel,
+        a.mode.mode.into(),
+        a.mode.overwrite,
+        "threshold",
+    )
 }
 
 fn run_grow(a: &GrowArgs) -> Result<()> {
@@ -529,7 +536,14 @@ fn run_grow(a: &GrowArgs) -> Result<()> {
     // by default the region does not enter voxels other labels hold
     let within = (!a.through_labels).then(|| lv.mask_where(|v| v == 0 || Some(v) == value));
     let sel = labels::region::grow(&volume, seed, &options, within.as_ref())?;
-    commit(lv, &a.target, &sel, a.mode.mode.into(), a.mode.overwrite, "grow")
+    commit(
+        lv,
+        &a.target,
+        &sel,
+        a.mode.mode.into(),
+        a.mode.overwrite,
+        "grow",
+    )
 }
 
 fn run_piece(a: &PieceArgs) -> Result<()> {
@@ -542,7 +556,14 @@ fn run_piece(a: &PieceArgs) -> Result<()> {
         at,
         Connectivity::from_count(a.connectivity)?,
     )?;
-    commit(lv, &a.target, &piece, Combine::Intersect, false, "keep piece")
+    commit(
+        lv,
+        &a.target,
+        &piece,
+        Combine::Intersect,
+        false,
+        "keep piece",
+    )
 }
 
 fn run_small(a: &SmallArgs) -> Result<()> {
@@ -553,7 +574,14 @@ fn run_small(a: &SmallArgs) -> Result<()> {
         a.min_voxels,
         Connectivity::from_count(a.connectivity)?,
     );
-    commit(lv, &a.target, &kept, Combine::Intersect, false, "remove small pieces")
+    commit(
+        lv,
+        &a.target,
+        &kept,
+        Combine::Intersect,
+        false,
+        "remove small pieces",
+    )
 }
 
 fn run_brush(a: &BrushArgs) -> Result<()> {
@@ -667,6 +695,11 @@ fn run_export(a: &ExportArgs) -> Result<()> {
     let m = lv.mask_of(lv.value_of(&a.label)?);
     let out = Volume::from_vec(volume.dims(), *volume.world_from_voxel(), m.to_bytes())?;
     sutura_core::io::nifti::write(&out, &a.output)?;
-    eprintln!("wrote {} ({} voxels of {})", a.output.display(), m.count(), a.label);
+    eprintln!(
+        "wrote {} ({} voxels of {})",
+        a.output.display(),
+        m.count(),
+        a.label
+    );
     Ok(())
 }

@@ -54,11 +54,7 @@ pub struct MeshArgs {
 }
 
 pub fn run(a: &MeshArgs) -> Result<()> {
-    let labels = a
-        .labels
-        .as_deref()
-        .map(super::labels::load)
-        .transpose()?;
+    let labels = a.labels.as_deref().map(super::labels::load).transpose()?;
     let volume = match (&labels, &a.labels) {
         (Some(lv), Some(p)) => super::labels::open_matching(&a.scan, lv, p)?,
         _ => a.scan.open()?,
@@ -93,7 +89,9 @@ pub fn run(a: &MeshArgs) -> Result<()> {
             _ => lowest.min(iso - 1.0),
         };
         if lowest >= iso && mask.is_none() {
-            bail!("every voxel is at or above the iso-value {iso}: the surface would be the grid's box");
+            bail!(
+                "every voxel is at or above the iso-value {iso}: the surface would be the grid's box"
+            );
         }
         let field = IntensityField {
             volume: &volume,
@@ -107,7 +105,11 @@ pub fn run(a: &MeshArgs) -> Result<()> {
         bail!(
             "{}: the surface is empty (no voxel reaches the iso-value{})",
             a.scan.scan.display(),
-            if mask.is_some() { " inside the label" } else { "" }
+            if mask.is_some() {
+                " inside the label"
+            } else {
+                ""
+            }
         );
     }
     let extracted = mesh.triangles.len();
@@ -117,7 +119,11 @@ pub fn run(a: &MeshArgs) -> Result<()> {
         let max_error = match &a.max_error {
             Some(t) => sutura_core::geometry::parse_length_mm(t)
                 .with_context(|| format!("--max-error {t}"))?,
-            None => volume.spacing_mm().iter().copied().fold(f64::INFINITY, f64::min),
+            None => volume
+                .spacing_mm()
+                .iter()
+                .copied()
+                .fold(f64::INFINITY, f64::min),
         };
         decimation_error_mm = Some(mesh.decimate(target, max_error));
     }
@@ -125,7 +131,10 @@ pub fn run(a: &MeshArgs) -> Result<()> {
     let title = format!(
         "Sutura mesh of {}{}",
         a.scan.scan.display(),
-        a.label.as_deref().map(|l| format!(", label {l}")).unwrap_or_default()
+        a.label
+            .as_deref()
+            .map(|l| format!(", label {l}"))
+            .unwrap_or_default()
     );
     write::write(&mesh, &a.output, &title)?;
     let rep = mesh.report();

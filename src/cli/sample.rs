@@ -119,7 +119,8 @@ fn write_scan(v: &sutura_core::volume::Volume, path: &Path) -> Result<()> {
 /// The rock-matrix sample: the scan and the true skull mask (u8, 1 = bone) on the same grid.
 fn write_rock(dir: &Path) -> Result<()> {
     let spec = synth::rock::rock_spec();
-    let s = synth::rock::generate_in_rock(&spec).with_context(|| format!("specimen {}", spec.id))?;
+    let s =
+        synth::rock::generate_in_rock(&spec).with_context(|| format!("specimen {}", spec.id))?;
     let scan = dir.join(format!("{}.nii.gz", s.id));
     write_scan(&s.volume, &scan)?;
     let truth = sutura_core::volume::Volume::from_vec(

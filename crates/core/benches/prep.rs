@@ -93,7 +93,13 @@ fn main() {
     let mid = c as f64 * spacing;
     let stroke = Stroke {
         points: (0..10)
-            .map(|s| WorldPoint::new(mid * (0.5 + 0.1 * s as f64), mid * (0.8 + 0.03 * s as f64), mid))
+            .map(|s| {
+                WorldPoint::new(
+                    mid * (0.5 + 0.1 * s as f64),
+                    mid * (0.8 + 0.03 * s as f64),
+                    mid,
+                )
+            })
             .collect(),
         radius_mm: 20.0 * spacing,
         shape: BrushShape::Disc { axis: 2 },
@@ -101,19 +107,33 @@ fn main() {
     let mut worst = 0.0f64;
     for _ in 0..5 {
         let t = Instant::now();
-        let edit = paint(&mut labels, volume.world_from_voxel(), &stroke, value, Combine::Subtract, true)
-            .unwrap();
+        let edit = paint(
+            &mut labels,
+            volume.world_from_voxel(),
+            &stroke,
+            value,
+            Combine::Subtract,
+            true,
+        )
+        .unwrap();
         let overlay = labels.plane(2, c);
         let ms = t.elapsed().as_secs_f64() * 1e3;
         worst = worst.max(ms);
         std::hint::black_box(overlay);
         labels.undo(edit);
     }
-    println!("brush stroke (10 points, r = 20 voxels) + plane overlay read: worst {worst:.2} ms of 5; target < 16 ms");
+    println!(
+        "brush stroke (10 points, r = 20 voxels) + plane overlay read: worst {worst:.2} ms of 5; target < 16 ms"
+    );
 
     // mesh extraction at the shell's outer iso-level
     let iso = 20_000.0;
-    let field = IntensityField { volume: &volume, iso, outside: 1_000.0, within: None };
+    let field = IntensityField {
+        volume: &volume,
+        iso,
+        outside: 1_000.0,
+        within: None,
+    };
     let t = Instant::now();
     let mesh = extract(&field, volume.world_from_voxel());
     let mesh_s = t.elapsed().as_secs_f64();
@@ -136,7 +156,8 @@ fn main() {
         _ => unreachable!(),
     }
     drop(volume);
-    let script = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../tests/python/prep_marching_bench.py");
+    let script =
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../tests/python/prep_marching_bench.py");
     let out = Command::new(python())
         .arg(&script)
         .args([raw.to_str().unwrap(), &n.to_string(), &iso.to_string()])
@@ -154,7 +175,10 @@ fn main() {
                 load()
             );
         }
-        Ok(o) => println!("SCIKIT-IMAGE BASELINE FAILED: {}", String::from_utf8_lossy(&o.stderr)),
+        Ok(o) => println!(
+            "SCIKIT-IMAGE BASELINE FAILED: {}",
+            String::from_utf8_lossy(&o.stderr)
+        ),
         Err(e) => println!("SCIKIT-IMAGE BASELINE NOT RUN ({e}); set SUTURA_PYTHON"),
     }
 }

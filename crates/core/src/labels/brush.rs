@@ -50,7 +50,9 @@ pub fn paint(
         let p = world_from_voxel
             .voxel_to_world(VoxelPoint::new(i as f64, j as f64, k as f64))
             .0;
-        segments.iter().any(|(a, b)| dist2_to_segment(p, *a, *b) <= r2)
+        segments
+            .iter()
+            .any(|(a, b)| dist2_to_segment(p, *a, *b) <= r2)
     })
 }
 
@@ -65,7 +67,9 @@ fn prepare(
     stroke: &Stroke,
 ) -> Result<([Range<usize>; 3], Vec<(Point3<f64>, Point3<f64>)>), LabelsError> {
     if stroke.points.is_empty() {
-        return Err(LabelsError::Invalid("a stroke needs at least one point".into()));
+        return Err(LabelsError::Invalid(
+            "a stroke needs at least one point".into(),
+        ));
     }
     if !(stroke.radius_mm.is_finite() && stroke.radius_mm > 0.0) {
         return Err(LabelsError::Invalid(format!(
@@ -148,7 +152,10 @@ mod tests {
         let v = lv.add_label("skull").unwrap();
         let w = Affine3::from_spacing(spacing);
         let stroke = Stroke {
-            points: vec![WorldPoint::new(0.3, 0.6, 0.51), WorldPoint::new(0.6, 0.6, 0.49)],
+            points: vec![
+                WorldPoint::new(0.3, 0.6, 0.51),
+                WorldPoint::new(0.6, 0.6, 0.49),
+            ],
             radius_mm: 0.1,
             shape: BrushShape::Disc { axis: 2 },
         };
@@ -173,7 +180,11 @@ mod tests {
         assert_eq!(m.count(), want);
         // and about the capsule's area 2r·L + πr² in voxels of 0.01 × 0.02 mm²
         let area = (0.2 * 0.3 + std::f64::consts::PI * 0.01) / (0.01 * 0.02);
-        assert!((m.count() as f64 - area).abs() < 0.1 * area, "{} vs {area}", m.count());
+        assert!(
+            (m.count() as f64 - area).abs() < 0.1 * area,
+            "{} vs {area}",
+            m.count()
+        );
         let erase = Stroke {
             points: vec![WorldPoint::new(0.45, 0.6, 0.5)],
             radius_mm: 0.5,

@@ -264,7 +264,10 @@ mod tests {
             let r = 10.0 + 20.0 * c as f64 / 20.0;
             let expect = std::f64::consts::PI * r * r;
             let got = s.count() as f64;
-            assert!((got - expect).abs() < 0.03 * expect + 8.0, "slice {c}: {got} vs {expect}");
+            assert!(
+                (got - expect).abs() < 0.03 * expect + 8.0,
+                "slice {c}: {got} vs {expect}"
+            );
         }
         assert!(interpolate(&lv, 7, 2).is_err());
     }

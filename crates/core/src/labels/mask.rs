@@ -70,9 +70,7 @@ impl BitMask {
     #[must_use]
     pub fn from_bytes(dims: [usize; 3], bytes: &[u8]) -> Self {
         assert_eq!(bytes.len(), dims[0] * dims[1] * dims[2]);
-        Self::from_fn(dims, |i, j, k| {
-            bytes[i + dims[0] * (j + dims[1] * k)] != 0
-        })
+        Self::from_fn(dims, |i, j, k| bytes[i + dims[0] * (j + dims[1] * k)] != 0)
     }
 
     /// One byte per voxel (1 set, 0 clear), in the volume's memory order.

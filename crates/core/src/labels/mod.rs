@@ -340,9 +340,7 @@ impl LabelVolume {
             .for_each(|(k, plane)| {
                 for bj in 0..self.grid[1] {
                     for bi in 0..self.grid[0] {
-                        let brick = self.bricks
-                            [self.brick_index([bi, bj, k / BRICK])]
-                        .as_deref();
+                        let brick = self.bricks[self.brick_index([bi, bj, k / BRICK])].as_deref();
                         if brick.is_none() && !zero_in {
                             continue;
                         }
@@ -459,8 +457,7 @@ impl LabelVolume {
                     }
                     if changed {
                         edit.bricks.push((n, old));
-                        self.bricks[n] =
-                            Some(data).filter(|d| d.iter().any(|&v| v != 0));
+                        self.bricks[n] = Some(data).filter(|d| d.iter().any(|&v| v != 0));
                     }
                 }
             }
@@ -503,11 +500,9 @@ impl LabelVolume {
                         .unwrap_or_else(|| vec![0u8; BRICK_VOXELS].into_boxed_slice());
                     let mut changed = false;
                     for k in (bk * BRICK).max(b[2].start)..((bk + 1) * BRICK).min(b[2].end) {
-                        for j in (bj * BRICK).max(b[1].start)..((bj + 1) * BRICK).min(b[1].end)
-                        {
+                        for j in (bj * BRICK).max(b[1].start)..((bj + 1) * BRICK).min(b[1].end) {
                             let base = BRICK * (j % BRICK + BRICK * (k % BRICK));
-                            for i in
-                                (bi * BRICK).max(b[0].start)..((bi + 1) * BRICK).min(b[0].end)
+                            for i in (bi * BRICK).max(b[0].start)..((bi + 1) * BRICK).min(b[0].end)
                             {
                                 if !f(i, j, k) {
                                     continue;
@@ -670,22 +665,43 @@ mod tests {
         let dims = [20, 20, 20];
         let mut lv = LabelVolume::new(dims, [1.0; 3]);
         let v = lv.add_label("a").unwrap();
-        lv.apply(&BitMask::from_fn(dims, |i, _, _| i < 10), v, Combine::Add, false)
-            .unwrap();
-        lv.apply(&BitMask::from_fn(dims, |_, j, _| j < 5), v, Combine::Subtract, false)
-            .unwrap();
+        lv.apply(
+            &BitMask::from_fn(dims, |i, _, _| i < 10),
+            v,
+            Combine::Add,
+            false,
+        )
+        .unwrap();
+        lv.apply(
+            &BitMask::from_fn(dims, |_, j, _| j < 5),
+            v,
+            Combine::Subtract,
+            false,
+        )
+        .unwrap();
         assert_eq!(lv.counts()[1], 10 * 15 * 20);
-        lv.apply(&BitMask::from_fn(dims, |_, _, k| k < 4), v, Combine::Intersect, false)
-            .unwrap();
+        lv.apply(
+            &BitMask::from_fn(dims, |_, _, k| k < 4),
+            v,
+            Combine::Intersect,
+            false,
+        )
+        .unwrap();
         assert_eq!(lv.counts()[1], 10 * 15 * 4);
-        assert_eq!(lv.mask_of(v), BitMask::from_fn(dims, |i, j, k| i < 10 && j >= 5 && k < 4));
+        assert_eq!(
+            lv.mask_of(v),
+            BitMask::from_fn(dims, |i, j, k| i < 10 && j >= 5 && k < 4)
+        );
     }
 
     #[test]
     fn names_are_checked() {
         let mut lv = LabelVolume::new([4, 4, 4], [1.0; 3]);
         lv.add_label("skull").unwrap();
-        assert!(matches!(lv.add_label("skull"), Err(LabelsError::DuplicateLabel(_))));
+        assert!(matches!(
+            lv.add_label("skull"),
+            Err(LabelsError::DuplicateLabel(_))
+        ));
         assert!(matches!(lv.add_label("a/b"), Err(LabelsError::BadName(_))));
         assert_eq!(
             lv.value_of("bone").unwrap_err().to_string(),

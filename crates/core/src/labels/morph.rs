@@ -67,9 +67,8 @@ pub fn ball_offsets(
     let mut out = BTreeMap::new();
     for dk in -reach[2]..=reach[2] {
         for dj in -reach[1]..=reach[1] {
-            let rest = r2
-                - (dj as f64 * spacing_mm[1]).powi(2)
-                - (dk as f64 * spacing_mm[2]).powi(2);
+            let rest =
+                r2 - (dj as f64 * spacing_mm[1]).powi(2) - (dk as f64 * spacing_mm[2]).powi(2);
             if rest < 0.0 {
                 continue;
             }
@@ -119,7 +118,11 @@ fn shift_up(src: &[u64], d: usize, out: &mut [u64]) {
     for w in 0..src.len() {
         let lo = if w >= q { src[w - q] } else { 0 };
         let below = if w > q { src[w - q - 1] } else { 0 };
-        out[w] = if r == 0 { lo } else { lo << r | below >> (64 - r) };
+        out[w] = if r == 0 {
+            lo
+        } else {
+            lo << r | below >> (64 - r)
+        };
     }
 }
 
@@ -172,8 +175,16 @@ fn run(mask: &BitMask, ball: &BTreeMap<(isize, isize), usize>, and: bool) -> Bit
     let Some(bbox) = mask.bbox() else {
         return out;
     };
-    let reach_j = ball.keys().map(|(dj, _)| dj.unsigned_abs()).max().unwrap_or(0);
-    let reach_k = ball.keys().map(|(_, dk)| dk.unsigned_abs()).max().unwrap_or(0);
+    let reach_j = ball
+        .keys()
+        .map(|(dj, _)| dj.unsigned_abs())
+        .max()
+        .unwrap_or(0);
+    let reach_k = ball
+        .keys()
+        .map(|(_, dk)| dk.unsigned_abs())
+        .max()
+        .unwrap_or(0);
     // the rows and planes the result can have bits in
     let (jr, kr) = if and {
         (bbox[1].clone(), bbox[2].clone())
@@ -214,9 +225,7 @@ fn run(mask: &BitMask, ball: &BTreeMap<(isize, isize), usize>, and: bool) -> Bit
                         .filter(|&sj| {
                             rows.iter().any(|&(dj, ww)| {
                                 ww == w
-                                    && sj
-                                        .checked_add_signed(-dj)
-                                        .is_some_and(|j| jr.contains(&j))
+                                    && sj.checked_add_signed(-dj).is_some_and(|j| jr.contains(&j))
                             })
                         })
                         .collect();
@@ -270,11 +279,7 @@ mod tests {
             let mut any = false;
             for (&(dj, dk), &w) in ball {
                 for di in -(w as isize)..=(w as isize) {
-                    let p = [
-                        i as isize + di,
-                        j as isize + dj,
-                        k as isize + dk,
-                    ];
+                    let p = [i as isize + di, j as isize + dj, k as isize + dk];
                     let inside = (0..3).all(|a| p[a] >= 0 && (p[a] as usize) < d[a]);
                     let v = inside && mask.get(p[0] as usize, p[1] as usize, p[2] as usize);
                     all &= v;
@@ -296,10 +301,18 @@ mod tests {
                 < 1.0;
             blob && h != 0 || h == 3 && i > 60
         });
-        for (r, s) in [(0.3, [0.1, 0.12, 0.2]), (0.21, [0.1, 0.1, 0.1]), (0.0, [1.0; 3])] {
+        for (r, s) in [
+            (0.3, [0.1, 0.12, 0.2]),
+            (0.21, [0.1, 0.1, 0.1]),
+            (0.0, [1.0; 3]),
+        ] {
             let ball = ball_offsets(r, s).unwrap();
             assert_eq!(erode(&mask, &ball), brute(&mask, &ball, true), "erode {r}");
-            assert_eq!(dilate(&mask, &ball), brute(&mask, &ball, false), "dilate {r}");
+            assert_eq!(
+                dilate(&mask, &ball),
+                brute(&mask, &ball, false),
+                "dilate {r}"
+            );
         }
     }
 

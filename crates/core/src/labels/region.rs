@@ -78,12 +78,7 @@ pub fn threshold(
     bounds: Option<&[Range<usize>; 3]>,
 ) -> BitMask {
     let (lo, hi) = range.raw(volume);
-    let mut m = crate::with_voxels!(volume.voxels(), |s| in_range_bits(
-        s,
-        volume.dims(),
-        lo,
-        hi
-    ));
+    let mut m = crate::with_voxels!(volume.voxels(), |s| in_range_bits(s, volume.dims(), lo, hi));
     if let Some(w) = within {
         m.and_with(w);
     }
@@ -265,8 +260,7 @@ pub fn flood(allowed: &BitMask, seed: [usize; 3], connectivity: Connectivity) ->
         }
         visited.set_run(j, k, i0..i1);
         for &(dj, dk) in offsets {
-            let (Some(nj), Some(nk)) = (j.checked_add_signed(dj), k.checked_add_signed(dk))
-            else {
+            let (Some(nj), Some(nk)) = (j.checked_add_signed(dj), k.checked_add_signed(dk)) else {
                 continue;
             };
             if nj >= ny || nk >= nz {
@@ -510,9 +504,9 @@ pub fn keep_piece_at(
     connectivity: Connectivity,
 ) -> Result<BitMask, LabelsError> {
     let p = pieces(mask, connectivity);
-    let id = p.piece_at(v).ok_or_else(|| {
-        LabelsError::Invalid(format!("voxel {v:?} is not in the label"))
-    })?;
+    let id = p
+        .piece_at(v)
+        .ok_or_else(|| LabelsError::Invalid(format!("voxel {v:?} is not in the label")))?;
     Ok(p.select(|n| n == id))
 }
 
@@ -600,7 +594,9 @@ mod tests {
     fn flood_crosses_words_and_stops_at_their_edges() {
         // a run ending exactly at a word boundary (i = 63) and rows of 150 voxels
         let dims = [150, 4, 3];
-        let allowed = BitMask::from_fn(dims, |i, j, k| (i < 64 && j == 1) || (j == 2 && k == 1) || (i == 140 && k == 1));
+        let allowed = BitMask::from_fn(dims, |i, j, k| {
+            (i < 64 && j == 1) || (j == 2 && k == 1) || (i == 140 && k == 1)
+        });
         let f = flood(&allowed, [10, 1, 1], Connectivity::Faces6);
         // row j = 1 (i < 64) in every plane joins row j = 2 of plane 1 (all 150), which
         // reaches i = 140 of rows 0, 1, 3 in plane 1

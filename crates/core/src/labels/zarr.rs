@@ -347,10 +347,20 @@ mod tests {
         let mut lv = LabelVolume::new(dims, [0.036, 0.036, 0.05]);
         let a = lv.add_label("skull").unwrap();
         let b = lv.add_label("matrix").unwrap();
-        lv.apply(&BitMask::from_fn(dims, |i, j, _| i > 64 && j > 64), a, Combine::Add, false)
-            .unwrap();
-        lv.apply(&BitMask::from_fn(dims, |i, j, k| i < 3 && j < 9 && k == 2), b, Combine::Add, false)
-            .unwrap();
+        lv.apply(
+            &BitMask::from_fn(dims, |i, j, _| i > 64 && j > 64),
+            a,
+            Combine::Add,
+            false,
+        )
+        .unwrap();
+        lv.apply(
+            &BitMask::from_fn(dims, |i, j, k| i < 3 && j < 9 && k == 2),
+            b,
+            Combine::Add,
+            false,
+        )
+        .unwrap();
         let path = dir.path().join("x.labels.zarr");
         save(&lv, &path).unwrap();
         save(&lv, &path).unwrap(); // over an existing one: keeps a backup

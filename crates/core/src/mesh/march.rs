@@ -245,11 +245,8 @@ fn stitch(slabs: Vec<Slab>) -> Mesh {
                 }
             };
         }
-        mesh.triangles.extend(
-            s.triangles
-                .iter()
-                .map(|t| t.map(|v| remap[v as usize])),
-        );
+        mesh.triangles
+            .extend(s.triangles.iter().map(|t| t.map(|v| remap[v as usize])));
         prev_last = s
             .last
             .iter()
@@ -358,7 +355,10 @@ fn slab(field: &dyn Field, world_from_voxel: &Affine3, z0: isize, z1: isize, fli
                 // the cell at bit b spans corners b and b + 1
                 let carry = if w + 1 < wpx {
                     let n = next(jj);
-                    (n.iter().fold(0, |a, r| a | r) & 1, n.iter().fold(u64::MAX, |a, r| a & r) & 1)
+                    (
+                        n.iter().fold(0, |a, r| a | r) & 1,
+                        n.iter().fold(u64::MAX, |a, r| a & r) & 1,
+                    )
                 } else {
                     (0, 0)
                 };
@@ -369,114 +369,118 @@ fn slab(field: &dyn Field, world_from_voxel: &Affine3, z0: isize, z1: isize, fli
                 let last = px - 1;
                 if (w + 1) * 64 > last {
                     let keep = last - w * 64;
-                    mixed &= if keep >= 64 { u64::MAX } else { (1u64 << keep) - 1 };
+                    mixed &= if keep >= 64 {
+                        u64::MAX
+                    } else {
+                        (1u64 << keep) - 1
+                    };
                 }
                 while mixed != 0 {
-                let ii = w * 64 + mixed.trailing_zeros() as usize;
-                mixed &= mixed - 1;
-                let n = [r0 + ii, r0 + ii + 1, r1 + ii, r1 + ii + 1];
-                let mut case = 0u8;
-                for (b, &m) in n.iter().enumerate() {
-                    case |= u8::from(inside(&inside_lo, m)) << b;
-                    case |= u8::from(inside(&inside_hi, m)) << (b + 4);
-                }
-                if case == 0 || case == 255 {
-                    continue;
-                }
-                let vals = [
-                    lo[n[0]], lo[n[1]], lo[n[2]], lo[n[3]], hi[n[0]], hi[n[1]], hi[n[2]],
-                    hi[n[3]],
-                ];
-                let mut decisions = 0u32;
-                for f in 0..6 {
-                    if ambiguous(case, f) {
-                        let c = FACE[f].0;
-                        let r = |q: usize| f64::from(vals[c[q]]) - f64::from(iso);
-                        // joined when the inside pair's product beats the outside pair's
-                        // (the saddle of the bilinear interpolant is inside); ties: separate
-                        let c0_inside = case >> c[0] & 1 == 1;
-                        let (p_in, p_out) = if c0_inside {
-                            (r(0) * r(2), r(1) * r(3))
-                        } else {
-                            (r(1) * r(3), r(0) * r(2))
-                        };
-                        if p_in > p_out {
-                            decisions |= 1 << f;
+                    let ii = w * 64 + mixed.trailing_zeros() as usize;
+                    mixed &= mixed - 1;
+                    let n = [r0 + ii, r0 + ii + 1, r1 + ii, r1 + ii + 1];
+                    let mut case = 0u8;
+                    for (b, &m) in n.iter().enumerate() {
+                        case |= u8::from(inside(&inside_lo, m)) << b;
+                        case |= u8::from(inside(&inside_hi, m)) << (b + 4);
+                    }
+                    if case == 0 || case == 255 {
+                        continue;
+                    }
+                    let vals = [
+                        lo[n[0]], lo[n[1]], lo[n[2]], lo[n[3]], hi[n[0]], hi[n[1]], hi[n[2]],
+                        hi[n[3]],
+                    ];
+                    let mut decisions = 0u32;
+                    for f in 0..6 {
+                        if ambiguous(case, f) {
+                            let c = FACE[f].0;
+                            let r = |q: usize| f64::from(vals[c[q]]) - f64::from(iso);
+                            // joined when the inside pair's product beats the outside pair's
+                            // (the saddle of the bilinear interpolant is inside); ties: separate
+                            let c0_inside = case >> c[0] & 1 == 1;
+                            let (p_in, p_out) = if c0_inside {
+                                (r(0) * r(2), r(1) * r(3))
+                            } else {
+                                (r(1) * r(3), r(0) * r(2))
+                            };
+                            if p_in > p_out {
+                                decisions |= 1 << f;
+                            }
                         }
                     }
-                }
-                let key = case as usize | (decisions as usize) << 8;
-                let (s, e) = (table.start[key] as usize, table.start[key + 1] as usize);
-                let mut ids = [none; 12];
-                for t in &table.tris[s..e] {
-                    let mut tri = [0u32; 3];
-                    for (slot, &edge) in tri.iter_mut().zip(t) {
-                        let edge = edge as usize;
-                        if ids[edge] == none {
-                            let (a, b) = EDGE[edge];
-                            // which table holds this edge, at which padded cell index
-                            let (tab, at): (&mut Vec<u32>, usize) = match edge {
-                                0 => (&mut xe_lo, r0 + ii),
-                                1 => (&mut xe_lo, r1 + ii),
-                                2 => (&mut xe_hi, r0 + ii),
-                                3 => (&mut xe_hi, r1 + ii),
-                                4 => (&mut ye_lo, r0 + ii),
-                                5 => (&mut ye_lo, r0 + ii + 1),
-                                6 => (&mut ye_hi, r0 + ii),
-                                7 => (&mut ye_hi, r0 + ii + 1),
-                                8 => (&mut ze, r0 + ii),
-                                9 => (&mut ze, r0 + ii + 1),
-                                10 => (&mut ze, r1 + ii),
-                                _ => (&mut ze, r1 + ii + 1),
-                            };
-                            if tab[at] == none {
-                                let (va, vb) = (f64::from(vals[a]), f64::from(vals[b]));
-                                let t = if (vb - va).abs() > 0.0 {
-                                    ((f64::from(iso) - va) / (vb - va)).clamp(0.0, 1.0)
-                                } else {
-                                    0.5
+                    let key = case as usize | (decisions as usize) << 8;
+                    let (s, e) = (table.start[key] as usize, table.start[key + 1] as usize);
+                    let mut ids = [none; 12];
+                    for t in &table.tris[s..e] {
+                        let mut tri = [0u32; 3];
+                        for (slot, &edge) in tri.iter_mut().zip(t) {
+                            let edge = edge as usize;
+                            if ids[edge] == none {
+                                let (a, b) = EDGE[edge];
+                                // which table holds this edge, at which padded cell index
+                                let (tab, at): (&mut Vec<u32>, usize) = match edge {
+                                    0 => (&mut xe_lo, r0 + ii),
+                                    1 => (&mut xe_lo, r1 + ii),
+                                    2 => (&mut xe_hi, r0 + ii),
+                                    3 => (&mut xe_hi, r1 + ii),
+                                    4 => (&mut ye_lo, r0 + ii),
+                                    5 => (&mut ye_lo, r0 + ii + 1),
+                                    6 => (&mut ye_hi, r0 + ii),
+                                    7 => (&mut ye_hi, r0 + ii + 1),
+                                    8 => (&mut ze, r0 + ii),
+                                    9 => (&mut ze, r0 + ii + 1),
+                                    10 => (&mut ze, r1 + ii),
+                                    _ => (&mut ze, r1 + ii + 1),
                                 };
-                                let ca = CORNER[a];
-                                let cb = CORNER[b];
-                                let p = [0, 1, 2].map(|x| {
-                                    let base = [ii as f64 - 1.0, jj as f64 - 1.0, z as f64][x];
-                                    base + ca[x] as f64 + t * (cb[x] as f64 - ca[x] as f64)
-                                });
-                                let id = out.vertices.len() as u32;
-                                out.vertices.push(to_world(p));
-                                tab[at] = id;
-                                // vertices on the slab's first or last plane, for stitching
-                                let plane_z = if edge < 8 {
-                                    Some(if edge == 2 || edge == 3 || edge == 6 || edge == 7 {
-                                        z + 1
+                                if tab[at] == none {
+                                    let (va, vb) = (f64::from(vals[a]), f64::from(vals[b]));
+                                    let t = if (vb - va).abs() > 0.0 {
+                                        ((f64::from(iso) - va) / (vb - va)).clamp(0.0, 1.0)
                                     } else {
-                                        z
-                                    })
-                                } else {
-                                    None
-                                };
-                                if let Some(pz) = plane_z {
-                                    let axis = u64::from(edge >= 4);
-                                    let key = ((pz + 1) as u64 * (px * py) as u64 + at as u64)
-                                        * 2
-                                        + axis;
-                                    if pz == z0 {
-                                        out.first.push((key, id));
-                                    }
-                                    if pz == z1 {
-                                        out.last.push((key, id));
+                                        0.5
+                                    };
+                                    let ca = CORNER[a];
+                                    let cb = CORNER[b];
+                                    let p = [0, 1, 2].map(|x| {
+                                        let base = [ii as f64 - 1.0, jj as f64 - 1.0, z as f64][x];
+                                        base + ca[x] as f64 + t * (cb[x] as f64 - ca[x] as f64)
+                                    });
+                                    let id = out.vertices.len() as u32;
+                                    out.vertices.push(to_world(p));
+                                    tab[at] = id;
+                                    // vertices on the slab's first or last plane, for stitching
+                                    let plane_z = if edge < 8 {
+                                        Some(if edge == 2 || edge == 3 || edge == 6 || edge == 7 {
+                                            z + 1
+                                        } else {
+                                            z
+                                        })
+                                    } else {
+                                        None
+                                    };
+                                    if let Some(pz) = plane_z {
+                                        let axis = u64::from(edge >= 4);
+                                        let key = ((pz + 1) as u64 * (px * py) as u64 + at as u64)
+                                            * 2
+                                            + axis;
+                                        if pz == z0 {
+                                            out.first.push((key, id));
+                                        }
+                                        if pz == z1 {
+                                            out.last.push((key, id));
+                                        }
                                     }
                                 }
+                                ids[edge] = tab[at];
                             }
-                            ids[edge] = tab[at];
+                            *slot = ids[edge];
                         }
-                        *slot = ids[edge];
+                        if flip {
+                            tri.swap(1, 2);
+                        }
+                        out.triangles.push(tri);
                     }
-                    if flip {
-                        tri.swap(1, 2);
-                    }
-                    out.triangles.push(tri);
-                }
                 }
             }
         }
@@ -507,7 +511,11 @@ mod tests {
                 let mut used: Vec<u8> = tris.iter().flatten().copied().collect();
                 used.sort_unstable();
                 used.dedup();
-                assert_eq!(used.len(), crossed, "case {case:08b} decisions {decisions:06b}");
+                assert_eq!(
+                    used.len(),
+                    crossed,
+                    "case {case:08b} decisions {decisions:06b}"
+                );
             }
         }
         // one inside corner: one triangle facing away from it

@@ -154,7 +154,8 @@ impl Mesh {
             volume += a.dot(&b.cross(&c)) / 6.0;
         }
         // directed edges: (from, to) → count
-        let mut directed: HashMap<(u32, u32), u32> = HashMap::with_capacity(self.triangles.len() * 3);
+        let mut directed: HashMap<(u32, u32), u32> =
+            HashMap::with_capacity(self.triangles.len() * 3);
         for t in &self.triangles {
             for n in 0..3 {
                 *directed.entry((t[n], t[(n + 1) % 3])).or_default() += 1;
@@ -219,11 +220,7 @@ impl Mesh {
         if target_triangles >= self.triangles.len() {
             return 0.0;
         }
-        let positions: Vec<[f32; 3]> = self
-            .vertices
-            .iter()
-            .map(|p| p.map(|x| x as f32))
-            .collect();
+        let positions: Vec<[f32; 3]> = self.vertices.iter().map(|p| p.map(|x| x as f32)).collect();
         let indices: Vec<u32> = self.triangles.iter().flatten().copied().collect();
         let mut error = 0.0f32;
         let out = meshopt::simplify_decoder(

@@ -52,7 +52,11 @@ fn ball_volume() -> (Volume, [f64; 3]) {
     for k in 0..dims[2] {
         for j in 0..dims[1] {
             for i in 0..dims[0] {
-                let p = [i as f64 * spacing[0], j as f64 * spacing[1], k as f64 * spacing[2]];
+                let p = [
+                    i as f64 * spacing[0],
+                    j as f64 * spacing[1],
+                    k as f64 * spacing[2],
+                ];
                 let r = ((p[0] - centre[0]).powi(2)
                     + (p[1] - centre[1]).powi(2)
                     + (p[2] - centre[2]).powi(2))
@@ -72,7 +76,9 @@ fn blurred_ball_area_and_volume_match_the_iso50_sphere() {
     let (volume, centre) = ball_volume();
     // ISO-50: halfway between air and bone; the radius where the profile crosses ½ lies a
     // little inside R because of the curvature term
-    let r50 = root(R - 4.0 * SIGMA, R + 4.0 * SIGMA, |r| blurred_ball(r, R, SIGMA) - 0.5);
+    let r50 = root(R - 4.0 * SIGMA, R + 4.0 * SIGMA, |r| {
+        blurred_ball(r, R, SIGMA) - 0.5
+    });
     assert!(r50 < R && r50 > R - 0.05, "r50 {r50}");
     let iso = 0.5 * (AIR + BONE);
     let field = IntensityField {
@@ -138,8 +144,12 @@ fn slabs_stitch_into_the_same_mesh() {
 fn a_label_closes_the_surface_where_it_cuts_material() {
     // a solid block of bone filling the grid; the label keeps the half i < 10
     let dims = [20, 12, 12];
-    let volume = Volume::from_vec(dims, Affine3::from_spacing([0.1; 3]), vec![BONE as f32; 20 * 144])
-        .unwrap();
+    let volume = Volume::from_vec(
+        dims,
+        Affine3::from_spacing([0.1; 3]),
+        vec![BONE as f32; 20 * 144],
+    )
+    .unwrap();
     let half = BitMask::from_fn(dims, |i, _, _| i < 10);
     let field = IntensityField {
         volume: &volume,
@@ -157,7 +167,11 @@ fn a_label_closes_the_surface_where_it_cuts_material() {
     let full = 1.0 * 1.2 * 1.2;
     // each of the 12 edges loses a prism of cross-section ½·(½ voxel)² = 0.125 · 0.01 mm²
     let edges = 4.0 * (1.0 + 1.2 + 1.2) * 0.125 * 0.01;
-    assert!(rep.volume_mm3 < full && rep.volume_mm3 > full - 1.2 * edges, "{}", rep.volume_mm3);
+    assert!(
+        rep.volume_mm3 < full && rep.volume_mm3 > full - 1.2 * edges,
+        "{}",
+        rep.volume_mm3
+    );
     // the label's own voxels give the same surface here
     let rep2 = extract(&MaskField { mask: &half }, volume.world_from_voxel()).report();
     assert!((rep2.volume_mm3 - rep.volume_mm3).abs() < 1e-12);
@@ -167,12 +181,18 @@ fn a_label_closes_the_surface_where_it_cuts_material() {
 #[test]
 fn mirrored_frames_keep_normals_outward() {
     let dims = [6, 6, 6];
-    let m = BitMask::from_fn(dims, |i, j, k| (1..5).contains(&i) && (1..5).contains(&j) && (1..5).contains(&k));
+    let m = BitMask::from_fn(dims, |i, j, k| {
+        (1..5).contains(&i) && (1..5).contains(&j) && (1..5).contains(&k)
+    });
     let flip = Affine3::from_spacing([-0.5, 0.5, 0.5]);
     let rep = extract(&MaskField { mask: &m }, &flip).report();
     let plain = extract(&MaskField { mask: &m }, &Affine3::from_spacing([0.5; 3])).report();
     assert!(plain.volume_mm3 > 0.0);
-    assert!((rep.volume_mm3 - plain.volume_mm3).abs() < 1e-12, "{}", rep.volume_mm3);
+    assert!(
+        (rep.volume_mm3 - plain.volume_mm3).abs() < 1e-12,
+        "{}",
+        rep.volume_mm3
+    );
     assert!(rep.closed);
 }
 
@@ -188,15 +208,25 @@ fn smoothing_keeps_the_volume_and_decimation_the_shape() {
     smooth::taubin(&mut mesh, 20);
     let after = mesh.report();
     // the true ball: 4/3 π 12³ = 7238; the staircase is close; Taubin keeps it within 1 %
-    assert!((after.volume_mm3 / before.volume_mm3 - 1.0).abs() < 0.01, "{before:?} {after:?}");
+    assert!(
+        (after.volume_mm3 / before.volume_mm3 - 1.0).abs() < 0.01,
+        "{before:?} {after:?}"
+    );
     // and the area drops towards the sphere's (the staircase's is larger)
     let sphere = 4.0 * std::f64::consts::PI * 144.0;
     assert!((after.area_mm2 - sphere).abs() < (before.area_mm2 - sphere).abs());
     let n = mesh.triangles.len();
     let err = mesh.decimate(n / 5, 0.5);
     let dec = mesh.report();
-    assert!(dec.triangles <= n / 5 + 2 && dec.triangles > n / 10, "{}", dec.triangles);
-    assert!(dec.closed && dec.pieces == 1 && dec.euler_characteristic == 2, "{dec:?}");
+    assert!(
+        dec.triangles <= n / 5 + 2 && dec.triangles > n / 10,
+        "{}",
+        dec.triangles
+    );
+    assert!(
+        dec.closed && dec.pieces == 1 && dec.euler_characteristic == 2,
+        "{dec:?}"
+    );
     assert!(
         (dec.volume_mm3 / after.volume_mm3 - 1.0).abs() < 0.01,
         "decimated {} vs {}",

@@ -105,7 +105,9 @@ fn write_stl(mesh: &Mesh, title: &str, w: &mut dyn Write) -> std::io::Result<()>
     for t in &mesh.triangles {
         let [a, b, c] = t.map(|n| nalgebra::Vector3::from(mesh.vertices[n as usize]));
         let normal = (b - a).cross(&(c - a));
-        let normal = normal.try_normalize(0.0).unwrap_or_else(nalgebra::Vector3::zeros);
+        let normal = normal
+            .try_normalize(0.0)
+            .unwrap_or_else(nalgebra::Vector3::zeros);
         for p in [normal, a, b, c] {
             for x in p.iter() {
                 buf.extend_from_slice(&(*x as f32).to_le_bytes());

@@ -51,7 +51,10 @@ pub const ROCK_ID: &str = "RM-001";
 #[must_use]
 pub fn rock_spec() -> SpecimenSpec {
     let mut labels = std::collections::BTreeMap::new();
-    labels.insert("locality".to_owned(), "Harrowdene Clay pit, nodule bed".to_owned());
+    labels.insert(
+        "locality".to_owned(),
+        "Harrowdene Clay pit, nodule bed".to_owned(),
+    );
     labels.insert("synthetic".to_owned(), "true".to_owned());
     SpecimenSpec {
         id: ROCK_ID.to_owned(),
@@ -107,13 +110,13 @@ impl RockScene {
                 v += smooth_edge(-d / e) * (density - v);
             }
         }
-        let vein_sd = (self.vein_normal.dot(&(w - self.vein_point))).abs() - 0.5 * VEIN_THICKNESS_MM;
+        let vein_sd =
+            (self.vein_normal.dot(&(w - self.vein_point))).abs() - 0.5 * VEIN_THICKNESS_MM;
         if vein_sd < e {
             v += smooth_edge(-vein_sd / e) * (VEIN - v);
         }
-        let block = smooth_edge(
-            -super::block_sd(w, self.block_lo, self.block_hi, BLOCK_CORNER_MM) / e,
-        );
+        let block =
+            smooth_edge(-super::block_sd(w, self.block_lo, self.block_hi, BLOCK_CORNER_MM) / e);
         let background = AIR + block * (v - AIR);
         let q = self.specimen_from_world.apply_point(w);
         let (lo, hi) = &self.skull_box;
@@ -208,8 +211,8 @@ pub fn generate_in_rock(spec: &SpecimenSpec) -> Result<RockSpecimen, SynthError>
         let in_block =
             super::block_sd(c, block_lo, block_hi, BLOCK_CORNER_MM) < -(r + 2.0 * edge_mm);
         let off_bone = skull.sdf(specimen_from_world.apply_point(c)) > r + clear_bone;
-        let off_vein = (vein_normal.dot(&(c - vein_point))).abs()
-            > 0.5 * VEIN_THICKNESS_MM + r + clear_vein;
+        let off_vein =
+            (vein_normal.dot(&(c - vein_point))).abs() > 0.5 * VEIN_THICKNESS_MM + r + clear_vein;
         let off_others = grains
             .iter()
             .all(|(g, rg, _)| (g - c).norm() > r + rg + edge_mm);
@@ -276,4 +279,3 @@ pub fn generate_in_rock(spec: &SpecimenSpec) -> Result<RockSpecimen, SynthError>
         pores: n_pores,
     })
 }
-
