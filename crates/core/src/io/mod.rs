@@ -8,6 +8,7 @@
 //!
 //! Must not import `render` or `gui`.
 
+pub mod names;
 pub mod nifti;
 pub mod tiff;
 

@@ -21,6 +21,8 @@
 //! - [`project`]: the project document (scheme + specimens + trials), its edits, its file.
 //! - [`fingerprint`]: what identifies a scan (sizes, header hashes, a hash of sampled voxels).
 //! - [`curve`]: equal arc-length resampling of traced curves into semilandmarks.
+//! - [`mirror`]: a missing landmark estimated from its bilateral partner across the fitted
+//!   midsagittal plane.
 //! - [`scan`]: opening a specimen's scan with the voxel size the project recorded.
 //! - [`pick`]: finding the material boundary along a ray (3D view) or from a point on a slice,
 //!   at sub-voxel precision, and the ISO-50 default threshold.
@@ -30,6 +32,8 @@
 
 pub mod curve;
 pub mod fingerprint;
+pub mod mirror;
+pub mod palette;
 pub mod pick;
 pub mod project;
 pub mod scan;

@@ -24,7 +24,7 @@ mod folder;
 mod page;
 mod write;
 
-pub use folder::{list_slices, natural_cmp};
+pub use folder::list_slices;
 pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 
 use super::{IoError, OpenOptions, Progress};
