@@ -133,7 +133,7 @@ fn region_growing_matches_skimage_flood() {
     write_bytes(&path, &bytes);
     let volume = Volume::from_vec(dims, Affine3::from_spacing([0.02, 0.02, 0.03]), data).unwrap();
     let seed = [28usize, 20, 9];
-    let tol = 260.0;
+    let tol = 100.0;
     for (conn, skimage_conn) in [(Connectivity::Faces6, "1"), (Connectivity::All26, "3")] {
         let out_path = dir.path().join("flood.raw");
         let out = common::run_python(

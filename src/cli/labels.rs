@@ -358,15 +358,8 @@ pub fn parse_range(text: &str) -> Result<IntensityRange> {
 }
 
 fn parse_triple(text: &str, what: &str) -> Result<[f64; 3]> {
-    let v: Vec<f64> = text
-        .split(',')
-        .map(|s| s.trim().parse::<f64>())
-        .collect::<Result<_, _>>()
-        .with_context(|| format!("{what} '{text}': write three numbers x,y,z"))?;
-    match v.as_slice() {
-        [x, y, z] if v.iter().all(|c| c.is_finite()) => Ok([*x, *y, *z]),
-        _ => bail!("{what} '{text}': write three numbers x,y,z"),
-    }
+    let t: sutura_core::geometry::Triple = text.parse().with_context(|| what.to_owned())?;
+    Ok(t.0)
 }
 
 fn parse_voxel(text: &str, what: &str, dims: [usize; 3]) -> Result<[usize; 3]> {

@@ -5,7 +5,7 @@ use anyhow::{Context, Result, bail};
 use clap::Args;
 use std::path::PathBuf;
 
-use sutura_core::landmarks::pick::iso50;
+use sutura_core::landmarks::pick::{IsoValue, default_iso_value, iso50};
 use sutura_core::mesh::{IntensityField, MaskField, march, smooth, write};
 
 use super::ScanArgs;
@@ -77,14 +77,13 @@ pub fn run(a: &MeshArgs) -> Result<()> {
             None,
         )
     } else {
-        let peaks = iso50(&volume);
-        let iso = match (a.iso, &peaks) {
-            (Some(v), _) => v,
-            (None, Ok(p)) => p.threshold,
-            (None, Err(e)) => bail!("{}: {e}; give --iso", a.scan.scan.display()),
-        };
+        // the scan's one iso-value (ISO-50, or its stated fallback) unless one is given
+        let iso_value = a
+            .iso
+            .map_or_else(|| default_iso_value(&volume), IsoValue::given);
+        let iso = iso_value.value;
         let lowest = volume.stats().min;
-        let outside = match &peaks {
+        let outside = match iso50(&volume) {
             Ok(p) if p.background < iso => p.background,
             _ => lowest.min(iso - 1.0),
         };
@@ -99,7 +98,10 @@ pub fn run(a: &MeshArgs) -> Result<()> {
             outside,
             within: mask.as_ref(),
         };
-        (march::extract(&field, volume.world_from_voxel()), Some(iso))
+        (
+            march::extract(&field, volume.world_from_voxel()),
+            Some(iso_value),
+        )
     };
     if mesh.triangles.is_empty() {
         bail!(
@@ -141,7 +143,8 @@ pub fn run(a: &MeshArgs) -> Result<()> {
     let json = serde_json::json!({
         "scan": a.scan.scan,
         "label": a.label,
-        "iso": iso_used,
+        "iso": iso_used.as_ref().map(|i| i.value),
+        "iso_source": iso_used.as_ref().map(IsoValue::source_name),
         "field": if a.label_surface { "label voxels" } else { "intensity" },
         "smoothing_iterations": a.smooth,
         "extracted_triangles": extracted,
@@ -162,7 +165,10 @@ pub fn run(a: &MeshArgs) -> Result<()> {
         rep.pieces,
         if rep.closed { "yes" } else { "no" },
         rep.euler_characteristic,
-        iso_used.map(|v| format!("iso\t{v}\n")).unwrap_or_default(),
+        iso_used
+            .as_ref()
+            .map(|i| format!("iso\t{} ({})\n", i.value, i.source_name()))
+            .unwrap_or_default(),
     );
     super::emit(&text)
 }

@@ -127,27 +127,39 @@ fn shift_up(src: &[u64], d: usize, out: &mut [u64]) {
 }
 
 /// 1-D erosion (`and`) or dilation (`!and`) of a row by half-width `w`, written to `out`;
-/// `tmp` and `tmp2` are scratch rows of the same length.
+/// `tmp` and `tmp2` are scratch rows of the same length. The centred window `[i − w, i + w]` is
+/// the union of the window `[i, i + w]` reaching right and `[i − w, i]` reaching left, each built
+/// by doubling (so bits before the row's start and past its end read as unset, for both).
 fn line(src: &[u64], w: usize, and: bool, out: &mut [u64], tmp: &mut [u64], tmp2: &mut [u64]) {
     out.copy_from_slice(src);
     if w == 0 {
         return;
     }
-    let n = 2 * w + 1;
-    // out holds the window [i, i + len) combined
+    window(src, w + 1, true, and, out, tmp);
+    window(src, w + 1, false, and, tmp2, tmp);
+    combine(out, tmp2, and);
+}
+
+/// `out[i]` = the AND (`and`) or OR of `src` over `[i, i + n)` (`right`) or `(i − n, i]`.
+fn window(src: &[u64], n: usize, right: bool, and: bool, out: &mut [u64], tmp: &mut [u64]) {
+    out.copy_from_slice(src);
+    let shift = |from: &[u64], d: usize, to: &mut [u64]| {
+        if right {
+            shift_down(from, d, to);
+        } else {
+            shift_up(from, d, to);
+        }
+    };
     let mut len = 1;
     while len * 2 <= n {
-        shift_down(out, len, tmp);
+        shift(out, len, tmp);
         combine(out, tmp, and);
         len *= 2;
     }
     if len < n {
-        shift_down(out, n - len, tmp);
+        shift(out, n - len, tmp);
         combine(out, tmp, and);
     }
-    // centre the window: result[i] = window[i − w]
-    shift_up(out, w, tmp2);
-    out.copy_from_slice(tmp2);
 }
 
 #[inline]
@@ -314,6 +326,20 @@ mod tests {
                 "dilate {r}"
             );
         }
+    }
+
+    #[test]
+    fn sparse_specks_across_the_whole_grid() {
+        let dims = [61, 40, 22];
+        let mask = BitMask::from_fn(dims, |i, j, k| {
+            (i * 31 + j * 17 + k * 7) % 97 == 0 || (j == 35 && k == 4 && i > 5)
+        });
+        let ball = ball_offsets(0.1, [0.03, 0.036, 0.05]).unwrap();
+        assert_eq!(erode(&mask, &ball), brute(&mask, &ball, true));
+        let d = dilate(&mask, &ball);
+        let b = brute(&mask, &ball, false);
+        assert_eq!(d.count(), b.count());
+        assert_eq!(d, b);
     }
 
     #[test]
