@@ -21,6 +21,20 @@ pub struct ConvertArgs {
     #[arg(long, value_name = "I0:I1,J0:J1,K0:K1")]
     crop: Option<String>,
 
+    /// Crop to the bounding box of a label: `DIR:NAME` (a label image and its label), grown by
+    /// --margin voxels on every side.
+    #[arg(long, value_name = "DIR:NAME", conflicts_with = "crop")]
+    crop_to_label: Option<String>,
+
+    /// Voxels added around the label's box by --crop-to-label.
+    #[arg(
+        long,
+        value_name = "N",
+        default_value_t = 0,
+        requires = "crop_to_label"
+    )]
+    margin: usize,
+
     /// Average blocks of N×N×N voxels into one (after cropping); the voxel size grows N-fold.
     #[arg(long, value_name = "N", default_value_t = 1)]
     downsample: usize,
@@ -60,6 +74,31 @@ pub fn run(a: &ConvertArgs) -> Result<()> {
     let mut v = a.scan.open()?;
     if let Some(c) = &a.crop {
         let r = parse_crop(c, v.dims())?;
+        v = v.crop(r)?;
+    }
+    if let Some(spec) = &a.crop_to_label {
+        let (dir, name) = spec
+            .rsplit_once(':')
+            .with_context(|| format!("--crop-to-label {spec}: write DIR:NAME"))?;
+        let dir = Path::new(dir);
+        let lv = super::labels::load(dir)?;
+        if lv.dims() != v.dims() {
+            bail!(
+                "{}: labels for a {:?} grid, but {} is {:?}",
+                dir.display(),
+                lv.dims(),
+                a.scan.scan.display(),
+                v.dims()
+            );
+        }
+        if let Some(f) = &lv.fingerprint
+            && let Some(m) = f.check_volume(&a.scan.scan, &v)
+        {
+            bail!("{}: {m}", dir.display());
+        }
+        let r = sutura_core::labels::label_box(&lv, lv.value_of(name)?, a.margin)
+            .with_context(|| format!("{}: label {name} holds no voxel", dir.display()))?;
+        eprintln!("label {name}: box {:?}", r);
         v = v.crop(r)?;
     }
     if a.downsample > 1 {

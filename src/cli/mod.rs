@@ -8,9 +8,11 @@
 mod convert;
 mod evolution;
 mod info;
+mod labels;
 mod landmark;
 mod landmark_export;
 mod measure;
+mod mesh;
 mod project;
 mod sample;
 mod superimpose;
@@ -84,6 +86,12 @@ enum Command {
     /// Measurement error with operator as a factor: Procrustes ANOVA of individual, operator,
     /// their interaction and repeats, for shape, centroid size and each measurement.
     MeasurementError(evolution::MeasurementErrorArgs),
+    /// Virtual preparation: label a scan's specimen, matrix and inclusions.
+    #[command(subcommand)]
+    Labels(labels::LabelsCommand),
+    /// Write the surface of a scan's material or of a label as PLY, STL or OBJ, with its area,
+    /// volume and pieces.
+    Mesh(mesh::MeshArgs),
 }
 
 #[derive(Debug, Args)]
@@ -216,6 +224,8 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Models(a) => evolution::run_models(&a),
         Command::AncestralShapes(a) => evolution::run_ancestral(&a),
         Command::MeasurementError(a) => evolution::run_measurement_error(&a),
+        Command::Labels(c) => labels::run(&c),
+        Command::Mesh(a) => mesh::run(&a),
     }
 }
 

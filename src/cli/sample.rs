@@ -22,6 +22,11 @@ pub struct SampleArgs {
     /// landmark configurations evolved by early burst; `sample_volumes/comparative`).
     #[arg(long)]
     comparative: bool,
+
+    /// Write the rock-matrix sample for virtual preparation instead (RM-001.nii.gz and its
+    /// true skull mask RM-001_skull_truth.nii.gz).
+    #[arg(long, conflicts_with = "count")]
+    rock: bool,
 }
 
 /// The file a specimen's scan is written to: the first as a folder of TIFF slices, the rest
@@ -56,6 +61,9 @@ pub fn run(a: &SampleArgs) -> Result<()> {
             a.output.display()
         );
         return Ok(());
+    }
+    if a.rock {
+        return write_rock(&a.output);
     }
     let mut specs = synth::default_series();
     if let Some(n) = a.count {
@@ -125,4 +133,28 @@ fn write_scan(v: &sutura_core::volume::Volume, path: &Path) -> Result<()> {
         std::fs::remove_dir_all(path).with_context(|| path.display().to_string())?;
     }
     super::convert::write_volume(v, path)
+}
+
+/// The rock-matrix sample: the scan and the true skull mask (u8, 1 = bone) on the same grid.
+fn write_rock(dir: &Path) -> Result<()> {
+    let spec = synth::rock::rock_spec();
+    let s =
+        synth::rock::generate_in_rock(&spec).with_context(|| format!("specimen {}", spec.id))?;
+    let scan = dir.join(format!("{}.nii.gz", s.id));
+    write_scan(&s.volume, &scan)?;
+    let truth = sutura_core::volume::Volume::from_vec(
+        s.volume.dims(),
+        *s.volume.world_from_voxel(),
+        s.truth.clone(),
+    )?;
+    let truth_path = dir.join(format!("{}_skull_truth.nii.gz", s.id));
+    write_scan(&truth, &truth_path)?;
+    eprintln!(
+        "wrote {} ({} grains, {} pores, one vein) and {}",
+        scan.display(),
+        s.grains,
+        s.pores,
+        truth_path.display()
+    );
+    Ok(())
 }

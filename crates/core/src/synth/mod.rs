@@ -25,6 +25,7 @@
 //! fossil taxa and shapes evolved on it) also `evolution` and `export`.
 
 pub mod comparative;
+pub mod rock;
 pub mod scheme;
 pub mod skull;
 

@@ -1,0 +1,262 @@
+//! Surface meshes of specimens: iso-surfaces at full resolution, smoothing, decimation, a
+//! report, and PLY/STL/OBJ files.
+//!
+//! A [`Mesh`] is a list of vertices in world millimetres and of triangles (vertex indices,
+//! counter-clockwise seen from outside, so normals point out of the material). It is made by
+//! [`march::extract`] from a [`march::Field`]:
+//! - [`IntensityField`]: the scan's intensities at an iso-value (ISO-50 by default, see
+//!   [`crate::landmarks::pick::iso50`]), optionally inside a label: voxels outside the label
+//!   read at most the field's `outside` value (the background), so the surface follows the
+//!   intensities where the label holds the material's edge and closes along the label's
+//!   boundary where the label cuts through material;
+//! - [`MaskField`]: a label's voxels alone (1 inside, 0 outside, iso-value ½).
+//!
+//! [`smooth::taubin`] smooths without shrinking; [`decimate`] reduces the triangle count by
+//! quadric-error edge collapse (meshoptimizer's simplifier); [`MeshReport`] gives area,
+//! enclosed volume, pieces, closedness and Euler characteristic; [`write`] saves binary PLY,
+//! binary STL and OBJ atomically.
+//!
+//! Must not import `render`.
+
+pub mod march;
+pub mod smooth;
+pub mod write;
+
+use serde::Serialize;
+use std::collections::HashMap;
+
+use crate::labels::BitMask;
+use crate::volume::Volume;
+
+/// Why a mesh could not be made or written.
+#[derive(Debug, thiserror::Error)]
+pub enum MeshError {
+    #[error("the surface is empty: no voxel reaches {0} (or none of the label's does)")]
+    Empty(f64),
+    #[error("the label grid {0:?} is not the scan's {1:?}")]
+    GridMismatch([usize; 3], [usize; 3]),
+    #[error("{0}")]
+    Invalid(String),
+    #[error(transparent)]
+    Export(#[from] crate::export::ExportError),
+}
+
+/// A triangle mesh in world millimetres.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Mesh {
+    pub vertices: Vec<[f64; 3]>,
+    pub triangles: Vec<[u32; 3]>,
+}
+
+/// The scan's intensities at an iso-value, optionally inside a label (see the module docs).
+pub struct IntensityField<'a> {
+    pub volume: &'a Volume,
+    pub iso: f64,
+    /// Below `iso`: what voxels outside the label (and outside the grid) read at most.
+    pub outside: f64,
+    pub within: Option<&'a BitMask>,
+}
+
+impl march::Field for IntensityField<'_> {
+    fn dims(&self) -> [usize; 3] {
+        self.volume.dims()
+    }
+    fn iso(&self) -> f64 {
+        self.iso
+    }
+    fn outside(&self) -> f64 {
+        self.outside
+    }
+    fn plane(&self, k: usize, out: &mut [f32]) {
+        let [nx, ny, _] = self.volume.dims();
+        let base = nx * ny * k;
+        let rescale = self.volume.rescale();
+        crate::with_voxels!(self.volume.voxels(), |s| {
+            use crate::volume::Voxel;
+            for (o, v) in out.iter_mut().zip(&s[base..base + nx * ny]) {
+                *o = match rescale {
+                    None => v.to_f32(),
+                    Some(r) => r.apply(v.to_f64()) as f32,
+                };
+            }
+        });
+        if let Some(m) = self.within {
+            let outside = self.outside as f32;
+            for j in 0..ny {
+                let row = m.row(j, k);
+                for i in 0..nx {
+                    if row[i / 64] >> (i % 64) & 1 == 0 {
+                        let o = &mut out[i + nx * j];
+                        *o = o.min(outside);
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// A label's voxels: 1 inside, 0 outside, surface at ½ (edge midpoints).
+pub struct MaskField<'a> {
+    pub mask: &'a BitMask,
+}
+
+impl march::Field for MaskField<'_> {
+    fn dims(&self) -> [usize; 3] {
+        self.mask.dims()
+    }
+    fn iso(&self) -> f64 {
+        0.5
+    }
+    fn outside(&self) -> f64 {
+        0.0
+    }
+    fn plane(&self, k: usize, out: &mut [f32]) {
+        let [nx, ny, _] = self.mask.dims();
+        for j in 0..ny {
+            let row = self.mask.row(j, k);
+            for i in 0..nx {
+                out[i + nx * j] = f32::from(u8::from(row[i / 64] >> (i % 64) & 1 == 1));
+            }
+        }
+    }
+}
+
+/// What a mesh measures.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct MeshReport {
+    pub vertices: usize,
+    pub triangles: usize,
+    /// Sum of the triangles' areas, mm².
+    pub area_mm2: f64,
+    /// Volume enclosed (divergence theorem over the triangles), mm³; meaningful when closed.
+    pub volume_mm3: f64,
+    /// Connected pieces (triangles sharing vertices).
+    pub pieces: usize,
+    /// Every edge has exactly two triangles, traversed in opposite directions.
+    pub closed: bool,
+    /// Edges with one triangle.
+    pub boundary_edges: usize,
+    /// Edges with more than two triangles, or two in the same direction.
+    pub bad_edges: usize,
+    /// `V − E + F` over the vertices triangles use (2 per closed piece of sphere topology).
+    pub euler_characteristic: i64,
+}
+
+impl Mesh {
+    /// Area, volume, pieces, closedness and Euler characteristic.
+    #[must_use]
+    pub fn report(&self) -> MeshReport {
+        let v = &self.vertices;
+        let (mut area, mut volume) = (0.0, 0.0);
+        for t in &self.triangles {
+            let [a, b, c] = t.map(|n| nalgebra::Vector3::from(v[n as usize]));
+            area += 0.5 * (b - a).cross(&(c - a)).norm();
+            volume += a.dot(&b.cross(&c)) / 6.0;
+        }
+        // directed edges: (from, to) → count
+        let mut directed: HashMap<(u32, u32), u32> =
+            HashMap::with_capacity(self.triangles.len() * 3);
+        for t in &self.triangles {
+            for n in 0..3 {
+                *directed.entry((t[n], t[(n + 1) % 3])).or_default() += 1;
+            }
+        }
+        let (mut boundary, mut bad, mut edges) = (0usize, 0usize, 0i64);
+        for (&(a, b), &count) in &directed {
+            let back = directed.get(&(b, a)).copied().unwrap_or(0);
+            if (a, b) < (b, a) || back == 0 {
+                edges += 1;
+            }
+            if count > 1 {
+                bad += 1;
+            } else if back == 0 {
+                boundary += 1;
+            }
+        }
+        // pieces: union–find over vertices of each triangle
+        let mut parent: Vec<u32> = (0..v.len() as u32).collect();
+        fn find(p: &mut [u32], mut x: u32) -> u32 {
+            while p[x as usize] != x {
+                p[x as usize] = p[p[x as usize] as usize];
+                x = p[x as usize];
+            }
+            x
+        }
+        let mut used = vec![false; v.len()];
+        for t in &self.triangles {
+            for &n in t {
+                used[n as usize] = true;
+            }
+            let r0 = find(&mut parent, t[0]);
+            for &n in &t[1..] {
+                let r = find(&mut parent, n);
+                if r != r0 {
+                    parent[r as usize] = r0;
+                }
+            }
+        }
+        let used_count = used.iter().filter(|&&u| u).count();
+        let pieces = (0..v.len() as u32)
+            .filter(|&n| used[n as usize] && find(&mut parent, n) == n)
+            .count();
+        MeshReport {
+            vertices: v.len(),
+            triangles: self.triangles.len(),
+            area_mm2: area,
+            volume_mm3: volume,
+            pieces,
+            closed: boundary == 0 && bad == 0 && !self.triangles.is_empty(),
+            boundary_edges: boundary,
+            bad_edges: bad,
+            euler_characteristic: used_count as i64 - edges + self.triangles.len() as i64,
+        }
+    }
+
+    /// Reduces the mesh to about `target_triangles` triangles by quadric-error edge collapse
+    /// (meshoptimizer's `simplify`), keeping the mesh's topology and its border vertices; a
+    /// collapse whose error would exceed `max_error_mm` is not made. Unused vertices are
+    /// dropped. Returns the largest error reached, mm.
+    pub fn decimate(&mut self, target_triangles: usize, max_error_mm: f64) -> f64 {
+        if target_triangles >= self.triangles.len() {
+            return 0.0;
+        }
+        let positions: Vec<[f32; 3]> = self.vertices.iter().map(|p| p.map(|x| x as f32)).collect();
+        let indices: Vec<u32> = self.triangles.iter().flatten().copied().collect();
+        let mut error = 0.0f32;
+        let out = meshopt::simplify_decoder(
+            &indices,
+            &positions,
+            target_triangles * 3,
+            max_error_mm as f32,
+            meshopt::SimplifyOptions::LockBorder | meshopt::SimplifyOptions::ErrorAbsolute,
+            Some(&mut error),
+        );
+        self.triangles = out.chunks_exact(3).map(|c| [c[0], c[1], c[2]]).collect();
+        self.drop_unused_vertices();
+        f64::from(error)
+    }
+
+    /// Removes vertices no triangle uses, renumbering the rest in order.
+    pub fn drop_unused_vertices(&mut self) {
+        let mut new_id = vec![u32::MAX; self.vertices.len()];
+        for t in &self.triangles {
+            for &n in t {
+                new_id[n as usize] = 0;
+            }
+        }
+        let mut kept = Vec::new();
+        for (n, id) in new_id.iter_mut().enumerate() {
+            if *id == 0 {
+                *id = kept.len() as u32;
+                kept.push(self.vertices[n]);
+            }
+        }
+        for t in &mut self.triangles {
+            *t = t.map(|n| new_id[n as usize]);
+        }
+        self.vertices = kept;
+    }
+}
+
+#[cfg(test)]
+mod tests;
