@@ -75,6 +75,7 @@ fn fresh(dir: &Path) -> PathBuf {
 }
 
 #[test]
+#[allow(clippy::too_many_lines)] // reason: one command after another, each checked as it runs
 fn each_labels_command_writes_what_the_library_computes() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
@@ -338,6 +339,7 @@ fn each_labels_command_writes_what_the_library_computes() {
 }
 
 #[test]
+#[allow(clippy::float_cmp)] // reason: the iso value and voxels round-trip exactly
 fn mesh_and_crop_follow_the_label() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();

@@ -98,7 +98,7 @@ pub fn run(a: &ConvertArgs) -> Result<()> {
         }
         let r = sutura_core::labels::label_box(&lv, lv.value_of(name)?, a.margin)
             .with_context(|| format!("{}: label {name} holds no voxel", dir.display()))?;
-        eprintln!("label {name}: box {:?}", r);
+        eprintln!("label {name}: box {r:?}");
         v = v.crop(r)?;
     }
     if a.downsample > 1 {

@@ -8,6 +8,7 @@
 
 use anyhow::{Context, Result, bail};
 use clap::{Args, Subcommand, ValueEnum};
+use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use sutura_core::geometry::{VoxelIndex, WorldPoint, parse_length_mm};
@@ -44,7 +45,7 @@ pub enum LabelsCommand {
     FillHoles(TargetArgs),
     /// Add, subtract or intersect another label (of this or another label image).
     Combine(CombineArgs),
-    /// Write a label as a NIfTI mask (u8, 1 inside) on the scan's grid.
+    /// Write a label as a mask in `NIfTI` (`u8`, 1 inside) on the scan's grid.
     Export(ExportArgs),
 }
 
@@ -467,22 +468,23 @@ fn run_info(a: &InfoArgs) -> Result<()> {
     );
     s.push_str("value\tname\tvoxels\tvolume_mm3\tbbox (i0:i1,j0:j1,k0:k1)\n");
     for r in &rows {
-        let bbox = r["bbox_voxels"]
-            .as_array()
-            .map(|b| {
+        let bbox = r["bbox_voxels"].as_array().map_or_else(
+            || "-".into(),
+            |b| {
                 b.iter()
                     .map(|p| format!("{}:{}", p[0], p[1]))
                     .collect::<Vec<_>>()
                     .join(",")
-            })
-            .unwrap_or_else(|| "-".into());
-        s.push_str(&format!(
-            "{}\t{}\t{}\t{:.4}\t{bbox}\n",
+            },
+        );
+        let _ = writeln!(
+            s,
+            "{}\t{}\t{}\t{:.4}\t{bbox}",
             r["value"],
             r["name"].as_str().unwrap_or(""),
             r["voxels"],
             r["volume_mm3"].as_f64().unwrap_or(0.0),
-        ));
+        );
     }
     super::emit(&s)
 }

@@ -53,6 +53,7 @@ pub struct MeshArgs {
     report: Option<PathBuf>,
 }
 
+#[allow(clippy::too_many_lines)] // reason: one command: read, select, extract, report, write
 pub fn run(a: &MeshArgs) -> Result<()> {
     let labels = a.labels.as_deref().map(super::labels::load).transpose()?;
     let volume = match (&labels, &a.labels) {

@@ -34,6 +34,7 @@ fn load() -> String {
         .unwrap_or_default()
 }
 
+#[allow(clippy::too_many_lines)] // reason: one straight sequence of measurements
 fn main() {
     let n: usize = std::env::var("SUTURA_BENCH_N")
         .ok()
@@ -95,8 +96,8 @@ fn main() {
         points: (0..10)
             .map(|s| {
                 WorldPoint::new(
-                    mid * (0.5 + 0.1 * s as f64),
-                    mid * (0.8 + 0.03 * s as f64),
+                    mid * (0.5 + 0.1 * f64::from(s)),
+                    mid * (0.8 + 0.03 * f64::from(s)),
                     mid,
                 )
             })
@@ -151,7 +152,7 @@ fn main() {
     let raw = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("../../target/prep_bench.raw");
     match volume.voxels() {
         sutura_core::volume::Voxels::U16(b) => {
-            std::fs::write(&raw, bytemuck_bytes(b.as_slice())).expect("write bench volume")
+            std::fs::write(&raw, bytemuck_bytes(b.as_slice())).expect("write bench volume");
         }
         _ => unreachable!(),
     }

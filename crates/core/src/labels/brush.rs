@@ -169,7 +169,7 @@ mod tests {
         let mut want = 0;
         for j in 0..60 {
             for i in 0..100 {
-                let (x, y) = (i as f64 * 0.01, j as f64 * 0.02);
+                let (x, y) = (f64::from(i) * 0.01, f64::from(j) * 0.02);
                 let t = ((x - 0.3) / 0.3).clamp(0.0, 1.0);
                 let d2 = (x - (0.3 + 0.3 * t)).powi(2) + (y - 0.6).powi(2);
                 if d2 <= 0.01 * (1.0 + 1e-9) {

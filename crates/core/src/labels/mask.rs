@@ -24,7 +24,7 @@ impl std::fmt::Debug for BitMask {
         f.debug_struct("BitMask")
             .field("dims", &self.dims)
             .field("count", &self.count())
-            .finish()
+            .finish_non_exhaustive()
     }
 }
 

@@ -104,11 +104,10 @@ pub fn morph(
 /// `out[i] = src[i + d]` (bits beyond the row are zero).
 fn shift_down(src: &[u64], d: usize, out: &mut [u64]) {
     let (q, r) = (d / 64, d % 64);
-    let n = src.len();
-    for w in 0..n {
+    for (w, o) in out.iter_mut().enumerate().take(src.len()) {
         let lo = src.get(w + q).copied().unwrap_or(0);
         let hi = src.get(w + q + 1).copied().unwrap_or(0);
-        out[w] = if r == 0 { lo } else { lo >> r | hi << (64 - r) };
+        *o = if r == 0 { lo } else { lo >> r | hi << (64 - r) };
     }
 }
 

@@ -478,7 +478,7 @@ pub fn pieces(mask: &BitMask, connectivity: Connectivity) -> Pieces {
     let mut id_of_root = vec![u32::MAX; runs.len()];
     let mut piece_of_run = Vec::with_capacity(runs.len());
     let mut sizes: Vec<u64> = Vec::new();
-    for n in 0..runs.len() {
+    for (n, run) in runs.iter().enumerate() {
         let root = find(&mut parent, n as u32) as usize;
         if id_of_root[root] == u32::MAX {
             id_of_root[root] = sizes.len() as u32;
@@ -486,7 +486,7 @@ pub fn pieces(mask: &BitMask, connectivity: Connectivity) -> Pieces {
         }
         let id = id_of_root[root];
         piece_of_run.push(id);
-        sizes[id as usize] += u64::from(runs[n].1 - runs[n].0);
+        sizes[id as usize] += u64::from(run.1 - run.0);
     }
     Pieces {
         dims: mask.dims(),

@@ -16,6 +16,7 @@
 //! a temporary folder, flushed, then renamed into place; the folder it replaces is kept as
 //! `NAME.bak` until the next save (at every instant `NAME` or `NAME.bak` is a whole copy).
 
+use rayon::prelude::*;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
@@ -127,7 +128,6 @@ pub fn write_label_image(
     let bricks: Vec<[usize; 3]> = (0..grid[2])
         .flat_map(|k| (0..grid[1]).flat_map(move |j| (0..grid[0]).map(move |i| [i, j, k])))
         .collect();
-    use rayon::prelude::*;
     bricks.par_iter().try_for_each(|&b| {
         if let Some(data) = labels.brick(b) {
             array
@@ -139,6 +139,7 @@ pub fn write_label_image(
 }
 
 /// Reads a label image group written by [`write_label_image`].
+#[allow(clippy::too_many_lines)] // reason: one check after another on the group's metadata, in order
 pub fn read_label_image(
     store: &ReadableWritableListableStorage,
     group: &str,
@@ -368,7 +369,10 @@ mod tests {
         let back = load(&path).unwrap();
         assert_eq!(back.dims(), dims);
         assert_eq!(back.labels(), lv.labels());
-        assert_eq!(back.spacing_mm, lv.spacing_mm);
+        assert_eq!(
+            back.spacing_mm.map(f64::to_bits),
+            lv.spacing_mm.map(f64::to_bits)
+        );
         assert_eq!(back.mask_of(a), lv.mask_of(a));
         assert_eq!(back.mask_of(b), lv.mask_of(b));
         // bricks with no label are not stored: 2 bricks in x, 2 in y, 1 in z; 2 hold labels

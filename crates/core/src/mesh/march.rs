@@ -237,12 +237,11 @@ fn stitch(slabs: Vec<Slab>) -> Mesh {
             .collect();
         let mut remap = vec![0u32; s.vertices.len()];
         for (local, v) in s.vertices.into_iter().enumerate() {
-            remap[local] = match shared.get(&(local as u32)) {
-                Some(&g) => g,
-                None => {
-                    mesh.vertices.push(v);
-                    (mesh.vertices.len() - 1) as u32
-                }
+            remap[local] = if let Some(&g) = shared.get(&(local as u32)) {
+                g
+            } else {
+                mesh.vertices.push(v);
+                (mesh.vertices.len() - 1) as u32
             };
         }
         mesh.triangles
@@ -392,9 +391,9 @@ fn slab(field: &dyn Field, world_from_voxel: &Affine3, z0: isize, z1: isize, fli
                         hi[n[3]],
                     ];
                     let mut decisions = 0u32;
-                    for f in 0..6 {
+                    for (f, face) in FACE.iter().enumerate() {
                         if ambiguous(case, f) {
-                            let c = FACE[f].0;
+                            let c = face.0;
                             let r = |q: usize| f64::from(vals[c[q]]) - f64::from(iso);
                             // joined when the inside pair's product beats the outside pair's
                             // (the saddle of the bilinear interpolant is inside); ties: separate

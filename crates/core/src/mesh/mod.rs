@@ -175,13 +175,6 @@ impl Mesh {
         }
         // pieces: union–find over vertices of each triangle
         let mut parent: Vec<u32> = (0..v.len() as u32).collect();
-        fn find(p: &mut [u32], mut x: u32) -> u32 {
-            while p[x as usize] != x {
-                p[x as usize] = p[p[x as usize] as usize];
-                x = p[x as usize];
-            }
-            x
-        }
         let mut used = vec![false; v.len()];
         for t in &self.triangles {
             for &n in t {
@@ -260,3 +253,12 @@ impl Mesh {
 
 #[cfg(test)]
 mod tests;
+
+/// The root of `x` in a union–find forest, halving the path on the way.
+fn find(p: &mut [u32], mut x: u32) -> u32 {
+    while p[x as usize] != x {
+        p[x as usize] = p[p[x as usize] as usize];
+        x = p[x as usize];
+    }
+    x
+}

@@ -129,6 +129,7 @@ impl RockScene {
 }
 
 /// Generates the rock sample of `spec` (see the module docs).
+#[allow(clippy::too_many_lines)] // reason: the sample is built in one pass, layer by layer
 pub fn generate_in_rock(spec: &SpecimenSpec) -> Result<RockSpecimen, SynthError> {
     // the skull, its pose and the block exactly as the resin series places them
     let resin = generate(spec)?;
