@@ -12,7 +12,8 @@ use sutura_core::render::{
     AxisPlane, Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RgbaImage, Slab,
     SlabMode, SurfaceOptions, WindowLevel, raycast, slice,
 };
-use sutura_core::volume::Volume;
+use sutura_core::render::source::{self, Detail};
+use sutura_core::volume::VolumeSource;
 
 /// Colour maps for slices and projections.
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -148,15 +149,17 @@ pub enum SlabModeArg {
 }
 
 pub fn run_slice(a: &SliceArgs) -> Result<()> {
-    let v = a.scan.open()?;
+    let v = a.scan.open_source()?;
+    let v = v.as_ref();
     let pixel_mm = a
         .pixel
         .as_deref()
         .map(sutura_core::geometry::parse_length_mm)
         .transpose()?;
-    let plane = oblique_plane(a, &v)?;
+    let plane = oblique_plane(a, v)?;
+    let level0 = v.level(0);
     let geometry = if let Some(p) = plane {
-        slice::SliceGeometry::covering(&v, &p, pixel_mm)?
+        slice::SliceGeometry::covering_grid(level0.dims, &level0.world_from_voxel, &p, pixel_mm)?
     } else {
         let axis = match a.plane {
             Axis::I => 0,
@@ -170,7 +173,12 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
                 v.dims()[axis]
             );
         }
-        slice::SliceGeometry::axis(&v, AxisPlane { axis, index }, pixel_mm)?
+        slice::SliceGeometry::axis_grid(
+            level0.dims,
+            &level0.world_from_voxel,
+            AxisPlane { axis, index },
+            pixel_mm,
+        )?
     };
     let slab = a
         .slab
@@ -190,7 +198,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     } else {
         Interpolation::Trilinear
     };
-    let img = slice::render_slice(&v, &geometry, interp, slab)?;
+    let img = source::render_slice(v, &geometry, interp, slab, Detail::Screen)?;
     let wl = a.tone.window_for(&img)?;
     let mut rgba = wl.colourize(&img, a.tone.colours.into());
     if !a.tone.bare {
@@ -209,7 +217,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     Ok(())
 }
 
-fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
+fn oblique_plane(a: &SliceArgs, v: &dyn VolumeSource) -> Result<Option<Plane>> {
     if let Some(t) = &a.through {
         let pts: Vec<Vector3<f64>> = t
             .split(';')
@@ -308,7 +316,20 @@ pub fn orbit_direction(az_deg: f64, el_deg: f64) -> Vector3<f64> {
 }
 
 pub fn run_view3d(a: &View3dArgs) -> Result<()> {
-    let v = a.scan.open()?;
+    let src = a.scan.open_source()?;
+    // a store renders its finest level within half the cache budget
+    let v = source::volume_for_3d(src.as_ref(), (a.scan.cache_mib << 20) / 2)?;
+    if v.dims() != src.dims() {
+        eprintln!(
+            "note: rendering a {}x{}x{} level of the {}x{}x{} scan (raise --cache-mib for more detail)",
+            v.dims()[0],
+            v.dims()[1],
+            v.dims()[2],
+            src.dims()[0],
+            src.dims()[1],
+            src.dims()[2]
+        );
+    }
     let o = parse_floats(&a.orbit, 2).with_context(|| format!("--orbit {}", a.orbit))?;
     let dir = orbit_direction(o[0], o[1]);
     let up = if dir.cross(&Vector3::z()).norm() < 1e-6 {
@@ -332,8 +353,9 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             let threshold = if let Some(t) = a.threshold {
                 t
             } else {
-                let p = v.percentiles(&[50.0, 99.5]);
-                0.5 * (p[0] + p[1])
+                let i = src.intensity()?;
+                let p = |q| i.percentile(q).unwrap_or(f64::NAN);
+                0.5 * (p(50.0) + p(99.5))
             };
             let bricks = raycast::Bricks::new(&v);
             let mut opts = SurfaceOptions::new(threshold);

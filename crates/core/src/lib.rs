@@ -14,5 +14,6 @@ pub mod landmarks;
 pub mod measure;
 pub mod render;
 pub mod shape;
+pub mod store;
 pub mod synth;
 pub mod volume;

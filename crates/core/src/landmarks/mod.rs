@@ -22,6 +22,8 @@
 //! - [`fingerprint`]: what identifies a scan (sizes, header hashes, a hash of sampled voxels).
 //! - [`curve`]: equal arc-length resampling of traced curves into semilandmarks.
 //! - [`scan`]: opening a specimen's scan with the voxel size the project recorded.
+//! - [`pick_source`]: the same picks on a scan of any size, on full-resolution blocks read
+//!   around the ray or the click.
 //! - [`pick`]: finding the material boundary along a ray (3D view) or from a point on a slice,
 //!   at sub-voxel precision, and the ISO-50 default threshold.
 //!
@@ -31,6 +33,7 @@
 pub mod curve;
 pub mod fingerprint;
 pub mod pick;
+pub mod pick_source;
 pub mod project;
 pub mod scan;
 pub mod scheme;

@@ -6,6 +6,8 @@
 //! - [`window`]: window/level to grey, colour maps to RGBA;
 //! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
 //! - [`pyramid`]: block min/max copies of a volume for coarse passes and empty-space skipping;
+//! - [`source`]: the same pictures of a [`VolumeSource`](crate::volume::VolumeSource) of any
+//!   size: each view reads the block it needs at the level it needs and renders it as above;
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
 //! - [`png`]: PNG encoding of an [`RgbaImage`].
 //!
@@ -24,6 +26,7 @@ pub mod png;
 pub mod pyramid;
 pub mod raycast;
 pub mod slice;
+pub mod source;
 pub mod window;
 
 mod font;
@@ -60,6 +63,9 @@ pub enum RenderError {
         expected: usize,
         got: usize,
     },
+    /// The voxels could not be read from the scan's store.
+    #[error(transparent)]
+    Read(#[from] crate::volume::ReadError),
     #[error("{path}: cannot write PNG: {source}")]
     Png {
         path: String,

@@ -22,9 +22,11 @@
 mod chunks;
 mod folder;
 mod page;
+mod stream;
 mod write;
 
 pub use folder::{list_slices, natural_cmp};
+pub use stream::{FolderSlices, PageSlices};
 pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 
 use super::{IoError, OpenOptions, Progress};
@@ -247,8 +249,25 @@ fn finish(
     described: Result<Option<[f64; 3]>, String>,
     resolution: Option<Resolution>,
 ) -> Result<Volume, IoError> {
-    // the caller's size, else the description's, else the resolution tags (`voxel_size`)
-    let (spacing, mut notes, origin) = match (options.voxel_size_mm, described) {
+    let (spacing, mut notes, origin) = placement(path, options, described, resolution)?;
+    // dims passed the limits check, so they fit in usize
+    let dims = dims.map(|d| usize::try_from(d).unwrap_or(usize::MAX));
+    let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
+        .map_err(|e| IoError::volume(path, &e))?;
+    vol.notes.append(&mut notes);
+    vol.spacing_origin = origin;
+    Ok(vol)
+}
+
+/// The voxel size, the notes on where it came from, and its origin: the caller's size, else
+/// the description's, else the resolution tags (`voxel_size`).
+fn placement(
+    path: &Path,
+    options: &OpenOptions,
+    described: Result<Option<[f64; 3]>, String>,
+    resolution: Option<Resolution>,
+) -> Result<([f64; 3], Vec<String>, SpacingOrigin), IoError> {
+    Ok(match (options.voxel_size_mm, described) {
         (None, Ok(Some(s))) => (s, Vec::new(), SpacingOrigin::File),
         (given, described) => {
             let (s, note) = voxel_size(path, given, resolution)?;
@@ -260,14 +279,7 @@ fn finish(
             };
             (s, why.into_iter().chain(note).collect(), origin)
         }
-    };
-    // dims passed the limits check, so they fit in usize
-    let dims = dims.map(|d| usize::try_from(d).unwrap_or(usize::MAX));
-    let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
-        .map_err(|e| IoError::volume(path, &e))?;
-    vol.notes.append(&mut notes);
-    vol.spacing_origin = origin;
-    Ok(vol)
+    })
 }
 
 /// Resolutions of a screen or a drawing program's default, not of a scanner (common practice:
