@@ -46,7 +46,10 @@ fn main() {
         sutura_core::io::nifti::write(&v, &src).expect("write the bench scan");
     }
     let mib = (n * n * n * 2) as f64 / f64::from(1 << 20);
-    println!("scan {n}³ u16 ({mib:.0} MiB), {} threads", rayon::current_num_threads());
+    println!(
+        "scan {n}³ u16 ({mib:.0} MiB), {} threads",
+        rayon::current_num_threads()
+    );
 
     // the bound: read and decode slab by slab
     let t = Instant::now();
@@ -55,7 +58,8 @@ fn main() {
     let mut k = 0;
     while k < n {
         let m = 64.min(n - k);
-        r.read_slices(k, &mut slab[..m * r.slice_bytes()], &Progress::none()).expect("read");
+        r.read_slices(k, &mut slab[..m * r.slice_bytes()], &Progress::none())
+            .expect("read");
         k += m;
     }
     let bound = secs(t);
@@ -79,7 +83,10 @@ fn main() {
         let t = Instant::now();
         let c = store.chunk_shape(0);
         let grid: Vec<[usize; 3]> = (0..n.div_ceil(c[2]))
-            .flat_map(|k| (0..n.div_ceil(c[1])).flat_map(move |j| (0..n.div_ceil(c[0])).map(move |i| [i, j, k])))
+            .flat_map(|k| {
+                (0..n.div_ceil(c[1]))
+                    .flat_map(move |j| (0..n.div_ceil(c[0])).map(move |i| [i, j, k]))
+            })
             .collect();
         use rayon::prelude::*;
         grid.par_iter().for_each(|&ci| {
@@ -113,7 +120,14 @@ fn views(out: &Path, n: usize) {
     };
     let extent = l0.spacing_mm()[0] * n as f64;
     let view = SliceGeometry::centred(&plane, 1024, 1024, extent / 1024.0).expect("geometry");
-    let img = render_slice(&store, &view, Interpolation::Trilinear, None, Detail::Screen).expect("render");
+    let img = render_slice(
+        &store,
+        &view,
+        Interpolation::Trilinear,
+        None,
+        Detail::Screen,
+    )
+    .expect("render");
     println!(
         "open to first picture  {:7.1} ms (level {}, {}x{})",
         secs(t) * 1e3,
@@ -123,7 +137,13 @@ fn views(out: &Path, n: usize) {
     );
     let side = n.min(1024);
     let plane_at = |k: usize| {
-        let mut g = SliceGeometry::axis_grid(l0.dims, &l0.world_from_voxel, AxisPlane { axis: 2, index: k }, None).expect("axis");
+        let mut g = SliceGeometry::axis_grid(
+            l0.dims,
+            &l0.world_from_voxel,
+            AxisPlane { axis: 2, index: k },
+            None,
+        )
+        .expect("axis");
         g.width = side;
         g.height = side;
         g
@@ -133,7 +153,14 @@ fn views(out: &Path, n: usize) {
     for k in [n / 3, n / 2, 2 * n / 3] {
         let s = Store::open(out, &StoreOptions::default()).expect("open");
         let t = Instant::now();
-        render_slice(&s, &plane_at(k), Interpolation::Trilinear, None, Detail::Full).expect("render");
+        render_slice(
+            &s,
+            &plane_at(k),
+            Interpolation::Trilinear,
+            None,
+            Detail::Full,
+        )
+        .expect("render");
         cold.push(secs(t) * 1e3);
     }
     // warm: the same plane again
@@ -163,14 +190,21 @@ fn views(out: &Path, n: usize) {
         }
         render_slice(&s, &g, Interpolation::Trilinear, None, Detail::Full).expect("render");
     }
-    println!("scrolling              {:7.1} planes/s", count as f64 / secs(t));
+    println!(
+        "scrolling              {:7.1} planes/s",
+        count as f64 / secs(t)
+    );
 }
 
 /// zarr-python writing the same array with zstd level 1 and reading one plane.
 fn python(src: &Path, out: &Path, n: usize) {
-    let py = std::env::var_os("SUTURA_PYTHON").map_or_else(|| PathBuf::from(".venv/bin/python"), PathBuf::from);
+    let py = std::env::var_os("SUTURA_PYTHON")
+        .map_or_else(|| PathBuf::from(".venv/bin/python"), PathBuf::from);
     if !py.exists() {
-        println!("(no reference interpreter at {}: no zarr-python ratios)", py.display());
+        println!(
+            "(no reference interpreter at {}: no zarr-python ratios)",
+            py.display()
+        );
         return;
     }
     let res = std::process::Command::new(&py)
@@ -180,22 +214,36 @@ fn python(src: &Path, out: &Path, n: usize) {
         .output();
     let Ok(o) = res else { return };
     if !o.status.success() {
-        println!("zarr-python bench failed: {}", String::from_utf8_lossy(&o.stderr));
+        println!(
+            "zarr-python bench failed: {}",
+            String::from_utf8_lossy(&o.stderr)
+        );
         return;
     }
     let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap_or_default();
     let store = Store::open(out, &StoreOptions::default()).expect("open");
     let l0 = store.level(0);
     let t = Instant::now();
-    let b = store.read_block(0, &[0..l0.dims[0], 0..l0.dims[1], n / 2..n / 2 + 1]).expect("plane");
+    let b = store
+        .read_block(0, &[0..l0.dims[0], 0..l0.dims[1], n / 2..n / 2 + 1])
+        .expect("plane");
     let ours = secs(t);
     drop(b);
     let mut r = open_slices(src, &Default::default()).expect("open");
     let t = Instant::now();
-    convert(r.as_mut(), &PathBuf::from(format!("{}.again", out.display())), &ConvertOptions::default(), &Progress::none()).expect("convert");
+    convert(
+        r.as_mut(),
+        &PathBuf::from(format!("{}.again", out.display())),
+        &ConvertOptions::default(),
+        &Progress::none(),
+    )
+    .expect("convert");
     let conv = secs(t);
     let _ = std::fs::remove_dir_all(format!("{}.again", out.display()));
-    let (pw, pr) = (v["write_s"].as_f64().unwrap_or(f64::NAN), v["plane_s"].as_f64().unwrap_or(f64::NAN));
+    let (pw, pr) = (
+        v["write_s"].as_f64().unwrap_or(f64::NAN),
+        v["plane_s"].as_f64().unwrap_or(f64::NAN),
+    );
     println!(
         "zarr-python write {pw:.2} s vs convert {conv:.2} s ({:.2}× faster); plane read {:.1} ms vs {:.1} ms ({:.1}× faster)",
         pw / conv,

@@ -62,7 +62,9 @@ fn is_store_name(out: &Path) -> bool {
 /// same command resumes.
 fn run_store(a: &ConvertArgs) -> Result<()> {
     if a.crop.is_some() || a.downsample != 1 {
-        bail!("--crop and --downsample write NIfTI or TIFF; a store keeps the whole scan at every level of detail");
+        bail!(
+            "--crop and --downsample write NIfTI or TIFF; a store keeps the whole scan at every level of detail"
+        );
     }
     let codec = Codec::parse(&a.codec).map_err(|e| anyhow::anyhow!("--codec {}: {e}", a.codec))?;
     let voxel_size_mm = super::project::voxel_size(a.scan.voxel_size.as_deref())?;

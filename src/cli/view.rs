@@ -8,11 +8,11 @@ use std::path::PathBuf;
 
 use sutura_core::geometry::{Plane, WorldPoint};
 use sutura_core::render::overlay::{AxisNames, Overlay};
+use sutura_core::render::source::{self, Detail};
 use sutura_core::render::{
     AxisPlane, Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RgbaImage, Slab,
     SlabMode, SurfaceOptions, WindowLevel, raycast, slice,
 };
-use sutura_core::render::source::{self, Detail};
 use sutura_core::volume::VolumeSource;
 
 /// Colour maps for slices and projections.

@@ -101,10 +101,7 @@ impl<V: std::ops::Deref<Target = Volume> + Send> SliceReader for VolumeSlices<V>
 
 /// The slab reader for a scan of any supported format (see the module docs); `voxel_size_mm`
 /// in `options` overrides the file's as [`super::open`] does.
-pub fn open_slices(
-    path: &Path,
-    options: &OpenOptions,
-) -> Result<Box<dyn SliceReader>, IoError> {
+pub fn open_slices(path: &Path, options: &OpenOptions) -> Result<Box<dyn SliceReader>, IoError> {
     match super::detect(path)? {
         super::Format::TiffFolder => Ok(Box::new(super::tiff::FolderSlices::open(path, options)?)),
         super::Format::Tiff => Ok(Box::new(super::tiff::PageSlices::open(path, options)?)),

@@ -86,7 +86,10 @@ impl Fingerprint {
     }
 
     /// The fingerprint of a scan of any size at `path`, read through the volume interface.
-    pub fn of_source(path: &Path, source: &dyn crate::volume::VolumeSource) -> Result<Self, IoError> {
+    pub fn of_source(
+        path: &Path,
+        source: &dyn crate::volume::VolumeSource,
+    ) -> Result<Self, IoError> {
         let facts = file_facts(path)?;
         Ok(Self {
             files: facts.files,
@@ -263,7 +266,11 @@ pub fn voxel_sample_sha256_of(
     let [nx, ny, nz] = source.dims();
     let points: Vec<[usize; 3]> = lattice(nz)
         .into_iter()
-        .flat_map(|k| lattice(ny).into_iter().flat_map(move |j| lattice(nx).into_iter().map(move |i| [i, j, k])))
+        .flat_map(|k| {
+            lattice(ny)
+                .into_iter()
+                .flat_map(move |j| lattice(nx).into_iter().map(move |i| [i, j, k]))
+        })
         .collect();
     let values: Vec<f64> = points
         .par_iter()
@@ -272,7 +279,9 @@ pub fn voxel_sample_sha256_of(
             let at = b.world_to_voxel(source.world_from_voxel().voxel_to_world(
                 crate::geometry::VoxelPoint::new(i as f64, j as f64, k as f64),
             ));
-            let v = at.nearest_index(b.dims()).expect("the block holds the voxel asked for");
+            let v = at
+                .nearest_index(b.dims())
+                .expect("the block holds the voxel asked for");
             Ok(b.voxels().raw_f64(b.linear_index(v)))
         })
         .collect::<Result<_, crate::volume::ReadError>>()?;

@@ -16,9 +16,7 @@
 //!
 //! A scan wholly in memory is searched directly.
 
-use super::pick::{
-    self, Iso50, MARCH_STEP_VOXELS, Pick, PickError, PickOptions, SliceSearch,
-};
+use super::pick::{self, Iso50, MARCH_STEP_VOXELS, Pick, PickError, PickOptions, SliceSearch};
 use crate::geometry::WorldPoint;
 use crate::volume::source::region_around;
 use crate::volume::{ReadError, VolumeSource};
@@ -84,11 +82,13 @@ pub fn pick_along_ray(
             };
             pick::pick_along_ray(&block, origin, dir, &sub)?
         } else {
-            let at = level.world_from_voxel.voxel_to_world(crate::geometry::VoxelPoint::new(
-                points[0].x,
-                points[0].y,
-                points[0].z,
-            ));
+            let at = level
+                .world_from_voxel
+                .voxel_to_world(crate::geometry::VoxelPoint::new(
+                    points[0].x,
+                    points[0].y,
+                    points[0].z,
+                ));
             let sub = PickOptions {
                 max_distance_mm: end - start,
                 ..*options
@@ -105,11 +105,7 @@ pub fn pick_along_ray(
             return Ok(None);
         }
         // the next segment starts on a march step of this one
-        ts = if first {
-            t0 + seg
-        } else {
-            start + seg
-        };
+        ts = if first { t0 + seg } else { start + seg };
         first = false;
         if ts >= t1 {
             return Ok(None);
@@ -160,7 +156,13 @@ pub fn pick_in_slice(
     options: &PickOptions,
 ) -> Result<Option<Pick>, SourcePickError> {
     if let Some(v) = source.whole() {
-        return Ok(pick::pick_in_slice(v, point, slice_normal, search, options)?);
+        return Ok(pick::pick_in_slice(
+            v,
+            point,
+            slice_normal,
+            search,
+            options,
+        )?);
     }
     let level = source.level(0);
     let s = level.spacing_mm();
@@ -183,10 +185,22 @@ pub fn pick_in_slice(
     };
     let Some(region) = region_around(&corners, level.dims, MARGIN_VOXELS) else {
         let block = source.read_block(0, &[0..1, 0..1, 0..1])?;
-        return Ok(pick::pick_in_slice(&block, point, slice_normal, search, &options)?);
+        return Ok(pick::pick_in_slice(
+            &block,
+            point,
+            slice_normal,
+            search,
+            &options,
+        )?);
     };
     let block = source.read_block(0, &region)?;
-    Ok(pick::pick_in_slice(&block, point, slice_normal, search, &options)?)
+    Ok(pick::pick_in_slice(
+        &block,
+        point,
+        slice_normal,
+        search,
+        &options,
+    )?)
 }
 
 /// The ISO-50 peaks of a source, from the histogram it keeps.
@@ -218,7 +232,11 @@ mod tests {
         for k in 0..dims[2] {
             for j in 0..dims[1] {
                 for i in 0..dims[0] {
-                    let (x, y, z) = (i as f64 * 0.01 - 0.35, j as f64 * 0.01 - 0.3, k as f64 * 0.012 - 0.3);
+                    let (x, y, z) = (
+                        i as f64 * 0.01 - 0.35,
+                        j as f64 * 0.01 - 0.3,
+                        k as f64 * 0.012 - 0.3,
+                    );
                     let r = (x * x + y * y + z * z).sqrt();
                     let v = 1000.0 + 3000.0 / (1.0 + ((r - 0.22) / 0.012).exp());
                     data.push(v.round() as u16);
@@ -233,10 +251,27 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let v = ball();
         let out = dir.path().join("ball.ome.zarr");
-        let options = ConvertOptions { chunk: 16, coarsest_bytes: 20_000, ..ConvertOptions::default() };
-        convert(&mut VolumeSlices::new(&v, Path::new("ball")), &out, &options, &Progress::none()).unwrap();
+        let options = ConvertOptions {
+            chunk: 16,
+            coarsest_bytes: 20_000,
+            ..ConvertOptions::default()
+        };
+        convert(
+            &mut VolumeSlices::new(&v, Path::new("ball")),
+            &out,
+            &options,
+            &Progress::none(),
+        )
+        .unwrap();
         // a cache of eight chunks: every ray evicts
-        let store = Store::open(&out, &StoreOptions { cache_bytes: 8 * 16 * 16 * 16 * 2, ..StoreOptions::default() }).unwrap();
+        let store = Store::open(
+            &out,
+            &StoreOptions {
+                cache_bytes: 8 * 16 * 16 * 16 * 2,
+                ..StoreOptions::default()
+            },
+        )
+        .unwrap();
         assert!(store.level_count() > 1);
         let iso_mem = pick::iso50(&v).unwrap();
         let iso_store = iso50(&store).unwrap();
@@ -246,20 +281,36 @@ mod tests {
             let a = n as f64 * 1.3;
             let dir = Vector3::new(a.cos(), a.sin(), 0.4 * (n as f64 - 2.0)).normalize();
             let origin = WorldPoint(centre.0 - dir * 2.0); // outside the scan
-            let opts = PickOptions { refine_to_edge: refine, ..PickOptions::new(iso_mem.threshold) };
-            let m = pick::pick_along_ray(&v, origin, dir, &opts).unwrap().unwrap();
+            let opts = PickOptions {
+                refine_to_edge: refine,
+                ..PickOptions::new(iso_mem.threshold)
+            };
+            let m = pick::pick_along_ray(&v, origin, dir, &opts)
+                .unwrap()
+                .unwrap();
             let s = pick_along_ray(&store, origin, dir, &opts).unwrap().unwrap();
-            assert!((m.point.0 - s.point.0).norm() < 1e-9, "ray {n}: {:?} vs {:?}", m.point, s.point);
+            assert!(
+                (m.point.0 - s.point.0).norm() < 1e-9,
+                "ray {n}: {:?} vs {:?}",
+                m.point,
+                s.point
+            );
             assert!((m.distance_mm - s.distance_mm).abs() < 1e-9);
             assert_eq!((m.crossing, m.refined), (s.crossing, s.refined));
             // from inside the ball: the exit, found in a later segment
-            let inside = pick::pick_along_ray(&v, centre, dir, &opts).unwrap().unwrap();
+            let inside = pick::pick_along_ray(&v, centre, dir, &opts)
+                .unwrap()
+                .unwrap();
             let inside_s = pick_along_ray(&store, centre, dir, &opts).unwrap().unwrap();
             assert!((inside.point.0 - inside_s.point.0).norm() < 1e-9);
             // in a slice, all around, within 0.15 mm
-            let opts = PickOptions { max_distance_mm: 0.15, ..opts };
+            let opts = PickOptions {
+                max_distance_mm: 0.15,
+                ..opts
+            };
             let p = WorldPoint(centre.0 + dir * 0.1);
-            let m = pick::pick_in_slice(&v, p, Vector3::z(), SliceSearch::AllAround, &opts).unwrap();
+            let m =
+                pick::pick_in_slice(&v, p, Vector3::z(), SliceSearch::AllAround, &opts).unwrap();
             let s = pick_in_slice(&store, p, Vector3::z(), SliceSearch::AllAround, &opts).unwrap();
             assert_eq!(m.is_some(), s.is_some());
             if let (Some(m), Some(s)) = (m, s) {
@@ -270,7 +321,10 @@ mod tests {
         // a long ray across many segments that misses the ball
         let o = v.voxel_to_world(crate::geometry::VoxelPoint::new(-3.0, 1.0, 1.0));
         let opts = PickOptions::new(iso_mem.threshold);
-        assert_eq!(pick_along_ray(&store, o, Vector3::x(), &opts).unwrap(), None);
+        assert_eq!(
+            pick_along_ray(&store, o, Vector3::x(), &opts).unwrap(),
+            None
+        );
         assert!(pick_along_ray(&store, o, Vector3::zeros(), &opts).is_err());
     }
 }

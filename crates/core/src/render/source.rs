@@ -135,7 +135,10 @@ const PART_BYTES: u64 = 32 << 20;
 
 /// The volume a 3D view renders: the whole scan if it is in memory, else the finest level
 /// whose voxels fit in `budget_bytes`, read whole.
-pub fn volume_for_3d(source: &dyn VolumeSource, budget_bytes: u64) -> Result<Block<'_>, RenderError> {
+pub fn volume_for_3d(
+    source: &dyn VolumeSource,
+    budget_bytes: u64,
+) -> Result<Block<'_>, RenderError> {
     if let Some(v) = source.whole() {
         return Ok(Block::Whole(v));
     }

@@ -204,7 +204,10 @@ pub fn parse_multiscales(attrs: &serde_json::Map<String, Value>) -> Result<Multi
         .and_then(Value::as_array)
         .ok_or("multiscales has no axes")?;
     if axes.len() < 3 {
-        return Err(format!("{} axes; a scan needs three spatial axes", axes.len()));
+        return Err(format!(
+            "{} axes; a scan needs three spatial axes",
+            axes.len()
+        ));
     }
     let mut notes = Vec::new();
     let leading_axes = axes.len() - 3;

@@ -25,10 +25,12 @@
 //! Must not import `render` or `landmarks`.
 
 pub mod cache;
+pub mod labels;
 pub mod meta;
 pub mod write;
 
 pub use cache::{CacheStats, ChunkCache};
+pub use labels::{LabelImage, LabelValue};
 pub use write::{Codec, ConvertOptions, ConvertReport, convert, partial_path};
 
 #[cfg(test)]
@@ -36,8 +38,8 @@ mod tests;
 
 use crate::geometry::{Affine3, VoxelPoint};
 use crate::volume::{
-    Block, DType, IntoVoxels, Intensity, Level, ReadError, Region, Rescale, SpacingOrigin,
-    Volume, VolumeSource, Voxel, VoxelBuffer, Voxels, source::clamp_region,
+    Block, DType, Intensity, IntoVoxels, Level, ReadError, Region, Rescale, SpacingOrigin, Volume,
+    VolumeSource, Voxel, VoxelBuffer, Voxels, source::clamp_region,
 };
 use meta::{FACTS_KEY, Facts};
 use rayon::prelude::*;
@@ -228,7 +230,10 @@ impl Store {
             ));
         }
         if !path.is_dir() {
-            return Err(StoreError::usage(path, "not a folder: an OME-Zarr store is one"));
+            return Err(StoreError::usage(
+                path,
+                "not a folder: an OME-Zarr store is one",
+            ));
         }
         let fs = Arc::new(
             FilesystemStore::new(path)
@@ -261,14 +266,21 @@ impl Store {
                 .map_err(|e| StoreError::corrupt(path, format!("level {p}: {e}")))?;
             let dt = dtype_of(path, array.data_type())?;
             if dtype.is_some_and(|d| d != dt) {
-                return Err(StoreError::corrupt(path, format!("level {p} is of another voxel type")));
+                return Err(StoreError::corrupt(
+                    path,
+                    format!("level {p} is of another voxel type"),
+                ));
             }
             dtype = Some(dt);
             let shape = array.shape().to_vec();
             if shape.len() != ms.leading_axes + 3 {
                 return Err(StoreError::corrupt(
                     path,
-                    format!("level {p} has {} axes, the metadata {}", shape.len(), ms.leading_axes + 3),
+                    format!(
+                        "level {p} has {} axes, the metadata {}",
+                        shape.len(),
+                        ms.leading_axes + 3
+                    ),
                 ));
             }
             if shape[..ms.leading_axes].iter().any(|&n| n != 1) {
@@ -284,9 +296,13 @@ impl Store {
             let cs: Vec<usize> = cs.iter().map(|c| c.get() as usize).collect();
             let grid = array.chunk_grid_shape().to_vec();
             let l = ms.leading_axes;
-            let regular = (0..3).all(|a| grid[l + a] as usize == (shape[l + a] as usize).div_ceil(cs[l + a]));
+            let regular =
+                (0..3).all(|a| grid[l + a] as usize == (shape[l + a] as usize).div_ceil(cs[l + a]));
             if !regular {
-                return Err(StoreError::unsupported(path, format!("level {p}: an irregular chunk grid")));
+                return Err(StoreError::unsupported(
+                    path,
+                    format!("level {p}: an irregular chunk grid"),
+                ));
             }
             arrays.push(LevelArray {
                 array,
@@ -305,12 +321,20 @@ impl Store {
         let dims0 = dims_of(&arrays[0]);
         let (world0, factors, rescale, spacing_origin) = if let Some(f) = &facts {
             if f.levels.len() != arrays.len() || f.dims != dims0 {
-                return Err(StoreError::corrupt(path, "Sutura's facts do not match the arrays"));
+                return Err(StoreError::corrupt(
+                    path,
+                    "Sutura's facts do not match the arrays",
+                ));
             }
             notes.extend(f.notes.iter().cloned());
             let w = Affine3::from_rows(f.world_from_voxel)
                 .map_err(|e| StoreError::corrupt(path, format!("world_from_voxel: {e}")))?;
-            (w, Some(f.levels.iter().map(|l| l.factor).collect::<Vec<_>>()), f.rescale, f.spacing_origin)
+            (
+                w,
+                Some(f.levels.iter().map(|l| l.factor).collect::<Vec<_>>()),
+                f.rescale,
+                f.spacing_origin,
+            )
         } else {
             let (s, t) = ms.transforms[0];
             let w = Affine3::from_rows([
@@ -326,7 +350,10 @@ impl Store {
             None => world0,
             Some(s) => {
                 if s.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
-                    return Err(StoreError::usage(path, format!("voxel size {s:?} mm is not positive and finite")));
+                    return Err(StoreError::usage(
+                        path,
+                        format!("voxel size {s:?} mm is not positive and finite"),
+                    ));
                 }
                 let lin = world0.linear();
                 let cols = world0.column_lengths();
@@ -353,7 +380,11 @@ impl Store {
                     let (s0, t0) = ms.transforms[0];
                     let ratio = [s[2] / s0[2], s[1] / s0[1], s[0] / s0[0]];
                     let factor = ratio.map(|r| r.round().max(1.0) as usize);
-                    let shift = [(t[2] - t0[2]) / s0[2], (t[1] - t0[1]) / s0[1], (t[0] - t0[0]) / s0[0]];
+                    let shift = [
+                        (t[2] - t0[2]) / s0[2],
+                        (t[1] - t0[1]) / s0[1],
+                        (t[0] - t0[0]) / s0[0],
+                    ];
                     let scale = Affine3::from_rows([
                         [ratio[0], 0.0, 0.0, shift[0]],
                         [0.0, ratio[1], 0.0, shift[1]],
@@ -436,10 +467,30 @@ impl Inner {
             StoreError::corrupt(&self.path, format!("level {level} chunk {c:?}: {e}"))
         };
         let voxels = match self.dtype {
-            DType::U8 => VoxelBuffer::from_vec(a.array.retrieve_chunk_opt::<Vec<u8>>(&idx, &opts).map_err(err)?).into_voxels(),
-            DType::I16 => VoxelBuffer::from_vec(a.array.retrieve_chunk_opt::<Vec<i16>>(&idx, &opts).map_err(err)?).into_voxels(),
-            DType::U16 => VoxelBuffer::from_vec(a.array.retrieve_chunk_opt::<Vec<u16>>(&idx, &opts).map_err(err)?).into_voxels(),
-            DType::F32 => VoxelBuffer::from_vec(a.array.retrieve_chunk_opt::<Vec<f32>>(&idx, &opts).map_err(err)?).into_voxels(),
+            DType::U8 => VoxelBuffer::from_vec(
+                a.array
+                    .retrieve_chunk_opt::<Vec<u8>>(&idx, &opts)
+                    .map_err(err)?,
+            )
+            .into_voxels(),
+            DType::I16 => VoxelBuffer::from_vec(
+                a.array
+                    .retrieve_chunk_opt::<Vec<i16>>(&idx, &opts)
+                    .map_err(err)?,
+            )
+            .into_voxels(),
+            DType::U16 => VoxelBuffer::from_vec(
+                a.array
+                    .retrieve_chunk_opt::<Vec<u16>>(&idx, &opts)
+                    .map_err(err)?,
+            )
+            .into_voxels(),
+            DType::F32 => VoxelBuffer::from_vec(
+                a.array
+                    .retrieve_chunk_opt::<Vec<f32>>(&idx, &opts)
+                    .map_err(err)?,
+            )
+            .into_voxels(),
         };
         let chunk = Arc::new(voxels);
         self.cache.insert(key, chunk.clone());
@@ -474,13 +525,18 @@ impl Inner {
             DType::F32 => self.assemble::<f32>(level, &r)?.into_voxels(),
         };
         let w = info.world_from_voxel;
-        let origin = w.voxel_to_world(VoxelPoint::new(r[0].start as f64, r[1].start as f64, r[2].start as f64));
+        let origin = w.voxel_to_world(VoxelPoint::new(
+            r[0].start as f64,
+            r[1].start as f64,
+            r[2].start as f64,
+        ));
         let wfv = Affine3::from_linear_translation(&w.linear(), &origin.0.coords);
         let dims = [r[0].len(), r[1].len(), r[2].len()];
-        let mut v = Volume::new(dims, wfv, voxels, self.rescale).map_err(|e| ReadError::Storage {
-            path: self.path.clone(),
-            what: e.to_string(),
-        })?;
+        let mut v =
+            Volume::new(dims, wfv, voxels, self.rescale).map_err(|e| ReadError::Storage {
+                path: self.path.clone(),
+                what: e.to_string(),
+            })?;
         v.spacing_origin = self.spacing_origin;
         Ok(v)
     }
@@ -516,22 +572,26 @@ impl Inner {
             let k_lo = r[2].start.max(ck * cs[2]);
             let k_hi = r[2].end.min((ck + 1) * cs[2]);
             let slice = nx * ny;
-            let dst = &mut out.as_mut_slice()[(k_lo - r[2].start) * slice..(k_hi - r[2].start) * slice];
-            dst.par_chunks_mut(slice).enumerate().for_each(|(dk, plane)| {
-                let kk = k_lo + dk - ck * cs[2];
-                for (n, &[ci, cj]) in layer_keys.iter().enumerate() {
-                    let src = typed[n];
-                    let i_lo = r[0].start.max(ci * cs[0]);
-                    let i_hi = r[0].end.min((ci + 1) * cs[0]);
-                    let j_lo = r[1].start.max(cj * cs[1]);
-                    let j_hi = r[1].end.min((cj + 1) * cs[1]);
-                    for j in j_lo..j_hi {
-                        let s0 = (i_lo - ci * cs[0]) + cs[0] * ((j - cj * cs[1]) + cs[1] * kk);
-                        let d0 = (i_lo - r[0].start) + nx * (j - r[1].start);
-                        plane[d0..d0 + (i_hi - i_lo)].copy_from_slice(&src[s0..s0 + (i_hi - i_lo)]);
+            let dst =
+                &mut out.as_mut_slice()[(k_lo - r[2].start) * slice..(k_hi - r[2].start) * slice];
+            dst.par_chunks_mut(slice)
+                .enumerate()
+                .for_each(|(dk, plane)| {
+                    let kk = k_lo + dk - ck * cs[2];
+                    for (n, &[ci, cj]) in layer_keys.iter().enumerate() {
+                        let src = typed[n];
+                        let i_lo = r[0].start.max(ci * cs[0]);
+                        let i_hi = r[0].end.min((ci + 1) * cs[0]);
+                        let j_lo = r[1].start.max(cj * cs[1]);
+                        let j_hi = r[1].end.min((cj + 1) * cs[1]);
+                        for j in j_lo..j_hi {
+                            let s0 = (i_lo - ci * cs[0]) + cs[0] * ((j - cj * cs[1]) + cs[1] * kk);
+                            let d0 = (i_lo - r[0].start) + nx * (j - r[1].start);
+                            plane[d0..d0 + (i_hi - i_lo)]
+                                .copy_from_slice(&src[s0..s0 + (i_hi - i_lo)]);
+                        }
                     }
-                }
-            });
+                });
         }
         Ok(out)
     }
@@ -550,12 +610,14 @@ impl Inner {
         let keys: Vec<[usize; 3]> = rk
             .flat_map(|k| {
                 let ri = ri.clone();
-                rj.clone().flat_map(move |j| ri.clone().map(move |i| [i, j, k]))
+                rj.clone()
+                    .flat_map(move |j| ri.clone().map(move |i| [i, j, k]))
             })
             .filter(|c| !self.cache.contains(&(level, *c)))
             .collect();
         // at most half the budget, so a prefetch never evicts what the view shows
-        let per = (self.arrays[level].chunk.iter().product::<usize>() * self.dtype.size_bytes()) as u64;
+        let per =
+            (self.arrays[level].chunk.iter().product::<usize>() * self.dtype.size_bytes()) as u64;
         let most = (self.cache.budget_bytes() / 2 / per.max(1)) as usize;
         keys.par_iter().take(most).for_each(|&c| {
             let _ = self.chunk(level, c);
@@ -615,4 +677,3 @@ impl VolumeSource for Store {
         });
     }
 }
-

@@ -44,7 +44,9 @@ fn block_mean(v: &Volume, f: [usize; 3], [i, j, k]: [usize; 3]) -> f64 {
     for z in k * f[2]..((k + 1) * f[2]).min(d[2]) {
         for y in j * f[1]..((j + 1) * f[1]).min(d[1]) {
             for x in i * f[0]..((i + 1) * f[0]).min(d[0]) {
-                s += crate::with_voxels!(v.voxels(), |a| a[v.linear_index(VoxelIndex::new(x, y, z))].to_f64());
+                s += crate::with_voxels!(v.voxels(), |a| a
+                    [v.linear_index(VoxelIndex::new(x, y, z))]
+                .to_f64());
                 n += 1.0;
             }
         }
@@ -66,22 +68,38 @@ fn levels_are_exact_block_means_placed_in_the_same_world() {
     assert_eq!(store.rescale(), v.rescale());
     // level 0 bit-identical
     let b = store.read_block(0, &store.level(0).full_region()).unwrap();
-    crate::with_voxels!(b.voxels(), |a| crate::with_voxels!(v.voxels(), |e| assert!(
-        bytemuck::cast_slice::<_, u8>(a) == bytemuck::cast_slice::<_, u8>(e)
-    )));
+    crate::with_voxels!(b.voxels(), |a| crate::with_voxels!(
+        v.voxels(),
+        |e| assert!(bytemuck::cast_slice::<_, u8>(a) == bytemuck::cast_slice::<_, u8>(e))
+    ));
     assert_eq!(b.world_from_voxel(), v.world_from_voxel());
     for l in 1..store.level_count() {
         let lv = store.level(l);
         let block = store.read_block(l, &lv.full_region()).unwrap();
-        for idx in [[0, 0, 0], [1, 2, 1], [lv.dims[0] - 1, lv.dims[1] - 1, lv.dims[2] - 1]] {
-            let raw = block.value(VoxelIndex::new(idx[0], idx[1], idx[2])).unwrap();
+        for idx in [
+            [0, 0, 0],
+            [1, 2, 1],
+            [lv.dims[0] - 1, lv.dims[1] - 1, lv.dims[2] - 1],
+        ] {
+            let raw = block
+                .value(VoxelIndex::new(idx[0], idx[1], idx[2]))
+                .unwrap();
             let want = v.apply_rescale(block_mean(&v, lv.factor, idx));
-            assert!((raw - want).abs() < 1e-9, "level {l} {idx:?}: {raw} vs {want}");
+            assert!(
+                (raw - want).abs() < 1e-9,
+                "level {l} {idx:?}: {raw} vs {want}"
+            );
         }
         // a level voxel sits at the centre of its block of level-0 voxels
         let f = lv.factor.map(|x| x as f64);
-        let p = lv.world_from_voxel.voxel_to_world(VoxelPoint::new(1.0, 1.0, 1.0));
-        let q = v.voxel_to_world(VoxelPoint::new(1.5 * f[0] - 0.5, 1.5 * f[1] - 0.5, 1.5 * f[2] - 0.5));
+        let p = lv
+            .world_from_voxel
+            .voxel_to_world(VoxelPoint::new(1.0, 1.0, 1.0));
+        let q = v.voxel_to_world(VoxelPoint::new(
+            1.5 * f[0] - 0.5,
+            1.5 * f[1] - 0.5,
+            1.5 * f[2] - 0.5,
+        ));
         assert!((p.0 - q.0).norm() < 1e-12);
     }
     // intensity facts are the in-memory volume's, exactly
@@ -106,12 +124,27 @@ fn blocks_through_a_tiny_cache_evict_and_still_agree() {
         ..StoreOptions::default()
     };
     let store = Store::open(&out, &options).unwrap();
-    for region in [[3..20, 5..6, 0..35], [0..40, 0..33, 17..18], [15..17, 15..17, 15..17]] {
+    for region in [
+        [3..20, 5..6, 0..35],
+        [0..40, 0..33, 17..18],
+        [15..17, 15..17, 15..17],
+    ] {
         let b = store.read_block(0, &region).unwrap();
-        assert_eq!(b.dims(), [region[0].len(), region[1].len(), region[2].len()]);
+        assert_eq!(
+            b.dims(),
+            [region[0].len(), region[1].len(), region[2].len()]
+        );
         for (i, j, k) in [(0, 0, 0), (1, 0, 0), (0, 0, 1)] {
-            let (i, j, k) = (i.min(b.dims()[0] - 1), j.min(b.dims()[1] - 1), k.min(b.dims()[2] - 1));
-            let src = VoxelIndex::new(region[0].start + i, region[1].start + j, region[2].start + k);
+            let (i, j, k) = (
+                i.min(b.dims()[0] - 1),
+                j.min(b.dims()[1] - 1),
+                k.min(b.dims()[2] - 1),
+            );
+            let src = VoxelIndex::new(
+                region[0].start + i,
+                region[1].start + j,
+                region[2].start + k,
+            );
             assert_eq!(b.value(VoxelIndex::new(i, j, k)), v.value(src));
             // placed where the source places it
             let pw = b.voxel_to_world(VoxelIndex::new(i, j, k).centre());
@@ -150,11 +183,17 @@ fn an_interrupted_conversion_is_never_opened_and_resumes() {
     let b = Store::open(&reference_dir, &StoreOptions::default()).unwrap();
     for l in 0..a.level_count() {
         let full = a.level(l).full_region();
-        let (x, y) = (a.read_block(l, &full).unwrap(), b.read_block(l, &full).unwrap());
-        crate::with_voxels!(x.voxels(), |p| crate::with_voxels!(y.voxels(), |q| assert!(
-            bytemuck::cast_slice::<_, u8>(p) == bytemuck::cast_slice::<_, u8>(q),
-            "level {l}"
-        )));
+        let (x, y) = (
+            a.read_block(l, &full).unwrap(),
+            b.read_block(l, &full).unwrap(),
+        );
+        crate::with_voxels!(x.voxels(), |p| crate::with_voxels!(
+            y.voxels(),
+            |q| assert!(
+                bytemuck::cast_slice::<_, u8>(p) == bytemuck::cast_slice::<_, u8>(q),
+                "level {l}"
+            )
+        ));
     }
     assert_eq!(a.intensity().unwrap(), b.intensity().unwrap());
     // a finished store is never overwritten
@@ -166,7 +205,9 @@ fn an_interrupted_conversion_is_never_opened_and_resumes() {
 #[test]
 fn float_scans_state_the_error_of_their_percentiles() {
     let dir = tempfile::tempdir().unwrap();
-    let mut data: Vec<f32> = (0..24 * 20 * 18).map(|n| (n as f32 * 0.37).sin() * 500.0).collect();
+    let mut data: Vec<f32> = (0..24 * 20 * 18)
+        .map(|n| (n as f32 * 0.37).sin() * 500.0)
+        .collect();
     data[5] = f32::NAN;
     let v = Volume::from_vec([24, 20, 18], Affine3::from_spacing([0.1, 0.1, 0.1]), data).unwrap();
     let out = dir.path().join("f.ome.zarr");
@@ -176,7 +217,10 @@ fn float_scans_state_the_error_of_their_percentiles() {
     let want = Intensity::of_volume(&v);
     assert_eq!(got.stats.count, want.stats.count);
     assert_eq!(got.stats.nan_count, 1);
-    assert_eq!((got.stats.min, got.stats.max), (want.stats.min, want.stats.max));
+    assert_eq!(
+        (got.stats.min, got.stats.max),
+        (want.stats.min, want.stats.max)
+    );
     assert!(!got.exact && got.note.is_some());
     let width = (want.stats.max - want.stats.min) / 65536.0;
     for ((_, a), (_, b)) in got.percentiles.iter().zip(&want.percentiles) {
@@ -194,7 +238,12 @@ fn anisotropic_scans_halve_their_finer_axes_first() {
     assert_eq!(f[2], [4, 4, 1]);
     assert_eq!(f[3], [8, 8, 2]);
     let last = f.last().unwrap();
-    let bytes: usize = [512usize, 512, 100].iter().zip(last).map(|(n, f)| n.div_ceil(*f)).product::<usize>() * 2;
+    let bytes: usize = [512usize, 512, 100]
+        .iter()
+        .zip(last)
+        .map(|(n, f)| n.div_ceil(*f))
+        .product::<usize>()
+        * 2;
     assert!(bytes <= 1 << 16);
 }
 
@@ -229,7 +278,12 @@ fn refuses_what_is_not_a_store() {
         fn spacing_origin(&self) -> SpacingOrigin {
             SpacingOrigin::File
         }
-        fn read_slices(&mut self, k0: usize, _dst: &mut [u8], _p: &Progress<'_>) -> Result<(), IoError> {
+        fn read_slices(
+            &mut self,
+            k0: usize,
+            _dst: &mut [u8],
+            _p: &Progress<'_>,
+        ) -> Result<(), IoError> {
             Err(IoError::Corrupt {
                 path: "broken.nii".into(),
                 what: format!("truncated at slice {k0}"),

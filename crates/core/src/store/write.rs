@@ -28,9 +28,12 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
-use zarrs::array::codec::{BloscCodec, BloscCompressionLevel, BloscCompressor, BloscShuffleMode, GzipCodec, ZstdCodec};
-use zarrs::array::{ArrayBuilder, CodecOptions, DataType, Element, data_type};
 use zarrs::array::BytesToBytesCodecTraits;
+use zarrs::array::codec::{
+    BloscCodec, BloscCompressionLevel, BloscCompressor, BloscShuffleMode, GzipCodec, ZstdCodec,
+};
+use zarrs::array::builder::ArrayBuilderFillValue;
+use zarrs::array::{ArrayBuilder, CodecOptions, DataType, Element, data_type};
 use zarrs::filesystem::FilesystemStore;
 use zarrs::group::GroupBuilder;
 
@@ -66,7 +69,13 @@ impl Codec {
     /// Parses [`Self::name`]'s form (`zstd`, `zstd/3`, `blosc-lz4`, `gzip/6`, `raw`).
     pub fn parse(text: &str) -> Result<Self, String> {
         let (name, level) = match text.split_once('/') {
-            Some((n, l)) => (n, Some(l.parse::<i64>().map_err(|_| format!("codec level '{l}' is not a whole number"))?)),
+            Some((n, l)) => (
+                n,
+                Some(
+                    l.parse::<i64>()
+                        .map_err(|_| format!("codec level '{l}' is not a whole number"))?,
+                ),
+            ),
             None => (text, None),
         };
         Ok(match (name, level) {
@@ -74,7 +83,11 @@ impl Codec {
             ("blosc-lz4", l) => Self::BloscLz4(l.unwrap_or(5).clamp(0, 9) as u8),
             ("gzip", l) => Self::Gzip(l.unwrap_or(6).clamp(0, 9) as u32),
             ("raw", None) => Self::Raw,
-            _ => return Err(format!("codec '{text}': expected zstd[/L], blosc-lz4[/L], gzip[/L] or raw")),
+            _ => {
+                return Err(format!(
+                    "codec '{text}': expected zstd[/L], blosc-lz4[/L], gzip[/L] or raw"
+                ));
+            }
         })
     }
 
@@ -137,7 +150,12 @@ pub struct ConvertReport {
 
 /// The factors over level 0 of every level (see the module docs).
 #[must_use]
-pub fn plan_levels(dims: [usize; 3], spacing_mm: [f64; 3], voxel_bytes: usize, coarsest_bytes: u64) -> Vec<[usize; 3]> {
+pub fn plan_levels(
+    dims: [usize; 3],
+    spacing_mm: [f64; 3],
+    voxel_bytes: usize,
+    coarsest_bytes: u64,
+) -> Vec<[usize; 3]> {
     let mut out = vec![[1usize; 3]];
     loop {
         let f = *out.last().expect("level 0");
@@ -147,7 +165,10 @@ pub fn plan_levels(dims: [usize; 3], spacing_mm: [f64; 3], voxel_bytes: usize, c
             return out;
         }
         let s = [0, 1, 2].map(|a| spacing_mm[a] * f[a] as f64);
-        let finest = (0..3).filter(|&a| d[a] > 1).map(|a| s[a]).fold(f64::INFINITY, f64::min);
+        let finest = (0..3)
+            .filter(|&a| d[a] > 1)
+            .map(|a| s[a])
+            .fold(f64::INFINITY, f64::min);
         let mut next = f;
         for a in 0..3 {
             if d[a] > 1 && s[a] < 1.5 * finest {
@@ -210,7 +231,7 @@ impl FloatPartial {
 }
 
 /// A voxel type a store holds: its Zarr data type and the rounding of a block mean.
-trait StoreVoxel: Voxel + Element {
+trait StoreVoxel: Voxel + Element + Into<ArrayBuilderFillValue> {
     fn zarr() -> DataType;
     /// `None` for floats; the value range for the count table of integers.
     const TABLE_MIN: Option<i64>;
@@ -227,7 +248,12 @@ macro_rules! store_int {
             const TABLE_MIN: Option<i64> = Some($min);
             const TABLE_LEN: usize = $len;
             fn from_mean(x: f64) -> Self {
-                if x.is_nan() { 0 } else { x.round_ties_even().clamp(<$t>::MIN as f64, <$t>::MAX as f64) as $t }
+                if x.is_nan() {
+                    0
+                } else {
+                    x.round_ties_even()
+                        .clamp(<$t>::MIN as f64, <$t>::MAX as f64) as $t
+                }
             }
         }
     };
@@ -256,10 +282,16 @@ pub fn convert(
     progress: &Progress<'_>,
 ) -> Result<ConvertReport, StoreError> {
     if out.exists() {
-        return Err(StoreError::usage(out, "already exists; remove it or choose another name"));
+        return Err(StoreError::usage(
+            out,
+            "already exists; remove it or choose another name",
+        ));
     }
     if !(16..=256).contains(&options.chunk) {
-        return Err(StoreError::usage(out, format!("chunk side {} is outside 16..256", options.chunk)));
+        return Err(StoreError::usage(
+            out,
+            format!("chunk side {} is outside 16..256", options.chunk),
+        ));
     }
     match reader.dtype() {
         DType::U8 => Converter::<u8>::run(reader, out, options, progress),
@@ -309,7 +341,10 @@ struct Converter<T> {
 }
 
 impl<T: StoreVoxel> Converter<T> {
-    #[allow(clippy::too_many_lines, reason = "one pass from opening to renaming, in order")]
+    #[allow(
+        clippy::too_many_lines,
+        reason = "one pass from opening to renaming, in order"
+    )]
     fn run(
         reader: &mut dyn SliceReader,
         out: &Path,
@@ -318,7 +353,12 @@ impl<T: StoreVoxel> Converter<T> {
     ) -> Result<ConvertReport, StoreError> {
         let dims = reader.dims();
         let world = reader.world_from_voxel();
-        let factors = plan_levels(dims, world.column_lengths(), T::DTYPE.size_bytes(), options.coarsest_bytes);
+        let factors = plan_levels(
+            dims,
+            world.column_lengths(),
+            T::DTYPE.size_bytes(),
+            options.coarsest_bytes,
+        );
         let partial = partial_path(out);
         let checkpoint_now = Checkpoint {
             source: reader.path().display().to_string(),
@@ -341,8 +381,14 @@ impl<T: StoreVoxel> Converter<T> {
             std::fs::remove_dir_all(&partial).map_err(|e| StoreError::os(&partial, e))?;
         }
         std::fs::create_dir_all(&partial).map_err(|e| StoreError::os(&partial, e))?;
-        let fs = Arc::new(FilesystemStore::new(&partial).map_err(|e| StoreError::corrupt(&partial, e.to_string()))?);
-        let codecs = options.codec.build(T::DTYPE).map_err(|e| StoreError::usage(out, e))?;
+        let fs = Arc::new(
+            FilesystemStore::new(&partial)
+                .map_err(|e| StoreError::corrupt(&partial, e.to_string()))?,
+        );
+        let codecs = options
+            .codec
+            .build(T::DTYPE)
+            .map_err(|e| StoreError::usage(out, e))?;
         let c = options.chunk as u64;
         let mut levels = Vec::new();
         for (l, f) in factors.iter().enumerate() {
@@ -352,7 +398,7 @@ impl<T: StoreVoxel> Converter<T> {
                 vec![d[2] as u64, d[1] as u64, d[0] as u64],
                 vec![c, c, c],
                 T::zarr(),
-                bytemuck::bytes_of(&T::default()).to_vec(),
+                T::default(),
             );
             b.bytes_to_bytes_codecs(codecs.clone());
             b.dimension_names(Some(["z", "y", "x"]));
@@ -382,7 +428,12 @@ impl<T: StoreVoxel> Converter<T> {
             });
         }
         let grid = [0, 1, 2].map(|a| dims[a].div_ceil(options.chunk) as u64);
-        let mut rb = ArrayBuilder::new(vec![grid[2], grid[1], grid[0], 2], vec![1, grid[1], grid[0], 2], data_type::float32(), f32::NAN.to_ne_bytes().to_vec());
+        let mut rb = ArrayBuilder::new(
+            vec![grid[2], grid[1], grid[0], 2],
+            vec![1, grid[1], grid[0], 2],
+            data_type::float32(),
+            f32::NAN,
+        );
         rb.bytes_to_bytes_codecs(vec![Arc::new(ZstdCodec::new(1, false))]);
         rb.dimension_names(Some(["z", "y", "x", "min_max"]));
         let block_range = rb
@@ -423,9 +474,12 @@ impl<T: StoreVoxel> Converter<T> {
             let n = options.chunk.min(nz - k0);
             let slice = dims[0] * dims[1];
             {
-                let dst: &mut [u8] = bytemuck::cast_slice_mut(&mut conv.levels[0].layer[..n * slice]);
+                let dst: &mut [u8] =
+                    bytemuck::cast_slice_mut(&mut conv.levels[0].layer[..n * slice]);
                 reader.read_slices(k0, dst, progress).map_err(|e| match e {
-                    crate::io::IoError::Cancelled { .. } => StoreError::Cancelled { path: out.to_owned() },
+                    crate::io::IoError::Cancelled { .. } => StoreError::Cancelled {
+                        path: out.to_owned(),
+                    },
                     e => StoreError::Source(e),
                 })?;
             }
@@ -440,7 +494,9 @@ impl<T: StoreVoxel> Converter<T> {
                 conv.checkpoint(&checkpoint_now, k0)?;
             }
             if !progress.report(k0 as u64, nz as u64) {
-                return Err(StoreError::Cancelled { path: out.to_owned() });
+                return Err(StoreError::Cancelled {
+                    path: out.to_owned(),
+                });
             }
         }
         // intensity
@@ -449,7 +505,10 @@ impl<T: StoreVoxel> Converter<T> {
             Some(min) => intensity_from_counts(&conv.table, min, rescale),
             None => conv.float_intensity(rescale)?,
         };
-        let level_infos: Vec<Level> = factors.iter().map(|f| Level::coarsened(dims, &world, *f)).collect();
+        let level_infos: Vec<Level> = factors
+            .iter()
+            .map(|f| Level::coarsened(dims, &world, *f))
+            .collect();
         let facts = Facts {
             format_version: meta::FACTS_VERSION,
             complete: true,
@@ -472,7 +531,10 @@ impl<T: StoreVoxel> Converter<T> {
             levels: factors
                 .iter()
                 .enumerate()
-                .map(|(l, f)| LevelFacts { path: l.to_string(), factor: *f })
+                .map(|(l, f)| LevelFacts {
+                    path: l.to_string(),
+                    factor: *f,
+                })
                 .collect(),
             chunk: [options.chunk; 3],
             codec: options.codec.name(),
@@ -486,7 +548,11 @@ impl<T: StoreVoxel> Converter<T> {
             .unwrap_or_default();
         let attrs = meta::group_attributes(
             &name,
-            &level_infos.iter().enumerate().map(|(l, i)| (l.to_string(), i.world_from_voxel)).collect::<Vec<_>>(),
+            &level_infos
+                .iter()
+                .enumerate()
+                .map(|(l, i)| (l.to_string(), i.world_from_voxel))
+                .collect::<Vec<_>>(),
             &facts,
         );
         let mut gb = GroupBuilder::new();
@@ -526,16 +592,22 @@ impl<T: StoreVoxel> Converter<T> {
                 let len = T::TABLE_LEN;
                 let t = data
                     .par_chunks(PART)
-                    .fold(|| vec![0u64; len], |mut t, c| {
-                        count_into(&mut t, c, min);
-                        t
-                    })
-                    .reduce(|| vec![0u64; len], |mut a, b| {
-                        for (x, y) in a.iter_mut().zip(&b) {
-                            *x += y;
-                        }
-                        a
-                    });
+                    .fold(
+                        || vec![0u64; len],
+                        |mut t, c| {
+                            count_into(&mut t, c, min);
+                            t
+                        },
+                    )
+                    .reduce(
+                        || vec![0u64; len],
+                        |mut a, b| {
+                            for (x, y) in a.iter_mut().zip(&b) {
+                                *x += y;
+                            }
+                            a
+                        },
+                    );
                 for (x, y) in self.table.iter_mut().zip(&t) {
                     *x += y;
                 }
@@ -662,7 +734,9 @@ impl<T: StoreVoxel> Converter<T> {
         let d = lw.dims;
         let ck = lw.layer_index;
         let (gi, gj) = (d[0].div_ceil(c), d[1].div_ceil(c));
-        let keys: Vec<[usize; 2]> = (0..gj).flat_map(|cj| (0..gi).map(move |ci| [ci, cj])).collect();
+        let keys: Vec<[usize; 2]> = (0..gj)
+            .flat_map(|cj| (0..gi).map(move |ci| [ci, cj]))
+            .collect();
         let filled = lw.filled;
         let layer = &lw.layer;
         let array = &lw.array;
@@ -691,7 +765,12 @@ impl<T: StoreVoxel> Converter<T> {
                     }
                     array
                         .store_chunk_opt(&[ck as u64, cj as u64, ci as u64], &buf[..], opts)
-                        .map_err(|e| StoreError::corrupt(&self.partial, format!("level {l} chunk {ci},{cj},{ck}: {e}")))?;
+                        .map_err(|e| {
+                            StoreError::corrupt(
+                                &self.partial,
+                                format!("level {l} chunk {ci},{cj},{ck}: {e}"),
+                            )
+                        })?;
                     Ok(if lo <= hi { [lo, hi] } else { [f32::NAN; 2] })
                 },
             )
@@ -709,9 +788,16 @@ impl<T: StoreVoxel> Converter<T> {
     }
 
     fn checkpoint(&self, base: &Checkpoint, next_k: usize) -> Result<(), StoreError> {
-        if let Some(l) = self.levels.iter().position(|l| l.filled != 0 || l.seen != 0) {
+        if let Some(l) = self
+            .levels
+            .iter()
+            .position(|l| l.filled != 0 || l.seen != 0)
+        {
             // not at a boundary of every level (cannot happen with power-of-two factors)
-            return Err(StoreError::corrupt(&self.partial, format!("level {l} is mid-slice at a checkpoint")));
+            return Err(StoreError::corrupt(
+                &self.partial,
+                format!("level {l} is mid-slice at a checkpoint"),
+            ));
         }
         let cp = Checkpoint {
             next_k,
@@ -723,7 +809,8 @@ impl<T: StoreVoxel> Converter<T> {
         };
         let counts: Vec<u8> = self.table.iter().flat_map(|c| c.to_le_bytes()).collect();
         write_atomic(&self.partial.join(COUNTS_FILE), &counts)?;
-        let json = serde_json::to_vec_pretty(&cp).map_err(|e| StoreError::corrupt(&self.partial, e.to_string()))?;
+        let json = serde_json::to_vec_pretty(&cp)
+            .map_err(|e| StoreError::corrupt(&self.partial, e.to_string()))?;
         write_atomic(&self.partial.join(PROGRESS_FILE), &json)
     }
 
@@ -738,12 +825,33 @@ impl<T: StoreVoxel> Converter<T> {
         }
         let sum = rescale.map_or(p.sum, |r| r.slope * p.sum + r.intercept * p.count as f64);
         let stats = if p.count == 0 {
-            Stats { min: f64::NAN, max: f64::NAN, mean: f64::NAN, sum: 0.0, count: 0, nan_count: p.nan }
+            Stats {
+                min: f64::NAN,
+                max: f64::NAN,
+                mean: f64::NAN,
+                sum: 0.0,
+                count: 0,
+                nan_count: p.nan,
+            }
         } else {
-            Stats { min: lo, max: hi, mean: sum / p.count as f64, sum, count: p.count, nan_count: p.nan }
+            Stats {
+                min: lo,
+                max: hi,
+                mean: sum / p.count as f64,
+                sum,
+                count: p.count,
+                nan_count: p.nan,
+            }
         };
         const FINE: usize = 1 << 16;
-        let mut fine = Histogram { lo, hi, counts: vec![0; FINE], below: 0, above: 0, nan: 0 };
+        let mut fine = Histogram {
+            lo,
+            hi,
+            counts: vec![0; FINE],
+            below: 0,
+            above: 0,
+            nan: 0,
+        };
         if p.count > 0 && hi > lo {
             // level 0 as written so far, read back chunk layer by chunk layer
             let l0 = &self.levels[0];
@@ -751,7 +859,10 @@ impl<T: StoreVoxel> Converter<T> {
             let d = l0.dims;
             let scale = FINE as f64 / (hi - lo);
             let keys: Vec<[usize; 3]> = (0..d[2].div_ceil(c))
-                .flat_map(|k| (0..d[1].div_ceil(c)).flat_map(move |j| (0..d[0].div_ceil(c)).map(move |i| [i, j, k])))
+                .flat_map(|k| {
+                    (0..d[1].div_ceil(c))
+                        .flat_map(move |j| (0..d[0].div_ceil(c)).map(move |i| [i, j, k]))
+                })
                 .collect();
             let opts = &self.codec_options;
             let counts = keys
@@ -774,12 +885,15 @@ impl<T: StoreVoxel> Converter<T> {
                     }
                     Ok(t)
                 })
-                .try_reduce(|| vec![0u64; FINE], |mut a, b| {
-                    for (x, y) in a.iter_mut().zip(&b) {
-                        *x += y;
-                    }
-                    Ok(a)
-                })?;
+                .try_reduce(
+                    || vec![0u64; FINE],
+                    |mut a, b| {
+                        for (x, y) in a.iter_mut().zip(&b) {
+                            *x += y;
+                        }
+                        Ok(a)
+                    },
+                )?;
             fine.counts = counts;
         }
         Ok(intensity_from_fine_histogram(stats, &fine))
@@ -805,7 +919,12 @@ fn read_checkpoint(partial: &Path, now: &Checkpoint) -> Option<(Checkpoint, Opti
         None
     } else {
         let bytes = std::fs::read(partial.join(COUNTS_FILE)).ok()?;
-        Some(bytes.chunks_exact(8).map(|b| u64::from_le_bytes(b.try_into().expect("8 bytes"))).collect())
+        Some(
+            bytes
+                .chunks_exact(8)
+                .map(|b| u64::from_le_bytes(b.try_into().expect("8 bytes")))
+                .collect(),
+        )
     };
     Some((cp, table))
 }
@@ -831,7 +950,9 @@ fn dir_bytes(dir: &Path) -> u64 {
     let mut total = 0;
     let mut stack = vec![dir.to_owned()];
     while let Some(d) = stack.pop() {
-        let Ok(rd) = std::fs::read_dir(&d) else { continue };
+        let Ok(rd) = std::fs::read_dir(&d) else {
+            continue;
+        };
         for e in rd.flatten() {
             match e.metadata() {
                 Ok(m) if m.is_dir() => stack.push(e.path()),

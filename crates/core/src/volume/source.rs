@@ -373,7 +373,9 @@ mod tests {
         let l = Level::coarsened([9, 8, 7], &w, [2, 2, 1]);
         assert_eq!(l.dims, [5, 4, 7]);
         // level voxel (1, 1, 3) is the centre of level-0 voxels 2..4, 2..4, 3
-        let got = l.world_from_voxel.voxel_to_world(VoxelPoint::new(1.0, 1.0, 3.0));
+        let got = l
+            .world_from_voxel
+            .voxel_to_world(VoxelPoint::new(1.0, 1.0, 3.0));
         let want = w.voxel_to_world(VoxelPoint::new(2.5, 2.5, 3.0));
         assert_relative_eq!(got.0, want.0, epsilon = 1e-12);
         assert_relative_eq!(l.spacing_mm()[0], 0.04, epsilon = 1e-12);

@@ -10,11 +10,11 @@
 //! exact, from a full-range count table; for floats they are exact too, from a coarse histogram
 //! that locates the rank followed by a selection among the few values in that bin.
 
+use super::Rescale;
+use super::source::{INTENSITY_HISTOGRAM_BINS, INTENSITY_PERCENTILES, Intensity};
 use super::{Volume, Voxel, Voxels};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
-use super::source::{INTENSITY_HISTOGRAM_BINS, INTENSITY_PERCENTILES, Intensity};
-use super::Rescale;
 
 const CHUNK: usize = 1 << 20;
 
@@ -372,7 +372,10 @@ pub fn intensity_from_counts(table: &[u64], min: i64, rescale: Option<Rescale>) 
         .sum();
     let stats = match (first, last) {
         (Some(a), Some(b)) => {
-            let (mut lo, mut hi) = (apply((min + a as i64) as f64), apply((min + b as i64) as f64));
+            let (mut lo, mut hi) = (
+                apply((min + a as i64) as f64),
+                apply((min + b as i64) as f64),
+            );
             if lo > hi {
                 std::mem::swap(&mut lo, &mut hi);
             }

@@ -188,7 +188,9 @@ pub(super) fn read_full(r: &mut impl Read, buf: &mut [u8]) -> std::io::Result<us
     Ok(filled)
 }
 
-pub(super) fn gz_reader(path: &Path) -> Result<flate2::read::MultiGzDecoder<BufReader<File>>, IoError> {
+pub(super) fn gz_reader(
+    path: &Path,
+) -> Result<flate2::read::MultiGzDecoder<BufReader<File>>, IoError> {
     let f = File::open(path).map_err(|e| IoError::os(path, e))?;
     Ok(flate2::read::MultiGzDecoder::new(BufReader::with_capacity(
         GZ_INPUT_BUFFER_BYTES,

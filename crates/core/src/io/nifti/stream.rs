@@ -25,10 +25,7 @@ use std::path::{Path, PathBuf};
 const PART_BYTES: usize = 8 << 20;
 
 /// The slab reader for a `NIfTI` file (see the module docs).
-pub fn open_slices(
-    path: &Path,
-    options: &OpenOptions,
-) -> Result<Box<dyn SliceReader>, IoError> {
+pub fn open_slices(path: &Path, options: &OpenOptions) -> Result<Box<dyn SliceReader>, IoError> {
     let files = read::locate(path);
     let prefix = read::read_prefix(&files.header)?;
     let h = super::Header::parse(&prefix)
@@ -168,7 +165,10 @@ impl SliceReader for NiftiSlices {
         if dst.len() % per != 0 || k0 + n > self.dims[2] {
             return Err(IoError::usage(
                 &self.path,
-                format!("slab of {} bytes from slice {k0} does not fit the scan", dst.len()),
+                format!(
+                    "slab of {} bytes from slice {k0} does not fit the scan",
+                    dst.len()
+                ),
             ));
         }
         match &mut self.data {
@@ -184,7 +184,10 @@ impl SliceReader for NiftiSlices {
                                 if e.kind() == std::io::ErrorKind::UnexpectedEof {
                                     IoError::corrupt(
                                         data_path,
-                                        format!("truncated: voxel data ends before slice {}", k0 + n),
+                                        format!(
+                                            "truncated: voxel data ends before slice {}",
+                                            k0 + n
+                                        ),
                                     )
                                 } else {
                                     IoError::os(data_path, e)
@@ -205,7 +208,8 @@ impl SliceReader for NiftiSlices {
                 let skip = ((k0 - *next_k) * per) as u64;
                 let skipped = std::io::copy(&mut (&mut *dec).take(skip), &mut std::io::sink())
                     .map_err(|e| read::gz_error(&self.data_path, e))?;
-                let got = read::read_full(dec, dst).map_err(|e| read::gz_error(&self.data_path, e))?;
+                let got =
+                    read::read_full(dec, dst).map_err(|e| read::gz_error(&self.data_path, e))?;
                 if skipped < skip || got < dst.len() {
                     let want = total;
                     return Err(self.truncated(want));
