@@ -30,7 +30,7 @@ use eframe::egui::{Event, Modifiers, MouseWheelSource, MouseWheelUnit, TouchPhas
 use egui_kittest::Harness;
 use sutura::gui::state::VolumeMode;
 use sutura::gui::worker::{PlaneKey, RenderKey, VolumeAids, render_view_reusing, to_color_image};
-use sutura::gui::{App, Command, Preferences, ViewId};
+use sutura::gui::{App, Preferences, PrefsCommand, ViewId};
 use sutura_core::geometry::WorldPoint;
 use sutura_core::render::Quality;
 use sutura_core::render::overlay::{AxisNames, Overlay};
@@ -268,7 +268,7 @@ fn main() {
     let trip_ms = report("wheel step → new stage picture on screen", round_trip);
 
     // 3. the 3D view at stage size
-    h.state_mut().send(Command::SetStage(ViewId::Volume));
+    h.state_mut().send(PrefsCommand::SetStage(ViewId::Volume));
     h.step();
     h.step();
     step_until(&mut h, |a| {

@@ -89,8 +89,8 @@ for sid in IDS:
     rot = [row[:3] for row in truth["world_from_specimen"][:3]]
     world = lambda v: [sum(rot[i][j] * v[j] for j in range(3)) for i in range(3)]
     pos = {l["id"]: [l["x"], l["y"], l["z"]] for l in truth["landmarks"]}
-    plan.append(["label", sid, f"group={truth['group']}"])
-    plan.append(["label", sid, f"locality={truth['labels']['locality']}"])
+    plan.append(["group", sid, f"formation={truth['group']}"])
+    plan.append(["group", sid, f"locality={truth['labels']['locality']}"])
     for trial in (1, 2) if sid in SECOND else (1,):
         op, start = OPERATORS[trial]
         plan.append(["trial", sid, str(trial), op, start])
@@ -134,12 +134,12 @@ with open(sys.argv[1], "w") as f:
 PY
 
 # Replay the plan: one command-line call per label, trial, landmark and curve. Fields after
-# the kind and specimen: label KEY=VALUE | trial ID OPERATOR TIME | pick TRIAL LANDMARK TIME
+# the kind and specimen: group KEY=VALUE | trial ID OPERATOR TIME | pick TRIAL LANDMARK TIME
 # FROM TOWARD MAX | slice TRIAL LANDMARK TIME POINT | missing TRIAL LANDMARK TIME NOTE |
 # curve TRIAL CURVE TIME POINTS.
 while IFS=$'\t' read -r kind sid f1 f2 f3 f4 f5 f6; do
   case "$kind" in
-    label) $S project label "$P" "$sid" "$f1" ;;
+    group) $S project group "$P" "$sid" --set "$f1" ;;
     trial) $S trial new "$P" "$sid" --id "$f1" --operator "$f2" --time "$f3" ;;
     pick)
       $S landmark pick "$P" "$sid" "$f2" --trial "$f1" --time "$f3" \

@@ -9,7 +9,8 @@ use eframe::egui::{
 };
 use egui_kittest::Harness;
 use egui_kittest::kittest::Queryable;
-use sutura::gui::{App, Command, Preferences, ViewId};
+use sutura::gui::{AnalysisCommand, App, AppCommand, Preferences, PrefsCommand, ViewId};
+use sutura_core::geometry::VoxelSizeMm;
 
 fn sample() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz")
@@ -118,14 +119,14 @@ fn ctrl_wheel_zooms_about_the_pointer() {
     let p = rect.center() + Vec2::new(120.0, -80.0);
     h.hover_at(p);
     h.step();
-    let map = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
+    let map = h.state().screen_map(ViewId::PlaneK).unwrap();
     let under = map.world([f64::from(p.x), f64::from(p.y)]);
     wheel(&h, 2.0, Modifiers::COMMAND);
     h.step();
     h.step();
     let vs = h.state().view_state();
     assert!(vs.planes[ViewId::PlaneK.index()].zoom > 1.2);
-    let after = vs.maps[ViewId::PlaneK.index()].unwrap();
+    let after = h.state().screen_map(ViewId::PlaneK).unwrap();
     let s = after.screen(under);
     assert!((s[0] - f64::from(p.x)).abs() < 1e-3 && (s[1] - f64::from(p.y)).abs() < 1e-3);
 }
@@ -199,7 +200,7 @@ fn the_stage_switches_by_button_key_and_click() {
     h.step();
     assert_eq!(h.state().preferences().stage, ViewId::Oblique);
     // and the 3D view, once on the stage, renders its full picture after the coarse one
-    h.state_mut().send(Command::SetStage(ViewId::Volume));
+    h.state_mut().send(PrefsCommand::SetStage(ViewId::Volume));
     step_until(&mut h, "the full 3D picture", |a| {
         a.is_view_current(ViewId::Volume)
     });
@@ -211,7 +212,7 @@ fn a_click_moves_the_crosshair_to_the_point_under_it() {
     let p = stage_centre(&h) + Vec2::new(-90.0, 40.0);
     h.hover_at(p);
     h.step();
-    let map = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
+    let map = h.state().screen_map(ViewId::PlaneK).unwrap();
     let expected = map.world([f64::from(p.x), f64::from(p.y)]);
     let slice = k_slice(h.state());
     h.event(Event::PointerButton {
@@ -236,7 +237,9 @@ fn a_click_moves_the_crosshair_to_the_point_under_it() {
     let q = p + Vec2::new(50.0, -30.0);
     h.hover_at(q);
     h.step();
-    let expected = h.state().view_state().maps[ViewId::PlaneK.index()]
+    let expected = h
+        .state()
+        .screen_map(ViewId::PlaneK)
         .unwrap()
         .world([f64::from(q.x), f64::from(q.y)]);
     for pressed in [true, false] {
@@ -275,15 +278,13 @@ fn a_bad_file_reports_an_error_and_keeps_the_scan() {
     let dir = tempfile::tempdir().unwrap();
     let bad = dir.path().join("not_a_scan.nii");
     std::fs::write(&bad, b"nothing like a header").unwrap();
-    h.state_mut().send(Command::Open(bad));
+    h.state_mut().send(AppCommand::Open(bad));
     step_until(&mut h, "the failed load", |a| !a.is_loading());
-    let msg = h
-        .state()
-        .view_state()
-        .message
-        .clone()
-        .expect("an error message");
-    assert!(msg.1 && msg.0.contains("not_a_scan.nii"), "{msg:?}");
+    let msg = h.state().status().cloned().expect("an error message");
+    assert!(
+        msg.is_error() && msg.text.contains("not_a_scan.nii"),
+        "{msg:?}"
+    );
     assert!(h.state().document().scan.is_some());
 }
 
@@ -294,16 +295,14 @@ fn a_slice_folder_opens_with_the_voxel_size_given() {
         .with_size(Vec2::new(1280.0, 800.0))
         .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
     h.step();
-    // a bare number is refused: µm and mm differ by 1000
-    h.state_mut().send(Command::SetTiffVoxelSize("36".into()));
-    h.step();
-    let msg = h.state().view_state().message.clone().expect("an error");
-    assert!(msg.1, "{msg:?}");
+    // a bare number is refused by the one voxel-size rule: µm and mm differ by 1000
+    assert!("36".parse::<VoxelSizeMm>().is_err());
     assert!(h.state().preferences().tiff_voxel_size.is_empty());
-    h.state_mut()
-        .send(Command::SetTiffVoxelSize("36um,36um,50um".into()));
+    h.state_mut().send(PrefsCommand::SetTiffVoxelSize(Some(
+        "36um,36um,50um".parse::<VoxelSizeMm>().unwrap(),
+    )));
     let folder = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-001_slices");
-    h.state_mut().send(Command::Open(folder));
+    h.state_mut().send(AppCommand::Open(folder));
     step_until(&mut h, "the slice folder to load", |a| {
         a.document().scan.is_some() && !a.is_loading()
     });
@@ -377,7 +376,7 @@ fn app_on_project(project: &std::path::Path, prefs: Preferences) -> Harness<'sta
         .with_size(Vec2::new(1280.0, 800.0))
         .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
     step_until(&mut h, "the project and its first scan", |a| {
-        a.session().is_some() && a.scan_of().is_some() && !a.is_loading()
+        a.desk().is_some() && a.scan_of().is_some() && !a.is_loading()
     });
     h
 }
@@ -406,7 +405,7 @@ fn click(h: &mut Harness<'_, App>, p: Pos2) {
 }
 
 fn world_at(h: &Harness<'_, App>, p: Pos2) -> [f64; 3] {
-    let m = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
+    let m = h.state().screen_map(ViewId::PlaneK).unwrap();
     let w = m.world([f64::from(p.x), f64::from(p.y)]);
     [w.0.x, w.0.y, w.0.z]
 }
@@ -443,11 +442,12 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     h.step();
     assert!(h.state().prompt().is_none());
     assert_eq!(h.state().preferences().operator, "Ana Ruiz");
-    let s = h.state().session().unwrap();
+    let s = h.state().desk().unwrap();
     assert_eq!(s.trial.as_deref(), Some("3"));
     assert!(s.trial_ref().unwrap().landmarks.is_empty());
     assert!(h.state().is_placing(), "a new trial starts placing");
     let lms: Vec<String> = s
+        .session
         .project
         .scheme()
         .landmarks
@@ -455,7 +455,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
         .map(|l| l.id.clone())
         .collect();
     assert_eq!(s.current.as_deref(), Some(lms[0].as_str()));
-    assert!(s.project.scheme().landmarks[0].on_surface);
+    assert!(s.session.project.scheme().landmarks[0].on_surface);
 
     // the first click snaps the surface landmark to the boundary, as the library's pick does
     let centre = stage_centre(&h);
@@ -464,14 +464,15 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     h.step();
     let w0 = world_at(&h, p0);
     let scan = h.state().document().scan.clone().unwrap();
-    let threshold = h.state().snap_threshold().unwrap();
+    let threshold = h.state().view_state().iso.value;
     let sp = scan.volume.spacing_mm();
     let opts = PickOptions {
         threshold,
-        max_distance_mm: sutura::gui::digitise::SNAP_REACH_VOXELS * sp[0].min(sp[1]).min(sp[2]),
+        max_distance_mm: sutura_core::landmarks::pick::SNAP_REACH_VOXELS
+            * sp[0].min(sp[1]).min(sp[2]),
         refine_to_edge: true,
     };
-    let m = h.state().view_state().maps[ViewId::PlaneK.index()].unwrap();
+    let m = h.state().screen_map(ViewId::PlaneK).unwrap();
     let pick = pick_in_slice(
         &scan.volume,
         sutura_core::geometry::WorldPoint::new(w0[0], w0[1], w0[2]),
@@ -484,7 +485,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     click(&mut h, p0);
     let e = h
         .state()
-        .session()
+        .desk()
         .unwrap()
         .trial_ref()
         .unwrap()
@@ -505,7 +506,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
         assert!(close(e.position_mm.unwrap(), w0, 1e-9));
     }
     assert_eq!(
-        h.state().session().unwrap().current.as_deref(),
+        h.state().desk().unwrap().current.as_deref(),
         Some(lms[1].as_str()),
         "the next landmark becomes current"
     );
@@ -526,20 +527,20 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
         h.step();
         let w = world_at(&h, p);
         click(&mut h, p);
-        let t = h.state().session().unwrap().trial_ref().unwrap().clone();
+        let t = h.state().desk().unwrap().trial_ref().unwrap().clone();
         let e = t.landmark(&lms[n + 1]).expect("placed");
         assert_eq!(e.method, Some(Method::Slice));
         assert!(close(e.position_mm.unwrap(), w, 1e-6), "{e:?} vs {w:?}");
         placed.push(w);
     }
-    let full = h.state().session().unwrap().project.clone();
+    let full = h.state().desk().unwrap().session.project.clone();
 
     // undo and redo, by both redo keys
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
     h.step();
     assert!(
         h.state()
-            .session()
+            .desk()
             .unwrap()
             .trial_ref()
             .unwrap()
@@ -548,21 +549,21 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     );
     h.key_press_modifiers(Modifiers::COMMAND | Modifiers::SHIFT, egui::Key::Z);
     h.step();
-    assert_eq!(h.state().session().unwrap().project, full);
+    assert_eq!(h.state().desk().unwrap().session.project, full);
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
     h.step();
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Y);
     h.step();
-    assert_eq!(h.state().session().unwrap().project, full);
+    assert_eq!(h.state().desk().unwrap().session.project, full);
 
     // mark the current landmark (the fifth) missing with X
     assert_eq!(
-        h.state().session().unwrap().current.as_deref(),
+        h.state().desk().unwrap().current.as_deref(),
         Some(lms[4].as_str())
     );
     h.key_press(egui::Key::X);
     h.step();
-    let t = h.state().session().unwrap().trial_ref().unwrap().clone();
+    let t = h.state().desk().unwrap().trial_ref().unwrap().clone();
     let e = t.landmark(&lms[4]).unwrap();
     assert_eq!(e.state, LandmarkState::Missing);
     assert!(e.position_mm.is_none() && e.method.is_none());
@@ -594,7 +595,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     });
     h.step();
     h.step();
-    let t = h.state().session().unwrap().trial_ref().unwrap().clone();
+    let t = h.state().desk().unwrap().trial_ref().unwrap().clone();
     let moved = t.landmark(&lms[1]).unwrap();
     assert!(
         close(moved.position_mm.unwrap(), w_to, 1e-6),
@@ -608,7 +609,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     h.step();
     h.step();
     assert!(h.state().prompt().is_none());
-    let s = h.state().session().unwrap();
+    let s = h.state().desk().unwrap();
     assert_eq!(s.trial.as_deref(), Some("4"));
     assert!(s.trial_ref().unwrap().landmarks.is_empty());
     assert_eq!(s.current.as_deref(), Some(lms[0].as_str()));
@@ -621,7 +622,7 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     // save (Ctrl+S), reload from disk
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::S);
     h.step();
-    assert!(!h.state().session().unwrap().is_dirty());
+    assert!(!h.state().desk().unwrap().session.is_dirty());
     assert!(backup_path(&path).exists());
     let saved = Project::load(&path).unwrap();
     let sp2 = saved.specimen("HDC-002").unwrap();
@@ -660,14 +661,14 @@ fn after_a_crash_the_autosave_is_offered_and_recovered() {
     let on_disk = std::fs::read(&path).unwrap();
     let edited = {
         let mut h = app_on_project(&path, named("Bo"));
-        h.state_mut().session_mut().unwrap().autosave_delay = Duration::ZERO;
+        h.state_mut().desk_mut().unwrap().session.autosave_delay = Duration::ZERO;
         h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
         h.step();
         h.key_press(egui::Key::X);
         h.step();
         h.step();
         assert!(autosave_path(&path).exists(), "the autosave is written");
-        h.state().session().unwrap().project.clone()
+        h.state().desk().unwrap().session.project.clone()
         // the harness drops here without saving: a crash
     };
     assert_eq!(
@@ -677,15 +678,15 @@ fn after_a_crash_the_autosave_is_offered_and_recovered() {
     );
     let mut h = app_on_project(&path, named("Bo"));
     assert!(matches!(h.state().prompt(), Some(Prompt::Autosave(_))));
-    assert_ne!(h.state().session().unwrap().project, edited);
+    assert_ne!(h.state().desk().unwrap().session.project, edited);
     h.get_by_label("Recover").click();
     h.step();
     h.step();
     assert!(h.state().prompt().is_none());
-    let s = h.state().session().unwrap();
-    assert_eq!(s.project, edited);
+    let s = h.state().desk().unwrap();
+    assert_eq!(s.session.project, edited);
     assert!(
-        s.is_dirty(),
+        s.session.is_dirty(),
         "recovered work is not saved until the user saves"
     );
 }
@@ -724,7 +725,7 @@ fn quitting_with_unsaved_changes_asks_first() {
     let mut h = app_on_project(&path, named("Bo"));
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
     h.step();
-    let edited = h.state().session().unwrap().project.clone();
+    let edited = h.state().desk().unwrap().session.project.clone();
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Q);
     h.step();
     h.step();
@@ -749,7 +750,9 @@ fn the_analysis_view_runs_the_superimposition_and_exports() {
     });
     let a = h.state().analysis().result.clone().unwrap();
     // the command line's analysis of the same project gives the same numbers
-    let cli = sutura::gui::analysis_view::run(&Project::load(&path).unwrap()).unwrap();
+    let project = Project::load(&path).unwrap();
+    let options = sutura_core::analysis::ProjectAnalysisOptions::for_project(&project);
+    let cli = sutura::gui::analysis_view::run(&project, &options).unwrap();
     assert_eq!(a.n(), 10);
     assert_eq!(a.disparity.len(), 2);
     for (g, c) in a.disparity.iter().zip(&cli.disparity) {
@@ -757,7 +760,8 @@ fn the_analysis_view_runs_the_superimposition_and_exports() {
         assert!((g.procrustes_variance - c.procrustes_variance).abs() < 1e-15);
     }
     let out = dir.path().join("exports");
-    h.state_mut().send(Command::SetExportFolder(out.clone()));
+    h.state_mut()
+        .send(AnalysisCommand::SetExportFolder(out.clone()));
     h.step();
     h.step();
     h.get_by_label("Landmarks, long CSV").click();
@@ -772,7 +776,10 @@ fn the_analysis_view_runs_the_superimposition_and_exports() {
     assert!(out.join("measurements.csv").exists());
     assert!(out.join("aligned_long.csv").exists());
     let msg = h.state().analysis().last_export.clone().unwrap();
-    assert!(!msg.1 && msg.0.contains("aligned_long.csv"), "{msg:?}");
+    assert!(
+        !msg.is_error() && msg.text.contains("aligned_long.csv"),
+        "{msg:?}"
+    );
 }
 
 #[test]
@@ -798,18 +805,21 @@ fn a_scan_that_is_not_the_recorded_one_is_shown_plainly_and_kept_read_only() {
     h.step();
     h.step();
     assert_eq!(h.state().scan_of(), Some("HDC-002"));
-    let before = h.state().session().unwrap().project.clone();
+    let before = h.state().desk().unwrap().session.project.clone();
     h.get_by_label("snout_tip").click();
     h.step();
     assert_eq!(
-        h.state().session().unwrap().current.as_deref(),
+        h.state().desk().unwrap().current.as_deref(),
         Some("snout_tip")
     );
     h.key_press(egui::Key::X);
     h.step();
-    let msg = h.state().view_state().message.clone().unwrap();
-    assert!(msg.1 && msg.0.contains("not the recorded one"), "{msg:?}");
-    assert_eq!(h.state().session().unwrap().project, before);
+    let msg = h.state().status().cloned().unwrap();
+    assert!(
+        msg.is_error() && msg.text.contains("not the recorded one"),
+        "{msg:?}"
+    );
+    assert_eq!(h.state().desk().unwrap().session.project, before);
 }
 
 #[test]
@@ -841,7 +851,7 @@ fn a_curve_is_traced_by_clicks_and_resampled_once_its_anchors_are_placed() {
     }
     let curve = |h: &Harness<'_, App>| {
         h.state()
-            .session()
+            .desk()
             .unwrap()
             .trial_ref()
             .unwrap()

@@ -148,7 +148,7 @@ fn create_digitise_measure_export_superimpose() {
             scans.to_str().unwrap(),
             "--voxel-size",
             "36um,36um,50um",
-            "--label",
+            "--group",
             "batch=2025",
         ],
         cwd,
@@ -178,7 +178,14 @@ fn create_digitise_measure_export_superimpose() {
         "File"
     );
     ok(
-        &["project", "label", proj, "HDC-002", "group=Harrowdene Clay"],
+        &[
+            "project",
+            "group",
+            proj,
+            "HDC-002",
+            "--set",
+            "formation=Harrowdene Clay",
+        ],
         cwd,
     );
 
@@ -189,7 +196,17 @@ fn create_digitise_measure_export_superimpose() {
         } else {
             "Tallis Fissure"
         };
-        ok(&["project", "label", proj, id, &format!("group={g}")], cwd);
+        ok(
+            &[
+                "project",
+                "group",
+                proj,
+                id,
+                "--set",
+                &format!("formation={g}"),
+            ],
+            cwd,
+        );
         let skip: &[&str] = if id == "TF-003" { &["crest_top"] } else { &[] };
         digitise(proj, id, cwd, skip);
     }
@@ -275,7 +292,7 @@ fn create_digitise_measure_export_superimpose() {
         (
             sl["unit"].as_str(),
             sl["status"].as_str(),
-            sl["group_group"].as_str()
+            sl["group_formation"].as_str()
         ),
         ("mm", "ok", "Harrowdene Clay")
     );
@@ -329,6 +346,8 @@ fn create_digitise_measure_export_superimpose() {
                 "-o",
                 out,
                 "--semilandmarks",
+                "--group-by",
+                "formation",
             ],
             cwd,
         );
@@ -380,7 +399,16 @@ fn create_digitise_measure_export_superimpose() {
     // superimposition straight from the project; TF-003's missing crest is estimated; TF-001
     // with one landmark cannot be, and once cleared its empty trial is left out
     let e = fails(
-        &["superimpose", proj, "-o", "shape", "--resamples", "20"],
+        &[
+            "superimpose",
+            proj,
+            "-o",
+            "shape",
+            "--resamples",
+            "20",
+            "--group-by",
+            "formation",
+        ],
         cwd,
     );
     assert!(
@@ -389,7 +417,16 @@ fn create_digitise_measure_export_superimpose() {
     );
     ok(&["landmark", "clear", proj, "TF-001", "snout_tip"], cwd);
     ok(
-        &["superimpose", proj, "-o", "shape", "--resamples", "20"],
+        &[
+            "superimpose",
+            proj,
+            "-o",
+            "shape",
+            "--resamples",
+            "20",
+            "--group-by",
+            "formation",
+        ],
         cwd,
     );
     let specs = csv_rows(&cwd.join("shape/specimens.csv"));
@@ -756,7 +793,10 @@ fn killing_the_program_mid_save_leaves_a_whole_project() {
 
     // time one uninterrupted run to spread the kills over it
     let t0 = std::time::Instant::now();
-    ok(&["project", "label", "big.json", "S0000", "round=1"], cwd);
+    ok(
+        &["project", "group", "big.json", "S0000", "--set", "round=1"],
+        cwd,
+    );
     let run = t0.elapsed();
     let mut expected = 1;
     let mut seed: u64 = 0x9e37_79b9_7f4a_7c15;
@@ -770,9 +810,10 @@ fn killing_the_program_mid_save_leaves_a_whole_project() {
         let mut child = sutura()
             .args([
                 "project",
-                "label",
+                "group",
                 "big.json",
                 "S0000",
+                "--set",
                 &format!("round={}", expected + 1),
             ])
             .current_dir(cwd)
@@ -902,7 +943,10 @@ fn pick_places_a_landmark_on_the_surface_and_records_the_ray() {
         ],
         cwd,
     );
-    assert!(e.contains("meets no surface") && e.contains("100um"), "{e}");
+    assert!(
+        e.contains("meets no surface") && e.contains("100 µm"),
+        "{e}"
+    );
     // voxel coordinates: the same ray gives the same point
     let v = p
         .specimen("HDC-003")
@@ -921,7 +965,8 @@ fn pick_places_a_landmark_on_the_surface_and_records_the_ray() {
             "p.json",
             "HDC-003",
             "symphysis_ventral",
-            "--voxel",
+            "--frame",
+            "voxel",
             "--from",
             &xyz(v),
             "--toward",

@@ -67,7 +67,7 @@ fn run_store(a: &ConvertArgs) -> Result<()> {
         );
     }
     let codec = Codec::parse(&a.codec).map_err(|e| anyhow::anyhow!("--codec {}: {e}", a.codec))?;
-    let voxel_size_mm = super::project::voxel_size(a.scan.voxel_size.as_deref())?;
+    let voxel_size_mm = a.scan.voxel_size.map(|v| v.0);
     let mut reader = open_scan_slices(&a.scan.scan, voxel_size_mm)?;
     let fingerprint = sutura_core::landmarks::fingerprint::file_facts(&a.scan.scan)?;
     let options = ConvertOptions {

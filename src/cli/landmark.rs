@@ -19,12 +19,14 @@ use anyhow::{Context, Result, bail};
 use clap::{Args, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
-use super::project::{Session, TimeArgs, load};
+use super::project::{TimeArgs, load, open};
 use nalgebra::Vector3;
-use sutura_core::geometry::{WorldPoint, parse_length_mm};
+use sutura_core::geometry::{LengthMm, Triple, WorldPoint};
 use sutura_core::io::Progress;
-use sutura_core::landmarks::pick;
-use sutura_core::landmarks::project::{Edit, LandmarkState, Method, PickRecord, Project, Trial};
+use sutura_core::landmarks::project::{
+    Edit, LandmarkState, Method, PickRecord, Project, Session, Trial,
+};
+use sutura_core::landmarks::{mirror, pick};
 
 #[derive(Debug, Subcommand)]
 pub enum LandmarkCommand {
@@ -35,8 +37,12 @@ pub enum LandmarkCommand {
     /// Forget a landmark (back to not digitised).
     Clear(TargetArgs),
     /// Place a landmark where a ray first meets the specimen's surface (sub-voxel, at the
-    /// ISO-50 threshold unless given), as a click in a 3D view does.
+    /// scan's iso-value: ISO-50 unless given), as a click in a 3D view does.
     Pick(PickArgs),
+    /// Estimate a landmark from its bilateral partner, mirrored across the specimen's
+    /// midsagittal plane (fitted by least squares to the trial's placed midline landmarks and
+    /// pair midpoints); its state becomes `estimated`.
+    Mirror(TargetArgs),
     /// Set or remove (empty text) the note of a digitised landmark.
     Note(NoteArgs),
     /// List the landmarks of a project, a specimen or a trial, with voxel coordinates.
@@ -75,10 +81,20 @@ pub struct TargetArgs {
 pub struct PositionArgs {
     /// World position in millimetres, `X,Y,Z`.
     #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
-    pub world_mm: Option<String>,
+    pub world_mm: Option<Triple>,
     /// Continuous voxel coordinates `I,J,K` of the specimen's scan (voxel centres at integers).
     #[arg(long, value_name = "I,J,K", allow_hyphen_values = true)]
-    pub voxel: Option<String>,
+    pub voxel: Option<Triple>,
+}
+
+/// The frame points are typed in.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, ValueEnum)]
+pub enum Frame {
+    /// World millimetres (the frame every position is stored in).
+    #[default]
+    World,
+    /// Continuous voxel coordinates of the specimen's scan (voxel centres at integers).
+    Voxel,
 }
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -124,10 +140,10 @@ pub struct SetArgs {
 pub struct PickArgs {
     #[command(flatten)]
     pub target: TargetArgs,
-    /// Start of the ray, world mm `X,Y,Z` (with --voxel: voxel coordinates). Start it outside
-    /// the material: the first entry into material is taken.
+    /// Start of the ray, `X,Y,Z` in the --frame. Start it outside the material: the first
+    /// entry into material is taken.
     #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
-    pub from: String,
+    pub from: Triple,
     /// A point the ray passes through (the ray runs from --from towards it).
     #[arg(
         long,
@@ -136,20 +152,21 @@ pub struct PickArgs {
         conflicts_with = "direction",
         required_unless_present = "direction"
     )]
-    pub toward: Option<String>,
-    /// The ray's direction `DX,DY,DZ` in world (or voxel) axes; need not be unit length.
+    pub toward: Option<Triple>,
+    /// The ray's direction `DX,DY,DZ` along the --frame's axes; need not be unit length.
     #[arg(long, value_name = "DX,DY,DZ", allow_hyphen_values = true)]
-    pub direction: Option<String>,
-    /// --from, --toward and --direction are voxel coordinates of the specimen's scan.
-    #[arg(long)]
-    pub voxel: bool,
+    pub direction: Option<Triple>,
+    /// The frame of --from, --toward and --direction.
+    #[arg(long, value_enum, default_value = "world")]
+    pub frame: Frame,
     /// The iso-value separating material from background, in the scan's grey values
-    /// (default: ISO-50, halfway between the histogram's background and material peaks).
-    #[arg(long)]
-    pub threshold: Option<f64>,
+    /// (default: the scan's ISO-50, halfway between the histogram's background and material
+    /// peaks; the same value the workstation's 3D view and snapping use).
+    #[arg(long, value_name = "GREY")]
+    pub iso_value: Option<f64>,
     /// How far along the ray to search (default: through the whole scan), e.g. 2mm.
     #[arg(long, value_name = "LEN")]
-    pub max_distance: Option<String>,
+    pub max_distance: Option<LengthMm>,
     /// Move the crossing to the steepest point of the edge along the surface normal.
     #[arg(long)]
     pub refine: bool,
@@ -212,24 +229,11 @@ pub struct TraceArgs {
     /// as `X,Y,Z;X,Y,Z;…` (empty for a straight segment). Give it once per segment, in order.
     #[arg(long = "segment", value_name = "POINTS", allow_hyphen_values = true)]
     segments: Vec<String>,
-    /// The points are voxel coordinates `I,J,K` instead of world mm.
-    #[arg(long)]
-    voxel: bool,
+    /// The frame of the points.
+    #[arg(long, value_enum, default_value = "world")]
+    frame: Frame,
     #[command(flatten)]
     time: TimeArgs,
-}
-
-/// Parses `A,B,C` into three finite numbers.
-pub fn triple(text: &str, what: &str) -> Result<[f64; 3]> {
-    let v: Vec<f64> = text
-        .split(',')
-        .map(|s| s.trim().parse::<f64>().ok().filter(|x| x.is_finite()))
-        .collect::<Option<_>>()
-        .with_context(|| format!("{what} '{text}': not three numbers"))?;
-    match v.as_slice() {
-        [a, b, c] => Ok([*a, *b, *c]),
-        _ => bail!("{what} '{text}': give three numbers separated by commas"),
-    }
 }
 
 /// The trial to work on: `--trial`, else the last one; a specimen without trials gets trial
@@ -245,7 +249,7 @@ pub fn resolve_trial(
     let s = session
         .project
         .specimen(specimen)
-        .with_context(|| format!("no specimen '{specimen}' in {}", session.path.display()))?;
+        .with_context(|| format!("no specimen '{specimen}' in {}", session.path().display()))?;
     if let Some(t) = trial {
         if s.trial(t).is_none() {
             bail!(
@@ -265,13 +269,14 @@ pub fn resolve_trial(
         .map(str::to_owned)
         .or_else(|| std::env::var("USER").ok())
         .unwrap_or_else(|| "unknown".to_owned());
-    session.apply(Edit::AddTrial {
+    let id = s.next_trial_id();
+    session.edit(Edit::AddTrial {
         specimen: specimen.to_owned(),
-        trial: Box::new(Trial::new("1", &operator, time.timestamp()?)),
+        trial: Box::new(Trial::new(&id, &operator, time.timestamp()?)),
         index: None,
     })?;
-    eprintln!("{specimen}: started trial 1 by {operator}");
-    Ok("1".to_owned())
+    eprintln!("{specimen}: started trial {id} by {operator}");
+    Ok(id)
 }
 
 /// The trial to work on without creating one: `--trial`, else the specimen's last trial.
@@ -300,9 +305,9 @@ pub fn position(project: &Project, specimen: &str, p: &PositionArgs) -> Result<[
     let s = project
         .specimen(specimen)
         .with_context(|| format!("no specimen '{specimen}'"))?;
-    let world = match (&p.world_mm, &p.voxel) {
-        (Some(w), _) => triple(w, "--world-mm")?,
-        (None, Some(v)) => s.scan.world_from_voxel_point(triple(v, "--voxel")?),
+    let world = match (p.world_mm, p.voxel) {
+        (Some(w), _) => w.0,
+        (None, Some(v)) => s.scan.world_from_voxel_point(v.0),
         (None, None) => bail!("give --world-mm X,Y,Z or --voxel I,J,K"),
     };
     if !s.scan.contains(world) {
@@ -325,6 +330,7 @@ pub fn run_landmark(c: &LandmarkCommand) -> Result<()> {
         LandmarkCommand::Missing(a) => run_missing(a),
         LandmarkCommand::Clear(a) => run_clear(a),
         LandmarkCommand::Pick(a) => run_pick(a),
+        LandmarkCommand::Mirror(a) => run_mirror(a),
         LandmarkCommand::Note(a) => run_note(a),
         LandmarkCommand::List(a) => run_list(a),
     }
@@ -345,7 +351,7 @@ pub fn place(
     method: Method,
     note: Option<&str>,
 ) -> Result<[f64; 3]> {
-    let mut session = Session::open(&t.project)?;
+    let mut session = open(&t.project)?;
     let (p, pick) = world(&session.project)?;
     let trial = resolve_trial(
         &mut session,
@@ -355,7 +361,7 @@ pub fn place(
         true,
         time,
     )?;
-    session.apply(Edit::SetLandmark {
+    session.edit(Edit::SetLandmark {
         specimen: t.specimen.clone(),
         trial: trial.clone(),
         landmark: t.landmark.clone(),
@@ -365,7 +371,7 @@ pub fn place(
         at: time.timestamp()?,
     })?;
     if let Some(n) = note {
-        session.apply(Edit::SetNote {
+        session.edit(Edit::SetNote {
             specimen: t.specimen.clone(),
             trial: trial.clone(),
             landmark: t.landmark.clone(),
@@ -417,37 +423,37 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     if let Some(m) = mismatch {
         bail!("{m}; refusing to pick on it");
     }
-    let voxel_point = |p: [f64; 3]| scan.world_from_voxel_point(p);
-    let from = triple(&a.from, "--from")?;
-    let origin = if a.voxel { voxel_point(from) } else { from };
-    let direction = match (&a.toward, &a.direction) {
+    let voxel = a.frame == Frame::Voxel;
+    let point = |p: Triple| {
+        if voxel {
+            scan.world_from_voxel_point(p.0)
+        } else {
+            p.0
+        }
+    };
+    let origin = point(a.from);
+    let direction = match (a.toward, a.direction) {
         (Some(to), _) => {
-            let to = triple(to, "--toward")?;
-            let to = if a.voxel { voxel_point(to) } else { to };
+            let to = point(to);
             [to[0] - origin[0], to[1] - origin[1], to[2] - origin[2]]
         }
         (None, Some(d)) => {
-            let d = triple(d, "--direction")?;
-            if a.voxel {
-                let v = scan.world_from_voxel.apply_vector(Vector3::from(d));
+            if voxel {
+                let v = scan.world_from_voxel.apply_vector(Vector3::from(d.0));
                 [v.x, v.y, v.z]
             } else {
-                d
+                d.0
             }
         }
         (None, None) => bail!("give --toward X,Y,Z or --direction DX,DY,DZ"),
     };
-    let threshold = match a.threshold {
-        Some(v) => v,
-        None => pick::iso50_threshold(&volume)?,
-    };
-    let max_distance_mm = match &a.max_distance {
-        Some(l) => parse_length_mm(l).with_context(|| format!("--max-distance {l}"))?,
-        None => f64::INFINITY,
-    };
+    let iso = a
+        .iso_value
+        .map_or_else(|| pick::default_iso_value(&volume), pick::IsoValue::given);
+    let threshold = iso.value;
     let options = pick::PickOptions {
         threshold,
-        max_distance_mm,
+        max_distance_mm: a.max_distance.map_or(f64::INFINITY, |l| l.0),
         refine_to_edge: a.refine,
     };
     let hit = pick::pick_along_ray(
@@ -458,12 +464,11 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     )?
     .with_context(|| {
         format!(
-            "{}: the ray from {origin:?} mm meets no surface at threshold {threshold} \
-             within the scan{}",
+            "{}: the ray from {origin:?} mm meets no surface at the {} within the scan{}",
             t.specimen,
+            iso.describe(),
             a.max_distance
-                .as_ref()
-                .map(|l| format!(" and {l}"))
+                .map(|l| format!(" and {}", sutura_core::geometry::format_length_mm(l.0)))
                 .unwrap_or_default()
         )
     })?;
@@ -480,8 +485,9 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     let unit = Vector3::from(direction).normalize();
     let p = hit.point.0;
     eprintln!(
-        "picked at {:.1} µm along the ray, threshold {threshold}{}",
+        "picked at {:.1} µm along the ray, {}{}",
         hit.distance_mm * 1e3,
+        iso.describe(),
         if hit.refined {
             ", refined to the edge"
         } else {
@@ -499,9 +505,51 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
     ))
 }
 
+fn run_mirror(t: &TargetArgs) -> Result<()> {
+    let mut session = open(&t.project)?;
+    let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
+    let s = session
+        .project
+        .specimen(&t.specimen)
+        .with_context(|| format!("no specimen '{}'", t.specimen))?;
+    let tr = s
+        .trial(&trial)
+        .with_context(|| format!("no trial '{trial}'"))?;
+    let e = mirror::estimate_from_partner(session.project.scheme(), tr, &t.landmark)
+        .with_context(|| format!("{} trial {trial}: {}", t.specimen, t.landmark))?;
+    let note = e.describe();
+    session.edit_all(
+        vec![
+            Edit::SetLandmark {
+                specimen: t.specimen.clone(),
+                trial: trial.clone(),
+                landmark: t.landmark.clone(),
+                position_mm: e.position_mm,
+                method: Method::Estimated,
+                pick: None,
+                at: sutura_core::landmarks::project::Timestamp::now(),
+            },
+            Edit::SetNote {
+                specimen: t.specimen.clone(),
+                trial: trial.clone(),
+                landmark: t.landmark.clone(),
+                note: Some(note.clone()),
+            },
+        ],
+        format!("estimate {} from its partner", t.landmark),
+    )?;
+    session.save()?;
+    let p = e.position_mm;
+    eprintln!(
+        "{} trial {trial}: {} at [{:.4}, {:.4}, {:.4}] mm, {note}",
+        t.specimen, t.landmark, p[0], p[1], p[2]
+    );
+    Ok(())
+}
+
 fn run_missing(a: &MissingArgs) -> Result<()> {
     let t = &a.target;
-    let mut session = Session::open(&t.project)?;
+    let mut session = open(&t.project)?;
     let trial = resolve_trial(
         &mut session,
         &t.specimen,
@@ -510,50 +558,50 @@ fn run_missing(a: &MissingArgs) -> Result<()> {
         true,
         &a.time,
     )?;
-    session.apply(Edit::MarkMissing {
+    session.edit(Edit::MarkMissing {
         specimen: t.specimen.clone(),
         trial: trial.clone(),
         landmark: t.landmark.clone(),
         at: a.time.timestamp()?,
     })?;
     if let Some(n) = &a.note {
-        session.apply(Edit::SetNote {
+        session.edit(Edit::SetNote {
             specimen: t.specimen.clone(),
             trial,
             landmark: t.landmark.clone(),
             note: Some(n.clone()),
         })?;
     }
-    session.save()
+    Ok(session.save()?)
 }
 
 fn run_clear(t: &TargetArgs) -> Result<()> {
-    let mut session = Session::open(&t.project)?;
+    let mut session = open(&t.project)?;
     let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
-    session.apply(Edit::ClearLandmark {
+    session.edit(Edit::ClearLandmark {
         specimen: t.specimen.clone(),
         trial,
         landmark: t.landmark.clone(),
     })?;
-    session.save()
+    Ok(session.save()?)
 }
 
 fn run_note(a: &NoteArgs) -> Result<()> {
     let t = &a.target;
-    let mut session = Session::open(&t.project)?;
+    let mut session = open(&t.project)?;
     let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
-    session.apply(Edit::SetNote {
+    session.edit(Edit::SetNote {
         specimen: t.specimen.clone(),
         trial,
         landmark: t.landmark.clone(),
         note: Some(a.text.clone()),
     })?;
-    session.save()
+    Ok(session.save()?)
 }
 
 fn run_trace(a: &TraceArgs) -> Result<()> {
     let t = &a.target;
-    let mut session = Session::open(&t.project)?;
+    let mut session = open(&t.project)?;
     let s = session
         .project
         .specimen(&t.specimen)
@@ -562,8 +610,11 @@ fn run_trace(a: &TraceArgs) -> Result<()> {
     for seg in &a.segments {
         let mut pts = Vec::new();
         for p in seg.split(';').map(str::trim).filter(|p| !p.is_empty()) {
-            let q = triple(p, "--segment point")?;
-            let w = if a.voxel {
+            let q = p
+                .parse::<Triple>()
+                .with_context(|| format!("--segment point '{p}'"))?
+                .0;
+            let w = if a.frame == Frame::Voxel {
                 s.scan.world_from_voxel_point(q)
             } else {
                 q
@@ -583,25 +634,25 @@ fn run_trace(a: &TraceArgs) -> Result<()> {
         true,
         &a.time,
     )?;
-    session.apply(Edit::SetCurve {
+    session.edit(Edit::SetCurve {
         specimen: t.specimen.clone(),
         trial,
         curve: t.curve.clone(),
         traced_mm: traced,
         at: a.time.timestamp()?,
     })?;
-    session.save()
+    Ok(session.save()?)
 }
 
 fn run_curve_clear(t: &CurveTarget) -> Result<()> {
-    let mut session = Session::open(&t.project)?;
+    let mut session = open(&t.project)?;
     let trial = existing_trial(&mut session, &t.specimen, t.trial.as_deref())?;
-    session.apply(Edit::ClearCurve {
+    session.edit(Edit::ClearCurve {
         specimen: t.specimen.clone(),
         trial,
         curve: t.curve.clone(),
     })?;
-    session.save()
+    Ok(session.save()?)
 }
 
 fn run_list(a: &ListArgs) -> Result<()> {

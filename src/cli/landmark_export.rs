@@ -10,7 +10,7 @@ use clap::{Args, ValueEnum};
 use std::path::PathBuf;
 
 use super::project::load;
-use sutura_core::landmarks::project::points::flatten;
+use sutura_core::analysis::{ExportKind, ExportSource, write_export};
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
 pub enum ExportFormat {
@@ -39,9 +39,10 @@ pub struct ExportArgs {
     #[arg(short, long)]
     output: PathBuf,
 
-    /// The group label written in the `group` column of the CSVs.
-    #[arg(long, default_value = "group")]
-    group_key: String,
+    /// The group key whose values fill the `group` column of the CSVs (default: the
+    /// project's first group key, if any).
+    #[arg(long, value_name = "KEY")]
+    group_by: Option<String>,
 
     /// Also export each curve's semilandmarks (named CURVE_s01, CURVE_s02, …).
     #[arg(long)]
@@ -50,31 +51,35 @@ pub struct ExportArgs {
 
 pub fn run(a: &ExportArgs) -> Result<()> {
     let project = load(&a.project)?;
-    let e = flatten(&project, Some(&a.group_key), a.semilandmarks);
-    if e.not_digitised > 0 {
+    let group_by = a.group_by.clone().or_else(|| {
+        sutura_core::measure::table::group_keys(&project)
+            .into_iter()
+            .next()
+    });
+    let kind = match a.format {
+        ExportFormat::Long => ExportKind::LongCsv,
+        ExportFormat::Wide => ExportKind::WideCsv,
+        ExportFormat::Json => ExportKind::Json,
+        ExportFormat::Npy => ExportKind::Npy,
+        ExportFormat::Ply => ExportKind::Ply,
+    };
+    let out = write_export(
+        kind,
+        &a.output,
+        &ExportSource {
+            project: &project,
+            project_file: &a.project,
+            group_by: group_by.as_deref(),
+            semilandmarks: a.semilandmarks,
+            analysis: None,
+        },
+    )?;
+    if out.not_digitised > 0 {
         eprintln!(
             "note: {} landmarks are not digitised yet; they are written as missing",
-            e.not_digitised
+            out.not_digitised
         );
     }
-    match a.format {
-        ExportFormat::Long => e.table.write_long_csv(&a.output)?,
-        ExportFormat::Wide => e.table.write_wide_csv(&a.output)?,
-        ExportFormat::Json => e.write_json(&a.output, &project.scheme().id)?,
-        ExportFormat::Npy => {
-            let index = e.write_npy(&a.output)?;
-            eprintln!("wrote {}", index.display());
-        }
-        ExportFormat::Ply => {
-            let files = e.write_ply_sets(&a.output)?;
-            eprintln!("wrote {} PLY files", files.len());
-        }
-    }
-    eprintln!(
-        "wrote {} ({} observations, {} points each)",
-        a.output.display(),
-        e.table.observations.len(),
-        e.table.landmarks.len()
-    );
+    eprintln!("{}", out.describe());
     Ok(())
 }

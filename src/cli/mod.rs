@@ -20,6 +20,7 @@ use clap::{Args, Parser, Subcommand};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
+use sutura_core::geometry::VoxelSizeMm;
 use sutura_core::io::Progress;
 use sutura_core::store::{Store, StoreOptions};
 use sutura_core::volume::{Volume, VolumeSource};
@@ -89,7 +90,7 @@ pub struct ScanArgs {
     /// one length for cubic voxels (`12um`), or three for x,y,z (`12um,12um,30um`).
     /// Units: m, mm, um (µm), nm. Recorded in every output.
     #[arg(long, value_name = "LEN[,LEN,LEN]")]
-    pub voxel_size: Option<String>,
+    pub voxel_size: Option<VoxelSizeMm>,
 
     /// Hide the progress bar.
     #[arg(long)]
@@ -105,7 +106,7 @@ impl ScanArgs {
     /// where it lies (chunks read as needed, within `--cache-mib`); any other scan is loaded.
     pub fn open_source(&self) -> Result<Box<dyn VolumeSource>> {
         if sutura_core::store::is_store(&self.scan) {
-            let voxel_size_mm = project::voxel_size(self.voxel_size.as_deref())?;
+            let voxel_size_mm = self.voxel_size.map(|v| v.0);
             let options = StoreOptions {
                 cache_bytes: self.cache_mib << 20,
                 max_block_bytes: (self.cache_mib << 20).max(64 << 20),
@@ -118,7 +119,7 @@ impl ScanArgs {
 
     /// Opens the scan with a progress bar on stderr.
     pub fn open(&self) -> Result<Volume> {
-        let voxel_size_mm = project::voxel_size(self.voxel_size.as_deref())?;
+        let voxel_size_mm = self.voxel_size.map(|v| v.0);
         let bar = (!self.quiet).then(|| {
             let b = indicatif::ProgressBar::with_draw_target(
                 None,
@@ -149,7 +150,10 @@ impl ScanArgs {
 /// Parses the command line, runs it, and maps the outcome to an exit code.
 #[must_use]
 pub fn main() -> ExitCode {
-    let cli = Cli::parse();
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => return usage_error(&e),
+    };
     match run(cli) {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
@@ -157,6 +161,29 @@ pub fn main() -> ExitCode {
             ExitCode::FAILURE
         }
     }
+}
+
+/// A command line clap refuses: help and version print as clap writes them; a mistake is one
+/// line on stderr (clap's first line, without its own prefix) and exit code 2.
+fn usage_error(e: &clap::Error) -> ExitCode {
+    use clap::error::ErrorKind;
+    if matches!(
+        e.kind(),
+        ErrorKind::DisplayHelp
+            | ErrorKind::DisplayVersion
+            | ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand
+    ) {
+        let _ = e.print();
+        return ExitCode::SUCCESS;
+    }
+    let text = e.render().to_string();
+    let first = text
+        .lines()
+        .find(|l| !l.trim().is_empty())
+        .unwrap_or("invalid command line");
+    let first = first.strip_prefix("error: ").unwrap_or(first);
+    eprintln!("sutura: {first} (see sutura --help)");
+    ExitCode::from(2)
 }
 
 /// Runs a parsed command line.

@@ -15,12 +15,12 @@ use anyhow::{Context, Result, bail};
 use clap::{Args, Subcommand};
 use std::path::{Path, PathBuf};
 
-use sutura_core::geometry::parse_length_mm;
+use sutura_core::geometry::VoxelSizeMm;
 use sutura_core::io::{self, Progress};
-use sutura_core::landmarks::project::{
-    Edit, Project, ProjectLock, ScanRecord, Specimen, Timestamp, Trial,
+use sutura_core::landmarks::project::create::{
+    NewSpecimen, parse_group, project_from_scheme_file, specimen_from_scan,
 };
-use sutura_core::landmarks::scheme::{Scheme, is_valid_id};
+use sutura_core::landmarks::project::{Edit, Project, ProjectLock, Session, Timestamp, Trial};
 
 #[derive(Debug, Subcommand)]
 pub enum ProjectCommand {
@@ -33,8 +33,8 @@ pub enum ProjectCommand {
     Check(CheckArgs),
     /// Show each specimen's scan and how far each trial has got.
     Status(StatusArgs),
-    /// Set or remove a group label of a specimen (locality, horizon, …).
-    Label(LabelArgs),
+    /// Set or remove a specimen's group under a key (e.g. locality=Harrowdene Clay).
+    Group(GroupArgs),
 }
 
 #[derive(Debug, Subcommand)]
@@ -78,11 +78,11 @@ pub struct NewArgs {
     /// Voxel size for the TIFF scans found (NIfTI files carry their own): one length (`12um`)
     /// or three (`12um,12um,30um`).
     #[arg(long, value_name = "LEN[,LEN,LEN]")]
-    voxel_size: Option<String>,
+    voxel_size: Option<VoxelSizeMm>,
 
-    /// A group label given to every specimen added, as KEY=VALUE (repeatable).
-    #[arg(long = "label", value_name = "KEY=VALUE")]
-    labels: Vec<String>,
+    /// A group given to every specimen added, as KEY=VALUE (repeatable).
+    #[arg(long = "group", value_name = "KEY=VALUE", value_parser = group_arg)]
+    groups: Vec<(String, Option<String>)>,
 
     /// Replace an existing project file (its previous version is kept as NAME.bak).
     #[arg(long)]
@@ -104,11 +104,11 @@ pub struct AddArgs {
     /// Voxel size (required for TIFF scans; overrides a NIfTI file's own): `12um` or
     /// `12um,12um,30um`.
     #[arg(long, value_name = "LEN[,LEN,LEN]")]
-    voxel_size: Option<String>,
+    voxel_size: Option<VoxelSizeMm>,
 
-    /// A group label, as KEY=VALUE (repeatable).
-    #[arg(long = "label", value_name = "KEY=VALUE")]
-    labels: Vec<String>,
+    /// A group, as KEY=VALUE (repeatable).
+    #[arg(long = "group", value_name = "KEY=VALUE", value_parser = group_arg)]
+    groups: Vec<(String, Option<String>)>,
 }
 
 #[derive(Debug, Args)]
@@ -128,14 +128,20 @@ pub struct StatusArgs {
 }
 
 #[derive(Debug, Args)]
-pub struct LabelArgs {
+pub struct GroupArgs {
     /// The project file.
     project: PathBuf,
-    /// The specimen.
-    specimen: String,
+    /// The specimens (one or more).
+    #[arg(required = true, num_args = 1..)]
+    specimens: Vec<String>,
     /// KEY=VALUE to set, or KEY= to remove.
-    #[arg(value_name = "KEY=VALUE")]
-    label: String,
+    #[arg(long = "set", value_name = "KEY=VALUE", value_parser = group_arg, required = true)]
+    groups: Vec<(String, Option<String>)>,
+}
+
+/// `KEY=VALUE` (or `KEY=` to remove), read by the library's rule.
+fn group_arg(text: &str) -> Result<(String, Option<String>), String> {
+    parse_group(text).map_err(|e| e.to_string())
 }
 
 #[derive(Debug, Args)]
@@ -147,41 +153,11 @@ pub struct TrialNewArgs {
     /// Who digitises this trial.
     #[arg(long)]
     operator: String,
-    /// Trial id (default: the next free number).
+    /// Trial id (default: one more than the specimen's largest trial number).
     #[arg(long)]
     id: Option<String>,
     #[command(flatten)]
     time: TimeArgs,
-}
-
-/// A project opened for changing: locked, loaded, saved once at the end.
-pub struct Session {
-    pub path: PathBuf,
-    pub project: Project,
-    _lock: ProjectLock,
-}
-
-impl Session {
-    pub fn open(path: &Path) -> Result<Self> {
-        let lock = ProjectLock::acquire(path)?;
-        let project = Project::load(path)?;
-        Ok(Self {
-            path: path.to_owned(),
-            project,
-            _lock: lock,
-        })
-    }
-
-    pub fn apply(&mut self, edit: Edit) -> Result<()> {
-        let what = edit.describe();
-        edit.apply(&mut self.project).with_context(|| what)?;
-        Ok(())
-    }
-
-    pub fn save(&self) -> Result<()> {
-        self.project.save(&self.path)?;
-        Ok(())
-    }
 }
 
 /// Reads a project for looking only.
@@ -189,116 +165,37 @@ pub fn load(path: &Path) -> Result<Project> {
     Ok(Project::load(path)?)
 }
 
-/// Parses `--voxel-size`.
-pub fn voxel_size(text: Option<&str>) -> Result<Option<[f64; 3]>> {
-    let Some(text) = text else { return Ok(None) };
-    let parts: Vec<f64> = text
-        .split(',')
-        .map(parse_length_mm)
-        .collect::<Result<_, _>>()
-        .with_context(|| format!("--voxel-size {text}"))?;
-    match parts.as_slice() {
-        [s] => Ok(Some([*s; 3])),
-        [x, y, z] => Ok(Some([*x, *y, *z])),
-        _ => bail!("--voxel-size {text}: give one length or three (x,y,z)"),
-    }
+/// Opens a project for changing: locked (refused if another program holds it), loaded; saved
+/// once at the end with `save`.
+pub fn open(path: &Path) -> Result<Session> {
+    Ok(Session::open_exclusive(path)?)
 }
 
-fn labels(items: &[String]) -> Result<Vec<(String, Option<String>)>> {
-    items
-        .iter()
-        .map(|kv| {
-            let (k, v) = kv
-                .split_once('=')
-                .with_context(|| format!("label '{kv}': write KEY=VALUE"))?;
-            let k = k.trim();
-            if !is_valid_id(k) {
-                bail!("label '{kv}': the key must be 1-64 ASCII letters, digits, _ . -");
-            }
-            let v = v.trim();
-            Ok((k.to_owned(), (!v.is_empty()).then(|| v.to_owned())))
-        })
-        .collect()
-}
-
-/// The specimen id a scan gets by default: its file name without the scan extension.
-#[must_use]
-pub fn id_from_scan(scan: &Path) -> String {
-    let name = scan
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_default();
-    let lower = name.to_lowercase();
-    for ext in [".nii.gz", ".nii", ".hdr", ".tiff", ".tif"] {
-        if lower.ends_with(ext) {
-            return name[..name.len() - ext.len()].to_owned();
-        }
-    }
-    name.strip_suffix("_slices").unwrap_or(&name).to_owned()
-}
-
-/// The scans in a folder, in name order: NIfTI and TIFF files and folders holding TIFF slices.
-fn scans_in(dir: &Path) -> Result<Vec<PathBuf>> {
-    let mut out = Vec::new();
-    for entry in std::fs::read_dir(dir).with_context(|| dir.display().to_string())? {
-        let path = entry.with_context(|| dir.display().to_string())?.path();
-        let name = path
-            .file_name()
-            .map(|n| n.to_string_lossy().to_lowercase())
-            .unwrap_or_default();
-        if name.starts_with('.') {
-            continue;
-        }
-        let is_scan = if path.is_dir() {
-            io::tiff::list_slices(&path, io::Limits::default().max_slices).is_ok()
-        } else {
-            [".nii", ".nii.gz", ".hdr", ".tif", ".tiff"]
-                .iter()
-                .any(|e| name.ends_with(e))
-        };
-        if is_scan {
-            out.push(path);
-        }
-    }
-    out.sort_by(|a, b| io::tiff::natural_cmp(&a.to_string_lossy(), &b.to_string_lossy()));
-    Ok(out)
-}
-
-/// Opens a scan, records it and builds the specimen.
+/// Opens a scan, records it and builds the specimen; says what was added.
 fn new_specimen(
     project_file: &Path,
-    scan: &Path,
-    id: String,
-    voxel_size_mm: Option<[f64; 3]>,
-    labels: &[(String, Option<String>)],
-) -> Result<Specimen> {
-    if !is_valid_id(&id) {
-        bail!(
-            "{}: specimen id '{id}' is not valid (1-64 ASCII letters, digits, _ . -): give one with --id",
-            scan.display()
-        );
-    }
-    let (scan_record, volume) =
-        ScanRecord::create(project_file, scan, voxel_size_mm, &Progress::none())?;
+    new: &NewSpecimen,
+) -> Result<sutura_core::landmarks::project::Specimen> {
+    let (s, volume) = specimen_from_scan(project_file, new, &Progress::none())?;
     let [nx, ny, nz] = volume.dims();
-    let [sx, sy, sz] = scan_record.voxel_size_mm;
+    let [sx, sy, sz] = s.scan.voxel_size_mm;
     eprintln!(
-        "added {id}: {} ({nx} x {ny} x {nz}, voxel {sx} x {sy} x {sz} mm, {})",
-        scan_record.path,
-        match scan_record.voxel_size_source {
+        "added {}: {} ({nx} x {ny} x {nz}, voxel {sx} x {sy} x {sz} mm, {})",
+        s.id,
+        s.scan.path,
+        match s.scan.voxel_size_source {
             sutura_core::landmarks::project::VoxelSizeSource::File => "from the file",
             sutura_core::landmarks::project::VoxelSizeSource::User => "given",
         }
     );
-    Ok(Specimen {
-        id,
-        groups: labels
-            .iter()
-            .filter_map(|(k, v)| v.clone().map(|v| (k.clone(), v)))
-            .collect(),
-        scan: scan_record,
-        trials: Vec::new(),
-    })
+    Ok(s)
+}
+
+fn groups_map(groups: &[(String, Option<String>)]) -> std::collections::BTreeMap<String, String> {
+    groups
+        .iter()
+        .filter_map(|(k, v)| v.clone().map(|v| (k.clone(), v)))
+        .collect()
 }
 
 pub fn run_project(c: &ProjectCommand) -> Result<()> {
@@ -307,7 +204,7 @@ pub fn run_project(c: &ProjectCommand) -> Result<()> {
         ProjectCommand::Add(a) => run_add(a),
         ProjectCommand::Check(a) => run_check(a),
         ProjectCommand::Status(a) => run_status(a),
-        ProjectCommand::Label(a) => run_label(a),
+        ProjectCommand::Group(a) => run_group(a),
     }
 }
 
@@ -328,17 +225,9 @@ fn run_new(a: &NewArgs) -> Result<()> {
         std::fs::create_dir_all(dir).with_context(|| dir.display().to_string())?;
     }
     let _lock = ProjectLock::acquire(&a.project)?;
-    let (_, text) = Scheme::load(&a.scheme)?;
-    let origin = sutura_core::landmarks::project::relative_path(
-        &sutura_core::landmarks::project::project_dir(&a.project),
-        &a.scheme,
-    )
-    .unwrap_or_else(|_| a.scheme.display().to_string());
-    let mut project = Project::new(text, origin)?;
-    let labels = labels(&a.labels)?;
-    let voxel_size = voxel_size(a.voxel_size.as_deref())?;
+    let mut project = project_from_scheme_file(&a.scheme, &a.project)?;
     if let Some(dir) = &a.scans {
-        let scans = scans_in(dir)?;
+        let scans = io::names::scans_in(dir)?;
         if scans.is_empty() {
             bail!(
                 "{}: no scans found (NIfTI, TIFF, or folders of TIFF slices)",
@@ -347,8 +236,16 @@ fn run_new(a: &NewArgs) -> Result<()> {
         }
         for scan in scans {
             let is_nifti = io::detect(&scan)? == io::Format::Nifti;
-            let size = if is_nifti { None } else { voxel_size };
-            let s = new_specimen(&a.project, &scan, id_from_scan(&scan), size, &labels)
+            let new = NewSpecimen {
+                voxel_size_mm: if is_nifti {
+                    None
+                } else {
+                    a.voxel_size.map(|v| v.0)
+                },
+                groups: groups_map(&a.groups),
+                ..NewSpecimen::for_scan(&scan)
+            };
+            let s = new_specimen(&a.project, &new)
                 .with_context(|| format!("adding {}", scan.display()))?;
             Edit::AddSpecimen {
                 specimen: Box::new(s),
@@ -371,48 +268,55 @@ fn run_new(a: &NewArgs) -> Result<()> {
 }
 
 fn run_add(a: &AddArgs) -> Result<()> {
-    let mut session = Session::open(&a.project)?;
-    let id = a.id.clone().unwrap_or_else(|| id_from_scan(&a.scan));
-    if session.project.specimen(&id).is_some() {
+    let mut session = open(&a.project)?;
+    let new = NewSpecimen {
+        voxel_size_mm: a.voxel_size.map(|v| v.0),
+        groups: groups_map(&a.groups),
+        ..NewSpecimen::for_scan(&a.scan)
+    };
+    let new = NewSpecimen {
+        id: a.id.clone().unwrap_or(new.id.clone()),
+        ..new
+    };
+    if session.project.specimen(&new.id).is_some() {
         bail!(
-            "{}: specimen '{id}' already exists (give another with --id)",
-            a.project.display()
+            "{}: specimen '{}' already exists (give another with --id)",
+            a.project.display(),
+            new.id
         );
     }
-    let s = new_specimen(
-        &a.project,
-        &a.scan,
-        id,
-        voxel_size(a.voxel_size.as_deref())?,
-        &labels(&a.labels)?,
-    )?;
-    session.apply(Edit::AddSpecimen {
+    let s = new_specimen(&a.project, &new)?;
+    session.edit(Edit::AddSpecimen {
         specimen: Box::new(s),
         index: None,
     })?;
-    session.save()
+    Ok(session.save()?)
 }
 
-fn run_label(a: &LabelArgs) -> Result<()> {
-    let mut session = Session::open(&a.project)?;
-    for (key, value) in labels(std::slice::from_ref(&a.label))? {
-        session.apply(Edit::SetGroup {
-            specimen: a.specimen.clone(),
-            key,
-            value,
-        })?;
+fn run_group(a: &GroupArgs) -> Result<()> {
+    let mut session = open(&a.project)?;
+    let mut edits = Vec::new();
+    for specimen in &a.specimens {
+        for (key, value) in &a.groups {
+            edits.push(Edit::SetGroup {
+                specimen: specimen.clone(),
+                key: key.clone(),
+                value: value.clone(),
+            });
+        }
     }
-    session.save()
+    session.edit_all(edits, "set groups".into())?;
+    Ok(session.save()?)
 }
 
 fn run_trial_new(a: &TrialNewArgs) -> Result<()> {
-    let mut session = Session::open(&a.project)?;
+    let mut session = open(&a.project)?;
     let s = session
         .project
         .specimen(&a.specimen)
         .with_context(|| format!("no specimen '{}' in {}", a.specimen, a.project.display()))?;
-    let id = a.id.clone().unwrap_or_else(|| next_trial_id(s));
-    session.apply(Edit::AddTrial {
+    let id = a.id.clone().unwrap_or_else(|| s.next_trial_id());
+    session.edit(Edit::AddTrial {
         specimen: a.specimen.clone(),
         trial: Box::new(Trial::new(&id, &a.operator, a.time.timestamp()?)),
         index: None,
@@ -420,16 +324,6 @@ fn run_trial_new(a: &TrialNewArgs) -> Result<()> {
     session.save()?;
     eprintln!("{}: trial {id} by {}", a.specimen, a.operator);
     Ok(())
-}
-
-/// The smallest positive number not yet a trial id of the specimen.
-#[must_use]
-pub fn next_trial_id(s: &Specimen) -> String {
-    // among 1..=n+1 one number is free
-    (1..=s.trials.len() + 1)
-        .map(|n| n.to_string())
-        .find(|id| s.trial(id).is_none())
-        .expect("a free number exists")
 }
 
 fn run_check(a: &CheckArgs) -> Result<()> {

@@ -6,7 +6,10 @@ use anyhow::{Context, Result, bail};
 use clap::{Args, ValueEnum};
 use std::path::PathBuf;
 
-use sutura_core::analysis::{AnalysisOptions, Sliding, analyse_sliding};
+use sutura_core::analysis::project::project_input;
+use sutura_core::analysis::{
+    AnalysisOptions, ProjectAnalysisOptions, Sliding, TrialChoice, analyse_sliding,
+};
 use sutura_core::export::table::LandmarkTable;
 use sutura_core::shape::missing::MissingMethod;
 use sutura_core::shape::sliding::{Curve, SlideCriterion};
@@ -42,9 +45,15 @@ pub struct SuperimposeArgs {
     /// or a Sutura project file (its landmarks; those not digitised count as missing).
     table: PathBuf,
 
-    /// With a project: the group label that names the groups compared.
-    #[arg(long, default_value = "group")]
-    group_key: String,
+    /// With a project: the group key whose values are the groups compared (default: the
+    /// project's first group key, if any).
+    #[arg(long, value_name = "KEY")]
+    group_by: Option<String>,
+
+    /// With a project: which trial of each specimen is analysed: first, latest, or a trial id
+    /// (specimens without it use their first). Measurement error always uses every trial.
+    #[arg(long, value_name = "first|latest|ID", default_value = "first")]
+    trial: String,
 
     /// Output folder.
     #[arg(short, long)]
@@ -76,17 +85,38 @@ pub struct SuperimposeArgs {
     slide_curves: Option<SlideArg>,
 }
 
-/// Reads the input: a project file (JSON, starts with `{`) or a long CSV; with
-/// `--slide-curves`, also the project's sliding curves.
+impl SuperimposeArgs {
+    fn options(&self) -> AnalysisOptions {
+        AnalysisOptions {
+            gpa: GpaOptions {
+                fit: match self.fit {
+                    FitArg::Partial => Fit::Partial,
+                    FitArg::Full => Fit::Full,
+                },
+                tolerance: self.tolerance,
+                ..GpaOptions::default()
+            },
+            fill: match self.fill {
+                FillArg::Tps => MissingMethod::ThinPlateSpline,
+                FillArg::Regression => MissingMethod::Regression { ridge: 0.0 },
+            },
+            resamples: self.resamples,
+            seed: self.seed,
+        }
+    }
+
+    fn slide(&self) -> Option<SlideCriterion> {
+        self.slide_curves.map(|c| match c {
+            SlideArg::BendingEnergy => SlideCriterion::BendingEnergy,
+            SlideArg::ProcrustesDistance => SlideCriterion::ProcrustesDistance,
+        })
+    }
+}
+
+/// Reads the input: a project file (by its content) or a long CSV; with `--slide-curves`,
+/// also the project's sliding curves.
 fn read_input(a: &SuperimposeArgs) -> Result<(LandmarkTable, Vec<Curve>)> {
-    let mut head = [0u8; 64];
-    let n = {
-        use std::io::Read;
-        std::fs::File::open(&a.table)
-            .and_then(|mut f| f.read(&mut head))
-            .with_context(|| a.table.display().to_string())?
-    };
-    if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
+    if !sutura_core::landmarks::project::is_project_file(&a.table) {
         if a.slide_curves.is_some() {
             bail!(
                 "{}: --slide-curves needs a project (a landmark table does not say which points form curves)",
@@ -96,55 +126,33 @@ fn read_input(a: &SuperimposeArgs) -> Result<(LandmarkTable, Vec<Curve>)> {
         return Ok((LandmarkTable::read_csv(&a.table)?, Vec::new()));
     }
     let project = sutura_core::landmarks::Project::load(&a.table)?;
-    let slide = a.slide_curves.is_some();
-    let e = sutura_core::landmarks::project::points::flatten(&project, Some(&a.group_key), slide);
-    let curves = if slide {
-        sutura_core::landmarks::project::points::sliding_curves(project.scheme())
-    } else {
-        Vec::new()
+    let defaults = ProjectAnalysisOptions::for_project(&project);
+    let opts = ProjectAnalysisOptions {
+        analysis: a.options(),
+        group_by: a.group_by.clone().or(defaults.group_by),
+        slide: a.slide(),
+        trial: match a.trial.as_str() {
+            "first" => TrialChoice::First,
+            "latest" => TrialChoice::Latest,
+            id => TrialChoice::Named(id.to_owned()),
+        },
     };
-    if slide && curves.is_empty() {
-        bail!(
-            "{}: --slide-curves: the project's scheme has no curve with semilandmarks",
-            a.table.display()
-        );
-    }
-    if e.not_digitised > 0 {
+    let input = project_input(&project, &opts).with_context(|| a.table.display().to_string())?;
+    if input.not_digitised > 0 {
         eprintln!(
             "note: {} landmarks are not digitised yet; they are treated as missing",
-            e.not_digitised
+            input.not_digitised
         );
     }
-    if e.table.observations.is_empty() {
-        bail!("{}: no trials to superimpose", a.table.display());
-    }
-    Ok((e.table, curves))
+    Ok((input.table, input.curves))
 }
 
 pub fn run(a: &SuperimposeArgs) -> Result<()> {
     let (table, curves) = read_input(a)?;
-    let opts = AnalysisOptions {
-        gpa: GpaOptions {
-            fit: match a.fit {
-                FitArg::Partial => Fit::Partial,
-                FitArg::Full => Fit::Full,
-            },
-            tolerance: a.tolerance,
-            ..GpaOptions::default()
-        },
-        fill: match a.fill {
-            FillArg::Tps => MissingMethod::ThinPlateSpline,
-            FillArg::Regression => MissingMethod::Regression { ridge: 0.0 },
-        },
-        resamples: a.resamples,
-        seed: a.seed,
-    };
-    let sliding = a.slide_curves.map(|c| Sliding {
+    let opts = a.options();
+    let sliding = a.slide().map(|criterion| Sliding {
         curves: &curves,
-        criterion: match c {
-            SlideArg::BendingEnergy => SlideCriterion::BendingEnergy,
-            SlideArg::ProcrustesDistance => SlideCriterion::ProcrustesDistance,
-        },
+        criterion,
     });
     let analysis =
         analyse_sliding(&table, &opts, sliding).with_context(|| a.table.display().to_string())?;

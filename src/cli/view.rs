@@ -6,7 +6,7 @@ use clap::{Args, ValueEnum};
 use nalgebra::Vector3;
 use std::path::PathBuf;
 
-use sutura_core::geometry::{Plane, WorldPoint};
+use sutura_core::geometry::{LengthMm, Plane, Triple, WorldPoint};
 use sutura_core::render::overlay::{AxisNames, Overlay};
 use sutura_core::render::source::{self, Detail};
 use sutura_core::render::{
@@ -77,11 +77,6 @@ fn parse_floats(text: &str, n: usize) -> Result<Vec<f64>> {
     Ok(v)
 }
 
-fn point3(text: &str) -> Result<Vector3<f64>> {
-    let v = parse_floats(text, 3)?;
-    Ok(Vector3::new(v[0], v[1], v[2]))
-}
-
 /// Voxel axes by the names a user gives them.
 #[derive(Clone, Copy, Debug, ValueEnum)]
 pub enum Axis {
@@ -112,11 +107,11 @@ pub struct SliceArgs {
 
     /// Oblique plane by its normal `NX,NY,NZ` in world coordinates, through `--centre`.
     #[arg(long, value_name = "NX,NY,NZ", allow_hyphen_values = true)]
-    normal: Option<String>,
+    normal: Option<Triple>,
 
     /// Centre of an oblique plane `X,Y,Z` in world mm (default: the centre of the scan).
     #[arg(long, value_name = "X,Y,Z", allow_hyphen_values = true)]
-    centre: Option<String>,
+    centre: Option<Triple>,
 
     /// Oblique plane through three world points (mm): `X,Y,Z;X,Y,Z;X,Y,Z`.
     #[arg(long, value_name = "P;Q;R", allow_hyphen_values = true)]
@@ -124,7 +119,7 @@ pub struct SliceArgs {
 
     /// Thick slab: thickness along the normal, e.g. `0.2mm` or `150um`.
     #[arg(long, value_name = "LEN")]
-    slab: Option<String>,
+    slab: Option<LengthMm>,
 
     /// How a slab combines its samples.
     #[arg(long, value_enum, default_value = "max")]
@@ -132,7 +127,7 @@ pub struct SliceArgs {
 
     /// Output pixel size, e.g. `10um` (default: the smallest voxel spacing).
     #[arg(long, value_name = "LEN")]
-    pixel: Option<String>,
+    pixel: Option<LengthMm>,
 
     /// Nearest-voxel sampling instead of trilinear.
     #[arg(long)]
@@ -151,11 +146,7 @@ pub enum SlabModeArg {
 pub fn run_slice(a: &SliceArgs) -> Result<()> {
     let v = a.scan.open_source()?;
     let v = v.as_ref();
-    let pixel_mm = a
-        .pixel
-        .as_deref()
-        .map(sutura_core::geometry::parse_length_mm)
-        .transpose()?;
+    let pixel_mm = a.pixel.map(|l| l.0);
     let plane = oblique_plane(a, v)?;
     let level0 = v.level(0);
     let geometry = if let Some(p) = plane {
@@ -180,19 +171,13 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
             pixel_mm,
         )?
     };
-    let slab = a
-        .slab
-        .as_deref()
-        .map(|s| -> Result<Slab> {
-            Ok(Slab {
-                thickness_mm: sutura_core::geometry::parse_length_mm(s)?,
-                mode: match a.slab_mode {
-                    SlabModeArg::Mean => SlabMode::Mean,
-                    SlabModeArg::Max => SlabMode::Max,
-                },
-            })
-        })
-        .transpose()?;
+    let slab = a.slab.map(|s| Slab {
+        thickness_mm: s.0,
+        mode: match a.slab_mode {
+            SlabModeArg::Mean => SlabMode::Mean,
+            SlabModeArg::Max => SlabMode::Max,
+        },
+    });
     let interp = if a.nearest {
         Interpolation::Nearest
     } else {
@@ -221,7 +206,7 @@ fn oblique_plane(a: &SliceArgs, v: &dyn VolumeSource) -> Result<Option<Plane>> {
     if let Some(t) = &a.through {
         let pts: Vec<Vector3<f64>> = t
             .split(';')
-            .map(point3)
+            .map(|p| -> Result<Vector3<f64>> { Ok(Vector3::from(p.parse::<Triple>()?.0)) })
             .collect::<Result<_>>()
             .with_context(|| format!("--through {t}"))?;
         if pts.len() != 3 {
@@ -234,16 +219,16 @@ fn oblique_plane(a: &SliceArgs, v: &dyn VolumeSource) -> Result<Option<Plane>> {
             w(&pts[2]),
         )?));
     }
-    if let Some(n) = &a.normal {
-        let n = point3(n).with_context(|| format!("--normal {n}"))?;
-        let c = match &a.centre {
-            Some(c) => {
-                let p = point3(c).with_context(|| format!("--centre {c}"))?;
-                WorldPoint::new(p.x, p.y, p.z)
-            }
-            None => v.centre_world(),
-        };
-        return Ok(Some(Plane::from_normal(c, n, Vector3::z())?));
+    if let Some(n) = a.normal {
+        let c = a.centre.map_or_else(
+            || v.centre_world(),
+            |c| WorldPoint::new(c.0[0], c.0[1], c.0[2]),
+        );
+        return Ok(Some(Plane::from_normal(
+            c,
+            Vector3::from(n.0),
+            Vector3::z(),
+        )?));
     }
     Ok(None)
 }
@@ -266,7 +251,7 @@ fn annotate(
 pub enum ViewMode {
     /// Maximum-intensity projection.
     Projection,
-    /// Shaded surface at an intensity threshold.
+    /// Shaded surface at the scan's iso-value.
     Surface,
 }
 
@@ -282,10 +267,10 @@ pub struct View3dArgs {
     #[arg(long, value_enum, default_value = "surface")]
     mode: ViewMode,
 
-    /// Surface threshold in intensity units (default: halfway between the median and the
-    /// 99.5th percentile, a first guess for dense material in a lighter matrix).
-    #[arg(long, allow_hyphen_values = true)]
-    threshold: Option<f64>,
+    /// The surface's iso-value in the scan's grey values (default: the scan's ISO-50, the
+    /// value the workstation's 3D view, snapping and `landmark pick` use).
+    #[arg(long, value_name = "GREY", allow_hyphen_values = true)]
+    iso_value: Option<f64>,
 
     /// Viewing direction by azimuth (about world z, from +x) and elevation, in degrees.
     #[arg(
@@ -350,18 +335,15 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             wl.colourize(&img, a.tone.colours.into())
         }
         ViewMode::Surface => {
-            let threshold = if let Some(t) = a.threshold {
-                t
-            } else {
-                let i = src.intensity()?;
-                let p = |q| i.percentile(q).unwrap_or(f64::NAN);
-                0.5 * (p(50.0) + p(99.5))
+            let iso = match a.iso_value {
+                Some(v) => sutura_core::landmarks::pick::IsoValue::given(v),
+                None => sutura_core::landmarks::pick_source::default_iso_value(src.as_ref())?,
             };
             let bricks = raycast::Bricks::new(&v);
-            let mut opts = SurfaceOptions::new(threshold);
+            let mut opts = SurfaceOptions::new(iso.value);
             opts.quality = quality;
             let s = raycast::surface(&v, &camera, &opts, Some(&bricks))?;
-            eprintln!("surface threshold {threshold:.1}");
+            eprintln!("surface at the {}", iso.describe());
             s.image
         }
     };

@@ -1,27 +1,31 @@
-//! The analysis workspace: the project's superimposition run in the background, the
-//! morphospace scatter, the disparity table, and a button for every export.
+//! The analysis workspace: the project's superimposition run in the background with the
+//! options chosen here, the morphospace scatter, the disparity table, and a button for every
+//! export.
 //!
-//! The analysis is [`sutura_core::analysis::analyse`] on the project as it stands in memory
-//! (unsaved edits included), flattened by [`flatten`] with the `group` label, with the same
-//! defaults as `sutura superimpose` (partial Procrustes, thin-plate-spline estimates of missing
-//! landmarks, 999 resamples, seed 1), so the numbers here are the command line's numbers. The
-//! exports write the same files as the command line does, into a folder the user picks.
+//! The analysis is [`analyse_project`] on the project as it stands in memory (unsaved edits
+//! included) with a [`ProjectAnalysisOptions`] — the same function and options as
+//! `sutura superimpose PROJECT` — so the same options give the command line's numbers. The
+//! exports are the library's [`write_export_into`], as `sutura export` writes them.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::sync::Arc;
 use std::sync::mpsc::{Receiver, TryRecvError, channel};
 use std::time::Instant;
 
 use eframe::egui::{self, Align2, Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, Ui, Vec2};
 
-use super::state::{Command, ExportKind, Workspace};
-use sutura_core::analysis::{Analysis, AnalysisOptions, analyse};
+use super::command::{AnalysisCommand, AppCommand, Command, DeskCommand, DialogKind, Workspace};
+use super::status::Status;
+use sutura_core::analysis::{
+    Analysis, ExportKind, ExportSource, ProjectAnalysisOptions, TrialChoice, analyse_project,
+    write_export_into,
+};
 use sutura_core::landmarks::Project;
-use sutura_core::landmarks::project::points::flatten;
-use sutura_core::measure::table::{measure_project, write_csv_file};
-
-/// The group label the analysis compares.
-pub const GROUP_KEY: &str = "group";
+use sutura_core::landmarks::project::Session;
+use sutura_core::measure::table::group_keys;
+use sutura_core::shape::Fit;
+use sutura_core::shape::missing::MissingMethod;
+use sutura_core::shape::sliding::SlideCriterion;
 
 /// Colours of the groups in the scatter, in label order (then repeating).
 const GROUP_COLOURS: [Color32; 6] = [
@@ -37,13 +41,18 @@ const GROUP_COLOURS: [Color32; 6] = [
 pub struct Run {
     started: Instant,
     rx: Receiver<Result<Analysis, String>>,
+    options: ProjectAnalysisOptions,
 }
 
 /// The analysis workspace's state (never saved).
 #[derive(Default)]
 pub struct AnalysisState {
+    /// The options the next run uses.
+    pub options: ProjectAnalysisOptions,
     pub run: Option<Run>,
     pub result: Option<Arc<Analysis>>,
+    /// The options the shown result was computed with.
+    pub result_options: Option<ProjectAnalysisOptions>,
     /// Why the last run failed.
     pub error: Option<String>,
     /// The document changed since the shown result was computed.
@@ -53,20 +62,72 @@ pub struct AnalysisState {
     /// Where exports go.
     pub folder: Option<PathBuf>,
     /// What the last export wrote (or why it failed).
-    pub last_export: Option<(String, bool)>,
+    pub last_export: Option<Status>,
     /// Seconds the last run took.
     pub secs: f64,
 }
 
 impl AnalysisState {
-    /// Starts analysing `project` on a background thread; `wake` is called when it ends.
+    /// Applies an analysis command to the project of `session`; `wake` repaints the window when
+    /// a run ends. Returns a message for the status line, if any.
+    pub fn apply(
+        &mut self,
+        cmd: AnalysisCommand,
+        session: &Session,
+        wake: impl Fn() + Send + 'static,
+    ) -> Option<Status> {
+        match cmd {
+            AnalysisCommand::Run => {
+                if !self.is_running() {
+                    self.start(&session.project, wake);
+                }
+                None
+            }
+            AnalysisCommand::SetOptions(o) => {
+                self.options = *o;
+                None
+            }
+            AnalysisCommand::SetAxes(a) => {
+                self.axes = a;
+                None
+            }
+            AnalysisCommand::SetExportFolder(p) => {
+                self.folder = Some(p);
+                None
+            }
+            AnalysisCommand::Export(kind) => {
+                let Some(folder) = &self.folder else {
+                    return Some(Status::error("choose a folder to export into first"));
+                };
+                let used = self.result_options.as_ref().unwrap_or(&self.options);
+                let src = ExportSource {
+                    project: &session.project,
+                    project_file: session.path(),
+                    group_by: used.group_by.as_deref(),
+                    semilandmarks: used.slide.is_some(),
+                    analysis: self.result.as_deref(),
+                };
+                let st = match write_export_into(kind, folder, &src) {
+                    Ok(e) => Status::info(e.describe()),
+                    Err(e) => Status::error(e.to_string()),
+                };
+                self.last_export = Some(st.clone());
+                Some(st)
+            }
+        }
+    }
+
+    /// Starts analysing `project` with the chosen options on a background thread; `wake` is
+    /// called when it ends.
     pub fn start(&mut self, project: &Project, wake: impl Fn() + Send + 'static) {
         let project = project.clone();
+        let options = self.options.clone();
+        let opts = options.clone();
         let (tx, rx) = channel();
         let spawned = std::thread::Builder::new()
             .name("sutura-analysis".into())
             .spawn(move || {
-                let _ = tx.send(run(&project));
+                let _ = tx.send(run(&project, &opts));
                 wake();
             });
         match spawned {
@@ -74,6 +135,7 @@ impl AnalysisState {
                 self.run = Some(Run {
                     started: Instant::now(),
                     rx,
+                    options,
                 });
                 self.error = None;
             }
@@ -92,6 +154,7 @@ impl AnalysisState {
             Err(TryRecvError::Disconnected) => Err("the analysis thread stopped".into()),
         };
         self.secs = r.started.elapsed().as_secs_f64();
+        let options = r.options.clone();
         self.run = None;
         match outcome {
             Ok(a) => {
@@ -104,6 +167,7 @@ impl AnalysisState {
                     self.axes = [0, 1];
                 }
                 self.result = Some(Arc::new(a));
+                self.result_options = Some(options);
                 self.stale = false;
                 self.error = None;
             }
@@ -117,134 +181,150 @@ impl AnalysisState {
     }
 }
 
-/// The analysis of a project, as `sutura superimpose PROJECT` runs it.
-pub fn run(project: &Project) -> Result<Analysis, String> {
-    let e = flatten(project, Some(GROUP_KEY), false);
-    if e.table.observations.is_empty() {
-        return Err("no trial has any landmark yet: nothing to superimpose".into());
-    }
-    analyse(&e.table, &AnalysisOptions::default()).map_err(|e| e.to_string())
+/// The analysis of a project with these options, as `sutura superimpose PROJECT` runs it.
+pub fn run(project: &Project, options: &ProjectAnalysisOptions) -> Result<Analysis, String> {
+    analyse_project(project, options)
+        .map(|(a, _)| a)
+        .map_err(|e| e.to_string())
 }
 
-/// Writes one export into `folder` (created if needed); says what it wrote.
-pub fn export(
-    kind: ExportKind,
-    folder: &Path,
-    project: &Project,
-    project_file: &Path,
-    analysis: Option<&Analysis>,
-) -> Result<String, String> {
-    std::fs::create_dir_all(folder).map_err(|e| format!("{}: {e}", folder.display()))?;
-    let files = |v: &[PathBuf]| {
-        let names: Vec<String> = v
-            .iter()
-            .filter_map(|p| p.file_name().map(|n| n.to_string_lossy().into_owned()))
-            .collect();
-        format!(
-            "wrote {} files into {}: {}",
-            names.len(),
-            folder.display(),
-            names.join(", ")
-        )
-    };
-    let need = || analysis.ok_or_else(|| "run the analysis first (Run analysis)".to_owned());
-    let e = flatten(project, Some(GROUP_KEY), false);
-    let wrote = |p: PathBuf| format!("wrote {}", p.display());
-    match kind {
-        ExportKind::AnalysisTables => need()?
-            .write_tables(folder, &project_file.display().to_string())
-            .map(|v| files(&v))
-            .map_err(|e| e.to_string()),
-        ExportKind::AnalysisFigures => need()?
-            .write_figures(folder)
-            .map(|v| files(&v))
-            .map_err(|e| e.to_string()),
-        ExportKind::LongCsv => {
-            let p = folder.join("landmarks_long.csv");
-            e.table.write_long_csv(&p).map_err(|e| e.to_string())?;
-            Ok(wrote(p))
-        }
-        ExportKind::WideCsv => {
-            let p = folder.join("landmarks_wide.csv");
-            e.table.write_wide_csv(&p).map_err(|e| e.to_string())?;
-            Ok(wrote(p))
-        }
-        ExportKind::Json => {
-            let p = folder.join("landmarks.json");
-            e.write_json(&p, &project.scheme().id)
-                .map_err(|e| e.to_string())?;
-            Ok(wrote(p))
-        }
-        ExportKind::Npy => {
-            let p = folder.join("landmarks.npy");
-            let index = e.write_npy(&p).map_err(|e| e.to_string())?;
-            Ok(format!("wrote {} and {}", p.display(), index.display()))
-        }
-        ExportKind::Ply => {
-            let dir = folder.join("ply");
-            let v = e.write_ply_sets(&dir).map_err(|e| e.to_string())?;
-            Ok(format!(
-                "wrote {} PLY files into {}",
-                v.len(),
-                dir.display()
-            ))
-        }
-        ExportKind::Measurements => {
-            let p = folder.join("measurements.csv");
-            let rows = measure_project(project);
-            write_csv_file(&p, project, &rows).map_err(|e| e.to_string())?;
-            Ok(wrote(p))
-        }
+fn fit_name(f: Fit) -> &'static str {
+    match f {
+        Fit::Partial => "partial Procrustes",
+        Fit::Full => "full Procrustes",
     }
 }
 
-/// Every export with its button text and what it writes.
-pub const EXPORTS: &[(ExportKind, &str, &str)] = &[
-    (
-        ExportKind::AnalysisTables,
-        "Analysis tables",
-        "aligned coordinates, centroid sizes, PC scores and loadings, disparity, distances, \
-         measurement error (CSV, JSON, NPY)",
-    ),
-    (
-        ExportKind::AnalysisFigures,
-        "Analysis figures",
-        "morphospace, disparity and PC1 shape charts (SVG and PNG)",
-    ),
-    (
-        ExportKind::LongCsv,
-        "Landmarks, long CSV",
-        "landmarks_long.csv: one row per specimen × trial × landmark",
-    ),
-    (
-        ExportKind::WideCsv,
-        "Landmarks, wide CSV",
-        "landmarks_wide.csv: one row per specimen × trial",
-    ),
-    (
-        ExportKind::Json,
-        "Landmarks, JSON",
-        "landmarks.json: operators, group labels, states, positions",
-    ),
-    (
-        ExportKind::Npy,
-        "Landmarks, .npy + index",
-        "landmarks.npy (observations × points × 3, NaN where missing) and its index",
-    ),
-    (
-        ExportKind::Ply,
-        "Landmarks, PLY",
-        "ply/SPECIMEN_TRIAL.ply: one point set per trial",
-    ),
-    (
-        ExportKind::Measurements,
-        "Measurements CSV",
-        "measurements.csv: every measurement of every trial",
-    ),
-];
+/// The options of the next run.
+#[allow(clippy::too_many_lines)] // reason: one row per option, read top to bottom
+fn options_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut Vec<Command>) {
+    let mut o = st.options.clone();
+    let mut changed = false;
+    egui::CollapsingHeader::new("Options")
+        .id_salt("analysis_options")
+        .default_open(true)
+        .show(ui, |ui| {
+            egui::Grid::new("analysis_options_grid")
+                .num_columns(2)
+                .spacing([10.0, 4.0])
+                .show(ui, |ui| {
+                    ui.label("fit");
+                    ui.horizontal(|ui| {
+                        for f in [Fit::Partial, Fit::Full] {
+                            if ui.selectable_label(o.analysis.gpa.fit == f, fit_name(f)).clicked() {
+                                o.analysis.gpa.fit = f;
+                                changed = true;
+                            }
+                        }
+                    });
+                    ui.end_row();
+                    ui.label("missing landmarks");
+                    ui.horizontal(|ui| {
+                        let tps = matches!(o.analysis.fill, MissingMethod::ThinPlateSpline);
+                        if ui.selectable_label(tps, "thin-plate spline").clicked() {
+                            o.analysis.fill = MissingMethod::ThinPlateSpline;
+                            changed = true;
+                        }
+                        if ui.selectable_label(!tps, "regression").clicked() {
+                            o.analysis.fill = MissingMethod::Regression { ridge: 0.0 };
+                            changed = true;
+                        }
+                    });
+                    ui.end_row();
+                    ui.label("curve sliding");
+                    ui.horizontal(|ui| {
+                        for (v, name) in [
+                            (None, "none"),
+                            (Some(SlideCriterion::BendingEnergy), "bending energy"),
+                            (Some(SlideCriterion::ProcrustesDistance), "Procrustes distance"),
+                        ] {
+                            if ui.selectable_label(o.slide == v, name).clicked() {
+                                o.slide = v;
+                                changed = true;
+                            }
+                        }
+                    });
+                    ui.end_row();
+                    ui.label("groups compared");
+                    let keys = group_keys(project);
+                    egui::ComboBox::from_id_salt("group_by")
+                        .selected_text(o.group_by.clone().unwrap_or_else(|| "none (one sample)".into()))
+                        .show_ui(ui, |ui| {
+                            if ui.selectable_label(o.group_by.is_none(), "none (one sample)").clicked() {
+                                o.group_by = None;
+                                changed = true;
+                            }
+                            for k in keys {
+                                if ui
+                                    .selectable_label(o.group_by.as_deref() == Some(k.as_str()), &k)
+                                    .clicked()
+                                {
+                                    o.group_by = Some(k);
+                                    changed = true;
+                                }
+                            }
+                        });
+                    ui.end_row();
+                    ui.label("trial analysed");
+                    ui.horizontal(|ui| {
+                        for (v, name) in [(TrialChoice::First, "first"), (TrialChoice::Latest, "latest")] {
+                            if ui.selectable_label(o.trial == v, name).clicked() {
+                                o.trial = v;
+                                changed = true;
+                            }
+                        }
+                        let mut id = match &o.trial {
+                            TrialChoice::Named(id) => id.clone(),
+                            _ => String::new(),
+                        };
+                        let r = ui.add(
+                            egui::TextEdit::singleline(&mut id)
+                                .hint_text("or a trial id")
+                                .desired_width(70.0),
+                        );
+                        if r.changed() {
+                            o.trial = if id.trim().is_empty() {
+                                TrialChoice::First
+                            } else {
+                                TrialChoice::Named(id.trim().to_owned())
+                            };
+                            changed = true;
+                        }
+                    });
+                    ui.end_row();
+                    ui.label("resamples");
+                    let mut n = o.analysis.resamples;
+                    if ui
+                        .add(egui::DragValue::new(&mut n).range(0..=99_999).speed(10.0))
+                        .on_hover_text("bootstrap resamples for intervals, permutations for tests")
+                        .changed()
+                    {
+                        o.analysis.resamples = n;
+                        changed = true;
+                    }
+                    ui.end_row();
+                    ui.label("seed");
+                    let mut seed = o.analysis.seed;
+                    if ui.add(egui::DragValue::new(&mut seed)).changed() {
+                        o.analysis.seed = seed;
+                        changed = true;
+                    }
+                    ui.end_row();
+                });
+            ui.label(
+                RichText::new("the same options as sutura superimpose: --fit, --fill, --slide-curves, --group-by, --trial, --resamples, --seed")
+                    .small()
+                    .weak(),
+            );
+        });
+    if changed {
+        out.push(AnalysisCommand::SetOptions(Box::new(o)).into());
+    }
+}
 
 /// The analysis workspace.
-pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut Vec<Command>) {
+pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project) -> Vec<Command> {
+    let mut out: Vec<Command> = Vec::new();
     ui.horizontal(|ui| {
         ui.heading("Analysis");
         let label = if st.result.is_some() {
@@ -255,39 +335,45 @@ pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut
         if ui
             .add_enabled(!st.is_running(), egui::Button::new(label))
             .on_hover_text(
-                "generalized Procrustes superimposition of every specimen's first trial, PCA, \
-                 disparity (as sutura superimpose)",
+                "generalized Procrustes superimposition, PCA and disparity with the options \
+                 below (as sutura superimpose)",
             )
             .clicked()
         {
-            out.push(Command::RunAnalysis);
+            out.push(AnalysisCommand::Run.into());
         }
         if st.is_running() {
             ui.spinner();
             ui.label("superimposing…");
-        } else if let Some(a) = &st.result {
+        } else if let (Some(a), Some(o)) = (&st.result, &st.result_options) {
             let g = &a.gpa;
             ui.label(
                 RichText::new(format!(
-                    "{} specimens × {} landmarks · {} iterations{} · {:.1} s",
+                    "{} specimens ({} of each) × {} landmarks · {} · {} iterations{} · {:.1} s",
                     a.n(),
+                    o.trial.describe(),
                     a.landmarks.len(),
+                    fit_name(o.analysis.gpa.fit),
                     g.iterations,
                     if g.converged { "" } else { " (not converged)" },
                     st.secs
                 ))
                 .weak(),
             );
-            if st.stale {
+            if st.stale || st.options != *o {
                 ui.label(
-                    RichText::new("the project changed since: run again")
-                        .color(Color32::from_rgb(236, 190, 84)),
+                    RichText::new(if st.stale {
+                        "the project changed since: run again"
+                    } else {
+                        "the options changed since: run again"
+                    })
+                    .color(Color32::from_rgb(236, 190, 84)),
                 );
             }
         }
         ui.with_layout(egui::Layout::right_to_left(egui::Align::Center), |ui| {
             if ui.button("Back to digitising").clicked() {
-                out.push(Command::SetWorkspace(Workspace::Digitise));
+                out.push(AppCommand::SetWorkspace(Workspace::Digitise).into());
             }
         });
     });
@@ -296,12 +382,12 @@ pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut
     }
     ui.separator();
     let avail = ui.available_size();
-    let side = 400.0_f32.min(avail.x * 0.45);
+    let side = 420.0_f32.min(avail.x * 0.45);
     ui.horizontal_top(|ui| {
         ui.vertical(|ui| {
             ui.set_width(avail.x - side - 16.0);
             match &st.result {
-                Some(a) => morphospace_ui(ui, a, st.axes, out),
+                Some(a) => morphospace_ui(ui, a, st.axes, &mut out),
                 None => {
                     ui.label(
                         RichText::new(
@@ -316,14 +402,17 @@ pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut
         ui.vertical(|ui| {
             ui.set_width(side);
             egui::ScrollArea::vertical().show(ui, |ui| {
+                options_ui(ui, st, project, &mut out);
+                ui.separator();
                 if let Some(a) = &st.result {
                     disparity_ui(ui, a);
                     ui.separator();
                 }
-                exports_ui(ui, st, project, out);
+                exports_ui(ui, st, &mut out);
             });
         });
     });
+    out
 }
 
 fn group_colour(groups: &[String], g: &str) -> Color32 {
@@ -363,7 +452,7 @@ fn morphospace_ui(ui: &mut Ui, a: &Analysis, axes: [usize; 2], out: &mut Vec<Com
                         if ui.selectable_label(axes[slot] == i, name(i)).clicked() {
                             let mut n = axes;
                             n[slot] = i;
-                            out.push(Command::SetAxes(n));
+                            out.push(AnalysisCommand::SetAxes(n).into());
                         }
                     }
                 });
@@ -464,8 +553,8 @@ fn morphospace_ui(ui: &mut Ui, a: &Analysis, axes: [usize; 2], out: &mut Vec<Com
         painter.rect_filled(bg, 3.0, Color32::from_black_alpha(210));
         painter.galley(at, galley, Color32::WHITE);
         if response.clicked() {
-            out.push(Command::SelectSpecimen(o.specimen.clone()));
-            out.push(Command::SetWorkspace(Workspace::Digitise));
+            out.push(DeskCommand::SelectSpecimen(o.specimen.clone()).into());
+            out.push(AppCommand::SetWorkspace(Workspace::Digitise).into());
         }
         let _ = response.on_hover_cursor(egui::CursorIcon::PointingHand);
     }
@@ -511,15 +600,16 @@ fn disparity_ui(ui: &mut Ui, a: &Analysis) {
     if let Some(t) = &a.group_test {
         ui.label(
             RichText::new(format!(
-                "difference between the groups: p = {:.3}",
-                t.p_value
+                "difference in Procrustes variance between the two groups: p = {:.3} \
+                 (permutation test, {} permutations of the group labels)",
+                t.p_value, a.options.resamples
             ))
             .small(),
         );
     }
 }
 
-fn exports_ui(ui: &mut Ui, st: &AnalysisState, _project: &Project, out: &mut Vec<Command>) {
+fn exports_ui(ui: &mut Ui, st: &AnalysisState, out: &mut Vec<Command>) {
     ui.label(RichText::new("Export").strong().size(14.0));
     ui.horizontal(|ui| {
         let folder = st.folder.as_ref().map_or_else(
@@ -529,20 +619,14 @@ fn exports_ui(ui: &mut Ui, st: &AnalysisState, _project: &Project, out: &mut Vec
         ui.label(RichText::new(folder).monospace().small());
     });
     if ui.button("Choose folder…").clicked() {
-        out.push(Command::ShowOpenDialog(
-            super::state::DialogKind::ExportFolder,
-        ));
+        out.push(AppCommand::ShowDialog(DialogKind::ExportFolder).into());
     }
     ui.add_space(4.0);
-    for (kind, label, what) in EXPORTS {
-        let needs_analysis = matches!(
-            kind,
-            ExportKind::AnalysisTables | ExportKind::AnalysisFigures
-        );
-        let enabled = st.folder.is_some() && (!needs_analysis || st.result.is_some());
+    for kind in ExportKind::ALL {
+        let enabled = st.folder.is_some() && (!kind.needs_analysis() || st.result.is_some());
         if ui
-            .add_enabled(enabled, egui::Button::new(*label))
-            .on_hover_text(*what)
+            .add_enabled(enabled, egui::Button::new(kind.title()))
+            .on_hover_text(kind.description())
             .on_disabled_hover_text(if st.folder.is_none() {
                 "choose a folder first"
             } else {
@@ -550,15 +634,10 @@ fn exports_ui(ui: &mut Ui, st: &AnalysisState, _project: &Project, out: &mut Vec
             })
             .clicked()
         {
-            out.push(Command::Export(*kind));
+            out.push(AnalysisCommand::Export(kind).into());
         }
     }
-    if let Some((msg, is_error)) = &st.last_export {
-        let colour = if *is_error {
-            Color32::from_rgb(240, 120, 100)
-        } else {
-            Color32::from_gray(210)
-        };
-        ui.label(RichText::new(msg).color(colour).small());
+    if let Some(st) = &st.last_export {
+        ui.label(RichText::new(&st.text).color(st.colour()).small());
     }
 }

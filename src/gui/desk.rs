@@ -1,266 +1,111 @@
-//! The desk: a landmark project open for digitising, with its undo history, its saved state
-//! and its autosave.
+//! The desk: a landmark project open for digitising.
 //!
-//! Every change to the project goes through [`Session::edit`], which applies a
-//! [`sutura_core::landmarks::project::Edit`] and keeps the exact inverse it returns on the undo stack;
-//! undo applies that inverse and keeps *its* inverse for redo. Whether the document differs
-//! from the file is decided by comparing it with the copy last read or written, so undoing back
-//! to the saved state makes it clean again.
-//!
-//! The autosave (`NAME.autosave` beside the project) is written atomically once the document
-//! has been unchanged for [`Session::autosave_delay`] after a change, and removed when the
-//! project is saved or its changes are discarded. A project opened while another program holds
-//! its lock (or in a folder that cannot be written) is read-only here.
-//!
-//! The selection (specimen, trial, current landmark) lives here too: it is part of what the
-//! user is working on, though it is never saved.
+//! The project itself, its lock, its undo history and its autosave are the library's
+//! [`Session`] (the command line changes projects through the same type). What the desk adds
+//! is what the user is working on — the selected specimen, trial and current landmark — and the
+//! modes of the window: placing, tracing a curve, the note being typed. [`Desk::apply`] applies
+//! every [`DeskCommand`]; what it needs of the rest of the app (the scan shown, the view state,
+//! the preferences) comes in a [`DeskEnv`], and what it asks of the rest of the app goes out as
+//! [`Effects`].
 
-use std::path::{Path, PathBuf};
-use std::time::{Duration, Instant};
+use std::path::Path;
+use std::sync::Arc;
 
-use sutura_core::landmarks::Project;
+use nalgebra::Vector3;
+
+use super::command::{AppCommand, Command, DeskCommand, TypedPosition, ViewCommand};
+use super::state::{Preferences, Scan, ViewId, ViewState, clamp_to_volume};
+use super::status::Status;
+use super::view::plane_basis;
+use sutura_core::geometry::WorldPoint;
+use sutura_core::landmarks::mirror::estimate_from_partner;
+use sutura_core::landmarks::pick::{PickOptions, pick_view_ray, snap_options, snap_to_boundary};
 use sutura_core::landmarks::project::{
-    AutosaveStatus, Edit, LandmarkState, ProjectError, ProjectLock, Specimen, Timestamp, Trial,
-    autosave_path, autosave_status,
+    AutosaveStatus, Edit, LandmarkState, Method, PickRecord, ProjectError, Session, Specimen,
+    Timestamp, Trial,
 };
 
-/// How long the document must rest after a change before the autosave is written.
-pub const AUTOSAVE_DELAY: Duration = Duration::from_secs(3);
-/// How many edits undo reaches back.
-const UNDO_DEPTH: usize = 500;
-
-/// One undoable step: the edit that reverses it and what it did.
-#[derive(Clone, Debug)]
-struct Step {
-    inverse: Edit,
-    what: String,
+/// What a desk command may read of the rest of the app.
+#[derive(Clone, Copy)]
+pub struct DeskEnv<'a> {
+    /// The scan shown (the selected specimen's once it has loaded).
+    pub scan: Option<&'a Arc<Scan>>,
+    pub vs: &'a ViewState,
+    pub prefs: &'a Preferences,
 }
 
-/// An open project.
+/// What a desk command asks of the rest of the app.
+#[derive(Debug, Default)]
+pub struct Effects {
+    /// Commands to apply next (moving the crosshair, loading a scan, …).
+    pub then: Vec<Command>,
+    pub status: Option<Status>,
+    /// The document changed (an analysis shown is now out of date).
+    pub changed: bool,
+    /// The operator's name is needed before a trial can start.
+    pub ask_operator: bool,
+}
+
+impl Effects {
+    fn status(status: Status) -> Self {
+        Self {
+            status: Some(status),
+            ..Self::default()
+        }
+    }
+}
+
+/// An open project with what the user is working on.
 #[derive(Debug)]
-pub struct Session {
-    pub path: PathBuf,
-    pub project: Project,
-    /// The document as last read from or written to `path`.
-    saved: Project,
-    undo: Vec<Step>,
-    redo: Vec<Step>,
-    /// When the document last changed without an autosave since.
-    changed_at: Option<Instant>,
-    pub autosave_delay: Duration,
-    /// Another program holds the project (or its folder cannot be written): nothing may be
-    /// changed or saved.
-    pub read_only: bool,
-    /// Why, as a phrase after the project's name.
-    pub read_only_why: String,
-    _lock: Option<ProjectLock>,
-    /// The selection.
+pub struct Desk {
+    pub session: Session,
     pub specimen: Option<String>,
     pub trial: Option<String>,
     pub current: Option<String>,
+    /// Placing mode: a click on the stage places the current landmark.
+    pub placing: bool,
+    /// The curve and segment being traced.
+    pub tracing: Option<(String, usize)>,
+    /// The specimen whose scan is shown, and whether it failed its fingerprint check.
+    pub scan_of: Option<String>,
+    pub scan_read_only: bool,
 }
 
-impl Session {
-    /// Opens a project file, taking its lock (read-only if another program holds it). Also
-    /// says whether an autosave newer than the file lies beside it.
+impl Desk {
+    /// Opens a project (read-only if another program holds it); says whether a newer autosave
+    /// lies beside it.
     pub fn open(path: &Path) -> Result<(Self, AutosaveStatus), ProjectError> {
-        let path = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
-        // busy: another program has it; an error: the folder cannot be written (read-only
-        // media), so the project could not be saved either
-        let (lock, why) = match ProjectLock::acquire(&path) {
-            Ok(l) => (Some(l), None),
-            Err(ProjectError::Busy { .. }) => (None, Some("is open in another program".into())),
-            Err(e) => (None, Some(format!("cannot be locked for writing ({e})"))),
-        };
-        let project = Project::load(&path)?;
-        let status = autosave_status(&path)?;
-        let mut s = Self {
-            path,
-            saved: project.clone(),
-            project,
-            undo: Vec::new(),
-            redo: Vec::new(),
-            changed_at: None,
-            autosave_delay: AUTOSAVE_DELAY,
-            read_only: why.is_some(),
-            read_only_why: why.unwrap_or_default(),
-            _lock: lock,
+        let (session, status) = Session::open(path)?;
+        Ok((Self::with(session), status))
+    }
+
+    /// A desk on a session, its first specimen selected.
+    #[must_use]
+    pub fn with(session: Session) -> Self {
+        let mut d = Self {
+            session,
             specimen: None,
             trial: None,
             current: None,
+            placing: false,
+            tracing: None,
+            scan_of: None,
+            scan_read_only: false,
         };
-        if let Some(first) = s.project.specimens().first().map(|x| x.id.clone()) {
-            s.select_specimen(&first);
+        if let Some(first) = d.session.project.specimens().first().map(|x| x.id.clone()) {
+            d.select_specimen(&first);
         }
-        Ok((s, status))
+        d
     }
 
-    /// The project's file name.
     #[must_use]
     pub fn name(&self) -> String {
-        self.path.file_name().map_or_else(
-            || self.path.display().to_string(),
-            |n| n.to_string_lossy().into_owned(),
-        )
-    }
-
-    /// Whether the document differs from the file.
-    #[must_use]
-    pub fn is_dirty(&self) -> bool {
-        self.project != self.saved
-    }
-
-    /// Applies an edit; on success it can be undone. `what` describes it for the undo menu.
-    pub fn edit(&mut self, edit: Edit) -> Result<(), String> {
-        if self.read_only {
-            return Err(format!(
-                "{} {}: changes are not allowed here",
-                self.name(),
-                self.read_only_why
-            ));
-        }
-        let what = edit.describe();
-        let inverse = edit.apply(&mut self.project).map_err(|e| e.to_string())?;
-        self.undo.push(Step { inverse, what });
-        if self.undo.len() > UNDO_DEPTH {
-            self.undo.remove(0);
-        }
-        self.redo.clear();
-        self.touched();
-        Ok(())
-    }
-
-    /// Undoes the last edit; returns what it was.
-    pub fn undo(&mut self) -> Option<Result<String, String>> {
-        let step = self.undo.pop()?;
-        Some(self.replay(step, true))
-    }
-
-    /// Redoes the last undone edit; returns what it was.
-    pub fn redo(&mut self) -> Option<Result<String, String>> {
-        let step = self.redo.pop()?;
-        Some(self.replay(step, false))
-    }
-
-    fn replay(&mut self, step: Step, undoing: bool) -> Result<String, String> {
-        let Step { inverse, what } = step;
-        match inverse.apply(&mut self.project) {
-            Ok(back) => {
-                let s = Step {
-                    inverse: back,
-                    what: what.clone(),
-                };
-                if undoing {
-                    self.redo.push(s);
-                } else {
-                    self.undo.push(s);
-                }
-                self.touched();
-                self.fix_selection();
-                Ok(what)
-            }
-            Err(e) => Err(format!(
-                "cannot {} {what}: {e}",
-                if undoing { "undo" } else { "redo" }
-            )),
-        }
-    }
-
-    /// What undo and redo would do next.
-    #[must_use]
-    pub fn next_undo(&self) -> Option<&str> {
-        self.undo.last().map(|s| s.what.as_str())
-    }
-
-    #[must_use]
-    pub fn next_redo(&self) -> Option<&str> {
-        self.redo.last().map(|s| s.what.as_str())
-    }
-
-    fn touched(&mut self) {
-        self.changed_at = Some(Instant::now());
-    }
-
-    /// Saves the project (atomically, keeping `NAME.bak`) and removes the autosave.
-    pub fn save(&mut self) -> Result<(), String> {
-        if self.read_only {
-            return Err(format!("{} {}", self.name(), self.read_only_why));
-        }
-        self.project.save(&self.path).map_err(|e| e.to_string())?;
-        self.saved = self.project.clone();
-        self.changed_at = None;
-        self.remove_autosave();
-        Ok(())
-    }
-
-    /// Writes the autosave if the document has rested long enough since its last change.
-    /// Returns whether it wrote.
-    pub fn autosave_if_due(&mut self) -> Result<bool, String> {
-        match self.changed_at {
-            Some(t) if t.elapsed() >= self.autosave_delay => self.autosave().map(|()| true),
-            _ => Ok(false),
-        }
-    }
-
-    /// Writes the autosave now if there are unsaved changes (or removes a stale one).
-    pub fn autosave(&mut self) -> Result<(), String> {
-        if self.read_only {
-            return Ok(());
-        }
-        self.changed_at = None;
-        if self.is_dirty() {
-            self.project
-                .save_autosave(&self.path)
-                .map_err(|e| e.to_string())
-        } else {
-            self.remove_autosave();
-            Ok(())
-        }
-    }
-
-    /// Whether a change waits for its autosave.
-    #[must_use]
-    pub fn autosave_pending(&self) -> bool {
-        self.changed_at.is_some()
-    }
-
-    /// Takes the autosave's document as the current one (unsaved, undoable as one step).
-    pub fn recover_autosave(&mut self) -> Result<(), String> {
-        let auto = autosave_path(&self.path);
-        let recovered = Project::load(&auto).map_err(|e| e.to_string())?;
-        if recovered.scheme_copy() != self.project.scheme_copy() {
-            return Err(format!(
-                "{}: its scheme differs from the project's; not recovered",
-                auto.display()
-            ));
-        }
-        self.project = recovered;
-        self.undo.clear();
-        self.redo.clear();
-        self.fix_selection();
-        Ok(())
-    }
-
-    /// Drops unsaved changes: back to the file, no autosave.
-    pub fn discard_changes(&mut self) {
-        self.project = self.saved.clone();
-        self.undo.clear();
-        self.redo.clear();
-        self.changed_at = None;
-        self.remove_autosave();
-        self.fix_selection();
-    }
-
-    /// Removes the autosave file (if any).
-    pub fn remove_autosave(&self) {
-        if !self.read_only {
-            let _ = std::fs::remove_file(autosave_path(&self.path));
-        }
+        self.session.name()
     }
 
     /// Selects a specimen and its latest trial, and the first landmark not yet decided.
     pub fn select_specimen(&mut self, id: &str) {
-        let Some(s) = self.project.specimen(id) else {
+        let Some(s) = self.session.project.specimen(id) else {
             return;
         };
         self.specimen = Some(s.id.clone());
@@ -277,20 +122,33 @@ impl Session {
     }
 
     /// Keeps the selection pointing at things that exist (after undo, recovery, discard).
-    fn fix_selection(&mut self) {
-        let Some(s) = self.specimen_ref() else {
+    pub fn fix_selection(&mut self) {
+        if self.specimen_ref().is_none() {
+            let first = self
+                .session
+                .project
+                .specimens()
+                .first()
+                .map(|s| s.id.clone());
             self.specimen = None;
             self.trial = None;
+            if let Some(f) = first {
+                self.select_specimen(&f);
+            }
             return;
-        };
+        }
+        let s = self.specimen_ref().expect("checked");
         if self.trial.as_deref().is_none_or(|t| s.trial(t).is_none()) {
             self.trial = s.trials.last().map(|t| t.id.clone());
+        }
+        if self.current.is_none() {
+            self.current = self.first_open_after(None);
         }
     }
 
     #[must_use]
     pub fn specimen_ref(&self) -> Option<&Specimen> {
-        self.project.specimen(self.specimen.as_deref()?)
+        self.session.project.specimen(self.specimen.as_deref()?)
     }
 
     #[must_use]
@@ -302,10 +160,11 @@ impl Session {
     /// that the selected trial has not decided yet.
     #[must_use]
     pub fn first_open_after(&self, after: Option<&str>) -> Option<String> {
-        let lms = &self.project.scheme().landmarks;
+        let scheme = self.session.project.scheme();
+        let lms = &scheme.landmarks;
         let trial = self.trial_ref()?;
         let start = after
-            .and_then(|a| self.project.scheme().landmark_index(a))
+            .and_then(|a| scheme.landmark_index(a))
             .map_or(0, |i| i + 1);
         (0..lms.len())
             .map(|k| &lms[(start + k) % lms.len()])
@@ -316,7 +175,8 @@ impl Session {
     /// The landmark `by` places from the current one in scheme order (wrapping).
     #[must_use]
     pub fn stepped(&self, by: isize) -> Option<String> {
-        let lms = &self.project.scheme().landmarks;
+        let scheme = self.session.project.scheme();
+        let lms = &scheme.landmarks;
         if lms.is_empty() {
             return None;
         }
@@ -324,7 +184,7 @@ impl Session {
         let i = self
             .current
             .as_deref()
-            .and_then(|c| self.project.scheme().landmark_index(c))
+            .and_then(|c| scheme.landmark_index(c))
             .map_or(if by >= 0 { -1 } else { 0 }, |i| i as isize);
         Some(lms[(i + by).rem_euclid(n) as usize].id.clone())
     }
@@ -335,34 +195,15 @@ impl Session {
         self.trial_ref()?.landmark(landmark).map(|l| l.state)
     }
 
-    /// The id the next trial of the selected specimen gets: one more than the largest number
-    /// among its trial ids (`1` for the first).
-    #[must_use]
-    pub fn next_trial_id(&self) -> String {
-        let n = self.specimen_ref().map_or(0, |s| {
-            s.trials
-                .iter()
-                .filter_map(|t| t.id.parse::<u64>().ok())
-                .max()
-                .unwrap_or(0)
-        });
-        let mut id = n + 1;
-        while self
-            .specimen_ref()
-            .is_some_and(|s| s.trial(&id.to_string()).is_some())
-        {
-            id += 1;
-        }
-        id.to_string()
-    }
-
     /// Starts a new, empty trial of the selected specimen by `operator` and selects it.
-    pub fn start_trial(&mut self, operator: &str) -> Result<String, String> {
+    pub fn start_trial(&mut self, operator: &str) -> Result<String, Status> {
         let specimen = self
             .specimen
             .clone()
-            .ok_or_else(|| "select a specimen first".to_owned())?;
-        let id = self.next_trial_id();
+            .ok_or_else(|| Status::error("select a specimen first"))?;
+        let id = self
+            .specimen_ref()
+            .map_or_else(|| "1".into(), Specimen::next_trial_id);
         self.edit(Edit::AddTrial {
             specimen,
             trial: Box::new(Trial::new(&id, operator, Timestamp::now())),
@@ -372,124 +213,581 @@ impl Session {
         self.current = self.first_open_after(None);
         Ok(id)
     }
-}
 
-/// Whether `path` names a project file (by its `.json` name) rather than a scan.
-#[must_use]
-pub fn is_project_path(path: &Path) -> bool {
-    path.is_file()
-        && path
-            .extension()
-            .is_some_and(|e| e.eq_ignore_ascii_case("json"))
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use sutura_core::landmarks::project::Method;
-
-    fn copy_sample(dir: &Path) -> PathBuf {
-        let src = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/sample_project.json");
-        let dst = dir.join("p.json");
-        std::fs::copy(src, &dst).unwrap();
-        dst
+    fn edit(&mut self, edit: Edit) -> Result<(), Status> {
+        self.session
+            .edit(edit)
+            .map_err(|e| Status::error(e.to_string()))
     }
 
-    fn place(s: &mut Session, lm: &str, p: [f64; 3]) {
-        let edit = Edit::SetLandmark {
-            specimen: s.specimen.clone().unwrap(),
-            trial: s.trial.clone().unwrap(),
-            landmark: lm.into(),
-            position_mm: p,
-            method: Method::Slice,
-            pick: None,
-            at: Timestamp::now(),
+    fn edit_all(&mut self, edits: Vec<Edit>, what: String) -> Result<(), Status> {
+        self.session
+            .edit_all(edits, what)
+            .map_err(|e| Status::error(e.to_string()))
+    }
+
+    /// The selected specimen and trial, ready for a landmark edit; says why not otherwise.
+    fn target(&self) -> Result<(String, String), Status> {
+        let (Some(sp), Some(t)) = (&self.specimen, &self.trial) else {
+            return Err(Status::error(if self.specimen.is_none() {
+                "select a specimen first"
+            } else {
+                "start a trial first: New trial (Ctrl+T)"
+            }));
         };
-        s.edit(edit).unwrap();
+        if self.scan_read_only && self.scan_of.as_ref() == Some(sp) {
+            return Err(Status::error(
+                "this specimen's scan is not the recorded one: its landmarks cannot be changed",
+            ));
+        }
+        Ok((sp.clone(), t.clone()))
     }
 
-    #[test]
-    fn undo_and_redo_walk_the_history_and_dirtiness_follows_the_file() {
-        let d = tempfile::tempdir().unwrap();
-        let (mut s, status) = Session::open(&copy_sample(d.path())).unwrap();
-        assert_eq!(status, AutosaveStatus::None);
-        assert_eq!(s.specimen.as_deref(), Some("HDC-001"));
-        let before = s.project.clone();
-        let t = s.start_trial("ana").unwrap();
-        assert_eq!(t, "2");
-        assert_eq!(s.current.as_deref(), Some("snout_tip"));
-        place(&mut s, "snout_tip", [1.0, 2.0, 3.0]);
-        assert!(s.is_dirty());
-        let after = s.project.clone();
-        assert!(s.undo().unwrap().is_ok());
-        assert!(s.undo().unwrap().is_ok());
-        assert_eq!(s.project, before);
-        assert!(!s.is_dirty(), "undone back to the file");
-        assert!(s.undo().is_none());
-        s.redo().unwrap().unwrap();
-        s.redo().unwrap().unwrap();
-        assert_eq!(s.project, after);
-        // a new edit drops the redo history
-        s.undo().unwrap().unwrap();
-        place(&mut s, "crest_top", [0.0; 3]);
-        assert!(s.redo().is_none());
-    }
-
-    #[test]
-    fn autosave_is_written_after_the_delay_and_removed_by_save() {
-        let d = tempfile::tempdir().unwrap();
-        let path = copy_sample(d.path());
-        let (mut s, _) = Session::open(&path).unwrap();
-        s.autosave_delay = Duration::from_millis(30);
-        s.start_trial("ana").unwrap();
-        assert!(!s.autosave_if_due().unwrap(), "not yet");
-        std::thread::sleep(Duration::from_millis(40));
-        assert!(s.autosave_if_due().unwrap());
-        assert!(matches!(
-            autosave_status(&s.path).unwrap(),
-            AutosaveStatus::Newer { .. }
-        ));
-        let edited = s.project.clone();
-        drop(s); // a crash: nothing saved
-        let (mut s, status) = Session::open(&path).unwrap();
-        assert!(matches!(status, AutosaveStatus::Newer { .. }));
-        assert_ne!(s.project, edited);
-        s.recover_autosave().unwrap();
-        assert_eq!(s.project, edited);
-        assert!(s.is_dirty());
-        s.save().unwrap();
-        assert!(!autosave_path(&path).exists());
-        assert_eq!(Project::load(&path).unwrap(), edited);
-    }
-
-    #[test]
-    fn a_second_session_on_the_same_file_is_read_only() {
-        let d = tempfile::tempdir().unwrap();
-        let path = copy_sample(d.path());
-        let (_first, _) = Session::open(&path).unwrap();
-        let (mut second, _) = Session::open(&path).unwrap();
-        assert!(second.read_only);
-        let err = second.start_trial("x").unwrap_err();
-        assert!(err.contains("another program"), "{err}");
-    }
-
-    #[test]
-    fn the_next_open_landmark_wraps_and_skips_decided_ones() {
-        let d = tempfile::tempdir().unwrap();
-        let (mut s, _) = Session::open(&copy_sample(d.path())).unwrap();
-        s.start_trial("ana").unwrap();
-        let lms: Vec<String> = s
+    /// The current landmark and whether it lies on the surface, if placing can go ahead on the
+    /// shown scan.
+    fn placing_target(&self, env: &DeskEnv<'_>) -> Result<(String, String, String, bool), Status> {
+        let (specimen, trial) = self.target()?;
+        if self.scan_of.as_deref() != Some(specimen.as_str()) || env.scan.is_none() {
+            return Err(Status::error(format!(
+                "{specimen}: its scan is still opening"
+            )));
+        }
+        let Some(lm) = self.current.clone() else {
+            return Err(Status::info(
+                "every landmark is done: pick one in the checklist to revise it",
+            ));
+        };
+        let on_surface = self
+            .session
             .project
             .scheme()
-            .landmarks
-            .iter()
-            .map(|l| l.id.clone())
+            .landmark(&lm)
+            .is_some_and(|d| d.on_surface);
+        Ok((specimen, trial, lm, on_surface))
+    }
+
+    /// After a landmark is placed: the next open one becomes current; says so.
+    fn placed(&mut self, lm: &str, how: &str) -> Status {
+        self.current = self.first_open_after(Some(lm));
+        let next = self.current.as_deref().map_or_else(
+            || "every landmark is done".to_owned(),
+            |c| format!("next: {c}"),
+        );
+        Status::info(format!("placed {lm}{how}; {next}"))
+    }
+
+    /// Applies a desk command.
+    #[allow(clippy::too_many_lines)] // reason: one arm per command, each short
+    pub fn apply(&mut self, cmd: DeskCommand, env: &DeskEnv<'_>) -> Effects {
+        let r = match cmd {
+            DeskCommand::SelectSpecimen(id) => {
+                self.select_specimen(&id);
+                return Effects {
+                    then: vec![AppCommand::LoadSpecimen.into()],
+                    ..Effects::default()
+                };
+            }
+            DeskCommand::SelectTrial(id) => {
+                self.select_trial(&id);
+                Ok(None)
+            }
+            DeskCommand::StartTrial => {
+                if env.prefs.operator.trim().is_empty() {
+                    return Effects {
+                        ask_operator: true,
+                        ..Effects::default()
+                    };
+                }
+                let op = env.prefs.operator.clone();
+                self.start_trial(&op).map(|t| {
+                    self.placing = true;
+                    Some(Status::info(format!(
+                        "trial {t} started by {op}; other trials are hidden. Placing is on: \
+                         click the stage to place {}",
+                        self.current.clone().unwrap_or_default()
+                    )))
+                })
+            }
+            DeskCommand::SelectLandmark(id) => {
+                self.current = Some(id);
+                Ok(None)
+            }
+            DeskCommand::StepLandmark(by) => {
+                self.current = self.stepped(by);
+                Ok(None)
+            }
+            DeskCommand::TogglePlacing => {
+                self.placing = !self.placing;
+                return Effects {
+                    then: vec![ViewCommand::Drag(None).into()],
+                    ..Effects::default()
+                };
+            }
+            DeskCommand::StopPlacing => {
+                self.placing = false;
+                Ok(None)
+            }
+            DeskCommand::PlaceOnPlane { view, at } => self.place_on_plane(view, at, env),
+            DeskCommand::PlaceOnSurface { through, direction } => {
+                return self.place_on_surface(through, direction, env);
+            }
+            DeskCommand::PlaceTyped(p) => self.place_typed(p, env),
+            DeskCommand::EstimateFromPartner => self.estimate_from_partner(),
+            DeskCommand::MoveLandmark { landmark, to } => self.target().and_then(|(sp, t)| {
+                let to = env.scan.map_or(to, |sc| clamp_to_volume(&sc.volume, to));
+                self.edit(Edit::SetLandmark {
+                    specimen: sp,
+                    trial: t,
+                    landmark: landmark.clone(),
+                    position_mm: [to.0.x, to.0.y, to.0.z],
+                    method: Method::Slice,
+                    pick: None,
+                    at: Timestamp::now(),
+                })
+                .map(|()| Some(Status::info(format!("moved {landmark}"))))
+            }),
+            DeskCommand::MarkMissing => match self.current.clone() {
+                None => Ok(None),
+                Some(lm) => self.target().and_then(|(sp, t)| {
+                    self.edit(Edit::MarkMissing {
+                        specimen: sp,
+                        trial: t,
+                        landmark: lm.clone(),
+                        at: Timestamp::now(),
+                    })?;
+                    self.current = self.first_open_after(Some(&lm));
+                    Ok(Some(Status::info(format!("{lm} marked missing"))))
+                }),
+            },
+            DeskCommand::ClearLandmark => match self.current.clone() {
+                Some(lm) if self.state_of(&lm).is_some() => self.target().and_then(|(sp, t)| {
+                    self.edit(Edit::ClearLandmark {
+                        specimen: sp,
+                        trial: t,
+                        landmark: lm,
+                    })
+                    .map(|()| None)
+                }),
+                _ => Ok(None),
+            },
+            DeskCommand::SetNote { landmark, note } => self.target().and_then(|(sp, t)| {
+                let note = note.trim();
+                self.edit(Edit::SetNote {
+                    specimen: sp,
+                    trial: t,
+                    landmark,
+                    note: (!note.is_empty()).then(|| note.to_owned()),
+                })
+                .map(|()| None)
+            }),
+            DeskCommand::GoToLandmark => {
+                let p = self
+                    .current
+                    .as_deref()
+                    .and_then(|c| self.trial_ref()?.position(c));
+                return Effects {
+                    then: p
+                        .map(|p| ViewCommand::MoveCursor(WorldPoint::new(p[0], p[1], p[2])).into())
+                        .into_iter()
+                        .collect(),
+                    ..Effects::default()
+                };
+            }
+            DeskCommand::SetTracing(t) => {
+                self.tracing.clone_from(&t);
+                Ok(t.map(|(c, seg)| {
+                    self.placing = true;
+                    Status::info(format!(
+                        "tracing {c}, segment {}: click control points in order from its first \
+                         anchor to its second; Ctrl+Z takes one back",
+                        seg + 1
+                    ))
+                }))
+            }
+            DeskCommand::CycleTracing => {
+                let all: Vec<(String, usize)> = self
+                    .session
+                    .project
+                    .scheme()
+                    .curves
+                    .iter()
+                    .flat_map(|c| (0..c.segments()).map(|k| (c.id.clone(), k)))
+                    .collect();
+                let next = match &self.tracing {
+                    None => all.first().cloned(),
+                    Some(t) => all
+                        .iter()
+                        .position(|x| x == t)
+                        .and_then(|i| all.get(i + 1).cloned()),
+                };
+                return Effects {
+                    then: vec![DeskCommand::SetTracing(next.clone()).into()],
+                    status: next
+                        .is_none()
+                        .then(|| Status::info("back to placing landmarks")),
+                    ..Effects::default()
+                };
+            }
+            DeskCommand::ClearCurve(curve) => self.target().and_then(|(sp, t)| {
+                if self
+                    .trial_ref()
+                    .is_some_and(|tr| tr.curve(&curve).is_some())
+                {
+                    self.edit(Edit::ClearCurve {
+                        specimen: sp,
+                        trial: t,
+                        curve,
+                    })?;
+                }
+                Ok(None)
+            }),
+            DeskCommand::Undo | DeskCommand::Redo => {
+                let undo = cmd == DeskCommand::Undo;
+                let r = if undo {
+                    self.session.undo()
+                } else {
+                    self.session.redo()
+                };
+                self.fix_selection();
+                let verb = if undo { "undo" } else { "redo" };
+                match r {
+                    Some(Ok(what)) => Ok(Some(Status::info(format!(
+                        "{} {what}",
+                        if undo { "undid" } else { "redid" }
+                    )))),
+                    Some(Err(e)) => Err(Status::error(e.to_string())),
+                    None => {
+                        return Effects::status(Status::info(format!("nothing to {verb}")));
+                    }
+                }
+            }
+            DeskCommand::Save => match self.session.save() {
+                Ok(()) => {
+                    return Effects::status(Status::info(format!(
+                        "saved {}",
+                        self.session.path().display()
+                    )));
+                }
+                Err(e) => Err(Status::error(e.to_string())),
+            },
+            DeskCommand::Autosave(recover) => {
+                let r = if recover {
+                    self.session
+                        .recover_autosave()
+                        .map(|()| {
+                            Some(Status::warning(
+                                "recovered the autosave: save (Ctrl+S) to keep it",
+                            ))
+                        })
+                        .map_err(|e| Status::error(e.to_string()))
+                } else {
+                    self.session.remove_autosave();
+                    Ok(None)
+                };
+                self.fix_selection();
+                let mut e = Effects {
+                    then: vec![AppCommand::LoadSpecimen.into()],
+                    changed: recover,
+                    ..Effects::default()
+                };
+                match r {
+                    Ok(s) => e.status = s,
+                    Err(s) => e.status = Some(s),
+                }
+                return e;
+            }
+            DeskCommand::RemoveSpecimen(id) => self
+                .edit(Edit::RemoveSpecimen {
+                    specimen: id.clone(),
+                })
+                .map(|()| {
+                    self.fix_selection();
+                    Some(Status::info(format!(
+                        "removed specimen {id} (Ctrl+Z brings it back)"
+                    )))
+                }),
+            DeskCommand::SetGroup {
+                specimens,
+                key,
+                value,
+            } => {
+                let n = specimens.len();
+                let edits = specimens
+                    .into_iter()
+                    .map(|specimen| Edit::SetGroup {
+                        specimen,
+                        key: key.clone(),
+                        value: value.clone(),
+                    })
+                    .collect();
+                let what = match &value {
+                    Some(v) => format!("set {key} = {v} for {n} specimens"),
+                    None => format!("remove {key} from {n} specimens"),
+                };
+                self.edit_all(edits, what.clone())
+                    .map(|()| Some(Status::info(what)))
+            }
+        };
+        match r {
+            Ok(status) => Effects {
+                status,
+                changed: true,
+                ..Effects::default()
+            },
+            Err(s) => Effects::status(s),
+        }
+    }
+
+    /// Adds specimens already recorded (their scans loaded and fingerprinted) as one step.
+    pub fn insert_specimens(&mut self, specimens: Vec<Specimen>) -> Result<Status, Status> {
+        let n = specimens.len();
+        let ids: Vec<String> = specimens.iter().map(|s| s.id.clone()).collect();
+        let edits = specimens
+            .into_iter()
+            .map(|s| Edit::AddSpecimen {
+                specimen: Box::new(s),
+                index: None,
+            })
             .collect();
-        place(&mut s, &lms[1], [0.0; 3]);
-        assert_eq!(s.first_open_after(Some(&lms[0])), Some(lms[2].clone()));
-        let last = lms.last().unwrap();
-        assert_eq!(s.first_open_after(Some(last)), Some(lms[0].clone()));
-        s.current = Some(lms[0].clone());
-        assert_eq!(s.stepped(-1).as_ref(), Some(last));
+        self.edit_all(edits, format!("add {n} specimens"))?;
+        if self.specimen.is_none()
+            && let Some(first) = ids.first()
+        {
+            self.select_specimen(first);
+        }
+        Ok(Status::info(format!("added {}", ids.join(", "))))
+    }
+
+    /// Places the current landmark at a point clicked on a plane view, snapped to the
+    /// boundary within reach when snapping is on and the landmark lies on the surface (or adds
+    /// the point to the curve being traced).
+    fn place_on_plane(
+        &mut self,
+        view: ViewId,
+        at: WorldPoint,
+        env: &DeskEnv<'_>,
+    ) -> Result<Option<Status>, Status> {
+        if self.tracing.is_some() {
+            let Some(scan) = env.scan else {
+                return Ok(None);
+            };
+            return self
+                .trace_point(clamp_to_volume(&scan.volume, at))
+                .map(Some);
+        }
+        let (specimen, trial, lm, on_surface) = self.placing_target(env)?;
+        let scan = env.scan.expect("placing_target checked");
+        let vol = &scan.volume;
+        let at = clamp_to_volume(vol, at);
+        let (_, _, normal) = plane_basis(vol, env.vs, view);
+        let mut placed = (at, Method::Slice, None, String::new());
+        if env.prefs.snap && on_surface {
+            let iso = &env.vs.iso;
+            match snap_to_boundary(vol, at, normal, iso.value) {
+                Ok(Some(p)) => {
+                    let d = p.point.0 - at.0;
+                    let direction = d.try_normalize(1e-12).or(p.normal).unwrap_or(normal);
+                    placed = (
+                        p.point,
+                        Method::Surface,
+                        PickRecord::of(at, direction, iso.value, &p),
+                        format!(" (snapped {:.3} mm to the boundary)", d.norm()),
+                    );
+                }
+                Ok(None) => {
+                    placed.3 = format!(
+                        " where clicked (no boundary at the {} within {:.2} mm)",
+                        iso.describe(),
+                        snap_options(vol, iso.value).max_distance_mm
+                    );
+                }
+                Err(e) => placed.3 = format!(" where clicked (snapping: {e})"),
+            }
+        }
+        let (p, method, pick, how) = placed;
+        self.edit(Edit::SetLandmark {
+            specimen,
+            trial,
+            landmark: lm.clone(),
+            position_mm: [p.0.x, p.0.y, p.0.z],
+            method,
+            pick,
+            at: Timestamp::now(),
+        })?;
+        Ok(Some(self.placed(&lm, &how)))
+    }
+
+    /// Adds a control point to the curve segment being traced.
+    fn trace_point(&mut self, p: WorldPoint) -> Result<Status, Status> {
+        let Some((curve, seg)) = self.tracing.clone() else {
+            return Err(Status::error("not tracing a curve"));
+        };
+        let (specimen, trial) = self.target()?;
+        let Some(def) = self.session.project.scheme().curve(&curve) else {
+            return Err(Status::error(format!("no curve {curve} in the scheme")));
+        };
+        let n = def.segments();
+        let mut traced = self
+            .trial_ref()
+            .and_then(|t| t.curve(&curve))
+            .map_or_else(|| vec![Vec::new(); n], |c| c.traced_mm.clone());
+        let seg = seg.min(n.saturating_sub(1));
+        traced[seg].push([p.0.x, p.0.y, p.0.z]);
+        let count = traced[seg].len();
+        self.edit(Edit::SetCurve {
+            specimen,
+            trial,
+            curve: curve.clone(),
+            traced_mm: traced,
+            at: Timestamp::now(),
+        })?;
+        Ok(Status::info(format!(
+            "{curve}, segment {}: {count} control points",
+            seg + 1
+        )))
+    }
+
+    /// Places the current landmark where the 3D view's pixel ray meets the surface shown at the
+    /// iso-value (or, while tracing a curve, adds the point there to the curve).
+    fn place_on_surface(
+        &mut self,
+        through: WorldPoint,
+        direction: Vector3<f64>,
+        env: &DeskEnv<'_>,
+    ) -> Effects {
+        let tracing = self.tracing.is_some();
+        let target = if tracing {
+            self.target().map(|(a, b)| (a, b, String::new(), true))
+        } else {
+            self.placing_target(env)
+        };
+        let (specimen, trial, lm, on_surface) = match target {
+            Ok(t) => t,
+            Err(s) => return Effects::status(s),
+        };
+        if !on_surface {
+            return Effects::status(Status::error(format!(
+                "{lm} is a constructed point, not on the surface: place it on a plane view"
+            )));
+        }
+        let Some(scan) = env.scan else {
+            return Effects::default();
+        };
+        let iso = env.vs.iso.value;
+        let hit = match pick_view_ray(&scan.volume, through, direction, &PickOptions::new(iso)) {
+            Ok(Some(p)) => p,
+            Ok(None) => {
+                return Effects::status(Status::error(format!(
+                    "no surface under the pointer at the {}",
+                    env.vs.iso.describe()
+                )));
+            }
+            Err(e) => return Effects::status(Status::error(e.to_string())),
+        };
+        let r = if tracing {
+            self.trace_point(hit.point)
+        } else {
+            let dir = direction.normalize();
+            self.edit(Edit::SetLandmark {
+                specimen,
+                trial,
+                landmark: lm.clone(),
+                position_mm: [hit.point.0.x, hit.point.0.y, hit.point.0.z],
+                method: Method::Surface,
+                pick: PickRecord::of(
+                    WorldPoint(hit.point.0 - dir * hit.distance_mm),
+                    dir,
+                    iso,
+                    &hit,
+                ),
+                at: Timestamp::now(),
+            })
+            .map(|()| self.placed(&lm, " on the surface"))
+        };
+        match r {
+            Ok(s) => Effects {
+                then: vec![ViewCommand::MoveCursor(hit.point).into()],
+                status: Some(s),
+                changed: true,
+                ..Effects::default()
+            },
+            Err(s) => Effects::status(s),
+        }
+    }
+
+    /// Places the current landmark at a typed position (world mm or voxel coordinates of the
+    /// specimen's scan), refused outside the scan.
+    fn place_typed(
+        &mut self,
+        p: TypedPosition,
+        env: &DeskEnv<'_>,
+    ) -> Result<Option<Status>, Status> {
+        let (specimen, trial) = self.target()?;
+        let Some(lm) = self.current.clone() else {
+            return Err(Status::info("pick a landmark in the checklist first"));
+        };
+        let Some(record) = self.specimen_ref().map(|s| s.scan.clone()) else {
+            return Ok(None);
+        };
+        let world = match p {
+            TypedPosition::WorldMm(w) => w,
+            TypedPosition::Voxel(v) => record.world_from_voxel_point(v),
+        };
+        if !record.contains(world) {
+            let v = record.voxel_from_world_point(world);
+            return Err(Status::error(format!(
+                "{lm}: [{:.3}, {:.3}, {:.3}] mm is outside {specimen}'s scan (voxel {:.1}, {:.1}, {:.1}); \
+                 positions are world millimetres",
+                world[0], world[1], world[2], v[0], v[1], v[2]
+            )));
+        }
+        self.edit(Edit::SetLandmark {
+            specimen,
+            trial,
+            landmark: lm.clone(),
+            position_mm: world,
+            method: Method::Typed,
+            pick: None,
+            at: Timestamp::now(),
+        })?;
+        let _ = env;
+        Ok(Some(self.placed(&lm, " at the typed position")))
+    }
+
+    /// Estimates the current landmark from its bilateral partner (the library's rule, as
+    /// `sutura landmark mirror`), keeping what was done as its note; one undo step.
+    fn estimate_from_partner(&mut self) -> Result<Option<Status>, Status> {
+        let (specimen, trial) = self.target()?;
+        let Some(lm) = self.current.clone() else {
+            return Err(Status::info("pick a landmark in the checklist first"));
+        };
+        let tr = self
+            .trial_ref()
+            .ok_or_else(|| Status::error("no trial selected"))?;
+        let e = estimate_from_partner(self.session.project.scheme(), tr, &lm)
+            .map_err(|e| Status::error(format!("{lm}: {e}")))?;
+        let note = e.describe();
+        self.edit_all(
+            vec![
+                Edit::SetLandmark {
+                    specimen: specimen.clone(),
+                    trial: trial.clone(),
+                    landmark: lm.clone(),
+                    position_mm: e.position_mm,
+                    method: Method::Estimated,
+                    pick: None,
+                    at: Timestamp::now(),
+                },
+                Edit::SetNote {
+                    specimen,
+                    trial,
+                    landmark: lm.clone(),
+                    note: Some(note.clone()),
+                },
+            ],
+            format!("estimate {lm} from its partner"),
+        )?;
+        self.current = self.first_open_after(Some(&lm));
+        Ok(Some(Status::warning(format!("{lm} {note}"))))
     }
 }

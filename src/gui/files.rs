@@ -1,21 +1,24 @@
 //! The open dialog, drawn in egui itself (no GTK or portal needed, so it works wherever the
 //! window does).
 //!
-//! It lists a folder: sub-folders first, then the files Sutura reads (`.nii`, `.nii.gz`,
-//! `.hdr`, `.img`, `.tif`, `.tiff`, and landmark projects), each group in natural order (`s2`
-//! before `s10`); hidden entries are left out. A double click enters a folder or opens a file; the path field takes a
-//! typed path. For a folder of TIFF slices, "Open this folder" opens the folder shown.
+//! It lists a folder: sub-folders first, then the files the dialog is for (scans, landmark
+//! projects, or landmark schemes), each group in the library's natural order (`s2` before
+//! `s10`); hidden entries are left out. A double click enters a folder or opens a file; the
+//! path field (which has the focus) takes a typed path, Enter opens it, Esc cancels. For a
+//! folder of TIFF slices, "Open this folder" opens the folder shown. When adding scans, several
+//! entries can be ticked at once (Ctrl+click); when saving a project, a name field says the
+//! file's name.
 //!
 //! egui 0.37's built-in fonts cover Latin text but no emoji or pictographs, so the dialog uses
 //! words and a trailing `/` where other dialogs draw icons.
 
-use std::cmp::Ordering;
 use std::path::{Path, PathBuf};
 
-use eframe::egui::{self, Color32, RichText};
+use eframe::egui::{self, Color32, Key, RichText};
 
-use super::state::DialogKind;
-use sutura_core::landmarks::project::FORMAT_NAME;
+use super::command::DialogKind;
+use sutura_core::io::names::{is_scan_name, natural_cmp};
+use sutura_core::landmarks::project::is_project_file;
 
 /// A listed entry.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -28,79 +31,26 @@ pub struct Entry {
 /// How the dialog ended this frame.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub enum Outcome {
-    Open(PathBuf),
+    /// The paths chosen (one, except when adding scans).
+    Chose(Vec<PathBuf>),
     Cancelled,
 }
 
-/// Whether Sutura reads a file of this name (by its extension).
-#[must_use]
-pub fn is_scan_name(name: &str) -> bool {
-    let n = name.to_lowercase();
-    [".nii", ".nii.gz", ".hdr", ".img", ".tif", ".tiff"]
-        .iter()
-        .any(|e| n.ends_with(e))
-}
-
-/// Whether a file is a landmark project: a `.json` file whose first kilobytes name the
-/// project format (other JSON files are not listed).
-#[must_use]
-pub fn is_project_file(path: &Path) -> bool {
-    use std::io::Read;
-    let is_json = path
-        .extension()
-        .is_some_and(|e| e.eq_ignore_ascii_case("json"));
-    if !is_json {
-        return false;
-    }
-    let mut head = Vec::with_capacity(1024);
-    std::fs::File::open(path)
-        .and_then(|f| f.take(1024).read_to_end(&mut head))
-        .is_ok_and(|_| {
-            let text = String::from_utf8_lossy(&head);
-            let compact: String = text.split_whitespace().collect();
-            compact.contains(&format!("\"format\":\"{FORMAT_NAME}\""))
-        })
-}
-
-/// Compares names with runs of digits by value (`s2` before `s10`), then case-insensitively.
-#[must_use]
-pub fn natural_cmp(a: &str, b: &str) -> Ordering {
-    let (mut x, mut y) = (a.chars().peekable(), b.chars().peekable());
-    loop {
-        match (x.peek().copied(), y.peek().copied()) {
-            (None, None) => return a.cmp(b),
-            (None, Some(_)) => return Ordering::Less,
-            (Some(_), None) => return Ordering::Greater,
-            (Some(c), Some(d)) if c.is_ascii_digit() && d.is_ascii_digit() => {
-                let take = |it: &mut std::iter::Peekable<std::str::Chars<'_>>| {
-                    let mut s = String::new();
-                    while let Some(ch) = it.peek().copied().filter(char::is_ascii_digit) {
-                        s.push(ch);
-                        it.next();
-                    }
-                    s
-                };
-                let (p, q) = (take(&mut x), take(&mut y));
-                let (pt, qt) = (p.trim_start_matches('0'), q.trim_start_matches('0'));
-                let o = pt.len().cmp(&qt.len()).then_with(|| pt.cmp(qt));
-                if o != Ordering::Equal {
-                    return o;
-                }
-            }
-            (Some(c), Some(d)) => {
-                let o = c.to_lowercase().cmp(d.to_lowercase());
-                if o != Ordering::Equal {
-                    return o;
-                }
-                x.next();
-                y.next();
-            }
+/// Which files a dialog of this kind lists besides folders.
+fn lists(kind: DialogKind, path: &Path, name: &str) -> bool {
+    match kind {
+        DialogKind::Scheme => name.to_lowercase().ends_with(".toml"),
+        DialogKind::Project | DialogKind::SaveProject => is_project_file(path),
+        DialogKind::ExportFolder => false,
+        DialogKind::ScanFile | DialogKind::SliceFolder | DialogKind::AddScans => {
+            is_scan_name(name) || is_project_file(path)
         }
     }
 }
 
-/// The folders and scan files in `dir`, folders first, each in natural order.
-pub fn list(dir: &Path) -> std::io::Result<Vec<Entry>> {
+/// The folders and the files a dialog of `kind` is for in `dir`, folders first, each in natural
+/// order.
+pub fn list(dir: &Path, kind: DialogKind) -> std::io::Result<Vec<Entry>> {
     let mut out = Vec::new();
     for e in std::fs::read_dir(dir)? {
         let e = e?;
@@ -112,7 +62,7 @@ pub fn list(dir: &Path) -> std::io::Result<Vec<Entry>> {
         let Ok(meta) = std::fs::metadata(e.path()) else {
             continue;
         };
-        if meta.is_dir() || is_scan_name(&name) || is_project_file(&e.path()) {
+        if meta.is_dir() || lists(kind, &e.path(), &name) {
             out.push(Entry {
                 name,
                 is_dir: meta.is_dir(),
@@ -133,9 +83,14 @@ pub struct FileBrowser {
     kind: DialogKind,
     dir: PathBuf,
     entries: Vec<Entry>,
-    selected: Option<usize>,
+    /// Ticked entries (one, except when adding scans).
+    selected: Vec<usize>,
     path_text: String,
+    /// The new project's file name (saving a project).
+    name_text: String,
     error: Option<String>,
+    /// The focus goes to the path field when the dialog opens.
+    focus: bool,
 }
 
 impl FileBrowser {
@@ -146,9 +101,15 @@ impl FileBrowser {
             kind,
             dir: PathBuf::new(),
             entries: Vec::new(),
-            selected: None,
+            selected: Vec::new(),
             path_text: String::new(),
+            name_text: if kind == DialogKind::SaveProject {
+                "project.json".into()
+            } else {
+                String::new()
+            },
             error: None,
+            focus: true,
         };
         b.go(dir);
         b
@@ -168,16 +129,29 @@ impl FileBrowser {
     /// Shows `dir` (made absolute); on error keeps the current listing and says why.
     pub fn go(&mut self, dir: &Path) {
         let dir = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
-        match list(&dir) {
+        match list(&dir, self.kind) {
             Ok(entries) => {
                 self.entries = entries;
                 self.path_text = dir.display().to_string();
                 self.dir = dir;
-                self.selected = None;
+                self.selected.clear();
                 self.error = None;
             }
             Err(e) => self.error = Some(format!("{}: {e}", dir.display())),
         }
+    }
+
+    /// What "this folder" means for the dialog: the folder itself, or the project file named
+    /// in it.
+    fn chosen_here(&self) -> Option<Outcome> {
+        if self.kind == DialogKind::SaveProject {
+            let name = self.name_text.trim();
+            if name.is_empty() {
+                return None;
+            }
+            return Some(Outcome::Chose(vec![self.dir.join(name)]));
+        }
+        Some(Outcome::Chose(vec![self.dir.clone()]))
     }
 
     fn title(&self) -> &'static str {
@@ -186,6 +160,9 @@ impl FileBrowser {
             DialogKind::SliceFolder => "Open a folder of TIFF slices",
             DialogKind::Project => "Open a landmark project",
             DialogKind::ExportFolder => "Choose the folder to export into",
+            DialogKind::Scheme => "Choose a landmark scheme",
+            DialogKind::AddScans => "Add scans as specimens",
+            DialogKind::SaveProject => "Save the new project as",
         }
     }
 
@@ -199,15 +176,24 @@ impl FileBrowser {
     fn picks_folder(&self) -> bool {
         matches!(
             self.kind,
-            DialogKind::SliceFolder | DialogKind::ExportFolder
+            DialogKind::SliceFolder
+                | DialogKind::ExportFolder
+                | DialogKind::AddScans
+                | DialogKind::SaveProject
         )
     }
 
     /// Draws the dialog; returns how it ended, if it did this frame.
+    #[allow(clippy::too_many_lines)] // reason: one dialog, drawn top to bottom
     pub fn show(&mut self, ctx: &egui::Context) -> Option<Outcome> {
         let mut outcome = None;
         let mut go_to: Option<PathBuf> = None;
         let mut open = true;
+        if ctx.input(|i| i.key_pressed(Key::Escape)) {
+            return Some(Outcome::Cancelled);
+        }
+        let focus = std::mem::take(&mut self.focus);
+        let multi = self.kind == DialogKind::AddScans;
         egui::Window::new(self.title())
             .open(&mut open)
             .collapsible(false)
@@ -228,12 +214,17 @@ impl FileBrowser {
                                 .desired_width(f32::INFINITY),
                         )
                         .labelled_by(l.id);
-                    if r.lost_focus() && ui.input(|i| i.key_pressed(egui::Key::Enter)) {
+                    if focus {
+                        r.request_focus();
+                    }
+                    if r.lost_focus() && ui.input(|i| i.key_pressed(Key::Enter)) {
                         let p = PathBuf::from(self.path_text.trim());
-                        if p.is_dir() {
+                        if p.is_dir() && p != self.dir {
                             go_to = Some(p);
+                        } else if p.is_dir() && self.picks_folder() {
+                            outcome = self.chosen_here();
                         } else if p.is_file() {
-                            outcome = Some(Outcome::Open(p));
+                            outcome = Some(Outcome::Chose(vec![p]));
                         } else {
                             self.error = Some(format!("{}: no such file or folder", p.display()));
                         }
@@ -253,16 +244,27 @@ impl FileBrowser {
                             } else {
                                 RichText::new(format!("{}    {}", e.name, size_text(e.bytes)))
                             };
-                            let r = ui.selectable_label(self.selected == Some(i), text);
+                            let r = ui.selectable_label(self.selected.contains(&i), text);
                             if r.clicked() {
-                                self.selected = Some(i);
+                                let more = multi && ui.input(|i| i.modifiers.command);
+                                if !more {
+                                    self.selected.clear();
+                                }
+                                if let Some(k) = self.selected.iter().position(|s| *s == i) {
+                                    self.selected.remove(k);
+                                } else {
+                                    self.selected.push(i);
+                                }
                             }
                             if r.double_clicked() {
                                 let p = self.dir.join(&e.name);
-                                if e.is_dir {
+                                if e.is_dir
+                                    && !(multi
+                                        && sutura_core::io::tiff::list_slices(&p, u64::MAX).is_ok())
+                                {
                                     go_to = Some(p);
                                 } else {
-                                    outcome = Some(Outcome::Open(p));
+                                    outcome = Some(Outcome::Chose(vec![p]));
                                 }
                             }
                         }
@@ -270,26 +272,49 @@ impl FileBrowser {
                 if let Some(err) = &self.error {
                     ui.label(RichText::new(err).color(Color32::from_rgb(240, 120, 100)));
                 }
+                if self.kind == DialogKind::SaveProject {
+                    ui.horizontal(|ui| {
+                        let l = ui.label("File name");
+                        let r = ui
+                            .add(
+                                egui::TextEdit::singleline(&mut self.name_text)
+                                    .desired_width(260.0),
+                            )
+                            .labelled_by(l.id);
+                        if r.lost_focus() && ui.input(|i| i.key_pressed(Key::Enter)) {
+                            outcome = self.chosen_here();
+                        }
+                    });
+                }
                 ui.separator();
                 ui.horizontal(|ui| {
-                    let chosen = self.selected.and_then(|i| self.entries.get(i));
-                    let can_open = chosen.is_some_and(|e| !e.is_dir || self.picks_folder());
+                    let chosen: Vec<&Entry> = self
+                        .selected
+                        .iter()
+                        .filter_map(|i| self.entries.get(*i))
+                        .collect();
+                    let can_open = !chosen.is_empty()
+                        && chosen.iter().all(|e| !e.is_dir || self.picks_folder())
+                        && self.kind != DialogKind::SaveProject;
+                    let open_text = if multi { "Add ticked" } else { "Open" };
                     if ui
-                        .add_enabled(can_open, egui::Button::new("Open"))
+                        .add_enabled(can_open, egui::Button::new(open_text))
                         .clicked()
-                        && let Some(e) = chosen
                     {
-                        outcome = Some(Outcome::Open(self.dir.join(&e.name)));
+                        outcome = Some(Outcome::Chose(
+                            chosen.iter().map(|e| self.dir.join(&e.name)).collect(),
+                        ));
                     }
-                    let this = if self.kind == DialogKind::ExportFolder {
-                        "Use this folder"
-                    } else {
-                        "Open this folder"
+                    let this = match self.kind {
+                        DialogKind::ExportFolder => "Use this folder",
+                        DialogKind::AddScans => "Add every scan in this folder",
+                        DialogKind::SaveProject => "Save here",
+                        _ => "Open this folder",
                     };
                     if self.picks_folder()
                         && ui.button(this).on_hover_text("the folder shown").clicked()
                     {
-                        outcome = Some(Outcome::Open(self.dir.clone()));
+                        outcome = self.chosen_here();
                     }
                     if ui.button("Cancel").clicked() {
                         outcome = Some(Outcome::Cancelled);
@@ -322,13 +347,6 @@ mod tests {
     use super::*;
 
     #[test]
-    fn natural_order_puts_numbers_by_value() {
-        let mut v = vec!["s10.tif", "s2.tif", "S1.tif", "s02b.tif", "a.nii"];
-        v.sort_by(|a, b| natural_cmp(a, b));
-        assert_eq!(v, ["a.nii", "S1.tif", "s2.tif", "s02b.tif", "s10.tif"]);
-    }
-
-    #[test]
     fn lists_folders_first_then_scans_only() {
         let d = tempfile::tempdir().unwrap();
         for f in [
@@ -349,7 +367,7 @@ mod tests {
         .unwrap();
         std::fs::create_dir(d.path().join("slices")).unwrap();
         std::fs::create_dir(d.path().join(".cache")).unwrap();
-        let names: Vec<(String, bool)> = list(d.path())
+        let names: Vec<(String, bool)> = list(d.path(), DialogKind::ScanFile)
             .unwrap()
             .into_iter()
             .map(|e| (e.name, e.is_dir))

@@ -4,19 +4,22 @@
 //! here. Every picture of the scan comes from [`sutura_core::render`] on worker threads and is only
 //! shown here as a texture (uploaded once, then replaced with `TextureHandle::set`).
 //!
-//! State comes in three tiers ([`state`]): the [`Document`] (what was opened; saved explicitly
-//! once it holds a project), [`Preferences`] (kept with eframe's storage) and the
-//! [`ViewState`] (never saved). Panels and views are functions that read the state and return
-//! [`Command`]s; the [`App`] applies them after the frame, so tests drive the app with the same
-//! values the UI produces.
+//! State comes in three tiers ([`state`]): the [`Document`] (what was opened), [`Preferences`]
+//! (kept with eframe's storage) and the [`ViewState`] (never saved); an open project is the
+//! [`desk`]. Panels and views are functions that read the state and return [`Command`]s, grouped
+//! by the type that owns what they change ([`command`]); the [`App`] hands each group to its
+//! owner after the frame, which applies it with an exhaustive `match`. Keys, menu shortcuts and
+//! the help all come from one table ([`actions`]). Tests drive the app with the same values the
+//! UI produces.
 //!
 //! The layout: one large working view (the *stage*) with the four other views live in a
 //! *strip* beside it; a click on a small view puts it on the stage. Each view has an identity
 //! colour for its frame and for its line in the other plane views' crosshair.
 //!
-//! A landmark project opens on the *desk* ([`desk`]: the document with its undo history and
-//! autosave); [`digitise`] draws the checklist and the landmarks over the views, and
-//! [`analysis_view`] the whole sample's superimposition and the exports.
+//! A landmark project opens on the *desk* ([`desk`]: the library's project session with what
+//! the user is working on); [`desk_panel`] draws its column, [`marks`] the landmarks over the
+//! views, [`new_project`] the form that starts a project from scans, and [`analysis_view`] the
+//! whole sample's superimposition and the exports.
 //!
 //! Loading ([`loader`]) and rendering ([`worker`]) run on background threads and report by
 //! channel; the UI thread never waits for either. The 3D view shows a coarse picture while it
@@ -24,20 +27,37 @@
 //!
 //! Only this module imports egui and eframe.
 
+pub mod actions;
+pub mod adding;
 pub mod analysis_view;
 pub mod app;
 pub mod camera;
+pub mod command;
 pub mod desk;
-pub mod digitise;
+pub mod desk_panel;
+pub mod documents;
 pub mod files;
 pub mod loader;
+pub mod marks;
+pub mod new_project;
 pub mod panels;
+pub mod prompts;
+pub mod smoke;
 pub mod state;
+pub mod status;
 pub mod view;
+pub mod views;
 pub mod worker;
 
-pub use app::{After, App, Prompt, Smoke};
-pub use state::{Answer, Command, Document, Preferences, ViewId, ViewState, Workspace};
+pub use app::App;
+pub use command::{
+    AnalysisCommand, Answer, AppCommand, Command, DeskCommand, DialogKind, PrefsCommand,
+    TypedPosition, ViewCommand, Workspace,
+};
+pub use prompts::{After, Prompt};
+pub use smoke::Smoke;
+pub use state::{Document, Preferences, ViewId, ViewState};
+pub use status::{Level, Status};
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -50,6 +70,8 @@ use eframe::egui;
 pub const SAMPLE_SCAN: &str = "sample_volumes/HDC-002.nii.gz";
 /// The sample landmark project opened when the workstation starts without a path.
 pub const SAMPLE_PROJECT: &str = "sample_volumes/sample_project.json";
+/// The bundled example landmark scheme, offered for a new project.
+pub const SAMPLE_SCHEME: &str = "sample_volumes/scheme.toml";
 
 /// What to say when there is no display to open a window on.
 const NO_DISPLAY: &str = "no display to open the workstation on (neither DISPLAY nor \
@@ -66,6 +88,12 @@ pub fn sample_scan() -> Option<PathBuf> {
 #[must_use]
 pub fn sample_project() -> Option<PathBuf> {
     bundled(SAMPLE_PROJECT)
+}
+
+/// The bundled example scheme, found as [`sample_scan`] is (absolute).
+#[must_use]
+pub fn sample_scheme() -> Option<PathBuf> {
+    bundled(SAMPLE_SCHEME).map(|p| std::path::absolute(&p).unwrap_or(p))
 }
 
 fn bundled(rel: &str) -> Option<PathBuf> {

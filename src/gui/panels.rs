@@ -4,59 +4,19 @@
 
 use eframe::egui::{self, Color32, RichText, Ui};
 
-use super::loader::Loading;
-use super::state::{
-    Command, DialogKind, Document, Preferences, Scan, ViewId, ViewState, VolumeMode, Workspace,
-};
-use super::view::{colour32, format_value, hover_text};
-use sutura_core::geometry::format_length_mm;
-use sutura_core::render::{ColourMap, WindowLevel};
+use std::path::Path;
+use std::time::Instant;
 
-/// Every keyboard shortcut, as the help overlay lists it (the app's `shortcuts` handles them).
-pub const SHORTCUTS: &[(&str, &str)] = &[
-    ("F1  or  H", "show or hide this help"),
-    ("Ctrl+O", "open a scan file"),
-    ("Ctrl+Shift+O", "open a folder of TIFF slices"),
-    ("Esc", "close help · cancel loading"),
-    (
-        "1 2 3 4 5",
-        "put the i, j, k, oblique or 3D view on the stage",
-    ),
-    ("Tab  /  Shift+Tab", "next / previous view on the stage"),
-    ("Up / Down", "next / previous slice (3D: elevation)"),
-    ("Page Up / Page Down", "ten slices forward / back"),
-    ("Left / Right", "oblique: turn the plane · 3D: orbit"),
-    ("+  /  -", "zoom the stage view in / out"),
-    ("R  /  Shift+R", "reset the stage view / every view"),
-    ("W", "reset the window to the scan's range"),
-    ("C", "crosshair on / off"),
-    ("B", "scale bar on / off"),
-    ("M", "3D: surface or projection"),
-    ("[  ]", "3D: surface threshold down / up"),
-    (
-        "Ctrl+Q",
-        "quit (asks first if the project has unsaved changes)",
-    ),
-    (
-        "P",
-        "placing on / off: a click on the stage places the current landmark",
-    ),
-    ("N  /  Shift+N", "next / previous landmark"),
-    ("X", "mark the current landmark missing"),
-    ("Delete", "clear the current landmark"),
-    ("G", "move the crosshair to the current landmark"),
-    ("S", "snap surface landmarks to the boundary on / off"),
-    ("L", "landmark labels on / off"),
-    (
-        "T",
-        "trace the next curve segment (after the last: back to landmarks)",
-    ),
-    ("Ctrl+T", "new trial of the specimen"),
-    ("Ctrl+Z", "undo"),
-    ("Ctrl+Shift+Z  or  Ctrl+Y", "redo"),
-    ("Ctrl+S", "save the project"),
-    ("A", "analysis workspace / back to digitising"),
-];
+use super::actions::{Action, help_rows, keys_text};
+use super::command::{
+    AppCommand, Command, DeskCommand, DialogKind, PrefsCommand, ViewCommand, Workspace,
+};
+use super::desk::Desk;
+use super::state::{Document, Preferences, Scan, ViewId, ViewState, VolumeMode};
+use super::status::Status;
+use super::view::{colour32, format_value, hover_text};
+use sutura_core::geometry::{VoxelSizeMm, format_length_mm};
+use sutura_core::render::{ColourMap, WindowLevel};
 
 /// What the pointer does, for the help overlay.
 pub const POINTER: &[(&str, &str)] = &[
@@ -71,7 +31,10 @@ pub const POINTER: &[(&str, &str)] = &[
     ("Ctrl + wheel", "zoom about the pointer"),
     ("double click", "reset the view"),
     ("click a small view", "put it on the stage"),
-    ("drop a file", "open it (a scan or a project)"),
+    (
+        "drop files",
+        "open a scan or a project · add scans to the new-project form",
+    ),
     (
         "placing: click",
         "place the current landmark (3D view: on the surface)",
@@ -83,70 +46,42 @@ pub const POINTER: &[(&str, &str)] = &[
     ),
 ];
 
-/// The top bar: the project and scan menus, the workspace and stage selectors, and help.
+/// A menu entry for an action: its text and its keys from the action table.
+fn entry(ui: &mut egui::Ui, enabled: bool, text: impl Into<String>, action: Action) -> bool {
+    ui.add_enabled(
+        enabled,
+        egui::Button::new(text.into()).shortcut_text(keys_text(action)),
+    )
+    .clicked()
+}
+
+/// The top bar: the file and edit menus, the workspace and stage selectors, and help.
 #[allow(clippy::too_many_lines)] // reason: the bar's menus and selectors, left to right
 pub fn top_bar_ui(
     ui: &mut Ui,
     doc: &Document,
+    desk: Option<&Desk>,
     prefs: &Preferences,
     workspace: Workspace,
-) -> Option<Command> {
-    let mut cmd = None;
+) -> Vec<Command> {
+    let mut out: Vec<Command> = Vec::new();
     egui::MenuBar::new().ui(ui, |ui| {
-        ui.menu_button("Project", |ui| {
-            if ui.button("Open project…").clicked() {
-                cmd = Some(Command::ShowOpenDialog(DialogKind::Project));
+        ui.menu_button("File", |ui| {
+            if entry(ui, true, "New project…", Action::NewProject) {
+                out.push(AppCommand::NewProject.into());
             }
-            let s = doc.session.as_ref();
-            if ui
-                .add_enabled(
-                    s.is_some_and(|s| s.is_dirty() && !s.read_only),
-                    egui::Button::new("Save").shortcut_text("Ctrl+S"),
-                )
-                .clicked()
-            {
-                cmd = Some(Command::Save);
+            if entry(ui, true, "Open project…", Action::OpenProject) {
+                out.push(AppCommand::ShowDialog(DialogKind::Project).into());
             }
-            ui.separator();
-            let undo = s.and_then(|s| s.next_undo()).map(|w| format!("Undo {w}"));
-            if ui
-                .add_enabled(
-                    undo.is_some(),
-                    egui::Button::new(undo.unwrap_or_else(|| "Undo".into()))
-                        .shortcut_text("Ctrl+Z"),
-                )
-                .clicked()
-            {
-                cmd = Some(Command::Undo);
+            if entry(ui, true, "Open scan file…", Action::OpenScan) {
+                out.push(AppCommand::ShowDialog(DialogKind::ScanFile).into());
             }
-            let redo = s.and_then(|s| s.next_redo()).map(|w| format!("Redo {w}"));
-            if ui
-                .add_enabled(
-                    redo.is_some(),
-                    egui::Button::new(redo.unwrap_or_else(|| "Redo".into()))
-                        .shortcut_text("Ctrl+Shift+Z"),
-                )
-                .clicked()
-            {
-                cmd = Some(Command::Redo);
+            if entry(ui, true, "Open folder of slices…", Action::OpenSliceFolder) {
+                out.push(AppCommand::ShowDialog(DialogKind::SliceFolder).into());
             }
-            ui.separator();
-            if ui
-                .add_enabled(
-                    s.is_some(),
-                    egui::Button::new("New trial").shortcut_text("Ctrl+T"),
-                )
-                .clicked()
-            {
-                cmd = Some(Command::StartTrial);
-            }
-        });
-        ui.menu_button("Scan", |ui| {
-            if ui.button("Open scan file…").clicked() {
-                cmd = Some(Command::ShowOpenDialog(DialogKind::ScanFile));
-            }
-            if ui.button("Open folder of slices…").clicked() {
-                cmd = Some(Command::ShowOpenDialog(DialogKind::SliceFolder));
+            let dirty = desk.is_some_and(|d| d.session.is_dirty() && !d.session.is_read_only());
+            if entry(ui, dirty, "Save project", Action::Save) {
+                out.push(DeskCommand::Save.into());
             }
             ui.separator();
             let id = ui.scope_id().with("tiff_voxel_size");
@@ -155,7 +90,7 @@ pub fn top_bar_ui(
                     .unwrap_or_else(|| prefs.tiff_voxel_size.clone())
             });
             ui.horizontal(|ui| {
-                let l = ui.label("TIFF voxel size");
+                let l = ui.label("Voxel size for TIFF scans");
                 let r = ui
                     .add(
                         egui::TextEdit::singleline(&mut text)
@@ -167,9 +102,22 @@ pub fn top_bar_ui(
                         "for TIFF scans without a voxel size: 36um, or 36um,36um,50um for x,y,z",
                     );
                 if r.lost_focus() && text.trim() != prefs.tiff_voxel_size {
-                    cmd = Some(Command::SetTiffVoxelSize(text.clone()));
+                    match VoxelSizeMm::parse_optional(&text) {
+                        Ok(v) => out.push(PrefsCommand::SetTiffVoxelSize(v).into()),
+                        Err(e) => {
+                            ui.ctx()
+                                .data_mut(|d| d.insert_temp(id.with("error"), e.to_string()));
+                        }
+                    }
                 }
             });
+            if let Some(e) = ui.ctx().data(|d| d.get_temp::<String>(id.with("error"))) {
+                ui.label(
+                    RichText::new(e)
+                        .small()
+                        .color(Color32::from_rgb(240, 120, 100)),
+                );
+            }
             ui.data_mut(|d| d.insert_temp(id, text));
             if !prefs.recent.is_empty() {
                 ui.separator();
@@ -184,60 +132,97 @@ pub fn top_bar_ui(
                         .on_hover_text(p.display().to_string())
                         .clicked()
                     {
-                        cmd = Some(Command::Open(p.clone()));
+                        out.push(AppCommand::Open(p.clone()).into());
                     }
                 }
             }
             ui.separator();
-            if ui.button("Quit").clicked() {
-                cmd = Some(Command::Quit);
+            if entry(ui, true, "Quit", Action::Quit) {
+                out.push(AppCommand::Quit.into());
+            }
+        });
+        ui.menu_button("Edit", |ui| {
+            let s = desk.map(|d| &d.session);
+            let undo = s.and_then(|s| s.next_undo()).map(|w| format!("Undo {w}"));
+            if entry(
+                ui,
+                undo.is_some(),
+                undo.unwrap_or_else(|| "Undo".into()),
+                Action::Undo,
+            ) {
+                out.push(DeskCommand::Undo.into());
+            }
+            let redo = s.and_then(|s| s.next_redo()).map(|w| format!("Redo {w}"));
+            if entry(
+                ui,
+                redo.is_some(),
+                redo.unwrap_or_else(|| "Redo".into()),
+                Action::Redo,
+            ) {
+                out.push(DeskCommand::Redo.into());
+            }
+            ui.separator();
+            if entry(ui, desk.is_some(), "New trial", Action::NewTrial) {
+                out.push(DeskCommand::StartTrial.into());
+            }
+            if ui
+                .add_enabled(desk.is_some(), egui::Button::new("Add specimens…"))
+                .clicked()
+            {
+                out.push(AppCommand::ShowDialog(DialogKind::AddScans).into());
             }
         });
         ui.add_space(12.0);
-        if doc.session.is_some() {
-            for (w, name, key) in [
-                (Workspace::Digitise, "Digitise", "A: switch"),
-                (Workspace::Analysis, "Analysis", "A: switch"),
+        if desk.is_some() {
+            for (w, name) in [
+                (Workspace::Digitise, "Digitising"),
+                (Workspace::Analysis, "Analysis"),
             ] {
                 if ui
                     .selectable_label(workspace == w, RichText::new(name).strong())
-                    .on_hover_text(key)
+                    .on_hover_text(format!("{}: switch", keys_text(Action::Workspace)))
                     .clicked()
                 {
-                    cmd = Some(Command::SetWorkspace(w));
+                    out.push(AppCommand::SetWorkspace(w).into());
                 }
             }
             ui.add_space(12.0);
         }
-        ui.label(RichText::new("Stage").weak());
-        for v in ViewId::ALL {
-            let text = RichText::new(v.label()).color(if prefs.stage == v {
-                colour32(v.colour())
-            } else {
-                Color32::from_gray(200)
-            });
-            if ui
-                .selectable_label(prefs.stage == v, text)
-                .on_hover_text(format!("key {}", v.index() + 1))
-                .clicked()
-            {
-                cmd = Some(Command::SetStage(v));
+        if doc.scan.is_some() {
+            ui.label(RichText::new("Stage").weak());
+            for v in ViewId::ALL {
+                let text = RichText::new(v.label()).color(if prefs.stage == v {
+                    colour32(v.colour())
+                } else {
+                    Color32::from_gray(200)
+                });
+                if ui
+                    .selectable_label(prefs.stage == v, text)
+                    .on_hover_text(format!("key {}", keys_text(Action::Stage(v))))
+                    .clicked()
+                {
+                    out.push(PrefsCommand::SetStage(v).into());
+                }
             }
         }
         ui.with_layout(egui::Layout::right_to_left(egui::Align::Center), |ui| {
             if ui.button("Help").clicked() {
-                cmd = Some(Command::ToggleHelp);
+                out.push(AppCommand::ToggleHelp.into());
             }
             if let Some(s) = &doc.scan {
                 ui.label(RichText::new(s.name()).strong());
             }
-            if let Some(s) = &doc.session {
-                let dirty = if s.is_dirty() { " (unsaved)" } else { "" };
-                ui.label(RichText::new(format!("{}{dirty} ·", s.name())).weak());
+            if let Some(d) = desk {
+                let dirty = if d.session.is_dirty() {
+                    " (unsaved)"
+                } else {
+                    ""
+                };
+                ui.label(RichText::new(format!("{}{dirty} ·", d.name())).weak());
             }
         });
     });
-    cmd
+    out
 }
 
 /// The controls column: scan facts, display, oblique plane, 3D view, overlays.
@@ -252,7 +237,8 @@ pub fn controls_ui(
         ui.label("No scan open.");
         ui.label(
             RichText::new(
-                "Project > Open project, Scan > Open (Ctrl+O), or drop a file on the window.",
+                "File > New project (Ctrl+N) to start one from your scans, File > Open project, \
+                 File > Open scan (Ctrl+O), or drop a file on the window.",
             )
             .weak(),
         );
@@ -287,7 +273,7 @@ fn heading(ui: &mut Ui, text: &str) {
 }
 
 fn scan_facts_ui(ui: &mut Ui, scan: &Scan) {
-    heading(ui, "Scan");
+    heading(ui, "This scan");
     let v = &scan.volume;
     let d = v.dims();
     let sp = v.spacing_mm();
@@ -354,12 +340,12 @@ fn display_ui(ui: &mut Ui, scan: &Scan, prefs: &Preferences, vs: &ViewState) -> 
             if (c.changed() || w.changed())
                 && let Some(wl) = WindowLevel::new(centre, width)
             {
-                cmd = Some(Command::SetWindow(wl));
+                cmd = Some(ViewCommand::SetWindow(wl).into());
             }
         });
     ui.horizontal(|ui| {
         if ui.button("Scan range").on_hover_text("W").clicked() {
-            cmd = Some(Command::ResetWindow);
+            cmd = Some(ViewCommand::ResetWindow.into());
         }
         egui::ComboBox::from_id_salt("colour_map")
             .selected_text(colour_map_name(prefs.colour_map))
@@ -369,7 +355,7 @@ fn display_ui(ui: &mut Ui, scan: &Scan, prefs: &Preferences, vs: &ViewState) -> 
                         .selectable_label(prefs.colour_map == m, colour_map_name(m))
                         .clicked()
                     {
-                        cmd = Some(Command::SetColourMap(m));
+                        cmd = Some(PrefsCommand::SetColourMap(m).into());
                     }
                 }
             });
@@ -381,11 +367,13 @@ fn display_ui(ui: &mut Ui, scan: &Scan, prefs: &Preferences, vs: &ViewState) -> 
                 format_value(p.centre),
                 format_value(p.width)
             ));
-            if r.clicked() {
-                cmd = Some(Command::ApplyPreset(i));
+            if r.clicked()
+                && let Some(wl) = WindowLevel::new(p.centre, p.width)
+            {
+                cmd = Some(ViewCommand::SetWindow(wl).into());
             }
             if r.secondary_clicked() {
-                cmd = Some(Command::DeletePreset(i));
+                cmd = Some(PrefsCommand::DeletePreset(i).into());
             }
         }
     });
@@ -402,7 +390,13 @@ fn display_ui(ui: &mut Ui, scan: &Scan, prefs: &Preferences, vs: &ViewState) -> 
             .labelled_by(l.id);
         let enter = edit.lost_focus() && ui.input(|i| i.key_pressed(egui::Key::Enter));
         if (ui.button("Keep window").clicked() || enter) && !name.trim().is_empty() {
-            cmd = Some(Command::SavePreset(name.clone()));
+            cmd = Some(
+                PrefsCommand::SavePreset {
+                    name: name.clone(),
+                    window: vs.window,
+                }
+                .into(),
+            );
             name.clear();
         }
     });
@@ -442,7 +436,7 @@ fn oblique_ui(ui: &mut Ui, vs: &ViewState) -> Option<Command> {
             }
         });
     if changed {
-        cmd = Some(Command::SetObliqueAngles(a));
+        cmd = Some(ViewCommand::SetObliqueAngles(a).into());
     }
     ui.horizontal(|ui| {
         if ui
@@ -450,7 +444,7 @@ fn oblique_ui(ui: &mut Ui, vs: &ViewState) -> Option<Command> {
             .on_hover_text("the k plane's orientation")
             .clicked()
         {
-            cmd = Some(Command::SetObliqueAngles([0.0; 3]));
+            cmd = Some(ViewCommand::SetObliqueAngles([0.0; 3]).into());
         }
         ui.label(RichText::new("Ctrl + drag to turn").weak().small());
     });
@@ -466,18 +460,30 @@ fn volume_ui(ui: &mut Ui, scan: &Scan, vs: &ViewState) -> Option<Command> {
             (VolumeMode::Projection, "projection"),
         ] {
             if ui.selectable_label(vs.volume_mode == m, name).clicked() {
-                cmd = Some(Command::SetVolumeMode(m));
+                cmd = Some(ViewCommand::SetVolumeMode(m).into());
             }
         }
     });
-    let mut t = vs.threshold;
+    let mut t = vs.iso.value;
     let (lo, hi) = scan.full_range;
     if hi > lo
         && ui
-            .add(egui::Slider::new(&mut t, lo..=hi).text("threshold"))
+            .add(egui::Slider::new(&mut t, lo..=hi).text("iso-value"))
+            .on_hover_text(format!(
+                "the surface's grey value, also used by snapping and 3D picking: {}",
+                vs.iso.describe()
+            ))
             .changed()
     {
-        cmd = Some(Command::SetThreshold(t));
+        cmd = Some(ViewCommand::SetIsoValue(t).into());
+    }
+    if vs.iso != scan.iso
+        && ui
+            .small_button("Back to ISO-50")
+            .on_hover_text(scan.iso.describe())
+            .clicked()
+    {
+        cmd = Some(ViewCommand::ResetIsoValue.into());
     }
     let mut az = vs.orbit.azimuth_deg;
     let mut el = vs.orbit.elevation_deg;
@@ -501,14 +507,17 @@ fn volume_ui(ui: &mut Ui, scan: &Scan, vs: &ViewState) -> Option<Command> {
             )
             .labelled_by(l.id);
         if a.changed() || e.changed() {
-            cmd = Some(Command::SetOrbitAngles {
-                azimuth_deg: az,
-                elevation_deg: el,
-            });
+            cmd = Some(
+                ViewCommand::SetOrbitAngles {
+                    azimuth_deg: az,
+                    elevation_deg: el,
+                }
+                .into(),
+            );
         }
     });
     if ui.button("Reset 3D view").clicked() {
-        cmd = Some(Command::ResetView(ViewId::Volume));
+        cmd = Some(ViewCommand::ResetView(ViewId::Volume).into());
     }
     cmd
 }
@@ -518,32 +527,27 @@ fn overlays_ui(ui: &mut Ui, prefs: &Preferences) -> Option<Command> {
     heading(ui, "Overlays");
     let mut c = prefs.show_crosshair;
     if ui.checkbox(&mut c, "crosshair").changed() {
-        cmd = Some(Command::ToggleCrosshair);
+        cmd = Some(PrefsCommand::ToggleCrosshair.into());
     }
     let mut b = prefs.show_scale_bar;
     if ui.checkbox(&mut b, "scale bar").changed() {
-        cmd = Some(Command::ToggleScaleBar);
+        cmd = Some(PrefsCommand::ToggleScaleBar.into());
     }
     if ui
         .button("Reset all views")
         .on_hover_text("Shift+R")
         .clicked()
     {
-        cmd = Some(Command::ResetAll);
+        cmd = Some(ViewCommand::ResetAll.into());
     }
     cmd
 }
 
 /// The status line: the hover read-out, or the last message.
-pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState) {
+pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState, status: Option<&Status>) {
     ui.horizontal(|ui| {
-        if let Some((msg, is_error)) = &vs.message {
-            let colour = if *is_error {
-                Color32::from_rgb(240, 120, 100)
-            } else {
-                Color32::from_gray(200)
-            };
-            ui.label(RichText::new(msg).color(colour));
+        if let Some(st) = status {
+            ui.label(RichText::new(&st.text).color(st.colour()));
             ui.separator();
         }
         match (&vs.hover, &doc.scan) {
@@ -554,7 +558,7 @@ pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState) {
                 let c = vs.cursor.0;
                 ui.label(
                     RichText::new(format!(
-                        "crosshair: x {:.3}  y {:.3}  z {:.3} mm   window {} / {}",
+                        "crosshair: x {:.3}  y {:.3}  z {:.3} mm   window centre {}, width {}",
                         c.x,
                         c.y,
                         c.z,
@@ -566,7 +570,7 @@ pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState) {
                 let _ = s;
             }
             _ => {
-                ui.label(RichText::new("F1: help").weak());
+                ui.label(RichText::new(format!("{}: help", keys_text(Action::Help))).weak());
             }
         }
     });
@@ -574,7 +578,13 @@ pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState) {
 
 /// The loading card over the stage: file, progress bar, cancel.
 #[must_use]
-pub fn loading_ui(ctx: &egui::Context, loading: &Loading) -> Option<Command> {
+pub fn loading_ui(
+    ctx: &egui::Context,
+    path: &Path,
+    fraction: Option<f32>,
+    started: Instant,
+    cancelling: bool,
+) -> Option<Command> {
     let mut cmd = None;
     egui::Window::new("Opening")
         .collapsible(false)
@@ -585,32 +595,29 @@ pub fn loading_ui(ctx: &egui::Context, loading: &Loading) -> Option<Command> {
             ui.set_width(360.0);
             ui.label(RichText::new("Opening").strong());
             ui.label(
-                RichText::new(loading.path.display().to_string())
+                RichText::new(path.display().to_string())
                     .monospace()
                     .small(),
             );
             ui.add_space(4.0);
-            let bar = match loading.fraction() {
+            let bar = match fraction {
                 Some(f) => egui::ProgressBar::new(f).show_percentage(),
                 None => egui::ProgressBar::new(0.0).animate(true),
             };
             ui.add(bar);
             ui.horizontal(|ui| {
-                ui.label(
-                    RichText::new(format!("{:.1} s", loading.started.elapsed().as_secs_f64()))
-                        .weak(),
-                );
+                ui.label(RichText::new(format!("{:.1} s", started.elapsed().as_secs_f64())).weak());
                 ui.with_layout(egui::Layout::right_to_left(egui::Align::Center), |ui| {
-                    let label = if loading.is_cancelling() {
+                    let label = if cancelling {
                         "Cancelling…"
                     } else {
                         "Cancel"
                     };
                     if ui
-                        .add_enabled(!loading.is_cancelling(), egui::Button::new(label))
+                        .add_enabled(!cancelling, egui::Button::new(label))
                         .clicked()
                     {
-                        cmd = Some(Command::CancelLoad);
+                        cmd = Some(AppCommand::CancelLoad.into());
                     }
                 });
             });
@@ -636,9 +643,9 @@ pub fn help_ui(ctx: &egui::Context, open: bool) -> Option<Command> {
                 .spacing([18.0, 3.0])
                 .striped(true)
                 .show(ui, |ui| {
-                    for (k, what) in SHORTCUTS {
-                        ui.label(RichText::new(*k).monospace().strong());
-                        ui.label(*what);
+                    for (k, what) in help_rows() {
+                        ui.label(RichText::new(k).monospace().strong());
+                        ui.label(what);
                         ui.end_row();
                     }
                 });
@@ -655,5 +662,5 @@ pub fn help_ui(ctx: &egui::Context, open: bool) -> Option<Command> {
                     }
                 });
         });
-    (!still_open).then_some(Command::ToggleHelp)
+    (!still_open).then_some(AppCommand::ToggleHelp.into())
 }

@@ -1,24 +1,26 @@
-//! The workstation's state in three tiers, and the commands that change it.
+//! The workstation's state in three tiers.
 //!
-//! - [`Document`]: what the user opened and will later save explicitly (for now the scan;
-//!   the landmark project joins it). Panels only read it.
+//! - [`Document`]: what the user opened (the scan; the project lives on the desk). Panels only
+//!   read it.
 //! - [`Preferences`]: how the user likes to work (the large view, colour map, window presets,
 //!   overlays). Saved with eframe's storage; every field has a default (`#[serde(default)]`),
-//!   so preferences written by an older version still load.
-//! - [`ViewState`]: where each view looks, the crosshair, the window, the hover read-out: never
-//!   saved.
+//!   so preferences written by an older version still load. Changed only by
+//!   [`Preferences::apply`].
+//! - [`ViewState`]: where each view looks, the crosshair, the window, the iso-value, the hover
+//!   read-out: never saved. Changed only by [`ViewState::apply`].
 //!
-//! Panels and views return [`Command`]s; the app applies them after the frame
-//! ([`ViewState::apply`] for the view commands). Tests drive the app with the same values.
+//! Panels and views return [`Command`](super::command::Command)s; the app hands each to its
+//! owner after the frame. Tests drive the app with the same values.
 
 use std::path::PathBuf;
 use std::sync::Arc;
 
-use nalgebra::Vector3;
 use serde::{Deserialize, Serialize};
 
-use super::camera::{Oblique, Orbit, PlaneCamera, ScreenMap, onto_slice, slice_index, zoom_about};
+use super::camera::{Oblique, Orbit, PlaneCamera, onto_slice, slice_index, zoom_about};
+use super::command::{PrefsCommand, ViewCommand};
 use sutura_core::geometry::{VoxelIndex, VoxelPoint, WorldPoint};
+use sutura_core::landmarks::pick::{IsoValue, default_iso_value};
 use sutura_core::render::{ColourMap, Interpolation, WindowLevel};
 use sutura_core::volume::Volume;
 
@@ -110,207 +112,11 @@ impl ViewId {
 /// What the 3D view shows.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
 pub enum VolumeMode {
-    /// The shaded iso-surface at the threshold.
+    /// The shaded surface at the scan's iso-value.
     #[default]
     Surface,
     /// The maximum-intensity projection, through the window.
     Projection,
-}
-
-/// Which file dialog to open.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum DialogKind {
-    /// A scan file (`NIfTI`, TIFF).
-    ScanFile,
-    /// A folder of TIFF slices.
-    SliceFolder,
-    /// A landmark project (`.json`).
-    Project,
-    /// The folder exports are written into.
-    ExportFolder,
-}
-
-/// The two workspaces: digitising one specimen, or the whole sample's analysis.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
-pub enum Workspace {
-    #[default]
-    Digitise,
-    Analysis,
-}
-
-/// An answer to the unsaved-changes question.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Answer {
-    Save,
-    Discard,
-    Cancel,
-}
-
-/// Everything the analysis view can write (see [`super::analysis_view`]).
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum ExportKind {
-    /// The superimposition's tables (CSV, JSON, NPY).
-    AnalysisTables,
-    /// Its charts (SVG and PNG).
-    AnalysisFigures,
-    LongCsv,
-    WideCsv,
-    Json,
-    Npy,
-    Ply,
-    Measurements,
-}
-
-/// Everything a panel or view can ask for; applied after the frame.
-#[derive(Clone, Debug, PartialEq)]
-pub enum Command {
-    /// Open a scan (a file or a folder of slices) in the background.
-    Open(PathBuf),
-    ShowOpenDialog(DialogKind),
-    /// The voxel size to give TIFF scans opened from now on (`36um` or `36um,36um,50um`;
-    /// empty: the file's own).
-    SetTiffVoxelSize(String),
-    CancelLoad,
-    Quit,
-
-    /// Put a view on the large stage.
-    SetStage(ViewId),
-    /// Step `by` views through [`ViewId::ALL`] for the stage.
-    CycleStage(isize),
-    /// Move through slices: `steps` voxel planes along a voxel-plane view's axis, or `steps`
-    /// smallest voxel spacings along the oblique plane's normal.
-    Scroll {
-        view: ViewId,
-        steps: i32,
-    },
-    /// Zoom a view by `factor` (> 1 magnifies) keeping `anchor` (a world point on the view's
-    /// plane, or on the 3D image plane) fixed on screen; `None` zooms about the centre.
-    Zoom {
-        view: ViewId,
-        factor: f64,
-        anchor: Option<WorldPoint>,
-    },
-    /// Move a view's content by a world displacement (the pointer's drag).
-    Pan {
-        view: ViewId,
-        by: Vector3<f64>,
-    },
-    /// Fit the view to the volume again (and, for the 3D view, the default orbit).
-    ResetView(ViewId),
-    /// Every view, the crosshair, the oblique plane and the window back to their start.
-    ResetAll,
-    /// Move the crosshair point (clamped to the volume).
-    MoveCursor(WorldPoint),
-
-    /// Shift the window's centre by `centre_by` (intensity units) and scale its width.
-    NudgeWindow {
-        centre_by: f64,
-        width_factor: f64,
-    },
-    SetWindow(WindowLevel),
-    /// The window from the scan's intensity percentiles.
-    ResetWindow,
-    ApplyPreset(usize),
-    /// Keep the current window as a named preset.
-    SavePreset(String),
-    DeletePreset(usize),
-    SetColourMap(ColourMap),
-
-    /// Turn the oblique plane about its own `u` and `v` axes (degrees).
-    TurnOblique {
-        about_u_deg: f64,
-        about_v_deg: f64,
-    },
-    /// Set the oblique plane's `[tilt_u, tilt_v, spin]` in degrees.
-    SetObliqueAngles([f64; 3]),
-
-    /// Orbit the 3D view (degrees).
-    Orbit {
-        d_azimuth_deg: f64,
-        d_elevation_deg: f64,
-    },
-    SetOrbitAngles {
-        azimuth_deg: f64,
-        elevation_deg: f64,
-    },
-    SetVolumeMode(VolumeMode),
-    SetThreshold(f64),
-    /// Change the threshold by a fraction of the scan's intensity range.
-    NudgeThreshold(f64),
-
-    ToggleCrosshair,
-    ToggleScaleBar,
-    ToggleHelp,
-
-    /// Select a specimen of the open project and open its scan.
-    SelectSpecimen(String),
-    SelectTrial(String),
-    /// Start a new trial of the selected specimen (asks for the operator's name once).
-    StartTrial,
-    /// The operator's name for trials from now on; starts the trial that asked for it.
-    SetOperator(String),
-    /// Make a landmark the current one.
-    SelectLandmark(String),
-    /// Step the current landmark through the scheme.
-    StepLandmark(isize),
-    /// Placing mode on or off: in it, a click on a view places the current landmark.
-    TogglePlacing,
-    /// Place the current landmark at a point clicked on a plane view (snapped to the
-    /// boundary when snapping is on and the landmark lies on the surface).
-    PlaceOnPlane {
-        view: ViewId,
-        at: WorldPoint,
-    },
-    /// Place the current landmark on the 3D view's surface: the ray from `origin` along
-    /// `direction` (the pixel's view ray).
-    PlaceOnSurface {
-        origin: WorldPoint,
-        direction: Vector3<f64>,
-    },
-    /// Move a placed landmark to a point (a drag on a plane view).
-    MoveLandmark {
-        landmark: String,
-        to: WorldPoint,
-    },
-    /// Mark the current landmark missing on this specimen.
-    MarkMissing,
-    /// Forget the current landmark's position or state.
-    ClearLandmark,
-    SetNote {
-        landmark: String,
-        note: String,
-    },
-    /// Move the crosshair to the current landmark.
-    GoToLandmark,
-    /// Trace a curve: while placing, clicks add control points to segment `segment` (between
-    /// its anchors `segment` and `segment + 1`); `None` goes back to landmarks.
-    SetTracing(Option<(String, usize)>),
-    /// Remove a curve's traced points.
-    ClearCurve(String),
-    /// Trace the next curve segment of the scheme (after the last one: back to landmarks).
-    CycleTracing,
-    ToggleSnap,
-    /// The iso-value snapping looks for.
-    SetSnapThreshold(f64),
-    Undo,
-    Redo,
-    Save,
-    /// Answer the unsaved-changes question.
-    Unsaved(Answer),
-    /// Recover (`true`) or discard the autosave found beside the project.
-    Autosave(bool),
-    /// Open a specimen whose scan is not the one recorded, read-only (`true`), or cancel.
-    Mismatch(bool),
-    SetWorkspace(Workspace),
-    /// Digitise ↔ analysis.
-    ToggleWorkspace,
-    /// Landmark labels in the views on or off.
-    ToggleLabels,
-    RunAnalysis,
-    /// PC axes of the morphospace (0-based).
-    SetAxes([usize; 2]),
-    SetExportFolder(PathBuf),
-    Export(ExportKind),
 }
 
 /// A scan that is open, with what the views need to start from.
@@ -324,27 +130,24 @@ pub struct Scan {
     pub robust_range: (f64, f64),
     /// The minimum and maximum intensity.
     pub full_range: (f64, f64),
-    /// The median: with the 99.5th percentile it gives the default surface threshold.
-    pub median: f64,
-    /// The ISO-50 iso-value (halfway between the background and material peaks), where the
-    /// histogram has two; what snapping to the boundary looks for at first.
-    pub iso50: Option<f64>,
+    /// The scan's default iso-value (ISO-50, or the library's stated fallback): the 3D view's
+    /// surface, snapping and 3D picking start at it.
+    pub iso: IsoValue,
 }
 
 impl Scan {
     /// Summarises a loaded volume (one pass over the voxels for the percentiles).
     #[must_use]
     pub fn new(id: u64, path: PathBuf, volume: Volume) -> Self {
-        let p = volume.percentiles(&[0.0, 0.5, 50.0, 99.5, 100.0]);
-        let iso50 = sutura_core::landmarks::pick::iso50_threshold(&volume).ok();
+        let p = volume.percentiles(&[0.0, 0.5, 99.5, 100.0]);
+        let iso = default_iso_value(&volume);
         Self {
             id,
             path,
             volume: Arc::new(volume),
-            robust_range: (p[1], p[3]),
-            full_range: (p[0], p[4]),
-            median: p[2],
-            iso50,
+            robust_range: (p[1], p[2]),
+            full_range: (p[0], p[3]),
+            iso,
         }
     }
 
@@ -357,14 +160,6 @@ impl Scan {
                 centre: 0.0,
                 width: 1.0,
             })
-    }
-
-    /// Halfway between the median (the embedding matrix, in a specimen scan) and the 99.5th
-    /// percentile (the densest material): a first guess for the specimen's surface, as the
-    /// command line's `render` uses.
-    #[must_use]
-    pub fn default_threshold(&self) -> f64 {
-        0.5 * (self.median + self.robust_range.1)
     }
 
     /// The file or folder name.
@@ -381,8 +176,6 @@ impl Scan {
 #[derive(Debug, Default)]
 pub struct Document {
     pub scan: Option<Arc<Scan>>,
-    /// The landmark project, when one is open.
-    pub session: Option<super::desk::Session>,
 }
 
 /// Where the strip of small views sits.
@@ -417,7 +210,8 @@ pub struct Preferences {
     pub presets: Vec<WindowPreset>,
     /// Recently opened scans, newest first.
     pub recent: Vec<PathBuf>,
-    /// Voxel size given for TIFF scans (`36um` or `36um,36um,50um`); empty: the file's own.
+    /// Voxel size given for TIFF scans (`36um` or `36um,36um,50um`, as
+    /// [`sutura_core::geometry::VoxelSizeMm`] reads it); empty: the file's own.
     pub tiff_voxel_size: String,
     /// The name new trials are recorded under.
     pub operator: String,
@@ -457,6 +251,47 @@ impl Preferences {
         self.recent.insert(0, path);
         self.recent.truncate(8);
     }
+
+    /// The voxel size for TIFF scans opened from now on (`None`: the file's own).
+    #[must_use]
+    pub fn tiff_voxel_size_mm(&self) -> Option<[f64; 3]> {
+        sutura_core::geometry::VoxelSizeMm::parse_optional(&self.tiff_voxel_size)
+            .ok()
+            .flatten()
+            .map(|v| v.0)
+    }
+
+    /// Applies a preferences command.
+    pub fn apply(&mut self, cmd: PrefsCommand) {
+        match cmd {
+            PrefsCommand::SetStage(v) => self.stage = v,
+            PrefsCommand::CycleStage(by) => self.stage = self.stage.cycled(by),
+            PrefsCommand::SavePreset { name, window } => {
+                let name = name.trim();
+                if !name.is_empty() {
+                    self.presets.retain(|p| p.name != name);
+                    self.presets.push(WindowPreset {
+                        name: name.to_owned(),
+                        centre: window.centre,
+                        width: window.width,
+                    });
+                }
+            }
+            PrefsCommand::DeletePreset(i) => {
+                if i < self.presets.len() {
+                    self.presets.remove(i);
+                }
+            }
+            PrefsCommand::SetColourMap(m) => self.colour_map = m,
+            PrefsCommand::ToggleCrosshair => self.show_crosshair = !self.show_crosshair,
+            PrefsCommand::ToggleScaleBar => self.show_scale_bar = !self.show_scale_bar,
+            PrefsCommand::ToggleLabels => self.landmark_labels = !self.landmark_labels,
+            PrefsCommand::ToggleSnap => self.snap = !self.snap,
+            PrefsCommand::SetTiffVoxelSize(v) => {
+                self.tiff_voxel_size = v.map(|v| v.to_text()).unwrap_or_default();
+            }
+        }
+    }
 }
 
 /// What the pointer is over: the status line's read-out.
@@ -479,9 +314,8 @@ pub struct ViewState {
     pub orbit: Orbit,
     pub window: WindowLevel,
     pub volume_mode: VolumeMode,
-    pub threshold: f64,
-    /// Each view's screen map in the last frame (`None` for the 3D view and hidden views).
-    pub maps: [Option<ScreenMap>; 5],
+    /// The one surface value: the 3D view's surface, snapping on the planes and picking in 3D.
+    pub iso: IsoValue,
     pub hover: Option<Hover>,
     pub help_open: bool,
     /// Wheel movement not yet turned into whole slices.
@@ -492,8 +326,6 @@ pub struct ViewState {
     /// When a plane view last changed: a plane view too slow to redraw at full resolution
     /// within a frame shows a half-resolution picture until it has been still for a moment.
     pub planes_changed_at: f64,
-    /// A message for the status line, and whether it reports an error.
-    pub message: Option<(String, bool)>,
     /// A landmark being dragged to a new place on a plane view, and where it is now.
     pub drag: Option<(String, WorldPoint)>,
 }
@@ -515,14 +347,12 @@ impl Default for ViewState {
                 width: 1.0,
             },
             volume_mode: VolumeMode::Surface,
-            threshold: 0.0,
-            maps: [None; 5],
+            iso: IsoValue::given(0.0),
             hover: None,
             help_open: false,
             wheel_rest: 0.0,
             volume_changed_at: f64::NEG_INFINITY,
             planes_changed_at: f64::NEG_INFINITY,
-            message: None,
             drag: None,
         }
     }
@@ -537,7 +367,7 @@ impl ViewState {
             cursor: v.centre_world(),
             planes: [PlaneCamera::fitted(v); 4],
             window: scan.default_window(),
-            threshold: scan.default_threshold(),
+            iso: scan.iso.clone(),
             ..Self::default()
         }
     }
@@ -548,50 +378,57 @@ impl ViewState {
         view.axis().map(|a| slice_index(volume, a, self.cursor))
     }
 
-    /// Applies a view command; other commands are the app's and are ignored here. `now` is
-    /// the time in seconds (for the 3D view's coarse-then-full rendering).
+    /// Applies a view command. `now` is the time in seconds (for the 3D view's coarse-then-full
+    /// rendering).
     #[allow(clippy::too_many_lines)] // reason: one arm per command, each a few lines
-    pub fn apply(&mut self, scan: &Scan, prefs: &mut Preferences, cmd: &Command, now: f64) {
+    pub fn apply(&mut self, scan: &Scan, cmd: ViewCommand, now: f64) {
         let vol = &scan.volume;
         if matches!(
             cmd,
-            Command::Scroll { .. }
-                | Command::Zoom { .. }
-                | Command::Pan { .. }
-                | Command::MoveCursor(_)
-                | Command::NudgeWindow { .. }
-                | Command::SetWindow(_)
-                | Command::TurnOblique { .. }
-                | Command::SetObliqueAngles(_)
+            ViewCommand::Scroll { .. }
+                | ViewCommand::Wheel { .. }
+                | ViewCommand::Zoom { .. }
+                | ViewCommand::Pan { .. }
+                | ViewCommand::MoveCursor(_)
+                | ViewCommand::NudgeWindow { .. }
+                | ViewCommand::SetWindow(_)
+                | ViewCommand::TurnOblique { .. }
+                | ViewCommand::SetObliqueAngles(_)
         ) {
             self.planes_changed_at = now;
         }
         match cmd {
-            Command::SetStage(v) => prefs.stage = *v,
-            Command::CycleStage(by) => prefs.stage = prefs.stage.cycled(*by),
-            Command::Scroll { view, steps } => self.scroll(vol, *view, *steps),
-            Command::Zoom {
+            ViewCommand::Scroll { view, steps } => self.scroll(vol, view, steps),
+            ViewCommand::Wheel { view, lines } => {
+                self.wheel_rest += lines;
+                let steps = self.wheel_rest.trunc();
+                self.wheel_rest -= steps;
+                if steps != 0.0 {
+                    self.scroll(vol, view, steps as i32);
+                }
+            }
+            ViewCommand::Zoom {
                 view,
                 factor,
                 anchor,
             } => {
-                if *view == ViewId::Volume {
+                if view == ViewId::Volume {
                     let centre = WorldPoint(vol.centre_world().0 + self.orbit.pan);
                     let (c, z) =
-                        zoom_about(centre, self.orbit.zoom, anchor.unwrap_or(centre), *factor);
+                        zoom_about(centre, self.orbit.zoom, anchor.unwrap_or(centre), factor);
                     self.orbit.zoom = z;
                     self.orbit.pan = c.0 - vol.centre_world().0;
                     self.volume_changed_at = now;
                 } else {
                     let cam = &mut self.planes[view.index()];
                     let (c, z) =
-                        zoom_about(cam.centre, cam.zoom, anchor.unwrap_or(cam.centre), *factor);
+                        zoom_about(cam.centre, cam.zoom, anchor.unwrap_or(cam.centre), factor);
                     cam.centre = c;
                     cam.zoom = z;
                 }
             }
-            Command::Pan { view, by } => {
-                if *view == ViewId::Volume {
+            ViewCommand::Pan { view, by } => {
+                if view == ViewId::Volume {
                     self.orbit.pan -= by;
                     self.volume_changed_at = now;
                 } else {
@@ -599,22 +436,22 @@ impl ViewState {
                     cam.centre = WorldPoint(cam.centre.0 - by);
                 }
             }
-            Command::ResetView(view) => {
-                if *view == ViewId::Volume {
+            ViewCommand::ResetView(view) => {
+                if view == ViewId::Volume {
                     self.orbit = Orbit::default();
                     self.volume_changed_at = now;
                 } else {
                     self.planes[view.index()] = PlaneCamera::fitted(vol);
                 }
             }
-            Command::ResetAll => {
+            ViewCommand::ResetAll => {
                 let keep_help = self.help_open;
                 *self = Self::for_scan(scan);
                 self.help_open = keep_help;
                 self.volume_changed_at = now;
             }
-            Command::MoveCursor(p) => self.cursor = clamp_to_volume(vol, *p),
-            Command::NudgeWindow {
+            ViewCommand::MoveCursor(p) => self.cursor = clamp_to_volume(vol, p),
+            ViewCommand::NudgeWindow {
                 centre_by,
                 width_factor,
             } => {
@@ -626,57 +463,33 @@ impl ViewState {
                 }
                 self.touch_volume_if(VolumeMode::Projection, now);
             }
-            Command::SetWindow(wl) => {
+            ViewCommand::SetWindow(wl) => {
                 if let Some(wl) = WindowLevel::new(wl.centre, wl.width) {
                     self.window = wl;
                     self.touch_volume_if(VolumeMode::Projection, now);
                 }
             }
-            Command::ResetWindow => {
+            ViewCommand::ResetWindow => {
                 self.window = scan.default_window();
                 self.touch_volume_if(VolumeMode::Projection, now);
             }
-            Command::ApplyPreset(i) => {
-                if let Some(p) = prefs.presets.get(*i)
-                    && let Some(wl) = WindowLevel::new(p.centre, p.width)
-                {
-                    self.window = wl;
-                    self.touch_volume_if(VolumeMode::Projection, now);
-                }
-            }
-            Command::SavePreset(name) => {
-                let name = name.trim();
-                if !name.is_empty() {
-                    prefs.presets.retain(|p| p.name != name);
-                    prefs.presets.push(WindowPreset {
-                        name: name.to_owned(),
-                        centre: self.window.centre,
-                        width: self.window.width,
-                    });
-                }
-            }
-            Command::DeletePreset(i) if *i < prefs.presets.len() => {
-                prefs.presets.remove(*i);
-            }
-            Command::SetColourMap(m) => {
-                prefs.colour_map = *m;
-                self.touch_volume_if(VolumeMode::Projection, now);
-            }
-            Command::TurnOblique {
+            ViewCommand::TurnOblique {
                 about_u_deg,
                 about_v_deg,
-            } => self.oblique = self.oblique.turned(*about_u_deg, *about_v_deg),
-            Command::SetObliqueAngles(a) if a.iter().all(|x| x.is_finite()) => {
-                self.oblique = Oblique::from_angles_deg(*a);
+            } => self.oblique = self.oblique.turned(about_u_deg, about_v_deg),
+            ViewCommand::SetObliqueAngles(a) => {
+                if a.iter().all(|x| x.is_finite()) {
+                    self.oblique = Oblique::from_angles_deg(a);
+                }
             }
-            Command::Orbit {
+            ViewCommand::Orbit {
                 d_azimuth_deg,
                 d_elevation_deg,
             } => {
-                self.orbit = self.orbit.turned(*d_azimuth_deg, *d_elevation_deg);
+                self.orbit = self.orbit.turned(d_azimuth_deg, d_elevation_deg);
                 self.volume_changed_at = now;
             }
-            Command::SetOrbitAngles {
+            ViewCommand::SetOrbitAngles {
                 azimuth_deg,
                 elevation_deg,
             } => {
@@ -685,29 +498,40 @@ impl ViewState {
                     elevation_deg: 0.0,
                     ..self.orbit
                 };
-                self.orbit = o.turned(*azimuth_deg, *elevation_deg);
+                self.orbit = o.turned(azimuth_deg, elevation_deg);
                 self.volume_changed_at = now;
             }
-            Command::SetVolumeMode(m) => {
-                self.volume_mode = *m;
+            ViewCommand::SetVolumeMode(m) => {
+                self.volume_mode = m;
                 self.volume_changed_at = now;
             }
-            Command::SetThreshold(t) if t.is_finite() => {
-                self.threshold = *t;
+            ViewCommand::ToggleVolumeMode => {
+                self.volume_mode = match self.volume_mode {
+                    VolumeMode::Surface => VolumeMode::Projection,
+                    VolumeMode::Projection => VolumeMode::Surface,
+                };
                 self.volume_changed_at = now;
             }
-            Command::NudgeThreshold(frac) => {
-                let span = scan.full_range.1 - scan.full_range.0;
-                let t = self.threshold + frac * span;
+            ViewCommand::SetIsoValue(t) => {
                 if t.is_finite() {
-                    self.threshold = t.clamp(scan.full_range.0, scan.full_range.1);
-                    self.volume_changed_at = now;
+                    self.iso = IsoValue::given(t);
+                    self.touch_volume_if(VolumeMode::Surface, now);
                 }
             }
-            Command::ToggleCrosshair => prefs.show_crosshair = !prefs.show_crosshair,
-            Command::ToggleScaleBar => prefs.show_scale_bar = !prefs.show_scale_bar,
-            Command::ToggleHelp => self.help_open = !self.help_open,
-            _ => {}
+            ViewCommand::NudgeIsoValue(frac) => {
+                let span = scan.full_range.1 - scan.full_range.0;
+                let t = self.iso.value + frac * span;
+                if t.is_finite() {
+                    self.iso = IsoValue::given(t.clamp(scan.full_range.0, scan.full_range.1));
+                    self.touch_volume_if(VolumeMode::Surface, now);
+                }
+            }
+            ViewCommand::ResetIsoValue => {
+                self.iso = scan.iso.clone();
+                self.touch_volume_if(VolumeMode::Surface, now);
+            }
+            ViewCommand::Hover(h) => self.hover = h,
+            ViewCommand::Drag(d) => self.drag = d,
         }
     }
 
@@ -776,14 +600,12 @@ mod tests {
     #[test]
     fn scrolling_steps_one_voxel_plane_and_stops_at_the_ends() {
         let s = scan();
-        let mut prefs = Preferences::default();
         let mut vs = ViewState::for_scan(&s);
         // centre of 5 slices along k is 2
         assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(2));
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::Scroll {
+            ViewCommand::Scroll {
                 view: ViewId::PlaneK,
                 steps: 1,
             },
@@ -794,8 +616,7 @@ mod tests {
         assert_eq!(vs.slice(&s.volume, ViewId::PlaneI), Some(4));
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::Scroll {
+            ViewCommand::Scroll {
                 view: ViewId::PlaneK,
                 steps: 10,
             },
@@ -804,8 +625,7 @@ mod tests {
         assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(4));
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::Scroll {
+            ViewCommand::Scroll {
                 view: ViewId::PlaneK,
                 steps: -99,
             },
@@ -817,13 +637,11 @@ mod tests {
     #[test]
     fn window_nudges_and_resets() {
         let s = scan();
-        let mut prefs = Preferences::default();
         let mut vs = ViewState::for_scan(&s);
         let w0 = vs.window;
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::NudgeWindow {
+            ViewCommand::NudgeWindow {
                 centre_by: 25.0,
                 width_factor: 2.0,
             },
@@ -831,7 +649,7 @@ mod tests {
         );
         assert_relative_eq!(vs.window.centre, w0.centre + 25.0);
         assert_relative_eq!(vs.window.width, w0.width * 2.0);
-        vs.apply(&s, &mut prefs, &Command::ResetWindow, 0.0);
+        vs.apply(&s, ViewCommand::ResetWindow, 0.0);
         assert_eq!(vs.window, w0);
     }
 
@@ -842,28 +660,40 @@ mod tests {
         let mut vs = ViewState::for_scan(&s);
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::SetWindow(WindowLevel {
+            ViewCommand::SetWindow(WindowLevel {
                 centre: 100.0,
                 width: 40.0,
             }),
             0.0,
         );
-        vs.apply(&s, &mut prefs, &Command::SavePreset(" bone ".into()), 0.0);
+        prefs.apply(PrefsCommand::SavePreset {
+            name: " bone ".into(),
+            window: vs.window,
+        });
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::SetWindow(WindowLevel {
+            ViewCommand::SetWindow(WindowLevel {
                 centre: 10.0,
                 width: 4.0,
             }),
             0.0,
         );
-        vs.apply(&s, &mut prefs, &Command::SavePreset("bone".into()), 0.0);
+        prefs.apply(PrefsCommand::SavePreset {
+            name: "bone".into(),
+            window: vs.window,
+        });
         assert_eq!(prefs.presets.len(), 1);
         assert_relative_eq!(prefs.presets[0].centre, 10.0);
-        vs.apply(&s, &mut prefs, &Command::ResetWindow, 0.0);
-        vs.apply(&s, &mut prefs, &Command::ApplyPreset(0), 0.0);
+        vs.apply(&s, ViewCommand::ResetWindow, 0.0);
+        let p = &prefs.presets[0];
+        vs.apply(
+            &s,
+            ViewCommand::SetWindow(WindowLevel {
+                centre: p.centre,
+                width: p.width,
+            }),
+            0.0,
+        );
         assert_relative_eq!(vs.window.width, 4.0);
         // they survive a round trip through storage, and missing fields take defaults
         let text = serde_json::to_string(&prefs).unwrap();
@@ -877,12 +707,10 @@ mod tests {
     #[test]
     fn cursor_is_clamped_into_the_volume() {
         let s = scan();
-        let mut prefs = Preferences::default();
         let mut vs = ViewState::for_scan(&s);
         vs.apply(
             &s,
-            &mut prefs,
-            &Command::MoveCursor(WorldPoint::new(-5.0, 0.1, 99.0)),
+            ViewCommand::MoveCursor(WorldPoint::new(-5.0, 0.1, 99.0)),
             0.0,
         );
         let v = s.volume.world_to_voxel(vs.cursor).0;
@@ -893,12 +721,10 @@ mod tests {
 
     #[test]
     fn stage_cycles_through_all_views() {
-        let s = scan();
         let mut prefs = Preferences::default();
-        let mut vs = ViewState::for_scan(&s);
         let mut seen = Vec::new();
         for _ in 0..5 {
-            vs.apply(&s, &mut prefs, &Command::CycleStage(1), 0.0);
+            prefs.apply(PrefsCommand::CycleStage(1));
             seen.push(prefs.stage);
         }
         assert_eq!(seen.last(), Some(&ViewId::PlaneK));
@@ -917,15 +743,31 @@ mod tests {
     }
 
     #[test]
-    fn scan_defaults_come_from_percentiles() {
+    fn scan_defaults_come_from_percentiles_and_the_library_iso_value() {
         let s = scan();
         // values 0, 10, …, 2390; numpy linear percentiles of a uniform ramp
-        assert_relative_eq!(s.median, 1195.0);
         assert_relative_eq!(s.robust_range.0, 0.005 * 2390.0, epsilon = 1e-9);
-        assert_relative_eq!(
-            s.default_threshold(),
-            0.5 * (1195.0 + 0.995 * 2390.0),
-            epsilon = 1e-9
-        );
+        assert_relative_eq!(s.robust_range.1, 0.995 * 2390.0, epsilon = 1e-9);
+        // one surface value: the one the command line's render and pick default to
+        assert_eq!(s.iso, default_iso_value(&s.volume));
+        assert_eq!(ViewState::for_scan(&s).iso, s.iso);
+    }
+
+    #[test]
+    fn the_wheel_keeps_fractions_of_a_line_for_the_next_movement() {
+        let s = scan();
+        let mut vs = ViewState::for_scan(&s);
+        let k0 = vs.slice(&s.volume, ViewId::PlaneK).unwrap();
+        for _ in 0..3 {
+            vs.apply(
+                &s,
+                ViewCommand::Wheel {
+                    view: ViewId::PlaneK,
+                    lines: 0.4,
+                },
+                0.0,
+            );
+        }
+        assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(k0 + 1));
     }
 }

@@ -1,5 +1,6 @@
 //! One view on screen: shows its latest picture, draws the crosshair and frame, and turns
-//! pointer input into [`Command`]s.
+//! pointer input into [`Command`]s. It changes no state itself: the hover read-out, a wheel
+//! movement and a landmark being dragged go out as commands like everything else.
 //!
 //! Pointer (stage view):
 //! - left button: plane views move the crosshair to the pointer (press or drag); the 3D view
@@ -11,7 +12,7 @@
 //! - double click: reset the view.
 //!
 //! In placing mode (a project open, key P) the left button places the current landmark instead
-//! (a click), or moves a placed one (a drag that starts on its mark); see [`super::digitise`].
+//! (a click), or moves a placed one (a drag that starts on its mark); see [`super::marks`].
 //!
 //! A small view in the strip takes the wheel (slices) and a click, which puts it on the stage.
 //!
@@ -28,9 +29,10 @@ use std::fmt::Write as _;
 use super::camera::{
     ScreenMap, axis_basis, fit_mm_per_point, half_extents, onto_slice, slice_index,
 };
-use super::desk::Session;
-use super::digitise;
-use super::state::{Command, Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
+use super::command::{Command, DeskCommand, PrefsCommand, ViewCommand};
+use super::desk::Desk;
+use super::marks;
+use super::state::{Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
 use super::worker::RenderKey;
 use sutura_core::geometry::WorldPoint;
 use sutura_core::render::Camera;
@@ -143,21 +145,39 @@ fn camera_axes(cam: &Camera) -> (Vector3<f64>, Vector3<f64>) {
     (dir.cross(&up), -up)
 }
 
-/// Shows a view in `rect` and collects its commands. `on_stage` is the large working view;
-/// otherwise the view is a small one in the strip.
-#[allow(clippy::too_many_arguments, clippy::too_many_lines)] // reason: the state tiers plus where and what to draw; input handling reads best in one place
+/// What a view is drawn from.
+#[derive(Clone, Copy)]
+pub struct ViewInput<'a> {
+    pub view: ViewId,
+    /// The large working view; otherwise a small one in the strip.
+    pub on_stage: bool,
+    pub prefs: &'a Preferences,
+    pub vs: &'a ViewState,
+    pub shown: Option<&'a Shown>,
+    /// The open project, whose landmarks are drawn over the view.
+    pub desk: Option<&'a Desk>,
+    /// A click places the current landmark (placing mode, on the stage).
+    pub placing: bool,
+}
+
+/// Shows a view in `rect` and collects its commands; returns a plane view's screen map.
+#[allow(clippy::too_many_lines)] // reason: input handling reads best in one place
 pub fn view_ui(
     ui: &mut Ui,
     rect: Rect,
-    view: ViewId,
-    on_stage: bool,
     scan: &Scan,
-    prefs: &Preferences,
-    vs: &mut ViewState,
-    shown: Option<&Shown>,
-    desk: Desk<'_>,
+    input: &ViewInput<'_>,
     out: &mut Vec<Command>,
-) {
+) -> Option<ScreenMap> {
+    let ViewInput {
+        view,
+        on_stage,
+        prefs,
+        vs,
+        shown,
+        desk,
+        placing,
+    } = *input;
     let volume = &scan.volume;
     let id = ui.scope_id().with(("view", view.index(), on_stage));
     let response = ui.interact(rect, id, Sense::click_and_drag());
@@ -166,7 +186,6 @@ pub fn view_ui(
     let ppp = ui.ctx().pixels_per_point();
 
     let map = view.is_plane().then(|| plane_map(volume, vs, view, rect));
-    vs.maps[view.index()] = map;
     let camera = if view.is_plane() {
         None
     } else {
@@ -206,29 +225,29 @@ pub fn view_ui(
         crosshair(&painter, volume, vs, view, m);
     }
     frame_and_label(&painter, rect, view, on_stage, volume, vs);
-    if let Some(session) = desk.session {
+    if let Some(d) = desk {
         match (&map, shown) {
-            (Some(m), _) => digitise::plane_marks(
+            (Some(m), _) => marks::plane_marks(
                 &painter,
                 scan,
                 m,
-                session,
+                d,
                 vs.drag.as_ref(),
                 prefs.landmark_labels,
                 on_stage,
             ),
-            (None, Some(s)) => digitise::volume_marks(
+            (None, Some(s)) => marks::volume_marks(
                 &painter,
                 rect,
                 scan,
                 s,
-                session,
+                d,
                 prefs.landmark_labels && on_stage,
             ),
             _ => {}
         }
-        if desk.placing && on_stage {
-            digitise::placing_badge(&painter, rect, session, view, desk.tracing);
+        if placing {
+            marks::placing_badge(&painter, rect, d, view);
         }
     }
 
@@ -239,10 +258,12 @@ pub fn view_ui(
             (None, Some(s)) => surface_hit(s, rect, p),
             _ => None,
         };
-        vs.hover = world.map(|w| ViewState::hover_at(volume, view, w));
-        if world.is_none() {
-            vs.hover = None;
+        let hover = world.map(|w| ViewState::hover_at(volume, view, w));
+        if hover != vs.hover {
+            out.push(ViewCommand::Hover(hover).into());
         }
+    } else if vs.hover.is_some_and(|h| h.view == view) {
+        out.push(ViewCommand::Hover(None).into());
     }
 
     // wheel
@@ -251,7 +272,6 @@ pub fn view_ui(
             ui,
             view,
             on_stage,
-            vs,
             map.as_ref(),
             camera.as_ref(),
             rect,
@@ -262,16 +282,16 @@ pub fn view_ui(
 
     if !on_stage {
         if response.clicked() {
-            out.push(Command::SetStage(view));
+            out.push(PrefsCommand::SetStage(view).into());
         }
         let _ = response.on_hover_cursor(CursorIcon::PointingHand);
-        return;
+        return map;
     }
 
     let modifiers = ui.input(|i| i.modifiers);
     if response.double_clicked() {
-        out.push(Command::ResetView(view));
-        return;
+        out.push(ViewCommand::ResetView(view).into());
+        return map;
     }
     let delta = response.drag_delta();
     let d = [f64::from(delta.x), f64::from(delta.y)];
@@ -289,21 +309,21 @@ pub fn view_ui(
                 _ => None,
             };
             if let Some(by) = by {
-                out.push(Command::Pan { view, by });
+                out.push(ViewCommand::Pan { view, by }.into());
             }
         }
     } else if response.dragged_by(PointerButton::Secondary) {
         if delta != Vec2::ZERO {
             out.push(window_drag(vs, d));
         }
-    } else if let (true, Some(session)) = (desk.placing && !modifiers.command, desk.session) {
+    } else if let (true, Some(d)) = (placing && !modifiers.command, desk) {
         place_input(
             ui,
             &response,
             view,
             rect,
             scan,
-            session,
+            d,
             map.as_ref(),
             shown,
             vs,
@@ -311,17 +331,23 @@ pub fn view_ui(
         );
     } else if view == ViewId::Volume {
         if response.dragged_by(PointerButton::Primary) && delta != Vec2::ZERO {
-            out.push(Command::Orbit {
-                d_azimuth_deg: -d[0] * ORBIT_DEG_PER_POINT,
-                d_elevation_deg: d[1] * ORBIT_DEG_PER_POINT,
-            });
+            out.push(
+                ViewCommand::Orbit {
+                    d_azimuth_deg: -d[0] * ORBIT_DEG_PER_POINT,
+                    d_elevation_deg: d[1] * ORBIT_DEG_PER_POINT,
+                }
+                .into(),
+            );
         }
     } else if view == ViewId::Oblique && modifiers.command {
         if response.dragged_by(PointerButton::Primary) && delta != Vec2::ZERO {
-            out.push(Command::TurnOblique {
-                about_u_deg: -d[1] * TURN_DEG_PER_POINT,
-                about_v_deg: d[0] * TURN_DEG_PER_POINT,
-            });
+            out.push(
+                ViewCommand::TurnOblique {
+                    about_u_deg: -d[1] * TURN_DEG_PER_POINT,
+                    about_v_deg: d[0] * TURN_DEG_PER_POINT,
+                }
+                .into(),
+            );
         }
     } else if let Some(m) = &map {
         // a press held over frames, or a click whose press and release came in one frame
@@ -329,34 +355,25 @@ pub fn view_ui(
         if (held || response.clicked_by(PointerButton::Primary))
             && let Some(p) = response.interact_pointer_pos()
         {
-            out.push(Command::MoveCursor(m.world(arr(p))));
+            out.push(ViewCommand::MoveCursor(m.world(arr(p))).into());
         }
     }
 
     let icon = match view {
-        _ if desk.placing && vs.drag.is_some() => CursorIcon::Grabbing,
-        _ if desk.placing && !panning => CursorIcon::Cell,
+        _ if placing && vs.drag.is_some() => CursorIcon::Grabbing,
+        _ if placing && !panning => CursorIcon::Cell,
         ViewId::Volume if response.dragged() => CursorIcon::Grabbing,
         ViewId::Volume => CursorIcon::Grab,
         _ if panning => CursorIcon::Grabbing,
         _ => CursorIcon::Crosshair,
     };
     let _ = response.on_hover_cursor(icon);
-}
-
-/// What a view needs of the desk: the open project and whether placing mode is on.
-#[derive(Clone, Copy, Default)]
-pub struct Desk<'a> {
-    pub session: Option<&'a Session>,
-    pub placing: bool,
-    /// The curve being traced.
-    pub tracing: Option<&'a str>,
+    map
 }
 
 /// Pointer input while placing: on a plane view a click places the current landmark (a click
 /// on a placed landmark's mark makes that one current) and a drag that starts on a mark moves
-/// it; on the 3D view a click places the
-/// current landmark on the surface under the pointer.
+/// it; on the 3D view a click places the current landmark on the surface under the pointer.
 #[allow(clippy::too_many_arguments)] // reason: the view, its geometry and the state tiers
 fn place_input(
     ui: &Ui,
@@ -364,41 +381,50 @@ fn place_input(
     view: ViewId,
     rect: Rect,
     scan: &Scan,
-    session: &Session,
+    desk: &Desk,
     map: Option<&ScreenMap>,
     shown: Option<&Shown>,
-    vs: &mut ViewState,
+    vs: &ViewState,
     out: &mut Vec<Command>,
 ) {
     if let Some(m) = map {
+        let mut drag = vs.drag.clone();
         if response.drag_started_by(PointerButton::Primary)
             && let Some(origin) = ui.input(|i| i.pointer.press_origin())
-            && let Some(id) = digitise::grab_on_plane(scan, m, session, origin)
+            && let Some(id) = marks::grab_on_plane(scan, m, desk, origin)
         {
-            vs.drag = Some((id, m.world(arr(origin))));
+            drag = Some((id, m.world(arr(origin))));
         }
-        if vs.drag.is_some() {
-            if let Some(p) = response.interact_pointer_pos()
-                && let Some(d) = &mut vs.drag
-            {
-                d.1 = m.world(arr(p));
+        if let Some((id, at)) = &mut drag {
+            if let Some(p) = response.interact_pointer_pos() {
+                *at = m.world(arr(p));
             }
-            if (response.drag_stopped() || !ui.input(|i| i.pointer.primary_down()))
-                && let Some((landmark, to)) = vs.drag.take()
-            {
-                out.push(Command::MoveLandmark { landmark, to });
+            if response.drag_stopped() || !ui.input(|i| i.pointer.primary_down()) {
+                out.push(ViewCommand::Drag(None).into());
+                out.push(
+                    DeskCommand::MoveLandmark {
+                        landmark: id.clone(),
+                        to: *at,
+                    }
+                    .into(),
+                );
+                return;
+            }
+            if drag != vs.drag {
+                out.push(ViewCommand::Drag(drag).into());
             }
         } else if response.clicked_by(PointerButton::Primary)
             && let Some(p) = response.interact_pointer_pos()
         {
             // a click on a placed landmark's mark makes it current rather than placing another
             // landmark on top of it
-            out.push(match digitise::grab_on_plane(scan, m, session, p) {
-                Some(id) => Command::SelectLandmark(id),
-                None => Command::PlaceOnPlane {
+            out.push(match marks::grab_on_plane(scan, m, desk, p) {
+                Some(id) => DeskCommand::SelectLandmark(id).into(),
+                None => DeskCommand::PlaceOnPlane {
                     view,
                     at: m.world(arr(p)),
-                },
+                }
+                .into(),
             });
         }
         return;
@@ -411,11 +437,14 @@ fn place_input(
         let [w, h] = s.key.size();
         let col = f64::from((p.x - rect.min.x) / rect.width()) * w as f64 - 0.5;
         let row = f64::from((p.y - rect.min.y) / rect.height()) * h as f64 - 0.5;
-        if let Ok(origin) = k.camera.pixel_world(col, row) {
-            out.push(Command::PlaceOnSurface {
-                origin,
-                direction: k.camera.view_dir,
-            });
+        if let Ok(through) = k.camera.pixel_world(col, row) {
+            out.push(
+                DeskCommand::PlaceOnSurface {
+                    through,
+                    direction: k.camera.view_dir,
+                }
+                .into(),
+            );
         }
     }
 }
@@ -423,10 +452,11 @@ fn place_input(
 /// Window/level from a right-button drag of `d` points: right widens, up brightens.
 #[must_use]
 pub fn window_drag(vs: &ViewState, d: [f64; 2]) -> Command {
-    Command::NudgeWindow {
+    ViewCommand::NudgeWindow {
         centre_by: d[1] * vs.window.width * 0.004,
         width_factor: (d[0] * 0.006).exp(),
     }
+    .into()
 }
 
 #[allow(clippy::too_many_arguments)] // reason: the wheel acts differently per view and modifier
@@ -434,7 +464,6 @@ fn wheel(
     ui: &Ui,
     view: ViewId,
     on_stage: bool,
-    vs: &mut ViewState,
     map: Option<&ScreenMap>,
     camera: Option<&Camera>,
     rect: Rect,
@@ -467,15 +496,7 @@ fn wheel(
         (lines, zoom, i.pointer.hover_pos())
     });
     if lines != 0.0 && view.is_plane() {
-        vs.wheel_rest += lines;
-        let steps = vs.wheel_rest.trunc();
-        vs.wheel_rest -= steps;
-        if steps != 0.0 {
-            out.push(Command::Scroll {
-                view,
-                steps: steps as i32,
-            });
-        }
+        out.push(ViewCommand::Wheel { view, lines }.into());
     }
     if zoom_lines != 0.0 && on_stage {
         let factor = 1.15f64.powf(f64::from(zoom_lines));
@@ -488,11 +509,14 @@ fn wheel(
             }
             _ => None,
         });
-        out.push(Command::Zoom {
-            view,
-            factor,
-            anchor,
-        });
+        out.push(
+            ViewCommand::Zoom {
+                view,
+                factor,
+                anchor,
+            }
+            .into(),
+        );
     }
 }
 
@@ -577,10 +601,10 @@ fn frame_and_label(
         ViewId::PlaneI | ViewId::PlaneJ | ViewId::PlaneK => {
             let a = view.axis().unwrap_or(2);
             format!(
-                "{}  {} / {}",
+                "{}  slice {} of {}",
                 view.label(),
-                slice_index(volume, a, vs.cursor),
-                volume.dims()[a] - 1
+                slice_index(volume, a, vs.cursor) + 1,
+                volume.dims()[a]
             )
         }
         ViewId::Oblique => {
@@ -588,7 +612,11 @@ fn frame_and_label(
             format!("{}  {:.0}° {:.0}° {:.0}°", view.label(), a[0], a[1], a[2])
         }
         ViewId::Volume => match vs.volume_mode {
-            VolumeMode::Surface => format!("{}  surface at {:.0}", view.label(), vs.threshold),
+            VolumeMode::Surface => format!(
+                "{}  surface, {}",
+                view.label(),
+                vs.iso.describe().split(" (").next().unwrap_or_default()
+            ),
             VolumeMode::Projection => format!("{}  projection", view.label()),
         },
     };

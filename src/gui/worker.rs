@@ -52,7 +52,8 @@ pub struct VolumeKey {
     pub scan: u64,
     pub camera: Camera,
     pub mode: VolumeMode,
-    pub threshold: f64,
+    /// The scan's iso-value: the surface drawn.
+    pub iso_value: f64,
     pub window: WindowLevel,
     pub colours: ColourMap,
     pub quality: Quality,
@@ -169,7 +170,7 @@ pub fn render_view_reusing(
                     (v.window.colourize(&img, v.colours), None)
                 }
                 VolumeMode::Surface => {
-                    let mut opts = SurfaceOptions::new(v.threshold);
+                    let mut opts = SurfaceOptions::new(v.iso_value);
                     opts.quality = v.quality;
                     opts.depth_cue = 0.35;
                     let s = raycast::surface(volume, &v.camera, &opts, bricks)?;
@@ -559,7 +560,7 @@ mod tests {
                 scan: 7,
                 camera,
                 mode: VolumeMode::Surface,
-                threshold: 100.0,
+                iso_value: 100.0,
                 window: WindowLevel {
                     centre: 100.0,
                     width: 200.0,

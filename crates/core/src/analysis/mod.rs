@@ -15,6 +15,12 @@
 //! Depends on `shape`, `export`, `chart` and `render::png`. Knows nothing of volumes and must
 //! not import `gui` or `cli`.
 
+pub mod exports;
+pub mod project;
+
+pub use exports::{ExportKind, ExportSource, Exported, write_export, write_export_into};
+pub use project::{ProjectAnalysisOptions, TrialChoice, analyse_project};
+
 use nalgebra::DMatrix;
 use serde_json::json;
 use std::collections::{BTreeMap, HashSet};
@@ -53,7 +59,7 @@ pub enum AnalysisError {
 }
 
 /// How to run the analysis.
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Copy, Debug, PartialEq)]
 pub struct AnalysisOptions {
     /// Procrustes fit and convergence.
     pub gpa: GpaOptions,

@@ -14,7 +14,7 @@
 
 mod units;
 
-pub use units::{LengthError, format_length_mm, parse_length_mm};
+pub use units::{LengthError, LengthMm, Triple, VoxelSizeMm, format_length_mm, parse_length_mm};
 
 use nalgebra::{Matrix3, Matrix4, Point3, Vector3};
 use serde::{Deserialize, Serialize};

@@ -9,6 +9,96 @@ pub enum LengthError {
     Unit(String, String),
     #[error("'{0}': a length must be positive and finite")]
     NotPositive(String),
+    #[error(
+        "voxel size '{0}': give one length for cubic voxels or three (x,y,z), e.g. 36um or 36um,36um,50um"
+    )]
+    VoxelSizeCount(String),
+    #[error("'{0}' is not a point: give three numbers X,Y,Z")]
+    Triple(String),
+}
+
+/// A length typed by a user (`12um`, `0.012mm`), in millimetres; see [`parse_length_mm`].
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct LengthMm(pub f64);
+
+impl std::str::FromStr for LengthMm {
+    type Err = LengthError;
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        parse_length_mm(s).map(Self)
+    }
+}
+
+/// A voxel size typed by a user, in millimetres along x, y, z: one length for cubic voxels
+/// (`36um`) or three (`36um,36um,50um`). The one rule every front end reads voxel sizes by.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct VoxelSizeMm(pub [f64; 3]);
+
+impl VoxelSizeMm {
+    /// Reads a voxel size where an empty text means "none given" (the file's own).
+    pub fn parse_optional(text: &str) -> Result<Option<Self>, LengthError> {
+        if text.trim().is_empty() {
+            Ok(None)
+        } else {
+            text.parse().map(Some)
+        }
+    }
+
+    /// The text that reads back to this voxel size (`36um` for cubic voxels of 36 µm).
+    #[must_use]
+    pub fn to_text(&self) -> String {
+        let one = |mm: f64| {
+            if mm < 1.0 {
+                format!("{}um", mm * 1e3)
+            } else {
+                format!("{mm}mm")
+            }
+        };
+        let [x, y, z] = self.0;
+        #[allow(
+            clippy::float_cmp,
+            reason = "cubic exactly when the three sizes are the same number"
+        )]
+        if x == y && y == z {
+            one(x)
+        } else {
+            format!("{},{},{}", one(x), one(y), one(z))
+        }
+    }
+}
+
+impl std::str::FromStr for VoxelSizeMm {
+    type Err = LengthError;
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        let parts: Vec<f64> = text
+            .split(',')
+            .map(parse_length_mm)
+            .collect::<Result<_, _>>()?;
+        match parts.as_slice() {
+            [s] => Ok(Self([*s; 3])),
+            [x, y, z] => Ok(Self([*x, *y, *z])),
+            _ => Err(LengthError::VoxelSizeCount(text.trim().to_owned())),
+        }
+    }
+}
+
+/// Three numbers `X,Y,Z` typed by a user (a point or a direction, in the frame the caller
+/// states); every one must be finite.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Triple(pub [f64; 3]);
+
+impl std::str::FromStr for Triple {
+    type Err = LengthError;
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        let v: Vec<f64> = text
+            .split(',')
+            .map(|t| t.trim().parse::<f64>())
+            .collect::<Result<_, _>>()
+            .map_err(|_| LengthError::Triple(text.trim().to_owned()))?;
+        match v.as_slice() {
+            [x, y, z] if v.iter().all(|c| c.is_finite()) => Ok(Self([*x, *y, *z])),
+            _ => Err(LengthError::Triple(text.trim().to_owned())),
+        }
+    }
 }
 
 /// Parses a length with a unit into millimetres. A bare number is refused: voxel sizes in µm and
@@ -107,6 +197,36 @@ mod tests {
             Err(LengthError::NotPositive(_))
         ));
         assert!(matches!(parse_length_mm("mm"), Err(LengthError::Syntax(_))));
+    }
+
+    #[test]
+    fn voxel_sizes_take_one_or_three_lengths() {
+        assert_eq!("36um".parse::<VoxelSizeMm>().unwrap().0, [0.036; 3]);
+        assert_eq!(
+            "36um,36um,50um".parse::<VoxelSizeMm>().unwrap().0,
+            [0.036, 0.036, 0.05]
+        );
+        assert!(matches!(
+            "36um,50um".parse::<VoxelSizeMm>(),
+            Err(LengthError::VoxelSizeCount(_))
+        ));
+        assert!(matches!(
+            "36".parse::<VoxelSizeMm>(),
+            Err(LengthError::Syntax(_))
+        ));
+        assert_eq!(VoxelSizeMm::parse_optional("  ").unwrap(), None);
+        for v in [[0.036; 3], [0.036, 0.036, 0.05], [1.5, 2.0, 2.0]] {
+            let t = VoxelSizeMm(v).to_text();
+            assert_eq!(t.parse::<VoxelSizeMm>().unwrap().0, v, "{t}");
+        }
+    }
+
+    #[test]
+    fn triples_need_three_finite_numbers() {
+        assert_eq!("1,-2.5,3e1".parse::<Triple>().unwrap().0, [1.0, -2.5, 30.0]);
+        for bad in ["1,2", "1,2,3,4", "1,x,3", "1,inf,3", "NaN,1,1"] {
+            assert!(bad.parse::<Triple>().is_err(), "{bad}");
+        }
     }
 
     #[test]

@@ -10,6 +10,7 @@
 //!
 //! Must not import `render` or `gui`.
 
+pub mod names;
 pub mod nifti;
 pub mod slices;
 pub mod tiff;

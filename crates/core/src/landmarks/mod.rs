@@ -21,6 +21,8 @@
 //! - [`project`]: the project document (scheme + specimens + trials), its edits, its file.
 //! - [`fingerprint`]: what identifies a scan (sizes, header hashes, a hash of sampled voxels).
 //! - [`curve`]: equal arc-length resampling of traced curves into semilandmarks.
+//! - [`mirror`]: a missing landmark estimated from its bilateral partner across the fitted
+//!   midsagittal plane.
 //! - [`scan`]: opening a specimen's scan with the voxel size the project recorded.
 //! - [`pick_source`]: the same picks on a scan of any size, on full-resolution blocks read
 //!   around the ray or the click.
@@ -32,6 +34,7 @@
 
 pub mod curve;
 pub mod fingerprint;
+pub mod mirror;
 pub mod pick;
 pub mod pick_source;
 pub mod project;

@@ -705,6 +705,163 @@ fn prominence(s: &[f64], i: usize) -> f64 {
     top - f64::max(left_base, right_base)
 }
 
+/// How a scan's iso-value was chosen.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum IsoSource {
+    /// ISO-50 of the histogram's background and material peaks ([`iso50`]).
+    Iso50,
+    /// The histogram has no two peaks to take ISO-50 from: halfway between the median (the
+    /// embedding matrix) and the 99.5th percentile (the densest material), a first guess
+    /// (common practice for a first look at a specimen scan). `why` says why ISO-50 failed.
+    Fallback { why: String },
+    /// Typed by the user.
+    Given,
+}
+
+/// The one surface value of a scan: the 3D view draws its surface there, clicks on a plane
+/// snap to it, clicks in the 3D view and `landmark pick` find it, and `render --mode surface`
+/// draws it. ISO-50 by default.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct IsoValue {
+    /// In rescaled grey values; material is at or above it.
+    pub value: f64,
+    pub source: IsoSource,
+}
+
+impl IsoValue {
+    /// A value the user typed.
+    #[must_use]
+    pub fn given(value: f64) -> Self {
+        Self {
+            value,
+            source: IsoSource::Given,
+        }
+    }
+
+    /// What the value is and where it came from, for a status line or a log:
+    /// `iso-value 23456 (ISO-50)`.
+    #[must_use]
+    pub fn describe(&self) -> String {
+        let v = format_grey(self.value);
+        match &self.source {
+            IsoSource::Iso50 => format!("iso-value {v} (ISO-50)"),
+            IsoSource::Given => format!("iso-value {v} (given)"),
+            IsoSource::Fallback { why } => format!(
+                "iso-value {v} (halfway between the median and the 99.5th percentile; no ISO-50: {why})"
+            ),
+        }
+    }
+
+    /// The short name of its source: `ISO-50`, `given` or `estimate`.
+    #[must_use]
+    pub fn source_name(&self) -> &'static str {
+        match self.source {
+            IsoSource::Iso50 => "ISO-50",
+            IsoSource::Given => "given",
+            IsoSource::Fallback { .. } => "estimate",
+        }
+    }
+}
+
+/// A grey value as people read them: whole numbers for integer-like values, else 4 significant
+/// digits.
+#[must_use]
+pub fn format_grey(v: f64) -> String {
+    if v.is_finite() && v.abs() >= 100.0 {
+        format!("{v:.0}")
+    } else {
+        format!("{v:.4}")
+            .trim_end_matches('0')
+            .trim_end_matches('.')
+            .to_owned()
+    }
+}
+
+/// The scan's iso-value when the user has given none: ISO-50, else the stated fallback.
+#[must_use]
+pub fn default_iso_value(volume: &Volume) -> IsoValue {
+    match iso50(volume) {
+        Ok(i) => IsoValue {
+            value: i.threshold,
+            source: IsoSource::Iso50,
+        },
+        Err(e) => {
+            let p = volume.percentiles(&[50.0, 99.5]);
+            let why = match e {
+                PickError::NoContrast(w) => w,
+                other => other.to_string(),
+            };
+            IsoValue {
+                value: 0.5 * (p[0] + p[1]),
+                source: IsoSource::Fallback { why },
+            }
+        }
+    }
+}
+
+/// The surface a view shows under a pixel: the ray through `through` along `direction` is
+/// started outside the volume's box (a camera may sit inside it, or anywhere on the line), so
+/// the first crossing is the surface the picture shows in front of everything else.
+/// `Ok(None)` when the ray meets no boundary, or enters the volume already in material (the
+/// view shows the volume's face there, not a surface of the specimen).
+pub fn pick_view_ray(
+    volume: &Volume,
+    through: WorldPoint,
+    direction: Vector3<f64>,
+    options: &PickOptions,
+) -> Result<Option<Pick>, PickError> {
+    finite_point(through, "view ray point")?;
+    let dir = unit(direction, "view ray direction")?;
+    let d = volume.dims();
+    let corner = |v: [f64; 3]| volume.voxel_to_world(VoxelPoint::new(v[0], v[1], v[2])).0;
+    let lo = [-0.5; 3];
+    let hi = [d[0] as f64 - 0.5, d[1] as f64 - 0.5, d[2] as f64 - 0.5];
+    // the farthest box corner from `through` bounds how far back the ray must start
+    let mut reach: f64 = 0.0;
+    for c in 0..8 {
+        let v = [
+            if c & 1 == 0 { lo[0] } else { hi[0] },
+            if c & 2 == 0 { lo[1] } else { hi[1] },
+            if c & 4 == 0 { lo[2] } else { hi[2] },
+        ];
+        reach = reach.max((corner(v) - through.0).norm());
+    }
+    let start = WorldPoint(through.0 - dir * (reach * (1.0 + 1e-6) + 1e-9));
+    let pick = pick_along_ray(volume, start, dir, options)?;
+    Ok(pick.filter(|p| p.crossing != Crossing::VolumeFace))
+}
+
+/// How far a click on a plane looks for the boundary to snap to, in voxels (of the smallest
+/// spacing).
+pub const SNAP_REACH_VOXELS: f64 = 10.0;
+
+/// Snaps a point clicked on a plane to the nearest boundary at `iso` within the plane and
+/// within [`SNAP_REACH_VOXELS`], refined to the edge. `Ok(None)` when there is no boundary in
+/// reach (or only the volume's face).
+pub fn snap_to_boundary(
+    volume: &Volume,
+    at: WorldPoint,
+    plane_normal: Vector3<f64>,
+    iso: f64,
+) -> Result<Option<Pick>, PickError> {
+    let options = snap_options(volume, iso);
+    let pick = pick_in_slice(volume, at, plane_normal, SliceSearch::AllAround, &options)?;
+    Ok(pick.filter(|p| p.crossing != Crossing::VolumeFace))
+}
+
+/// The search [`snap_to_boundary`] makes: `iso`, [`SNAP_REACH_VOXELS`] of the smallest voxel
+/// spacing, refined to the edge.
+#[must_use]
+pub fn snap_options(volume: &Volume, iso: f64) -> PickOptions {
+    let sp = volume.spacing_mm();
+    PickOptions {
+        threshold: iso,
+        max_distance_mm: SNAP_REACH_VOXELS * sp[0].min(sp[1]).min(sp[2]),
+        refine_to_edge: true,
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -912,6 +1069,65 @@ mod tests {
         assert!((iso.material - DENSE).abs() < 0.01 * contrast, "{iso:?}");
         assert!((iso.threshold - 0.5 * (AIR + DENSE)).abs() < 0.01 * contrast);
         assert!((iso50_threshold(&volume).unwrap() - iso.threshold).abs() < 1e-12);
+    }
+
+    #[test]
+    fn a_view_ray_finds_the_front_surface_wherever_its_point_lies() {
+        let (volume, c) = ball_volume();
+        let r50 = root(4.0, 12.0, |r| 0.5 - blurred_ball(r, BALL_R, BALL_SIGMA));
+        let opts = PickOptions::new(0.5 * (AIR + DENSE));
+        for d in sphere_directions(12) {
+            // the point the ray passes through: the centre (inside material), a point beyond
+            // the ball, and one far outside the box; each time the entry facing the viewer
+            for through in [c, c + d * 30.0, c - d * 500.0] {
+                let p = pick_view_ray(&volume, WorldPoint(through), d, &opts)
+                    .unwrap()
+                    .unwrap();
+                assert_eq!(p.crossing, Crossing::Entry);
+                let front = c - d * r50;
+                assert!((p.point.0 - front).norm() < 0.06, "{:?}", p.point);
+            }
+        }
+    }
+
+    #[test]
+    fn the_default_iso_value_is_iso50_or_a_stated_fallback() {
+        let (volume, _) = ball_volume();
+        let iso = default_iso_value(&volume);
+        assert_eq!(iso.source, IsoSource::Iso50);
+        assert!((iso.value - iso50_threshold(&volume).unwrap()).abs() < 1e-12);
+        assert!(
+            iso.describe().starts_with("iso-value "),
+            "{}",
+            iso.describe()
+        );
+        // a flat volume has no two peaks
+        let flat = Volume::from_vec([4, 4, 4], Affine3::identity(), vec![7.0f32; 64]).unwrap();
+        let iso = default_iso_value(&flat);
+        assert!(matches!(iso.source, IsoSource::Fallback { .. }), "{iso:?}");
+        assert!((iso.value - 7.0).abs() < 1e-12);
+        assert!(iso.describe().contains("no ISO-50"), "{}", iso.describe());
+    }
+
+    #[test]
+    fn snapping_finds_the_boundary_within_reach_only() {
+        let (volume, c) = ball_volume();
+        let r50 = root(4.0, 12.0, |r| 0.5 - blurred_ball(r, BALL_R, BALL_SIGMA));
+        let iso = 0.5 * (AIR + DENSE);
+        let sp = volume.spacing_mm();
+        let reach = SNAP_REACH_VOXELS * sp[0].min(sp[1]).min(sp[2]);
+        // a click 2 mm outside the ball on the plane z = centre snaps onto it
+        let at = WorldPoint(c + Vector3::new(r50 + 2.0, 0.0, 0.0));
+        let p = snap_to_boundary(&volume, at, Vector3::z(), iso)
+            .unwrap()
+            .unwrap();
+        assert!(((p.point.0 - c).norm() - r50).abs() < 0.1, "{:?}", p.point);
+        // one beyond reach finds nothing
+        let far = WorldPoint(c + Vector3::new(r50 + reach + 1.0, 0.0, 0.0));
+        assert_eq!(
+            snap_to_boundary(&volume, far, Vector3::z(), iso).unwrap(),
+            None
+        );
     }
 
     #[test]

@@ -16,7 +16,9 @@
 //!
 //! A scan wholly in memory is searched directly.
 
-use super::pick::{self, Iso50, MARCH_STEP_VOXELS, Pick, PickError, PickOptions, SliceSearch};
+use super::pick::{
+    self, Iso50, IsoSource, IsoValue, MARCH_STEP_VOXELS, Pick, PickError, PickOptions, SliceSearch,
+};
 use crate::geometry::WorldPoint;
 use crate::volume::source::region_around;
 use crate::volume::{ReadError, VolumeSource};
@@ -201,6 +203,33 @@ pub fn pick_in_slice(
         search,
         &options,
     )?)
+}
+
+/// [`pick::default_iso_value`] of any source: ISO-50 from the histogram it keeps, else halfway
+/// between its median and 99.5th percentile.
+pub fn default_iso_value(source: &dyn VolumeSource) -> Result<IsoValue, ReadError> {
+    if let Some(v) = source.whole() {
+        return Ok(pick::default_iso_value(v));
+    }
+    match iso50(source) {
+        Ok(i) => Ok(IsoValue {
+            value: i.threshold,
+            source: IsoSource::Iso50,
+        }),
+        Err(SourcePickError::Read(e)) => Err(e),
+        Err(SourcePickError::Pick(e)) => {
+            let i = source.intensity()?;
+            let p = |q| i.percentile(q).unwrap_or(f64::NAN);
+            let why = match e {
+                PickError::NoContrast(w) => w,
+                other => other.to_string(),
+            };
+            Ok(IsoValue {
+                value: 0.5 * (p(50.0) + p(99.5)),
+                source: IsoSource::Fallback { why },
+            })
+        }
+    }
 }
 
 /// The ISO-50 peaks of a source, from the histogram it keeps.

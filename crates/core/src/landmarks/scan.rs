@@ -36,21 +36,35 @@ pub fn open_scan(
     if let Some(s) = voxel_size_mm
         && io::detect(path)? == Format::Nifti
     {
-        let lin = volume.world_from_voxel().linear();
-        let cols = volume.spacing_mm();
-        let mut new = lin;
-        for a in 0..3 {
-            let c = lin.column(a) * (s[a] / cols[a]);
-            new.set_column(a, &c);
-        }
-        let t = volume.world_from_voxel().translation();
-        volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
-        volume
-            .notes
-            .push(format!("voxel size overridden by the user: {s:?} mm"));
-        volume.spacing_origin = crate::volume::SpacingOrigin::Caller;
+        set_voxel_size(&mut volume, Format::Nifti, s);
     }
     Ok(volume)
+}
+
+/// Gives a loaded volume the voxel size `s` (mm) as [`open_scan`] would have: a TIFF scan is
+/// placed at index × voxel size; a `NIfTI` scan's axes are rescaled one by one, keeping their
+/// directions and the origin. The override is recorded in the volume's notes.
+pub fn set_voxel_size(volume: &mut Volume, format: Format, s: [f64; 3]) {
+    match format {
+        Format::Nifti => {
+            let lin = volume.world_from_voxel().linear();
+            let cols = volume.spacing_mm();
+            let mut new = lin;
+            for a in 0..3 {
+                let c = lin.column(a) * (s[a] / cols[a]);
+                new.set_column(a, &c);
+            }
+            let t = volume.world_from_voxel().translation();
+            volume.set_world_from_voxel(Affine3::from_linear_translation(&new, &t));
+            volume
+                .notes
+                .push(format!("voxel size overridden by the user: {s:?} mm"));
+        }
+        Format::Tiff | Format::TiffFolder => {
+            volume.set_world_from_voxel(Affine3::from_spacing(s));
+        }
+    }
+    volume.spacing_origin = crate::volume::SpacingOrigin::Caller;
 }
 
 /// A slab reader over a scan (see [`crate::io::slices`]) placed as [`open_scan`] places it:

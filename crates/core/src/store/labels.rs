@@ -19,7 +19,9 @@ use zarrs::filesystem::FilesystemStore;
 use zarrs::group::{Group, GroupBuilder};
 
 /// A label value type.
-pub trait LabelValue: Voxel + Element + ElementOwned + Into<zarrs::array::builder::ArrayBuilderFillValue> {
+pub trait LabelValue:
+    Voxel + Element + ElementOwned + Into<zarrs::array::builder::ArrayBuilderFillValue>
+{
     fn zarr() -> zarrs::array::DataType;
 }
 impl LabelValue for u8 {

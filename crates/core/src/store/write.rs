@@ -29,10 +29,10 @@ use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use zarrs::array::BytesToBytesCodecTraits;
+use zarrs::array::builder::ArrayBuilderFillValue;
 use zarrs::array::codec::{
     BloscCodec, BloscCompressionLevel, BloscCompressor, BloscShuffleMode, GzipCodec, ZstdCodec,
 };
-use zarrs::array::builder::ArrayBuilderFillValue;
 use zarrs::array::{ArrayBuilder, CodecOptions, DataType, Element, data_type};
 use zarrs::filesystem::FilesystemStore;
 use zarrs::group::GroupBuilder;

@@ -1,7 +1,7 @@
 //! The slices of a folder: which files count, and in what order.
 
 use crate::io::IoError;
-use std::cmp::Ordering;
+use crate::io::names::natural_cmp;
 use std::path::{Path, PathBuf};
 
 /// The `.tif`/`.tiff` files (any case) of a folder, hidden files (`.name`) left out, in natural
@@ -51,64 +51,9 @@ pub fn list_slices(dir: &Path, max_slices: u64) -> Result<Vec<PathBuf>, IoError>
     Ok(files)
 }
 
-/// Natural order: runs of digits compare by value (`s2` < `s10`), the rest by character; ties
-/// (`s02` vs `s2`) are broken by the plain string order so the order is total.
-#[must_use]
-pub fn natural_cmp(a: &str, b: &str) -> Ordering {
-    let (mut x, mut y) = (a.as_bytes(), b.as_bytes());
-    loop {
-        match (x.first(), y.first()) {
-            (None, None) => return a.cmp(b),
-            (None, Some(_)) => return Ordering::Less,
-            (Some(_), None) => return Ordering::Greater,
-            (Some(c), Some(d)) if c.is_ascii_digit() && d.is_ascii_digit() => {
-                let nx = x.iter().take_while(|c| c.is_ascii_digit()).count();
-                let ny = y.iter().take_while(|c| c.is_ascii_digit()).count();
-                let (dx, dy) = (trim_zeros(&x[..nx]), trim_zeros(&y[..ny]));
-                // compare digit strings by length, then lexically: no overflow on long runs
-                let ord = dx.len().cmp(&dy.len()).then_with(|| dx.cmp(dy));
-                if ord != Ordering::Equal {
-                    return ord;
-                }
-                x = &x[nx..];
-                y = &y[ny..];
-            }
-            (Some(c), Some(d)) => {
-                if c != d {
-                    return c.cmp(d);
-                }
-                x = &x[1..];
-                y = &y[1..];
-            }
-        }
-    }
-}
-
-fn trim_zeros(d: &[u8]) -> &[u8] {
-    let n = d.iter().take_while(|&&c| c == b'0').count();
-    &d[n..]
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn digits_compare_by_value() {
-        let mut v = vec!["s10", "s2", "s1", "slice_0010", "slice_0009", "a", "s02"];
-        v.sort_by(|a, b| natural_cmp(a, b));
-        assert_eq!(
-            v,
-            ["a", "s1", "s02", "s2", "s10", "slice_0009", "slice_0010"]
-        );
-    }
-
-    #[test]
-    fn long_digit_runs_do_not_overflow() {
-        let a = "x123456789012345678901234567890";
-        let b = "x123456789012345678901234567891";
-        assert_eq!(natural_cmp(a, b), Ordering::Less);
-    }
 
     #[test]
     fn lists_only_visible_tiffs() {

@@ -25,7 +25,7 @@ mod page;
 mod stream;
 mod write;
 
-pub use folder::{list_slices, natural_cmp};
+pub use folder::list_slices;
 pub use stream::{FolderSlices, PageSlices};
 pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 

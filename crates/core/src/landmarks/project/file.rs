@@ -100,6 +100,28 @@ pub enum ProjectError {
     Write(#[from] ExportError),
 }
 
+/// Whether a file is a landmark project: a `.json` file whose first kilobyte names the project
+/// format (other JSON files, such as exported tables, are not). The one test both front ends
+/// use to tell a project from a scan.
+#[must_use]
+pub fn is_project_file(path: &Path) -> bool {
+    use std::io::Read as _;
+    let is_json = path
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("json"));
+    if !is_json || !path.is_file() {
+        return false;
+    }
+    let mut head = Vec::with_capacity(1024);
+    std::fs::File::open(path)
+        .and_then(|f| f.take(1024).read_to_end(&mut head))
+        .is_ok_and(|_| {
+            let text = String::from_utf8_lossy(&head);
+            let compact: String = text.split_whitespace().collect();
+            compact.contains(&format!("\"format\":\"{FORMAT_NAME}\""))
+        })
+}
+
 /// `NAME.bak`: the previous version, kept by every save.
 #[must_use]
 pub fn backup_path(project_file: &Path) -> PathBuf {

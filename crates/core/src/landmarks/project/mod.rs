@@ -28,15 +28,18 @@
 //! GUI's undo stack is a stack of inverses. The file format lives in [`file`]; [`points`]
 //! flattens the landmarks for export.
 
+pub mod create;
 mod edit;
 pub mod file;
 pub mod points;
+pub mod session;
 
 pub use edit::{Edit, EditError};
 pub use file::{
     AutosaveStatus, FORMAT_NAME, FORMAT_VERSION, ProjectError, ProjectLock, autosave_path,
-    autosave_status, backup_path, lock_path,
+    autosave_status, backup_path, is_project_file, lock_path,
 };
+pub use session::{Session, SessionError};
 
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
@@ -472,6 +475,21 @@ impl Specimen {
     #[must_use]
     pub fn trial(&self, id: &str) -> Option<&Trial> {
         self.trials.iter().find(|t| t.id == id)
+    }
+
+    /// The id a new trial of this specimen gets: one more than the largest number among its
+    /// trial ids (`1` for the first), so trial numbers follow the order trials were started
+    /// in even after one is deleted (trials {1, 3} → 4). The one rule both front ends use.
+    #[must_use]
+    pub fn next_trial_id(&self) -> String {
+        let largest = self
+            .trials
+            .iter()
+            .filter_map(|t| t.id.parse::<u64>().ok())
+            .max()
+            .unwrap_or(0);
+        // a non-numeric id cannot collide with a number, so largest + 1 is free
+        largest.saturating_add(1).to_string()
     }
 }
 
