@@ -19,11 +19,12 @@
 
 mod common;
 
+use rayon::prelude::*;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 use sutura_core::geometry::Plane;
-use sutura_core::io::Progress;
 use sutura_core::io::slices::open_slices;
+use sutura_core::io::{OpenOptions, Progress};
 use sutura_core::render::slice::{AxisPlane, Interpolation, SliceGeometry};
 use sutura_core::render::source::{Detail, render_slice, slice_region};
 use sutura_core::store::{Codec, ConvertOptions, Store, StoreOptions, convert};
@@ -53,7 +54,7 @@ fn main() {
 
     // the bound: read and decode slab by slab
     let t = Instant::now();
-    let mut r = open_slices(&src, &Default::default()).expect("open");
+    let mut r = open_slices(&src, &OpenOptions::default()).expect("open");
     let mut slab = vec![0u8; r.slice_bytes() * 64];
     let mut k = 0;
     while k < n {
@@ -70,7 +71,7 @@ fn main() {
         let out = dir.join(format!("vol_{n}_{}.ome.zarr", codec.replace('/', "_")));
         let _ = std::fs::remove_dir_all(&out);
         let _ = std::fs::remove_dir_all(sutura_core::store::partial_path(&out));
-        let mut r = open_slices(&src, &Default::default()).expect("open");
+        let mut r = open_slices(&src, &OpenOptions::default()).expect("open");
         let options = ConvertOptions {
             codec: Codec::parse(codec).expect("codec"),
             ..ConvertOptions::default()
@@ -88,7 +89,6 @@ fn main() {
                     .flat_map(move |j| (0..n.div_ceil(c[0])).map(move |i| [i, j, k]))
             })
             .collect();
-        use rayon::prelude::*;
         grid.par_iter().for_each(|&ci| {
             store.chunk(0, ci).expect("chunk");
         });
@@ -229,7 +229,7 @@ fn python(src: &Path, out: &Path, n: usize) {
         .expect("plane");
     let ours = secs(t);
     drop(b);
-    let mut r = open_slices(src, &Default::default()).expect("open");
+    let mut r = open_slices(src, &OpenOptions::default()).expect("open");
     let t = Instant::now();
     convert(
         r.as_mut(),

@@ -177,6 +177,10 @@ fn sutura_reads_multiscale_images_zarr_python_writes() {
 }
 
 #[test]
+#[allow(
+    clippy::too_many_lines,
+    reason = "one walk through the commands on the same store"
+)]
 fn commands_on_a_store_agree_with_the_source() {
     let dir = tempfile::tempdir().unwrap();
     let src = dir.path().join("scan.nii");

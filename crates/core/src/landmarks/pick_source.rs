@@ -62,7 +62,7 @@ pub fn pick_along_ray(
     let d = vfw.apply_vector(dir);
     let Some((t0, t1)) = clip(&o, &d, level.dims, options.max_distance_mm) else {
         // let the in-memory search refuse bad options the same way
-        return Ok(probe_options(source, origin, dir, options)?);
+        return probe_options(source, origin, dir, options);
     };
     let step = MARCH_STEP_VOXELS / d.amax();
     let seg = step * SEGMENT_STEPS as f64;
@@ -307,8 +307,8 @@ mod tests {
         assert_eq!(iso_mem, iso_store);
         let centre = v.centre_world();
         for (n, refine) in [(0, false), (1, true), (2, false), (3, true), (4, true)] {
-            let a = n as f64 * 1.3;
-            let dir = Vector3::new(a.cos(), a.sin(), 0.4 * (n as f64 - 2.0)).normalize();
+            let a = f64::from(n) * 1.3;
+            let dir = Vector3::new(a.cos(), a.sin(), 0.4 * (f64::from(n) - 2.0)).normalize();
             let origin = WorldPoint(centre.0 - dir * 2.0); // outside the scan
             let opts = PickOptions {
                 refine_to_edge: refine,

@@ -214,7 +214,8 @@ impl<T: LabelValue> LabelImage<T> {
             targets.dedup();
             for t in targets {
                 let mut out = vec![T::default(); cs[0] * cs[1] * cs[2]];
-                let mut cache: std::collections::HashMap<[usize; 3], Vec<T>> = Default::default();
+                let mut cache: std::collections::HashMap<[usize; 3], Vec<T>> =
+                    std::collections::HashMap::default();
                 for k in 0..cs[2] {
                     for j in 0..cs[1] {
                         for i in 0..cs[0] {
@@ -224,10 +225,12 @@ impl<T: LabelValue> LabelImage<T> {
                             }
                             let s = [0, 1, 2].map(|a| v[a] * f[a]);
                             let c0 = [0, 1, 2].map(|a| s[a] / cs[a]);
-                            if !cache.contains_key(&c0) {
-                                cache.insert(c0, self.read_chunk(0, c0)?);
-                            }
-                            let src = &cache[&c0];
+                            let src = match cache.entry(c0) {
+                                std::collections::hash_map::Entry::Occupied(e) => e.into_mut(),
+                                std::collections::hash_map::Entry::Vacant(e) => {
+                                    e.insert(self.read_chunk(0, c0)?)
+                                }
+                            };
                             let o = [0, 1, 2].map(|a| s[a] - c0[a] * cs[a]);
                             out[i + cs[0] * (j + cs[1] * k)] =
                                 src[o[0] + cs[0] * (o[1] + cs[1] * o[2])];
@@ -286,7 +289,7 @@ mod tests {
             .unwrap();
         labels.update_levels(&[[1, 0, 1]]).unwrap();
         let l1 = labels.read_chunk(1, [0, 0, 0]).unwrap();
-        assert_eq!(l1[8 + 16 * (0 + 16 * 8)], 3);
+        assert_eq!(l1[8 + 16 * 16 * 8], 3);
         assert_eq!(l1[0], 0);
         // the scan still opens, its levels untouched
         let again = Store::open(&out, &StoreOptions::default()).unwrap();

@@ -191,6 +191,10 @@ fn unit_mm(unit: Option<&str>) -> Result<(f64, Option<String>), String> {
 }
 
 /// Reads the `multiscales` of group attributes (NGFF 0.5 under `ome`, or 0.4 at the top).
+#[allow(
+    clippy::too_many_lines,
+    reason = "the checks of one metadata object, in the standard's order"
+)]
 pub fn parse_multiscales(attrs: &serde_json::Map<String, Value>) -> Result<Multiscale, String> {
     let ms = attrs
         .get("ome")
@@ -304,6 +308,7 @@ pub fn parse_multiscales(attrs: &serde_json::Map<String, Value>) -> Result<Multi
 }
 
 #[cfg(test)]
+#[allow(clippy::float_cmp, reason = "the test values are exact in binary")]
 mod tests {
     use super::*;
 

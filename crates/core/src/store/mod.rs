@@ -221,6 +221,10 @@ fn dtype_of(path: &Path, dt: &zarrs::array::DataType) -> Result<DType, StoreErro
 
 impl Store {
     /// Opens a store (see the module docs for what is read).
+    #[allow(
+        clippy::too_many_lines,
+        reason = "one pass over the metadata, in the order a reader meets it"
+    )]
     pub fn open(path: &Path, options: &StoreOptions) -> Result<Self, StoreError> {
         let name = path.to_string_lossy();
         if name.trim_end_matches('/').ends_with(PARTIAL_SUFFIX) {
@@ -372,31 +376,30 @@ impl Store {
         };
         for (l, a) in arrays.iter().enumerate() {
             let dims = dims_of(a);
-            let level = match &factors {
-                Some(f) => Level::coarsened(dims0, &world0, f[l]),
-                None => {
-                    // the level's own NGFF placement, re-expressed over level 0's
-                    let (s, t) = ms.transforms[l];
-                    let (s0, t0) = ms.transforms[0];
-                    let ratio = [s[2] / s0[2], s[1] / s0[1], s[0] / s0[0]];
-                    let factor = ratio.map(|r| r.round().max(1.0) as usize);
-                    let shift = [
-                        (t[2] - t0[2]) / s0[2],
-                        (t[1] - t0[1]) / s0[1],
-                        (t[0] - t0[0]) / s0[0],
-                    ];
-                    let scale = Affine3::from_rows([
-                        [ratio[0], 0.0, 0.0, shift[0]],
-                        [0.0, ratio[1], 0.0, shift[1]],
-                        [0.0, 0.0, ratio[2], shift[2]],
-                        [0.0, 0.0, 0.0, 1.0],
-                    ])
-                    .map_err(|e| StoreError::corrupt(path, format!("level {l} placement: {e}")))?;
-                    Level {
-                        dims,
-                        factor,
-                        world_from_voxel: world0.compose(&scale),
-                    }
+            let level = if let Some(f) = &factors {
+                Level::coarsened(dims0, &world0, f[l])
+            } else {
+                // the level's own NGFF placement, re-expressed over level 0's
+                let (s, t) = ms.transforms[l];
+                let (s0, t0) = ms.transforms[0];
+                let ratio = [s[2] / s0[2], s[1] / s0[1], s[0] / s0[0]];
+                let factor = ratio.map(|r| r.round().max(1.0) as usize);
+                let shift = [
+                    (t[2] - t0[2]) / s0[2],
+                    (t[1] - t0[1]) / s0[1],
+                    (t[0] - t0[0]) / s0[0],
+                ];
+                let scale = Affine3::from_rows([
+                    [ratio[0], 0.0, 0.0, shift[0]],
+                    [0.0, ratio[1], 0.0, shift[1]],
+                    [0.0, 0.0, ratio[2], shift[2]],
+                    [0.0, 0.0, 0.0, 1.0],
+                ])
+                .map_err(|e| StoreError::corrupt(path, format!("level {l} placement: {e}")))?;
+                Level {
+                    dims,
+                    factor,
+                    world_from_voxel: world0.compose(&scale),
                 }
             };
             if level.dims != dims {

@@ -248,6 +248,10 @@ fn anisotropic_scans_halve_their_finer_axes_first() {
 }
 
 #[test]
+#[allow(
+    clippy::items_after_statements,
+    reason = "the failing reader belongs to this test alone"
+)]
 fn refuses_what_is_not_a_store() {
     let dir = tempfile::tempdir().unwrap();
     let e = Store::open(&dir.path().join("none.ome.zarr"), &StoreOptions::default()).unwrap_err();

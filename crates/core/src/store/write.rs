@@ -252,7 +252,7 @@ macro_rules! store_int {
                     0
                 } else {
                     x.round_ties_even()
-                        .clamp(<$t>::MIN as f64, <$t>::MAX as f64) as $t
+                        .clamp(f64::from(<$t>::MIN), f64::from(<$t>::MAX)) as $t
                 }
             }
         }
@@ -585,10 +585,10 @@ impl<T: StoreVoxel> Converter<T> {
 
     /// Adds the first `n` voxels of the level-0 layer to the intensity counts.
     fn count(&mut self, n: usize) {
-        let data = &self.levels[0].layer[..n];
         const PART: usize = 1 << 20;
-        match T::TABLE_MIN {
-            Some(min) => {
+        let data = &self.levels[0].layer[..n];
+        if let Some(min) = T::TABLE_MIN {
+            {
                 let len = T::TABLE_LEN;
                 let t = data
                     .par_chunks(PART)
@@ -612,7 +612,8 @@ impl<T: StoreVoxel> Converter<T> {
                     *x += y;
                 }
             }
-            None => {
+        } else {
+            {
                 let p = data
                     .par_chunks(PART)
                     .map(|c| {
@@ -817,6 +818,7 @@ impl<T: StoreVoxel> Converter<T> {
     /// A float scan's intensity: exact statistics, then one more pass over level 0 (through a
     /// small cache) for a fine histogram.
     fn float_intensity(&mut self, rescale: Option<Rescale>) -> Result<Intensity, StoreError> {
+        const FINE: usize = 1 << 16;
         let p = self.float;
         let apply = |x: f64| rescale.map_or(x, |r| r.apply(x));
         let (mut lo, mut hi) = (apply(p.min), apply(p.max));
@@ -843,7 +845,6 @@ impl<T: StoreVoxel> Converter<T> {
                 nan_count: p.nan,
             }
         };
-        const FINE: usize = 1 << 16;
         let mut fine = Histogram {
             lo,
             hi,

@@ -92,6 +92,10 @@ impl Level {
 /// Voxels read from a source: a volume placed in the world holding at least the region asked
 /// for. Dereferences to the [`Volume`].
 #[derive(Debug)]
+#[allow(
+    clippy::large_enum_variant,
+    reason = "one block is moved once per read; boxing would add an allocation to each"
+)]
 pub enum Block<'a> {
     /// The source is in memory: the whole of it.
     Whole(&'a Volume),

@@ -491,7 +491,8 @@ pub fn intensity_from_fine_histogram(stats: Stats, fine: &Histogram) -> Intensit
             let x = fine.bin_centre(b);
             if c == 0 {
                 continue;
-            } else if x < lo {
+            }
+            if x < lo {
                 h.below += c;
             } else if x > hi {
                 h.above += c;

@@ -96,6 +96,10 @@ pub fn open_slices(path: &Path, options: &OpenOptions) -> Result<Box<dyn SliceRe
     }))
 }
 
+#[allow(
+    clippy::large_enum_variant,
+    reason = "one per reader, never moved after opening"
+)]
 enum Data {
     Plain(File),
     Gz {
@@ -162,7 +166,7 @@ impl SliceReader for NiftiSlices {
         let per = self.slice_bytes();
         let n = dst.len() / per;
         let total = (self.dims[2] * per) as u64;
-        if dst.len() % per != 0 || k0 + n > self.dims[2] {
+        if !dst.len().is_multiple_of(per) || k0 + n > self.dims[2] {
             return Err(IoError::usage(
                 &self.path,
                 format!(

@@ -67,7 +67,7 @@ impl Header {
     fn check(&self, k0: usize, dst: &[u8]) -> Result<usize, IoError> {
         let per = self.shape.bytes();
         let n = dst.len() / per;
-        if dst.len() % per != 0 || k0 + n > self.depth {
+        if !dst.len().is_multiple_of(per) || k0 + n > self.depth {
             return Err(IoError::usage(
                 &self.path,
                 format!(
