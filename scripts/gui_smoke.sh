@@ -128,4 +128,93 @@ rc=$?
 set -e
 [ "$rc" -eq 0 ] || fail "the desk run exited with code $rc"
 grep -q "smoke: done" "$LOG" || fail "the desk run closed before the analysis view"
+# A new user, with real keys and clicks only: start a project from the sample scans (Ctrl+N,
+# type where to save it, Enter, type the scans' folder, Enter, Enter on the empty field makes
+# the project), start a trial (Ctrl+T, type a name, Enter), place three landmarks by clicks on
+# the stage, save (Ctrl+S), quit (Ctrl+Q); then the project file must hold the three landmarks.
+USER_DIR="$PWD/$OUT/user"
+rm -rf "$USER_DIR"
+mkdir -p "$USER_DIR"
+PROJECT="$USER_DIR/my_skulls.json"
+LOG="$OUT/user.log"
+: >"$LOG"
+SUTURA_SMOKE=user "$BIN" open sample_volumes/HDC-002.nii.gz >"$LOG" 2>&1 &
+PID=$!
+# types text one key at a time, as a hand does
+type_keys() {
+  local text=$1 i c k
+  for ((i = 0; i < ${#text}; i++)); do
+    c=${text:i:1}
+    case "$c" in
+      /) k=slash ;; .) k=period ;; _) k=underscore ;; -) k=minus ;; " ") k=space ;;
+      [A-Z]) k="shift+$(echo "$c" | tr 'A-Z' 'a-z')" ;;
+      *) k=$c ;;
+    esac
+    xdotool key "$k"
+  done
+}
+wait_for "smoke: state window" 120 || fail "the window never showed"
+sleep 1
+win=$(xdotool search --name '^Sutura' | head -1)
+[ -n "$win" ] || fail "no window named Sutura"
+# no window manager under Xvfb: give the window the keyboard focus as one would
+xdotool windowfocus "$win"
+xdotool mousemove --window "$win" 640 400
+sleep 0.5
+xdotool key ctrl+n
+wait_for "smoke: state form" 20 || fail "Ctrl+N did not open the new-project form"
+sleep 0.5
+type_keys "$PROJECT"
+xdotool key Return
+sleep 0.5
+type_keys "$PWD/sample_volumes"
+xdotool key Return
+wait_for "smoke: state form read 10" 180 || fail "the form did not list and read the ten sample scans"
+sleep 0.5
+xdotool key Return
+wait_for "smoke: state specimens 10" 300 || fail "the project was not made with its ten specimens"
+import -window root "$OUT/user_project.png"
+xdotool key ctrl+t
+wait_for "smoke: state operator" 30 || fail "Ctrl+T did not ask the operator's name"
+sleep 0.5
+type_keys "Ana"
+xdotool key Return
+wait_for "smoke: state trial 1 by Ana" 30 || fail "typing a name and Enter did not start the trial"
+wait_for "smoke: ready placing " 180 || fail "the first specimen's scan never showed while placing"
+line=$(grep "smoke: ready placing " "$LOG" | head -1)
+IFS=, read -r x0 y0 x1 y1 <<<"${line##*stage=}"
+n=0
+for f in "0.35 0.45" "0.5 0.4" "0.62 0.55"; do
+  read -r fx fy <<<"$f"
+  cx=$(awk -v a="$x0" -v b="$x1" -v f="$fx" 'BEGIN { printf "%d", a + (b - a) * f }')
+  cy=$(awk -v a="$y0" -v b="$y1" -v f="$fy" 'BEGIN { printf "%d", a + (b - a) * f }')
+  xdotool mousemove --window "$win" "$cx" "$cy"
+  sleep 0.4
+  xdotool click 1
+  n=$((n + 1))
+  wait_for "smoke: state placed $n" 20 || fail "click $n at $cx,$cy placed no landmark"
+  sleep 0.3
+done
+import -window root "$OUT/user_placed.png"
+xdotool key ctrl+s
+wait_for "smoke: state saved" 20 || fail "Ctrl+S did not save the project"
+xdotool key ctrl+q
+set +e
+wait "$PID"
+rc=$?
+set -e
+[ "$rc" -eq 0 ] || fail "the user run exited with code $rc"
+python3 - "$PROJECT" <<'PY' || fail "the saved project does not hold the three landmarks"
+import json, sys
+p = json.load(open(sys.argv[1]))
+assert len(p["specimens"]) == 10, len(p["specimens"])
+s = p["specimens"][0]
+t = s["trials"][0]
+assert (t["id"], t["operator"]) == ("1", "Ana"), (t["id"], t["operator"])
+placed = [l for l in t["landmarks"] if l["state"] == "placed"]
+assert len(placed) == 3, t["landmarks"]
+assert all(len(l["position_mm"]) == 3 and l["method"] in ("slice", "surface") for l in placed)
+print(f"gui_smoke: user run: {s['id']} trial 1 by Ana holds", ", ".join(l["id"] for l in placed))
+PY
+
 echo "gui_smoke: ok ($(ls "$OUT"/*.png | wc -l) screenshots in $OUT)"

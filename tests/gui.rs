@@ -879,3 +879,306 @@ fn a_curve_is_traced_by_clicks_and_resampled_once_its_anchors_are_placed() {
     h.step();
     assert!(curve(&h).unwrap().semilandmarks_mm[0].is_empty());
 }
+
+// ---------------------------------------------------------------------------------------------
+// Starting and running a project in the window.
+
+use sutura::gui::{DeskCommand, TypedPosition};
+
+/// The generator's true landmarks of a sample specimen (world mm).
+fn truth(specimen: &str) -> std::collections::BTreeMap<String, [f64; 3]> {
+    let p = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("sample_volumes")
+        .join(format!("{specimen}.landmarks.json"));
+    let v: serde_json::Value = serde_json::from_slice(&std::fs::read(p).unwrap()).unwrap();
+    v["landmarks"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|l| {
+            (
+                l["id"].as_str().unwrap().to_owned(),
+                [
+                    l["x"].as_f64().unwrap(),
+                    l["y"].as_f64().unwrap(),
+                    l["z"].as_f64().unwrap(),
+                ],
+            )
+        })
+        .collect()
+}
+
+#[test]
+fn a_project_is_started_in_the_window_from_the_sample_scans() {
+    let dir = tempfile::tempdir().unwrap();
+    let app = App::new(named("Ana"), None);
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    h.step();
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::N);
+    h.step();
+    h.step();
+    assert!(
+        h.state().new_project_form().is_some(),
+        "Ctrl+N opens the form"
+    );
+    // the bundled example scheme is proposed; scans come from a folder of scans
+    let target = dir.path().join("my_skulls.json");
+    {
+        let f = h.state_mut().new_project_form_mut().unwrap();
+        assert!(f.scheme_text.ends_with("scheme.toml"), "{}", f.scheme_text);
+        f.target_text = target.display().to_string();
+        f.groups_text = "formation=Harrowdene Clay".into();
+        f.add_scans(vec![
+            PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes"),
+        ]);
+        assert_eq!(f.scans.len(), 10);
+        // an id is editable before the project is made
+        f.scans[0].id = "HDC-001a".into();
+    }
+    step_until(&mut h, "every scan to be read", |a| {
+        a.new_project_form()
+            .is_some_and(sutura::gui::new_project::NewProjectForm::all_read)
+    });
+    h.get_by_label("Make project").click();
+    step_until(&mut h, "the project with its specimens", |a| {
+        a.new_project_form().is_none()
+            && !a.is_loading()
+            && a.desk()
+                .is_some_and(|d| d.session.project.specimens().len() == 10)
+    });
+    let d = h.state().desk().unwrap();
+    let ids: Vec<&str> = d
+        .session
+        .project
+        .specimens()
+        .iter()
+        .map(|s| s.id.as_str())
+        .collect();
+    assert_eq!(ids[0], "HDC-001a");
+    assert_eq!(ids[9], "TF-005");
+    assert!(
+        d.session
+            .project
+            .specimens()
+            .iter()
+            .all(|s| s.groups["formation"] == "Harrowdene Clay")
+    );
+    // the specimens were added as one undoable step; the file has the empty project until saved
+    assert!(d.session.is_dirty());
+    assert_eq!(d.session.next_undo(), Some("add 10 specimens"));
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::S);
+    h.step();
+    let saved = Project::load(&target).unwrap();
+    assert_eq!(saved.specimens().len(), 10);
+    // scan paths are recorded relative to the project file and resolve to the sample scans
+    assert_eq!(
+        std::fs::canonicalize(saved.specimens()[1].scan.resolve(&target)).unwrap(),
+        std::fs::canonicalize(
+            PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz")
+        )
+        .unwrap()
+    );
+}
+
+#[test]
+fn groups_are_set_for_a_specimen_from_the_column_and_undone_in_one_step() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    h.get_by_label("Groups of HDC-001").click();
+    h.step();
+    for (field, text) in [("key", "horizon"), ("value", "lower lens")] {
+        h.get_by_label(field).focus();
+        h.step();
+        h.get_by_label(field).type_text(text);
+        h.step();
+    }
+    h.get_by_label("Set").click();
+    h.step();
+    h.step();
+    let groups = |h: &Harness<'_, App>| {
+        h.state()
+            .desk()
+            .unwrap()
+            .session
+            .project
+            .specimen("HDC-001")
+            .unwrap()
+            .groups
+            .clone()
+    };
+    assert_eq!(groups(&h)["horizon"], "lower lens");
+    // several specimens at once (the ticked ones) go through the same command
+    h.state_mut().send(DeskCommand::SetGroup {
+        specimens: vec!["HDC-002".into(), "TF-001".into()],
+        key: "horizon".into(),
+        value: Some("upper".into()),
+    });
+    h.step();
+    h.step();
+    let p = &h.state().desk().unwrap().session.project;
+    assert_eq!(p.specimen("TF-001").unwrap().groups["horizon"], "upper");
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    let p = &h.state().desk().unwrap().session.project;
+    assert!(!p.specimen("TF-001").unwrap().groups.contains_key("horizon"));
+    assert!(
+        !p.specimen("HDC-002")
+            .unwrap()
+            .groups
+            .contains_key("horizon")
+    );
+    assert_eq!(groups(&h)["horizon"], "lower lens");
+}
+
+#[test]
+fn typed_positions_and_the_partner_estimate_agree_with_the_generator() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "HDC-002's scan", |a| {
+        a.scan_of() == Some("HDC-002") && !a.is_loading()
+    });
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::T);
+    h.step();
+    h.step();
+    let t = truth("HDC-002");
+    let target = "orbit_anterior_R";
+    // every other landmark typed at its true position, one of them in voxel coordinates
+    for (id, p) in &t {
+        if id == target {
+            continue;
+        }
+        h.state_mut().send(DeskCommand::SelectLandmark(id.clone()));
+        h.step();
+        let pos = if id == "snout_tip" {
+            let rec = &h.state().desk().unwrap().specimen_ref().unwrap().scan;
+            TypedPosition::Voxel(rec.voxel_from_world_point(*p))
+        } else {
+            TypedPosition::WorldMm(*p)
+        };
+        h.state_mut().send(DeskCommand::PlaceTyped(pos));
+        h.step();
+    }
+    let d = h.state().desk().unwrap();
+    let tr = d.trial_ref().unwrap();
+    for (id, p) in &t {
+        if id == target {
+            continue;
+        }
+        let e = tr.landmark(id).unwrap();
+        assert_eq!(e.method, Some(Method::Typed));
+        assert!(close(e.position_mm.unwrap(), *p, 1e-9), "{id}");
+    }
+    // a position outside the scan is refused with a message
+    h.state_mut()
+        .send(DeskCommand::SelectLandmark(target.into()));
+    h.step();
+    h.state_mut()
+        .send(DeskCommand::PlaceTyped(TypedPosition::WorldMm([
+            1e3, 0.0, 0.0,
+        ])));
+    h.step();
+    assert!(h.state().status().unwrap().is_error());
+    // the synthetic skulls are bilaterally symmetric: the mirrored partner is the truth
+    h.get_by_label("From partner").click();
+    h.step();
+    h.step();
+    let e = h
+        .state()
+        .desk()
+        .unwrap()
+        .trial_ref()
+        .unwrap()
+        .landmark(target)
+        .unwrap()
+        .clone();
+    assert_eq!(e.state, LandmarkState::Estimated);
+    assert!(close(e.position_mm.unwrap(), t[target], 1e-9), "{e:?}");
+    let note = e.note.unwrap();
+    assert!(
+        note.contains("orbit_anterior_L") && note.contains("rms"),
+        "{note}"
+    );
+    // one undo takes the estimate and its note back
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    assert!(
+        h.state()
+            .desk()
+            .unwrap()
+            .trial_ref()
+            .unwrap()
+            .landmark(target)
+            .is_none()
+    );
+}
+
+#[test]
+fn analysis_options_in_the_window_give_the_command_lines_numbers() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    h.key_press(egui::Key::A);
+    h.step();
+    h.step();
+    h.get_by_label("full Procrustes").click();
+    h.step();
+    h.get_by_label("regression").click();
+    h.step();
+    h.get_by_label("latest").click();
+    h.step();
+    h.get_by_label("Run analysis").click();
+    step_until(&mut h, "the analysis", |a| {
+        !a.analysis().is_running() && a.analysis().result.is_some()
+    });
+    let gui = dir.path().join("gui");
+    h.state_mut()
+        .send(AnalysisCommand::SetExportFolder(gui.clone()));
+    h.step();
+    h.step();
+    h.get_by_label("Analysis tables").click();
+    h.step();
+    let cli = dir.path().join("cli");
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_sutura"))
+        .args([
+            "superimpose",
+            path.to_str().unwrap(),
+            "-o",
+            cli.to_str().unwrap(),
+            "--fit",
+            "full",
+            "--fill",
+            "regression",
+            "--trial",
+            "latest",
+            "--group-by",
+            "formation",
+        ])
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    for f in [
+        "specimens.csv",
+        "disparity.csv",
+        "pc_scores.csv",
+        "aligned_long.csv",
+    ] {
+        assert_eq!(
+            std::fs::read(gui.join(f)).unwrap(),
+            std::fs::read(cli.join(f)).unwrap(),
+            "{f} differs between the window and the command line"
+        );
+    }
+    // the latest trial was analysed: HDC-002 has two
+    let specimens = std::fs::read_to_string(gui.join("specimens.csv")).unwrap();
+    let row = specimens.lines().find(|l| l.contains(",HDC-002,")).unwrap();
+    assert!(row.contains(",HDC-002,2,"), "{row}");
+}

@@ -272,7 +272,7 @@ pub fn resolve_trial(
     let id = s.next_trial_id();
     session.edit(Edit::AddTrial {
         specimen: specimen.to_owned(),
-        trial: Box::new(Trial::new(&id, &operator, time.timestamp()?)),
+        trial: Box::new(Trial::new(&id, &operator, time.timestamp())),
         index: None,
     })?;
     eprintln!("{specimen}: started trial {id} by {operator}");
@@ -368,7 +368,7 @@ pub fn place(
         position_mm: p,
         method,
         pick,
-        at: time.timestamp()?,
+        at: time.timestamp(),
     })?;
     if let Some(n) = note {
         session.edit(Edit::SetNote {
@@ -562,7 +562,7 @@ fn run_missing(a: &MissingArgs) -> Result<()> {
         specimen: t.specimen.clone(),
         trial: trial.clone(),
         landmark: t.landmark.clone(),
-        at: a.time.timestamp()?,
+        at: a.time.timestamp(),
     })?;
     if let Some(n) = &a.note {
         session.edit(Edit::SetNote {
@@ -639,7 +639,7 @@ fn run_trace(a: &TraceArgs) -> Result<()> {
         trial,
         curve: t.curve.clone(),
         traced_mm: traced,
-        at: a.time.timestamp()?,
+        at: a.time.timestamp(),
     })?;
     Ok(session.save()?)
 }

@@ -163,6 +163,19 @@ pub fn main() -> ExitCode {
     }
 }
 
+/// Two finite numbers `A,B` (an `--orbit` or a `--window`), read at the command line's boundary.
+pub fn pair(text: &str) -> Result<[f64; 2], String> {
+    let v: Vec<f64> = text
+        .split(',')
+        .map(|s| s.trim().parse::<f64>())
+        .collect::<Result<_, _>>()
+        .map_err(|_| format!("'{text}' is not two numbers A,B"))?;
+    match v.as_slice() {
+        [a, b] if a.is_finite() && b.is_finite() => Ok([*a, *b]),
+        _ => Err(format!("'{text}': give two finite numbers A,B")),
+    }
+}
+
 /// A command line clap refuses: help and version print as clap writes them; a mistake is one
 /// line on stderr (clap's first line, without its own prefix) and exit code 2.
 fn usage_error(e: &clap::Error) -> ExitCode {

@@ -48,16 +48,14 @@ pub enum TrialCommand {
 pub struct TimeArgs {
     /// Time stamp recorded with the change (RFC 3339, e.g. 2025-03-01T14:02:11Z; any offset is
     /// converted to UTC). Default: now.
-    #[arg(long, value_name = "RFC3339")]
-    pub time: Option<String>,
+    #[arg(long, value_name = "RFC3339", value_parser = Timestamp::parse)]
+    pub time: Option<Timestamp>,
 }
 
 impl TimeArgs {
-    pub fn timestamp(&self) -> Result<Timestamp> {
-        match &self.time {
-            Some(t) => Timestamp::parse(t).map_err(|e| anyhow::anyhow!("--time: {e}")),
-            None => Ok(Timestamp::now()),
-        }
+    #[must_use]
+    pub fn timestamp(&self) -> Timestamp {
+        self.time.clone().unwrap_or_else(Timestamp::now)
     }
 }
 
@@ -318,7 +316,7 @@ fn run_trial_new(a: &TrialNewArgs) -> Result<()> {
     let id = a.id.clone().unwrap_or_else(|| s.next_trial_id());
     session.edit(Edit::AddTrial {
         specimen: a.specimen.clone(),
-        trial: Box::new(Trial::new(&id, &a.operator, a.time.timestamp()?)),
+        trial: Box::new(Trial::new(&id, &a.operator, a.time.timestamp())),
         index: None,
     })?;
     session.save()?;

@@ -38,8 +38,8 @@ impl From<Colours> for ColourMap {
 pub struct ToneArgs {
     /// Window as `CENTRE,WIDTH` in the scan's (rescaled) intensity units. Default: from the
     /// 0.5th to the 99.5th percentile of the image.
-    #[arg(long, value_name = "CENTRE,WIDTH", allow_hyphen_values = true)]
-    window: Option<String>,
+    #[arg(long, value_name = "CENTRE,WIDTH", allow_hyphen_values = true, value_parser = window_arg)]
+    window: Option<WindowLevel>,
 
     /// Colour map.
     #[arg(long, value_enum, default_value = "grey")]
@@ -52,29 +52,18 @@ pub struct ToneArgs {
 
 impl ToneArgs {
     fn window_for(&self, img: &F32Image) -> Result<WindowLevel> {
-        if let Some(w) = &self.window {
-            let v = parse_floats(w, 2).with_context(|| format!("--window {w}"))?;
-            return WindowLevel::new(v[0], v[1])
-                .with_context(|| format!("--window {w}: the width must be positive"));
+        if let Some(w) = self.window {
+            return Ok(w);
         }
         WindowLevel::from_image_percentiles(img, 0.5, 99.5)
             .context("the image holds no voxel values to set a window from")
     }
 }
 
-fn parse_floats(text: &str, n: usize) -> Result<Vec<f64>> {
-    let v: Vec<f64> = text
-        .split(',')
-        .map(|s| {
-            s.trim()
-                .parse::<f64>()
-                .with_context(|| format!("'{s}' is not a number"))
-        })
-        .collect::<Result<_>>()?;
-    if v.len() != n || v.iter().any(|x| !x.is_finite()) {
-        bail!("expected {n} comma-separated numbers");
-    }
-    Ok(v)
+/// `CENTRE,WIDTH` with a positive width.
+fn window_arg(text: &str) -> Result<WindowLevel, String> {
+    let [c, w] = super::pair(text)?;
+    WindowLevel::new(c, w).ok_or_else(|| format!("'{text}': the width must be positive"))
 }
 
 /// Voxel axes by the names a user gives them.
@@ -277,9 +266,10 @@ pub struct View3dArgs {
         long,
         value_name = "AZ,EL",
         default_value = "30,25",
-        allow_hyphen_values = true
+        allow_hyphen_values = true,
+        value_parser = super::pair
     )]
-    orbit: String,
+    orbit: [f64; 2],
 
     /// Image size in pixels (square).
     #[arg(long, default_value_t = 512)]
@@ -315,8 +305,7 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             src.dims()[2]
         );
     }
-    let o = parse_floats(&a.orbit, 2).with_context(|| format!("--orbit {}", a.orbit))?;
-    let dir = orbit_direction(o[0], o[1]);
+    let dir = orbit_direction(a.orbit[0], a.orbit[1]);
     let up = if dir.cross(&Vector3::z()).norm() < 1e-6 {
         Vector3::y()
     } else {

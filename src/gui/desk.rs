@@ -103,7 +103,7 @@ impl Desk {
         self.session.name()
     }
 
-    /// Selects a specimen and its latest trial, and the first landmark not yet decided.
+    /// Selects a specimen and its latest trial, and the first landmark not yet recorded.
     pub fn select_specimen(&mut self, id: &str) {
         let Some(s) = self.session.project.specimen(id) else {
             return;
@@ -157,7 +157,7 @@ impl Desk {
     }
 
     /// The first landmark in scheme order after `after` (wrapping; from the start for `None`)
-    /// that the selected trial has not decided yet.
+    /// that the selected trial has not recorded yet.
     #[must_use]
     pub fn first_open_after(&self, after: Option<&str>) -> Option<String> {
         let scheme = self.session.project.scheme();

@@ -3,15 +3,18 @@
 //! checklist, the curves and the live measurements. Like every panel it only reads the state
 //! and returns [`Command`]s; the text being typed lives in the app's [`UiState`].
 
-use eframe::egui::{self, RichText, Sense, Stroke, Ui, Vec2};
+use eframe::egui::{self, Color32, RichText, Sense, Stroke, Ui, Vec2};
 
 use super::app::UiState;
 use super::command::{AppCommand, Command, DeskCommand, DialogKind, TypedPosition, ViewCommand};
 use super::desk::Desk;
-use super::marks::{CURRENT, ESTIMATED, MISSING, OPEN, PLACED, state_colour};
+use super::marks::{CURRENT, MISSING, OPEN, PLACED, state_colour};
 use super::state::{Preferences, Scan, ViewState};
 use sutura_core::landmarks::project::{LandmarkState, Method};
 use sutura_core::measure::table::measure_trial;
+
+/// A trial's progress bar before it is complete: neutral, not a landmark state's colour.
+const PROGRESS: Color32 = Color32::from_rgb(86, 140, 150);
 
 /// The frame a position is typed in.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -209,7 +212,7 @@ fn specimens_ui(ui: &mut Ui, s: &Desk, form: &mut UiState, out: &mut Vec<Command
                         egui::ProgressBar::new(frac)
                             .desired_width(48.0)
                             .desired_height(8.0)
-                            .fill(if done == total { PLACED } else { ESTIMATED }),
+                            .fill(if done == total { PLACED } else { PROGRESS }),
                     );
                     ui.label(
                         RichText::new(format!("{done} of {total}"))

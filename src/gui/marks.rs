@@ -14,6 +14,7 @@ use super::state::{Scan, ViewId};
 use super::view::Shown;
 use super::worker::RenderKey;
 use sutura_core::geometry::WorldPoint;
+use sutura_core::landmarks::palette;
 use sutura_core::landmarks::project::LandmarkState;
 
 /// How many slice spacings from the plane a landmark is still drawn in a plane view.
@@ -22,12 +23,16 @@ pub const NEAR_SLICES: f64 = 8.0;
 pub const GRAB_POINTS: f32 = 9.0;
 
 /// Colours of the landmark states (the same in every view, the checklist and PLY exports).
-pub const PLACED: Color32 = Color32::from_rgb(108, 214, 134);
-pub const ESTIMATED: Color32 = Color32::from_rgb(236, 190, 84);
-pub const MISSING: Color32 = Color32::from_rgb(232, 104, 92);
-pub const OPEN: Color32 = Color32::from_gray(150);
+pub const PLACED: Color32 = rgb(palette::PLACED);
+pub const ESTIMATED: Color32 = rgb(palette::ESTIMATED);
+pub const MISSING: Color32 = rgb(palette::MISSING);
+pub const OPEN: Color32 = rgb(palette::OPEN);
 /// The current landmark's highlight.
-pub const CURRENT: Color32 = Color32::from_rgb(255, 236, 120);
+pub const CURRENT: Color32 = rgb(palette::CURRENT);
+
+const fn rgb(c: [u8; 3]) -> Color32 {
+    Color32::from_rgb(c[0], c[1], c[2])
+}
 
 /// The colour of a landmark state (`None`: not digitised yet).
 #[must_use]
@@ -180,7 +185,7 @@ pub fn plane_marks(
 }
 
 /// The colour of curves: traced points and semilandmarks.
-pub const CURVE: Color32 = Color32::from_rgb(120, 200, 236);
+pub const CURVE: Color32 = rgb(palette::CURVE);
 
 fn diamond(painter: &egui::Painter, at: Pos2, d: f32, col: Color32) {
     painter.add(egui::Shape::convex_polygon(

@@ -259,9 +259,12 @@ fn desk_step(app: &mut App, ctx: &egui::Context, now: f64) {
 /// The user run: says when each step a user takes has landed, so the script can take the
 /// next one (the script does every step with real keys and clicks).
 fn user_step(app: &mut App, ctx: &egui::Context) {
-    let mut states: Vec<String> = Vec::new();
-    if app.ui.new_project.is_some() {
+    let mut states: Vec<String> = vec!["window".into()];
+    if let Some(f) = &app.ui.new_project {
         states.push("form".into());
+        if !f.scans.is_empty() && f.all_read() {
+            states.push(format!("form read {}", f.scans.len()));
+        }
     }
     if matches!(app.ui.prompt, Some(super::prompts::Prompt::Operator)) {
         states.push("operator".into());

@@ -90,14 +90,16 @@ impl ViewId {
     }
 
     /// The view's identity colour (RGB): its frame, and its line in the other plane views.
+    /// One family, blue-violet to pink, kept apart from the landmark states' green, amber, red
+    /// and grey and from the curves' sky blue (see `sutura_core::landmarks::palette`).
     #[must_use]
     pub const fn colour(self) -> [u8; 3] {
         match self {
-            Self::PlaneI => [232, 163, 61],  // amber
-            Self::PlaneJ => [61, 184, 168],  // teal
-            Self::PlaneK => [176, 124, 232], // lavender
-            Self::Oblique => [232, 111, 90], // coral
-            Self::Volume => [143, 179, 217], // steel blue
+            Self::PlaneI => [100, 100, 255],  // indigo
+            Self::PlaneJ => [176, 116, 250],  // violet
+            Self::PlaneK => [226, 112, 236],  // orchid
+            Self::Oblique => [252, 112, 190], // pink
+            Self::Volume => [214, 200, 255],  // lilac
         }
     }
 
@@ -717,6 +719,30 @@ mod tests {
         assert_relative_eq!(v.x, 0.0, epsilon = 1e-9);
         assert_relative_eq!(v.y, 0.1 / 0.036, epsilon = 1e-9);
         assert_relative_eq!(v.z, 4.0, epsilon = 1e-9);
+    }
+
+    #[test]
+    fn view_colours_stay_clear_of_the_landmark_state_colours() {
+        use sutura_core::landmarks::palette;
+        let dist = |a: [u8; 3], b: [u8; 3]| {
+            a.iter()
+                .zip(b)
+                .map(|(x, y)| (f64::from(*x) - f64::from(y)).powi(2))
+                .sum::<f64>()
+                .sqrt()
+        };
+        for v in ViewId::ALL {
+            for s in [
+                palette::PLACED,
+                palette::ESTIMATED,
+                palette::MISSING,
+                palette::OPEN,
+                palette::CURVE,
+                palette::CURRENT,
+            ] {
+                assert!(dist(v.colour(), s) > 80.0, "{v:?} vs {s:?}");
+            }
+        }
     }
 
     #[test]

@@ -23,9 +23,9 @@ pub enum PointKind {
 impl PointKind {
     const fn rgb(self) -> [u8; 3] {
         match self {
-            Self::Placed => [220, 70, 40],
-            Self::Estimated => [60, 110, 230],
-            Self::Semilandmark => [40, 170, 90],
+            Self::Placed => crate::landmarks::palette::PLACED,
+            Self::Estimated => crate::landmarks::palette::ESTIMATED,
+            Self::Semilandmark => crate::landmarks::palette::CURVE,
         }
     }
 

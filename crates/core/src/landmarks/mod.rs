@@ -35,6 +35,7 @@
 pub mod curve;
 pub mod fingerprint;
 pub mod mirror;
+pub mod palette;
 pub mod pick;
 pub mod pick_source;
 pub mod project;

@@ -512,7 +512,7 @@ impl TrialProgress {
         self.placed + self.estimated + self.missing
     }
 
-    /// Every landmark decided and every curve done.
+    /// Every landmark recorded (placed, estimated or missing) and every curve done.
     #[must_use]
     pub const fn is_complete(&self) -> bool {
         self.landmarks_done() == self.landmarks_total && self.curves_done == self.curves_total
