@@ -6,6 +6,7 @@
 #   nibabel/    the NIfTI/Analyze test files of nibabel's wheel
 #   nifti_made/ NIfTI files written by nibabel (tests/python/nifti_make.py, seeded)
 #   tifffile/   TIFF files written by tifffile (tests/python/tiff_write_refs.py, seeded)
+#   zarr_made/  OME-Zarr multiscale images written by zarr-python (tests/python/zarr_store.py)
 # After one run, `cargo test` needs neither the network nor Python: the Python libraries'
 # answers are committed under tests/fixtures/reference. Each part is remade when what makes it
 # changes (its stamp: the package version and the script's checksum), else left alone.
@@ -67,4 +68,11 @@ if ! fresh tifffile "$stamp"; then
   rm -rf "$dest/tifffile"
   "$PY" tests/python/tiff_write_refs.py "$dest/tifffile" >/dev/null
   made tifffile "$stamp"
+fi
+
+stamp="zarr $("$PY" -c 'import zarr; print(zarr.__version__)') numcodecs $("$PY" -c 'import numcodecs; print(numcodecs.__version__)') $(sum tests/python/zarr_store.py)"
+if ! fresh zarr_made "$stamp"; then
+  rm -rf "$dest/zarr_made"
+  "$PY" tests/python/zarr_store.py write "$dest/zarr_made"
+  made zarr_made "$stamp"
 fi

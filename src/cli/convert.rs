@@ -1,18 +1,23 @@
-//! `sutura convert`: write a scan, cropped or downsampled, as NIfTI-1 or a TIFF slice folder.
+//! `sutura convert`: write a scan as an OME-Zarr store (streamed, bounded memory), or, cropped
+//! or downsampled, as NIfTI-1 or a TIFF slice folder.
 
 use super::ScanArgs;
 use anyhow::{Context, Result, bail};
 use clap::Args;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
+use sutura_core::io::Progress;
+use sutura_core::landmarks::scan::open_scan_slices;
+use sutura_core::store::{Codec, ConvertOptions, convert};
 
 #[derive(Debug, Args)]
 pub struct ConvertArgs {
     #[command(flatten)]
     scan: ScanArgs,
 
-    /// Output: `NAME.nii` or `NAME.nii.gz` (NIfTI-1), or a folder `NAME/` of TIFF slices
-    /// (`NAME.tif` and `NAME.tiff` also write a folder of that name).
+    /// Output: `NAME.ome.zarr` (a chunked multiscale store, written a slab of slices at a time
+    /// whatever the scan's size), `NAME.nii` or `NAME.nii.gz` (NIfTI-1), or a folder `NAME/` of
+    /// TIFF slices (`NAME.tif` and `NAME.tiff` also write a folder of that name).
     #[arg(short, long, value_name = "OUT")]
     output: PathBuf,
 
@@ -38,6 +43,105 @@ pub struct ConvertArgs {
     /// Average blocks of N×N×N voxels into one (after cropping); the voxel size grows N-fold.
     #[arg(long, value_name = "N", default_value_t = 1)]
     downsample: usize,
+
+    /// Store only: the compressor of the chunks, `zstd[/LEVEL]`, `blosc-lz4[/LEVEL]`,
+    /// `gzip[/LEVEL]` or `raw`.
+    #[arg(long, value_name = "CODEC", default_value = "zstd/1")]
+    codec: String,
+
+    /// Store only: the side of the cubic chunks, in voxels (16 to 256).
+    #[arg(long, value_name = "N", default_value_t = 64)]
+    chunk: usize,
+
+    /// Store only: coarser levels are added until one holds at most this many KiB of voxels.
+    #[arg(long, value_name = "KIB", default_value_t = 65_536, value_parser = clap::value_parser!(u64).range(1..))]
+    coarsest_kib: u64,
+
+    /// Store only: start afresh instead of resuming an interrupted conversion.
+    #[arg(long)]
+    restart: bool,
+}
+
+/// Whether an output name asks for a store.
+fn is_store_name(out: &Path) -> bool {
+    let name = out
+        .file_name()
+        .map(|n| n.to_string_lossy().to_lowercase())
+        .unwrap_or_default();
+    #[allow(
+        clippy::case_sensitive_file_extension_comparisons,
+        reason = "lower-cased above"
+    )]
+    let store = name.ends_with(".zarr");
+    store
+}
+
+/// Streams the scan into a store with a progress bar; Ctrl-C leaves a partial store that the
+/// same command resumes.
+fn run_store(a: &ConvertArgs) -> Result<()> {
+    if a.crop.is_some() || a.downsample != 1 {
+        bail!(
+            "--crop and --downsample write NIfTI or TIFF; a store keeps the whole scan at every level of detail"
+        );
+    }
+    let codec = Codec::parse(&a.codec).map_err(|e| anyhow::anyhow!("--codec {}: {e}", a.codec))?;
+    let voxel_size_mm = a.scan.voxel_size.map(|v| v.0);
+    let mut reader = open_scan_slices(&a.scan.scan, voxel_size_mm)?;
+    let fingerprint = sutura_core::landmarks::fingerprint::file_facts(&a.scan.scan)?;
+    let options = ConvertOptions {
+        chunk: a.chunk,
+        codec,
+        source_fingerprint: Some(serde_json::json!({
+            "files": fingerprint.files,
+            "bytes": fingerprint.bytes,
+            "head_sha256": fingerprint.head_sha256,
+        })),
+        resume: !a.restart,
+        coarsest_bytes: a.coarsest_kib.saturating_mul(1024),
+    };
+    let bar = (!a.scan.quiet).then(|| {
+        let b = indicatif::ProgressBar::with_draw_target(
+            None,
+            indicatif::ProgressDrawTarget::stderr_with_hz(4),
+        );
+        b.set_style(
+            indicatif::ProgressStyle::with_template(
+                "converting {bar:40} {pos}/{len} slices {elapsed} (eta {eta})",
+            )
+            .expect("static template"),
+        );
+        b
+    });
+    let report = |done: u64, total: u64| {
+        if let Some(b) = &bar {
+            b.set_length(total);
+            b.set_position(done);
+        }
+        true
+    };
+    let progress = Progress::new(Some(&report));
+    let started = std::time::Instant::now();
+    let r = convert(reader.as_mut(), &a.output, &options, &progress)?;
+    if let Some(b) = &bar {
+        b.finish_and_clear();
+    }
+    let [nx, ny, nz] = r.levels[0].dims;
+    let coarsest = r.levels.last().map_or([0; 3], |l| l.dims);
+    eprintln!(
+        "wrote {} ({nx} x {ny} x {nz} {}, {} levels down to {} x {} x {}, {:.1} MiB, {:.1} s{})",
+        a.output.display(),
+        reader.dtype(),
+        r.levels.len(),
+        coarsest[0],
+        coarsest[1],
+        coarsest[2],
+        r.stored_bytes as f64 / f64::from(1 << 20),
+        started.elapsed().as_secs_f64(),
+        r.resumed_from
+            .map(|k| format!(", resumed from slice {k}"))
+            .unwrap_or_default()
+    );
+    Ok(())
 }
 
 /// Parses `i0:i1,j0:j1,k0:k1` against the volume's dims.
@@ -71,6 +175,9 @@ pub fn parse_crop(text: &str, dims: [usize; 3]) -> Result<[Range<usize>; 3]> {
 }
 
 pub fn run(a: &ConvertArgs) -> Result<()> {
+    if is_store_name(&a.output) {
+        return run_store(a);
+    }
     let mut v = a.scan.open()?;
     if let Some(c) = &a.crop {
         let r = parse_crop(c, v.dims())?;

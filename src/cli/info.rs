@@ -36,14 +36,32 @@ pub struct InfoReport {
     pub p50: f64,
     pub p99_5: f64,
     pub voxel_bytes: usize,
+    /// Levels of detail, finest first (one for a scan read whole).
+    pub levels: Vec<LevelReport>,
+    /// Whether the statistics and percentiles cover every voxel (else a note says how far off
+    /// they may be).
+    pub intensity_exact: bool,
     pub notes: Vec<String>,
 }
 
+/// One level of detail in `info --json`.
+#[derive(Debug, Serialize)]
+pub struct LevelReport {
+    pub dims: [usize; 3],
+    pub factor: [usize; 3],
+    pub voxel_size_mm: [f64; 3],
+}
+
 pub fn run(a: &InfoArgs) -> Result<()> {
-    let v = a.scan.open()?;
-    let s = v.stats();
-    let p = v.percentiles(&[0.5, 50.0, 99.5]);
+    let v = a.scan.open_source()?;
+    let intensity = v.intensity()?;
+    let s = intensity.stats;
+    let pct = |p: f64| intensity.percentile(p).unwrap_or(f64::NAN);
     let r = v.rescale();
+    let mut notes = v.notes().to_vec();
+    if let Some(n) = &intensity.note {
+        notes.push(format!("intensity: {n}"));
+    }
     let report = InfoReport {
         path: a.scan.scan.display().to_string(),
         dims: v.dims(),
@@ -57,11 +75,22 @@ pub fn run(a: &InfoArgs) -> Result<()> {
         mean: s.mean,
         sum: s.sum,
         nan_count: s.nan_count,
-        p0_5: p[0],
-        p50: p[1],
-        p99_5: p[2],
-        voxel_bytes: v.voxel_bytes(),
-        notes: v.notes.clone(),
+        p0_5: pct(0.5),
+        p50: pct(50.0),
+        p99_5: pct(99.5),
+        voxel_bytes: v.voxel_bytes() as usize,
+        levels: (0..v.level_count())
+            .map(|l| {
+                let info = v.level(l);
+                LevelReport {
+                    dims: info.dims,
+                    factor: info.factor,
+                    voxel_size_mm: info.spacing_mm(),
+                }
+            })
+            .collect(),
+        intensity_exact: intensity.exact,
+        notes,
     };
     if a.json {
         println!("{}", serde_json::to_string_pretty(&report)?);
@@ -108,6 +137,15 @@ pub fn run(a: &InfoArgs) -> Result<()> {
         "percentiles  0.5%: {}  50%: {}  99.5%: {}",
         report.p0_5, report.p50, report.p99_5
     );
+    if report.levels.len() > 1 {
+        for (l, lv) in report.levels.iter().enumerate() {
+            let [x, y, z] = lv.dims;
+            println!(
+                "level {l:<6} {x} x {y} x {z} voxels ({}x{}x{} blocks)",
+                lv.factor[0], lv.factor[1], lv.factor[2]
+            );
+        }
+    }
     if report.nan_count > 0 {
         println!("NaN voxels   {}", report.nan_count);
     }

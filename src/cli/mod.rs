@@ -25,7 +25,8 @@ use std::process::ExitCode;
 
 use sutura_core::geometry::VoxelSizeMm;
 use sutura_core::io::Progress;
-use sutura_core::volume::Volume;
+use sutura_core::store::{Store, StoreOptions};
+use sutura_core::volume::{Volume, VolumeSource};
 
 /// Sutura: measure fossil specimens in CT scans.
 ///
@@ -45,7 +46,8 @@ enum Command {
     Open(OpenArgs),
     /// Print a scan's dimensions, voxel type and size, placement and intensity statistics.
     Info(info::InfoArgs),
-    /// Write a scan, optionally cropped and downsampled, as NIfTI-1 or a folder of TIFF slices.
+    /// Write a scan as a chunked multiscale OME-Zarr store (NAME.ome.zarr), or, optionally
+    /// cropped and downsampled, as NIfTI-1 or a folder of TIFF slices.
     Convert(convert::ConvertArgs),
     /// Render a plane (voxel plane, oblique, or thick slab) of a scan to PNG.
     Slice(view::SliceArgs),
@@ -103,7 +105,8 @@ struct OpenArgs {
 /// How to read a scan; shared by every command that opens one.
 #[derive(Debug, Args, Clone)]
 pub struct ScanArgs {
-    /// The scan: a folder of TIFF slices, a TIFF file, or a `NIfTI` file.
+    /// The scan: a folder of TIFF slices, a TIFF file, a `NIfTI` file, or an OME-Zarr store
+    /// (`NAME.ome.zarr`, see `sutura convert`).
     pub scan: PathBuf,
 
     /// Voxel size for scans that do not record one (TIFF), overriding any resolution tags:
@@ -115,9 +118,28 @@ pub struct ScanArgs {
     /// Hide the progress bar.
     #[arg(long)]
     pub quiet: bool,
+
+    /// Memory for decoded chunks when the scan is an OME-Zarr store, in MiB.
+    #[arg(long, value_name = "MIB", default_value_t = 1024)]
+    pub cache_mib: u64,
 }
 
 impl ScanArgs {
+    /// Opens the scan for reading through the volume interface: an OME-Zarr store is opened
+    /// where it lies (chunks read as needed, within `--cache-mib`); any other scan is loaded.
+    pub fn open_source(&self) -> Result<Box<dyn VolumeSource>> {
+        if sutura_core::store::is_store(&self.scan) {
+            let voxel_size_mm = self.voxel_size.map(|v| v.0);
+            let options = StoreOptions {
+                cache_bytes: self.cache_mib << 20,
+                max_block_bytes: (self.cache_mib << 20).max(64 << 20),
+                voxel_size_mm,
+            };
+            return Ok(Box::new(Store::open(&self.scan, &options)?));
+        }
+        Ok(Box::new(self.open()?))
+    }
+
     /// Opens the scan with a progress bar on stderr.
     pub fn open(&self) -> Result<Volume> {
         let voxel_size_mm = self.voxel_size.map(|v| v.0);

@@ -8,11 +8,12 @@ use std::path::PathBuf;
 
 use sutura_core::geometry::{LengthMm, Plane, Triple, WorldPoint};
 use sutura_core::render::overlay::{AxisNames, Overlay};
+use sutura_core::render::source::{self, Detail};
 use sutura_core::render::{
     AxisPlane, Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RgbaImage, Slab,
     SlabMode, SurfaceOptions, WindowLevel, raycast, slice,
 };
-use sutura_core::volume::Volume;
+use sutura_core::volume::VolumeSource;
 
 /// Colour maps for slices and projections.
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -149,9 +150,11 @@ pub enum SlabModeArg {
 }
 
 pub fn run_slice(a: &SliceArgs) -> Result<()> {
-    let v = a.scan.open()?;
+    let v = a.scan.open_source()?;
+    let v = v.as_ref();
     let pixel_mm = a.pixel.map(|l| l.0);
-    let plane = oblique_plane(a, &v)?;
+    let plane = oblique_plane(a, v)?;
+    let level0 = v.level(0);
     let limit = max_pixels(a.max_megapixels)?;
     let hint = |e: sutura_core::render::RenderError| {
         let path = a.scan.scan.display();
@@ -165,8 +168,15 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     };
     let slab_mm = a.slab.map(|l| l.0);
     let (geometry, note) = if let Some(p) = plane {
-        slice::SliceGeometry::section(&v, &p, pixel_mm, 0.5 * slab_mm.unwrap_or(0.0), limit)
-            .map_err(hint)?
+        slice::SliceGeometry::section_grid(
+            level0.dims,
+            &level0.world_from_voxel,
+            &p,
+            pixel_mm,
+            0.5 * slab_mm.unwrap_or(0.0),
+            limit,
+        )
+        .map_err(hint)?
     } else {
         let axis = match a.plane {
             Axis::I => 0,
@@ -180,8 +190,14 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
                 v.dims()[axis]
             );
         }
-        slice::SliceGeometry::axis_within(&v, AxisPlane { axis, index }, pixel_mm, limit)
-            .map_err(hint)?
+        slice::SliceGeometry::axis_within_grid(
+            level0.dims,
+            &level0.world_from_voxel,
+            AxisPlane { axis, index },
+            pixel_mm,
+            limit,
+        )
+        .map_err(hint)?
     };
     if let Some(n) = note {
         eprintln!("note: {n}");
@@ -198,7 +214,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     } else {
         Interpolation::Trilinear
     };
-    let img = slice::render_slice(&v, &geometry, interp, slab)?;
+    let img = source::render_slice(v, &geometry, interp, slab, Detail::Screen)?;
     let wl = a
         .tone
         .window_for(&img)
@@ -220,7 +236,7 @@ pub fn run_slice(a: &SliceArgs) -> Result<()> {
     Ok(())
 }
 
-fn oblique_plane(a: &SliceArgs, v: &Volume) -> Result<Option<Plane>> {
+fn oblique_plane(a: &SliceArgs, v: &dyn VolumeSource) -> Result<Option<Plane>> {
     if let Some(t) = &a.through {
         let pts: Vec<Vector3<f64>> = t
             .split(';')
@@ -324,7 +340,20 @@ pub fn orbit_direction(az_deg: f64, el_deg: f64) -> Vector3<f64> {
 }
 
 pub fn run_view3d(a: &View3dArgs) -> Result<()> {
-    let v = a.scan.open()?;
+    let src = a.scan.open_source()?;
+    // a store renders its finest level within half the cache budget
+    let v = source::volume_for_3d(src.as_ref(), (a.scan.cache_mib << 20) / 2)?;
+    if v.dims() != src.dims() {
+        eprintln!(
+            "note: rendering a {}x{}x{} level of the {}x{}x{} scan (raise --cache-mib for more detail)",
+            v.dims()[0],
+            v.dims()[1],
+            v.dims()[2],
+            src.dims()[0],
+            src.dims()[1],
+            src.dims()[2]
+        );
+    }
     let dir = orbit_direction(a.orbit[0], a.orbit[1]);
     let up = if dir.cross(&Vector3::z()).norm() < 1e-6 {
         Vector3::y()
@@ -349,10 +378,10 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
             wl.colourize(&img, a.tone.colours.into())
         }
         ViewMode::Surface => {
-            let iso = a.iso_value.map_or_else(
-                || sutura_core::landmarks::pick::default_iso_value(&v),
-                sutura_core::landmarks::pick::IsoValue::given,
-            );
+            let iso = match a.iso_value {
+                Some(v) => sutura_core::landmarks::pick::IsoValue::given(v),
+                None => sutura_core::landmarks::pick_source::default_iso_value(src.as_ref())?,
+            };
             let bricks = raycast::Bricks::new(&v);
             let mut opts = SurfaceOptions::new(iso.value);
             opts.quality = quality;

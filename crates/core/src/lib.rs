@@ -18,5 +18,6 @@ pub mod mesh;
 pub mod message;
 pub mod render;
 pub mod shape;
+pub mod store;
 pub mod synth;
 pub mod volume;

@@ -5,11 +5,14 @@
 //! [`tiff`] or [`nifti`]. Loaders check every header against [`Limits`] before allocating, report
 //! progress through a [`Progress`] callback, and fail with an [`IoError`] that names the file and
 //! what is wrong with it. Writers produce NIfTI-1 and TIFF stacks that read back exactly.
+//! [`slices`] reads any of these formats a slab of slices at a time, for conversions whose
+//! memory must not grow with the scan.
 //!
 //! Must not import `render` or `gui`.
 
 pub mod names;
 pub mod nifti;
+pub mod slices;
 pub mod tiff;
 
 use crate::volume::{Volume, VolumeError};

@@ -85,6 +85,25 @@ impl Fingerprint {
         })
     }
 
+    /// The fingerprint of a scan of any size at `path`, read through the volume interface.
+    pub fn of_source(
+        path: &Path,
+        source: &dyn crate::volume::VolumeSource,
+    ) -> Result<Self, IoError> {
+        let facts = file_facts(path)?;
+        Ok(Self {
+            files: facts.files,
+            bytes: facts.bytes,
+            head_sha256: facts.head_sha256,
+            dims: source.dims(),
+            dtype: source.dtype().name().to_owned(),
+            voxels_sha256: voxel_sample_sha256_of(source).map_err(|e| IoError::Corrupt {
+                path: path.to_owned(),
+                what: e.to_string(),
+            })?,
+        })
+    }
+
     /// Compares the files at `path` with the fingerprint without loading them.
     pub fn check_files(&self, path: &Path) -> Result<Option<Mismatch>, IoError> {
         let facts = file_facts(path)?;
@@ -154,6 +173,34 @@ pub fn file_facts(path: &Path) -> Result<FileFacts, IoError> {
         path: path.to_owned(),
         source: e,
     };
+    if crate::store::is_store(path) {
+        // a store: its files and its group metadata (which holds the source's fingerprint,
+        // the placement and the intensity facts)
+        let meta = ["zarr.json", ".zattrs"]
+            .iter()
+            .map(|n| path.join(n))
+            .find(|p| p.is_file())
+            .unwrap_or_else(|| path.join("zarr.json"));
+        let (mut files, mut bytes) = (0u64, 0u64);
+        let mut stack = vec![path.to_owned()];
+        while let Some(d) = stack.pop() {
+            for e in std::fs::read_dir(&d).map_err(os)? {
+                let e = e.map_err(os)?;
+                let m = e.metadata().map_err(os)?;
+                if m.is_dir() {
+                    stack.push(e.path());
+                } else {
+                    files += 1;
+                    bytes += m.len();
+                }
+            }
+        }
+        return Ok(FileFacts {
+            files,
+            bytes,
+            head_sha256: hex(&Sha256::digest(head(&meta, HEAD_BYTES)?)),
+        });
+    }
     if io::detect(path)? == Format::TiffFolder {
         let slices = io::tiff::list_slices(path, Limits::default().max_slices)?;
         let mut h = Sha256::new();
@@ -205,6 +252,44 @@ fn lattice(n: usize) -> Vec<usize> {
     let mut v: Vec<usize> = (0..m).map(|i| i * (n - 1) / (m - 1)).collect();
     v.dedup();
     v
+}
+
+/// [`voxel_sample_sha256`] of a scan of any size, reading each lattice voxel through the volume
+/// interface (in parallel); equal to it for the same voxels.
+pub fn voxel_sample_sha256_of(
+    source: &dyn crate::volume::VolumeSource,
+) -> Result<String, crate::volume::ReadError> {
+    use rayon::prelude::*;
+    if let Some(v) = source.whole() {
+        return Ok(voxel_sample_sha256(v));
+    }
+    let [nx, ny, nz] = source.dims();
+    let points: Vec<[usize; 3]> = lattice(nz)
+        .into_iter()
+        .flat_map(|k| {
+            lattice(ny)
+                .into_iter()
+                .flat_map(move |j| lattice(nx).into_iter().map(move |i| [i, j, k]))
+        })
+        .collect();
+    let values: Vec<f64> = points
+        .par_iter()
+        .map(|&[i, j, k]| {
+            let b = source.read_block(0, &[i..i + 1, j..j + 1, k..k + 1])?;
+            let at = b.world_to_voxel(source.world_from_voxel().voxel_to_world(
+                crate::geometry::VoxelPoint::new(i as f64, j as f64, k as f64),
+            ));
+            let v = at
+                .nearest_index(b.dims())
+                .expect("the block holds the voxel asked for");
+            Ok(b.voxels().raw_f64(b.linear_index(v)))
+        })
+        .collect::<Result<_, crate::volume::ReadError>>()?;
+    let mut h = Sha256::new();
+    for v in values {
+        h.update(v.to_le_bytes());
+    }
+    Ok(hex(&h.finalize()))
 }
 
 /// SHA-256 of the stored values on the sampling lattice (see the module docs).

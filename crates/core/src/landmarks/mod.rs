@@ -24,6 +24,8 @@
 //! - [`mirror`]: a missing landmark estimated from its bilateral partner across the fitted
 //!   midsagittal plane.
 //! - [`scan`]: opening a specimen's scan with the voxel size the project recorded.
+//! - [`pick_source`]: the same picks on a scan of any size, on full-resolution blocks read
+//!   around the ray or the click.
 //! - [`pick`]: finding the material boundary along a ray (3D view) or from a point on a slice,
 //!   at sub-voxel precision, and the ISO-50 default threshold.
 //!
@@ -35,6 +37,7 @@ pub mod fingerprint;
 pub mod mirror;
 pub mod palette;
 pub mod pick;
+pub mod pick_source;
 pub mod project;
 pub mod scan;
 pub mod scheme;

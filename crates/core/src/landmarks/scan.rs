@@ -9,6 +9,7 @@
 use std::path::Path;
 
 use crate::geometry::Affine3;
+use crate::io::slices::{self, SliceReader};
 use crate::io::{self, Format, IoError, OpenOptions, Progress};
 use crate::volume::Volume;
 
@@ -68,4 +69,84 @@ pub fn set_voxel_size(volume: &mut Volume, format: Format, s: [f64; 3]) {
         }
     }
     volume.spacing_origin = crate::volume::SpacingOrigin::Caller;
+}
+
+/// A slab reader over a scan (see [`crate::io::slices`]) placed as [`open_scan`] places it:
+/// `voxel_size_mm`, if given, overrides the file's voxel size.
+pub fn open_scan_slices(
+    path: &Path,
+    voxel_size_mm: Option<[f64; 3]>,
+) -> Result<Box<dyn SliceReader>, IoError> {
+    if let Some(s) = voxel_size_mm
+        && s.iter().any(|v| !(v.is_finite() && *v > 0.0))
+    {
+        return Err(IoError::usage(
+            path,
+            format!("voxel size {s:?} mm is not positive and finite"),
+        ));
+    }
+    let options = OpenOptions {
+        voxel_size_mm,
+        ..OpenOptions::default()
+    };
+    let reader = slices::open_slices(path, &options)?;
+    match voxel_size_mm {
+        Some(s) if io::detect(path)? == Format::Nifti => {
+            let w = reader.world_from_voxel();
+            let lin = w.linear();
+            let cols = w.column_lengths();
+            let mut new = lin;
+            for a in 0..3 {
+                let c = lin.column(a) * (s[a] / cols[a]);
+                new.set_column(a, &c);
+            }
+            Ok(Box::new(Resized {
+                world: Affine3::from_linear_translation(&new, &w.translation()),
+                note: format!("voxel size overridden by the user: {s:?} mm"),
+                inner: reader,
+            }))
+        }
+        _ => Ok(reader),
+    }
+}
+
+/// A reader whose voxel size the user gave.
+struct Resized {
+    inner: Box<dyn SliceReader>,
+    world: Affine3,
+    note: String,
+}
+
+impl SliceReader for Resized {
+    fn path(&self) -> &Path {
+        self.inner.path()
+    }
+    fn dims(&self) -> [usize; 3] {
+        self.inner.dims()
+    }
+    fn dtype(&self) -> crate::volume::DType {
+        self.inner.dtype()
+    }
+    fn world_from_voxel(&self) -> Affine3 {
+        self.world
+    }
+    fn rescale(&self) -> Option<crate::volume::Rescale> {
+        self.inner.rescale()
+    }
+    fn notes(&self) -> Vec<String> {
+        let mut n = self.inner.notes();
+        n.push(self.note.clone());
+        n
+    }
+    fn spacing_origin(&self) -> crate::volume::SpacingOrigin {
+        crate::volume::SpacingOrigin::Caller
+    }
+    fn read_slices(
+        &mut self,
+        k0: usize,
+        dst: &mut [u8],
+        progress: &Progress<'_>,
+    ) -> Result<(), IoError> {
+        self.inner.read_slices(k0, dst, progress)
+    }
 }

@@ -12,10 +12,10 @@
 //!   coarser until the picture fits, and a note says so; a pixel size the caller chose that
 //!   would pass the limit is refused with the size it would make.
 
-use super::geom::{cell_corners, orthonormal_pair};
+use super::geom::{cell_corners_of, orthonormal_pair};
 use super::slice::{AxisPlane, SliceGeometry};
 use super::{MAX_SIDE, RenderError, check_positive};
-use crate::geometry::{Plane, WorldPoint, format_length_mm};
+use crate::geometry::{Affine3, Plane, WorldPoint, format_length_mm};
 use crate::volume::Volume;
 use nalgebra::{Point3, Vector3};
 
@@ -154,6 +154,26 @@ impl SliceGeometry {
         half_thickness_mm: f64,
         max_pixels: usize,
     ) -> Result<(Self, Option<String>), RenderError> {
+        Self::section_grid(
+            volume.dims(),
+            volume.world_from_voxel(),
+            plane,
+            pixel_mm,
+            half_thickness_mm,
+            max_pixels,
+        )
+    }
+
+    /// [`Self::section`] for a grid of `dims` voxels placed by `world_from_voxel` (a level of
+    /// a [`VolumeSource`](crate::volume::VolumeSource)).
+    pub fn section_grid(
+        dims: [usize; 3],
+        world_from_voxel: &Affine3,
+        plane: &Plane,
+        pixel_mm: Option<f64>,
+        half_thickness_mm: f64,
+        max_pixels: usize,
+    ) -> Result<(Self, Option<String>), RenderError> {
         let (u, v) = orthonormal_pair(plane.u, plane.v, ("plane u", "plane v"))?;
         let n = u.cross(&v);
         let half = if half_thickness_mm.is_finite() {
@@ -164,7 +184,7 @@ impl SliceGeometry {
                 value: half_thickness_mm,
             });
         };
-        let c = cell_corners(volume);
+        let c = cell_corners_of(dims, world_from_voxel);
         // the vertices of box ∩ slab: corners between the faces, and where the box's edges
         // cross each face
         let mut pts: Vec<Point3<f64>> = c
@@ -203,7 +223,7 @@ impl SliceGeometry {
             tmin = tmin.min(t);
             tmax = tmax.max(t);
         }
-        let sp = volume.spacing_mm();
+        let sp = world_from_voxel.column_lengths();
         let size = |px: f64| {
             (
                 (smax / px).ceil() - (smin / px).floor() + 1.0,
@@ -235,10 +255,27 @@ impl SliceGeometry {
         pixel_mm: Option<f64>,
         max_pixels: usize,
     ) -> Result<(Self, Option<String>), RenderError> {
+        Self::axis_within_grid(
+            volume.dims(),
+            volume.world_from_voxel(),
+            plane,
+            pixel_mm,
+            max_pixels,
+        )
+    }
+
+    /// [`Self::axis_within`] for a grid of `d` voxels placed by `world_from_voxel` (a level of
+    /// a [`VolumeSource`](crate::volume::VolumeSource)).
+    pub fn axis_within_grid(
+        d: [usize; 3],
+        world_from_voxel: &Affine3,
+        plane: AxisPlane,
+        pixel_mm: Option<f64>,
+        max_pixels: usize,
+    ) -> Result<(Self, Option<String>), RenderError> {
         let (ca, ra) = plane.in_plane_axes()?;
-        let d = volume.dims();
-        let lin = volume.world_from_voxel().linear();
-        let sp = volume.spacing_mm();
+        let lin = world_from_voxel.linear();
+        let sp = world_from_voxel.column_lengths();
         let u = lin.column(ca).normalize();
         let vr = lin.column(ra).into_owned();
         let ext_u = (d[ca] as f64 - 1.0) * lin.column(ca).norm();
@@ -250,7 +287,7 @@ impl SliceGeometry {
             )
         };
         let (px, note) = choose_pixel(size, sp[ca].min(sp[ra]), pixel_mm, max_pixels)?;
-        Ok((Self::axis(volume, plane, Some(px))?, note))
+        Ok((Self::axis_grid(d, world_from_voxel, plane, Some(px))?, note))
     }
 }
 

@@ -30,7 +30,14 @@ pub(crate) fn orthonormal_pair(
 /// The eight corners of the volume's box of cells (`[-0.5, n - 0.5]` on each voxel axis) in
 /// world millimetres.
 pub(crate) fn cell_corners(volume: &Volume) -> [Point3<f64>; 8] {
-    let d = volume.dims();
+    cell_corners_of(volume.dims(), volume.world_from_voxel())
+}
+
+/// [`cell_corners`] of a grid of `d` voxels placed by `world_from_voxel`.
+pub(crate) fn cell_corners_of(
+    d: [usize; 3],
+    world_from_voxel: &crate::geometry::Affine3,
+) -> [Point3<f64>; 8] {
     std::array::from_fn(|corner| {
         let at = |axis: usize| {
             if corner >> axis & 1 == 0 {
@@ -39,7 +46,7 @@ pub(crate) fn cell_corners(volume: &Volume) -> [Point3<f64>; 8] {
                 d[axis] as f64 - 0.5
             }
         };
-        volume
+        world_from_voxel
             .voxel_to_world(VoxelPoint::new(at(0), at(1), at(2)))
             .0
     })

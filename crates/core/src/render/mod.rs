@@ -7,6 +7,8 @@
 //! - [`raycast`]: orthographic maximum-intensity projection and shaded iso-surface views;
 //! - [`pyramid`]: block min/max copies of a volume for coarse passes and empty-space skipping;
 //! - [`budget`]: the pixel limit, and slices framed to where the plane crosses the scan;
+//! - [`source`]: the same pictures of a [`VolumeSource`](crate::volume::VolumeSource) of any
+//!   size: each view reads the block it needs at the level it needs and renders it as above;
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
 //! - [`text`]: the bundled font (`DejaVu Sans`) and its glyphs drawn as paths, for overlays and
 //!   charts;
@@ -28,6 +30,7 @@ pub mod png;
 pub mod pyramid;
 pub mod raycast;
 pub mod slice;
+pub mod source;
 pub mod text;
 pub mod window;
 
@@ -65,6 +68,9 @@ pub enum RenderError {
         expected: usize,
         got: usize,
     },
+    /// The voxels could not be read from the scan's store.
+    #[error(transparent)]
+    Read(#[from] crate::volume::ReadError),
     #[error("{path}: cannot write PNG: {source}")]
     Png {
         path: String,

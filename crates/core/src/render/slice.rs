@@ -149,14 +149,25 @@ impl SliceGeometry {
         plane: &Plane,
         pixel_mm: Option<f64>,
     ) -> Result<Self, RenderError> {
-        let sp = volume.spacing_mm();
+        Self::covering_grid(volume.dims(), volume.world_from_voxel(), plane, pixel_mm)
+    }
+
+    /// [`Self::covering`] for a grid of `dims` voxels placed by `world_from_voxel` (a level of
+    /// a [`VolumeSource`](crate::volume::VolumeSource)).
+    pub fn covering_grid(
+        dims: [usize; 3],
+        world_from_voxel: &crate::geometry::Affine3,
+        plane: &Plane,
+        pixel_mm: Option<f64>,
+    ) -> Result<Self, RenderError> {
+        let sp = world_from_voxel.column_lengths();
         let px = check_positive(
             "pixel size",
             pixel_mm.unwrap_or(sp[0].min(sp[1]).min(sp[2])),
         )?;
         let (u, v) = orthonormal(plane)?;
         let (mut smin, mut smax, mut tmin, mut tmax) = (f64::MAX, f64::MIN, f64::MAX, f64::MIN);
-        for corner in cell_corners(volume) {
+        for corner in super::geom::cell_corners_of(dims, world_from_voxel) {
             let w = corner - plane.origin.0;
             let (s, t) = (w.dot(&u) / px, w.dot(&v) / px);
             smin = smin.min(s);
@@ -187,8 +198,18 @@ impl SliceGeometry {
         plane: AxisPlane,
         pixel_mm: Option<f64>,
     ) -> Result<Self, RenderError> {
+        Self::axis_grid(volume.dims(), volume.world_from_voxel(), plane, pixel_mm)
+    }
+
+    /// [`Self::axis`] for a grid of `d` voxels placed by `world_from_voxel` (a level of a
+    /// [`VolumeSource`](crate::volume::VolumeSource)).
+    pub fn axis_grid(
+        d: [usize; 3],
+        world_from_voxel: &crate::geometry::Affine3,
+        plane: AxisPlane,
+        pixel_mm: Option<f64>,
+    ) -> Result<Self, RenderError> {
         let (ca, ra) = plane.in_plane_axes()?;
-        let d = volume.dims();
         if plane.index >= d[plane.axis] {
             return Err(RenderError::IndexOutOfRange {
                 axis: plane.axis,
@@ -196,9 +217,9 @@ impl SliceGeometry {
                 len: d[plane.axis],
             });
         }
-        let sp = volume.spacing_mm();
+        let sp = world_from_voxel.column_lengths();
         let px = check_positive("pixel size", pixel_mm.unwrap_or(sp[ca].min(sp[ra])))?;
-        let lin = volume.world_from_voxel().linear();
+        let lin = world_from_voxel.linear();
         let u = lin.column(ca).normalize();
         let vr = lin.column(ra).into_owned();
         let v = (vr - u * u.dot(&vr)).normalize();
@@ -211,7 +232,7 @@ impl SliceGeometry {
         let mut o = [0.0; 3];
         o[plane.axis] = plane.index as f64;
         Ok(Self {
-            origin: volume.voxel_to_world(VoxelPoint::new(o[0], o[1], o[2])),
+            origin: world_from_voxel.voxel_to_world(VoxelPoint::new(o[0], o[1], o[2])),
             u,
             v,
             pixel_mm: px,

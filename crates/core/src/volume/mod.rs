@@ -8,16 +8,20 @@
 //! `NIfTI` and of a TIFF stack of `k` slices of `ny` rows of `nx` pixels.
 //!
 //! Submodules: [`buffer`] (the storage), [`stats`] (min/max/mean/sum, percentiles, histogram),
-//! [`sample`] (nearest and trilinear sampling at world points).
+//! [`sample`] (nearest and trilinear sampling at world points), [`source`] (the volume
+//! interface every consumer reads through: levels of detail and block reads, of which a
+//! `Volume` is the in-memory implementation).
 //!
 //! Must not import `io`, `render` or `gui`.
 
 pub mod buffer;
 pub mod resize;
 pub mod sample;
+pub mod source;
 pub mod stats;
 
 pub use buffer::VoxelBuffer;
+pub use source::{Block, Intensity, Level, ReadError, Region, VolumeSource};
 pub use stats::{Histogram, Stats};
 
 use crate::geometry::{Affine3, VoxelIndex, VoxelPoint, WorldPoint};
@@ -196,7 +200,8 @@ pub enum VolumeError {
 }
 
 /// Where a volume's voxel size came from.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
 pub enum SpacingOrigin {
     /// The file records it in full (a `NIfTI` header, our TIFF description), or the volume was
     /// made in code.

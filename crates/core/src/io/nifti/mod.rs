@@ -27,10 +27,12 @@
 
 pub mod header;
 mod read;
+mod stream;
 mod write;
 
 pub use header::{Header, HeaderError, Version};
 pub use read::{open, read_header};
+pub use stream::open_slices;
 pub use write::write;
 
 #[cfg(test)]

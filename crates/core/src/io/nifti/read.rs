@@ -24,7 +24,7 @@ const GZ_INPUT_BUFFER_BYTES: usize = 8 << 20;
 
 /// The stored type of the voxels in the file.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Src {
+pub(super) enum Src {
     U8,
     I16,
     U16,
@@ -80,7 +80,7 @@ impl Src {
         })
     }
 
-    const fn size(self) -> usize {
+    pub(super) const fn size(self) -> usize {
         match self {
             Self::U8 | Self::I8 => 1,
             Self::I16 | Self::U16 => 2,
@@ -89,7 +89,7 @@ impl Src {
         }
     }
 
-    const fn name(self) -> &'static str {
+    pub(super) const fn name(self) -> &'static str {
         match self {
             Self::U8 => "uint8",
             Self::I16 => "int16",
@@ -106,9 +106,9 @@ impl Src {
 }
 
 /// Where the header and the voxels live.
-struct Files {
-    header: PathBuf,
-    data: PathBuf,
+pub(super) struct Files {
+    pub(super) header: PathBuf,
+    pub(super) data: PathBuf,
 }
 
 fn lower_name(p: &Path) -> String {
@@ -131,7 +131,7 @@ fn partner(path: &Path, strip: usize, exts: &[&str]) -> Option<PathBuf> {
     clippy::case_sensitive_file_extension_comparisons,
     reason = "`name` is already lowercased"
 )]
-fn locate(path: &Path) -> Files {
+pub(super) fn locate(path: &Path) -> Files {
     const IMG: &[&str] = &[".img", ".IMG", ".img.gz", ".IMG.gz", ".IMG.GZ"];
     const HDR: &[&str] = &[".hdr", ".HDR", ".hdr.gz", ".HDR.gz", ".HDR.GZ"];
     let name = lower_name(path);
@@ -157,7 +157,7 @@ fn locate(path: &Path) -> Files {
     }
 }
 
-fn is_gzip(path: &Path) -> Result<bool, IoError> {
+pub(super) fn is_gzip(path: &Path) -> Result<bool, IoError> {
     let f = File::open(path).map_err(|e| IoError::os(path, e))?;
     let mut m = [0u8; 2];
     let n = f.read_at(&mut m, 0).map_err(|e| IoError::os(path, e))?;
@@ -165,7 +165,7 @@ fn is_gzip(path: &Path) -> Result<bool, IoError> {
 }
 
 /// An error from the inflater or the file under it: damaged data is the file's fault.
-fn gz_error(path: &Path, e: std::io::Error) -> IoError {
+pub(super) fn gz_error(path: &Path, e: std::io::Error) -> IoError {
     match e.kind() {
         ErrorKind::InvalidData | ErrorKind::InvalidInput | ErrorKind::UnexpectedEof => {
             IoError::corrupt(path, format!("gzip stream is damaged: {e}"))
@@ -175,7 +175,7 @@ fn gz_error(path: &Path, e: std::io::Error) -> IoError {
 }
 
 /// Reads until `buf` is full or the stream ends; returns the bytes read.
-fn read_full(r: &mut impl Read, buf: &mut [u8]) -> std::io::Result<usize> {
+pub(super) fn read_full(r: &mut impl Read, buf: &mut [u8]) -> std::io::Result<usize> {
     let mut filled = 0;
     while filled < buf.len() {
         match r.read(&mut buf[filled..]) {
@@ -188,7 +188,9 @@ fn read_full(r: &mut impl Read, buf: &mut [u8]) -> std::io::Result<usize> {
     Ok(filled)
 }
 
-fn gz_reader(path: &Path) -> Result<flate2::read::MultiGzDecoder<BufReader<File>>, IoError> {
+pub(super) fn gz_reader(
+    path: &Path,
+) -> Result<flate2::read::MultiGzDecoder<BufReader<File>>, IoError> {
     let f = File::open(path).map_err(|e| IoError::os(path, e))?;
     Ok(flate2::read::MultiGzDecoder::new(BufReader::with_capacity(
         GZ_INPUT_BUFFER_BYTES,
@@ -197,7 +199,7 @@ fn gz_reader(path: &Path) -> Result<flate2::read::MultiGzDecoder<BufReader<File>
 }
 
 /// The first bytes of a (possibly gzipped) file, up to the longest header.
-fn read_prefix(path: &Path) -> Result<Vec<u8>, IoError> {
+pub(super) fn read_prefix(path: &Path) -> Result<Vec<u8>, IoError> {
     let mut buf = vec![0u8; Version::Nifti2.header_len()];
     let n = if is_gzip(path)? {
         read_full(&mut gz_reader(path)?, &mut buf).map_err(|e| gz_error(path, e))?
@@ -217,17 +219,17 @@ pub fn read_header(path: &Path) -> Result<Header, IoError> {
 }
 
 /// What the header asks us to read, after every check.
-struct Plan {
-    dims: [usize; 3],
-    src: Src,
+pub(super) struct Plan {
+    pub(super) dims: [usize; 3],
+    pub(super) src: Src,
     /// Byte offset of the voxels in the data file (decompressed offset for gzip).
-    offset: u64,
-    nbytes: usize,
+    pub(super) offset: u64,
+    pub(super) nbytes: usize,
     /// Volumes in the file (`dim[4]`); the first is read.
-    volumes: u64,
-    world_from_voxel: crate::geometry::Affine3,
-    rescale: Option<Rescale>,
-    notes: Vec<String>,
+    pub(super) volumes: u64,
+    pub(super) world_from_voxel: crate::geometry::Affine3,
+    pub(super) rescale: Option<Rescale>,
+    pub(super) notes: Vec<String>,
 }
 
 fn dim_axis(path: &Path, h: &Header) -> Result<([u64; 3], u64), IoError> {
@@ -345,7 +347,7 @@ fn placement(
     Ok(affine)
 }
 
-fn plan(
+pub(super) fn plan(
     path: &Path,
     h: &Header,
     options: &OpenOptions,
@@ -636,7 +638,7 @@ fn read_native<T: crate::volume::Voxel>(
 }
 
 /// Reverses the byte order of every `size`-byte element, in parallel.
-fn swap_in_place(bytes: &mut [u8], size: usize) {
+pub(super) fn swap_in_place(bytes: &mut [u8], size: usize) {
     const CHUNK: usize = 1 << 20;
     match size {
         2 => {

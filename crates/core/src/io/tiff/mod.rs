@@ -23,16 +23,18 @@ mod chunks;
 mod folder;
 mod ifd;
 mod page;
+mod stream;
 mod write;
 
 pub use folder::list_slices;
+pub use stream::{FolderSlices, PageSlices};
 pub use write::{WriteOptions, write_multipage, write_stack, write_stack_with};
 
 use super::{IoError, OpenOptions, Progress};
 use crate::geometry::Affine3;
 use crate::volume::{DType, SpacingOrigin, Volume, VoxelBuffer, Voxels};
 use chunks::Scratch;
-use page::Resolution;
+use page::{PageInfo, Resolution};
 use rayon::prelude::*;
 use std::fs::File;
 use std::io::BufReader;
@@ -103,34 +105,7 @@ pub fn open_file(
     options: &OpenOptions,
     progress: &Progress<'_>,
 ) -> Result<Volume, IoError> {
-    // One sequential walk over the directory chain: every page's shape, and the byte ranges of
-    // uncompressed pages. The crate refuses cyclic chains; the count is capped by the limits.
-    let (mut dec, mut walk) = page::open_decoder(path)?;
-    let first = page::probe(&mut dec, path)?;
-    let described = page::described_voxel_size(&mut dec, &walk, path)?;
-    let mut infos = vec![first];
-    while dec.more_images() {
-        if infos.len() as u64 >= options.limits.max_axis {
-            return Err(IoError::LimitExceeded {
-                path: path.to_owned(),
-                what: "number of pages".into(),
-                limit: options.limits.max_axis.to_string(),
-            });
-        }
-        let index = infos.len();
-        page::next_image(&mut dec, &mut walk, path)?;
-        let info = page::probe(&mut dec, path).map_err(|e| page::with_page(e, path, index))?;
-        if info.shape != infos[0].shape {
-            return Err(IoError::inconsistent(
-                path,
-                format!(
-                    "page {index}: {}, expected {} like page 0",
-                    info.shape, infos[0].shape
-                ),
-            ));
-        }
-        infos.push(info);
-    }
+    let (mut dec, infos, described) = walk_pages(path, options)?;
     let shape = infos[0].shape;
     let dims = [
         u64::from(shape.width),
@@ -208,6 +183,43 @@ pub fn open_file(
     finish(path, options, dims, voxels, described, resolution)
 }
 
+/// One sequential walk over a multi-page file's directory chain: every page's shape (all
+/// equal, checked), the byte ranges of uncompressed pages, and the voxel size the first page
+/// describes. The crate refuses cyclic chains; the count is capped by the limits. The decoder
+/// is returned on the last page; its file handle serves positioned reads.
+fn walk_pages(
+    path: &Path,
+    options: &OpenOptions,
+) -> Result<(FileDecoder, Vec<PageInfo>, page::Described), IoError> {
+    let (mut dec, mut walk) = page::open_decoder(path)?;
+    let first = page::probe(&mut dec, path)?;
+    let described = page::described_voxel_size(&mut dec, &walk, path)?;
+    let mut infos = vec![first];
+    while dec.more_images() {
+        if infos.len() as u64 >= options.limits.max_axis {
+            return Err(IoError::LimitExceeded {
+                path: path.to_owned(),
+                what: "number of pages".into(),
+                limit: options.limits.max_axis.to_string(),
+            });
+        }
+        let index = infos.len();
+        page::next_image(&mut dec, &mut walk, path)?;
+        let info = page::probe(&mut dec, path).map_err(|e| page::with_page(e, path, index))?;
+        if info.shape != infos[0].shape {
+            return Err(IoError::inconsistent(
+                path,
+                format!(
+                    "page {index}: {}, expected {} like page 0",
+                    info.shape, infos[0].shape
+                ),
+            ));
+        }
+        infos.push(info);
+    }
+    Ok((dec, infos, described))
+}
+
 fn file_name(p: &Path) -> String {
     p.file_name().map_or_else(
         || p.display().to_string(),
@@ -249,8 +261,25 @@ fn finish(
     described: Result<Option<[f64; 3]>, String>,
     resolution: Option<Resolution>,
 ) -> Result<Volume, IoError> {
-    // the caller's size, else the description's, else the resolution tags (`voxel_size`)
-    let (spacing, mut notes, origin) = match (options.voxel_size_mm, described) {
+    let (spacing, mut notes, origin) = placement(path, options, described, resolution)?;
+    // dims passed the limits check, so they fit in usize
+    let dims = dims.map(|d| usize::try_from(d).unwrap_or(usize::MAX));
+    let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
+        .map_err(|e| IoError::volume(path, &e))?;
+    vol.notes.append(&mut notes);
+    vol.spacing_origin = origin;
+    Ok(vol)
+}
+
+/// The voxel size, the notes on where it came from, and its origin: the caller's size, else
+/// the description's, else the resolution tags (`voxel_size`).
+fn placement(
+    path: &Path,
+    options: &OpenOptions,
+    described: Result<Option<[f64; 3]>, String>,
+    resolution: Option<Resolution>,
+) -> Result<([f64; 3], Vec<String>, SpacingOrigin), IoError> {
+    Ok(match (options.voxel_size_mm, described) {
         (None, Ok(Some(s))) => (s, Vec::new(), SpacingOrigin::File),
         (given, described) => {
             let (s, note) = voxel_size(path, given, resolution)?;
@@ -262,14 +291,7 @@ fn finish(
             };
             (s, why.into_iter().chain(note).collect(), origin)
         }
-    };
-    // dims passed the limits check, so they fit in usize
-    let dims = dims.map(|d| usize::try_from(d).unwrap_or(usize::MAX));
-    let mut vol = Volume::new(dims, Affine3::from_spacing(spacing), voxels, None)
-        .map_err(|e| IoError::volume(path, &e))?;
-    vol.notes.append(&mut notes);
-    vol.spacing_origin = origin;
-    Ok(vol)
+    })
 }
 
 /// Resolutions of a screen or a drawing program's default, not of a scanner (common practice:

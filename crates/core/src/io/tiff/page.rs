@@ -65,6 +65,10 @@ pub(super) struct PageInfo {
 /// voxel size, `{"voxel_size_mm":[x,y,z]}`, written by Sutura's TIFF writers.
 pub(super) const DESCRIPTION_KEY: &str = "voxel_size_mm";
 
+/// What a page's `ImageDescription` says of the voxel size: a size, nothing, or why its
+/// voxel size is unusable (for a note).
+pub(super) type Described = Result<Option<[f64; 3]>, String>;
+
 /// The voxel size in the current page's `ImageDescription`, if it is a JSON object with a
 /// [`DESCRIPTION_KEY`] of three positive finite numbers. Any other description (plain text,
 /// other programs' JSON) is no voxel size: `Ok(None)`; one with the key but unusable values
@@ -73,7 +77,7 @@ pub(super) fn described_voxel_size(
     dec: &mut FileDecoder,
     walk: &Walk,
     path: &Path,
-) -> Result<Result<Option<[f64; 3]>, String>, IoError> {
+) -> Result<Described, IoError> {
     if let Some(why) = &walk.unreadable_description {
         return Ok(Err(format!(
             "{why}; the description (and any voxel size in it) is ignored"

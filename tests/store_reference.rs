@@ -1,0 +1,309 @@
+//! OME-Zarr stores against the outside world: zarr-python and ome-zarr read what Sutura writes
+//! (every level's shape, type, chunking and values: level 0 bit-identical to the source, coarser
+//! levels numpy's block means), and Sutura reads multiscale images zarr-python wrote in other
+//! layouts (Zarr v2 + NGFF 0.4 with blosc, Zarr v3 + NGFF 0.5 with gzip and a channel axis),
+//! voxel for voxel. Also the command line: `convert -o NAME.ome.zarr`, then `info`, `slice` and
+//! `render` on the store equal the same commands on the source.
+
+mod common;
+
+use common::{Reference, reference_path, run_sutura};
+use std::path::Path;
+use sutura_core::geometry::{Affine3, VoxelIndex};
+use sutura_core::store::{Store, StoreOptions};
+use sutura_core::volume::{Volume, VolumeSource};
+
+/// A scan with structure at every scale, odd dims so every level has partial edge blocks,
+/// anisotropic voxels, a rescale and an offset origin.
+fn scan() -> Volume {
+    let dims = [45, 38, 29];
+    let mut data = Vec::with_capacity(dims[0] * dims[1] * dims[2]);
+    for k in 0..dims[2] {
+        for j in 0..dims[1] {
+            for i in 0..dims[0] {
+                let r = ((i as f64 - 22.0).powi(2)
+                    + (j as f64 - 19.0).powi(2)
+                    + (2.0 * k as f64 - 29.0).powi(2))
+                .sqrt();
+                let v =
+                    if r < 14.0 { 3000.0 } else { 900.0 } + ((i * 7 + j * 13 + k * 29) % 97) as f64;
+                data.push(v as u16);
+            }
+        }
+    }
+    let w = Affine3::from_rows([
+        [0.02, 0.0, 0.0, -1.0],
+        [0.0, 0.02, 0.0, 0.5],
+        [0.0, 0.0, 0.04, 2.0],
+        [0.0, 0.0, 0.0, 1.0],
+    ])
+    .unwrap();
+    let mut v = Volume::from_vec(dims, w, data).unwrap();
+    v.set_rescale(sutura_core::volume::Rescale::new(1.0, -1024.0));
+    v
+}
+
+#[test]
+fn zarr_python_and_ome_zarr_read_the_stores_sutura_writes() {
+    let dir = tempfile::tempdir().unwrap();
+    let src = dir.path().join("scan.nii");
+    sutura_core::io::nifti::write(&scan(), &src).unwrap();
+    let out = dir.path().join("scan.ome.zarr");
+    // relative names: the store records its source's path, and its bytes (which the fixture
+    // checks) must not depend on the temp folder
+    let (ok, _, err) = run_sutura(
+        &[
+            "convert",
+            "scan.nii",
+            "-o",
+            "scan.ome.zarr",
+            "--chunk",
+            "16",
+            "--coarsest-kib",
+            "4",
+            "--quiet",
+        ],
+        dir.path(),
+    );
+    assert!(ok, "{err}");
+    // Source: zarr-python 3 (zarr.open_group, arrays read whole) and ome-zarr's Reader
+    let r = Reference::new("store_read_by_zarr_python", "zarr_store.py")
+        .arg("check")
+        .dir("tmp", dir.path())
+        .path_arg(&out)
+        .path_arg(&src)
+        .input(&out)
+        .input(&src)
+        .run();
+    assert_eq!(r["zarr_format"], 3);
+    assert_eq!(r["ngff_version"], "0.5");
+    let levels = r["levels"].as_array().unwrap();
+    assert!(levels.len() >= 2, "{r}");
+    for l in levels {
+        assert_eq!(l["equal"], true, "{l}");
+        assert_eq!(l["dtype"], "uint16");
+        assert_eq!(l["chunks"], serde_json::json!([16, 16, 16]));
+    }
+    assert_eq!(levels[0]["shape"], serde_json::json!([29, 38, 45]));
+    // NGFF transforms in mm, z y x: voxel size and the world position of voxel 0 (the NIfTI
+    // header holds them as float32)
+    let near = |got: &serde_json::Value, want: [f32; 3]| {
+        let got: Vec<f64> = got
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect();
+        assert_eq!(got, want.map(f64::from).to_vec());
+    };
+    near(&levels[0]["scale"], [0.04, 0.02, 0.02]);
+    near(&levels[0]["translation"], [2.0, 0.5, -1.0]);
+    assert_eq!(
+        r["ome_zarr"]["levels"].as_u64().unwrap() as usize,
+        levels.len()
+    );
+    assert_eq!(r["ome_zarr"]["axes"], serde_json::json!(["z", "y", "x"]));
+    assert_eq!(
+        r["ome_zarr"]["units"],
+        serde_json::json!(["millimeter", "millimeter", "millimeter"])
+    );
+}
+
+#[test]
+fn sutura_reads_multiscale_images_zarr_python_writes() {
+    // Source: zarr-python 3 writing Zarr v2 (numcodecs Blosc zstd, bit shuffle) and Zarr v3
+    // (gzip), odd chunk shapes, NGFF 0.4 and 0.5 metadata (scripts/fetch_refdata.sh runs
+    // tests/python/zarr_store.py into target/refdata/zarr_made)
+    let made = reference_path("zarr_made");
+    let written: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(made.join("written.json")).unwrap()).unwrap();
+    for w in written.as_array().unwrap() {
+        let store = Store::open(
+            &made.join(w["store"].as_str().unwrap()),
+            &StoreOptions::default(),
+        )
+        .unwrap();
+        let npy = std::fs::read(made.join(w["npy"].as_str().unwrap())).unwrap();
+        let arr = npyz::NpyFile::new(&npy[..]).unwrap();
+        let shape: Vec<usize> = arr.shape().iter().map(|&n| n as usize).collect();
+        let dims = [shape[2], shape[1], shape[0]];
+        assert_eq!(store.dims(), dims, "{w}");
+        let block = store.read_block(0, &store.level(0).full_region()).unwrap();
+        let want: Vec<f64> = match store.dtype() {
+            sutura_core::volume::DType::U16 => arr
+                .into_vec::<u16>()
+                .unwrap()
+                .into_iter()
+                .map(f64::from)
+                .collect(),
+            sutura_core::volume::DType::I16 => arr
+                .into_vec::<i16>()
+                .unwrap()
+                .into_iter()
+                .map(f64::from)
+                .collect(),
+            other => panic!("unexpected {other}"),
+        };
+        for (n, &x) in want.iter().enumerate() {
+            let (i, j, k) = (
+                n % dims[0],
+                (n / dims[0]) % dims[1],
+                n / (dims[0] * dims[1]),
+            );
+            assert_eq!(
+                block.value(VoxelIndex::new(i, j, k)),
+                Some(x),
+                "{w} at {i},{j},{k}"
+            );
+        }
+        let s = store.spacing_mm();
+        let want_s: Vec<f64> = w["spacing_mm_xyz"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect();
+        let want_o: Vec<f64> = w["origin_mm_xyz"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect();
+        let t = store.world_from_voxel().translation();
+        for a in 0..3 {
+            assert!((s[a] - want_s[a]).abs() < 1e-12, "{w}: spacing {s:?}");
+            assert!((t[a] - want_o[a]).abs() < 1e-12, "{w}: origin {t:?}");
+        }
+        if let Some(f) = w.get("level1_factor") {
+            assert_eq!(store.level_count(), 2);
+            let f: Vec<usize> = f
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_u64().unwrap() as usize)
+                .collect();
+            assert_eq!(store.level(1).factor.to_vec(), f);
+            // level 1 is every other voxel: its voxel (1, 1, 1) is level 0's (2, 2, 2)
+            let b1 = store.read_block(1, &[1..2, 1..2, 1..2]).unwrap();
+            assert_eq!(
+                b1.value(VoxelIndex::new(0, 0, 0)),
+                block.value(VoxelIndex::new(2, 2, 2))
+            );
+        }
+    }
+}
+
+#[test]
+#[allow(
+    clippy::too_many_lines,
+    reason = "one walk through the commands on the same store"
+)]
+fn commands_on_a_store_agree_with_the_source() {
+    let dir = tempfile::tempdir().unwrap();
+    let src = dir.path().join("scan.nii");
+    sutura_core::io::nifti::write(&scan(), &src).unwrap();
+    let out = dir.path().join("scan.ome.zarr");
+    let s = |p: &Path| p.to_str().unwrap().to_owned();
+    let (ok, _, err) = run_sutura(
+        &[
+            "convert",
+            &s(&src),
+            "-o",
+            &s(&out),
+            "--chunk",
+            "16",
+            "--coarsest-kib",
+            "4",
+            "--quiet",
+        ],
+        dir.path(),
+    );
+    assert!(ok, "{err}");
+    // converting again refuses to overwrite
+    let (ok, _, err) = run_sutura(
+        &["convert", &s(&src), "-o", &s(&out), "--quiet"],
+        dir.path(),
+    );
+    assert!(!ok && err.contains("already exists"), "{err}");
+    let info = |p: &Path| -> serde_json::Value {
+        let (ok, stdout, err) = run_sutura(
+            &["info", &s(p), "--json", "--quiet", "--cache-mib", "1"],
+            dir.path(),
+        );
+        assert!(ok, "{err}");
+        serde_json::from_str(&stdout).unwrap()
+    };
+    let (a, b) = (info(&src), info(&out));
+    for key in [
+        "dims",
+        "dtype",
+        "voxel_size_mm",
+        "world_from_voxel",
+        "min",
+        "max",
+        "mean",
+        "sum",
+        "p0_5",
+        "p50",
+        "p99_5",
+        "rescale_intercept",
+    ] {
+        assert_eq!(a[key], b[key], "{key}");
+    }
+    assert!(b["levels"].as_array().unwrap().len() >= 2);
+    assert_eq!(b["intensity_exact"], true);
+    // the same slice picture, full resolution and oblique, from the store as from the source
+    for extra in [
+        &["--plane", "j", "--index", "17"][..],
+        &["--normal", "0.3,0.2,1"][..],
+        &["--normal", "1,0,0", "--slab", "0.1mm"][..],
+    ] {
+        let (pa, pb) = (dir.path().join("a.png"), dir.path().join("b.png"));
+        for (scan, png) in [(&src, &pa), (&out, &pb)] {
+            let mut args = vec![
+                "slice".to_owned(),
+                s(scan),
+                "-o".into(),
+                s(png),
+                "--quiet".into(),
+                "--window".into(),
+                "1000,3000".into(),
+                "--cache-mib".into(),
+                "1".into(),
+            ];
+            args.extend(extra.iter().map(|x| (*x).to_owned()));
+            let args: Vec<&str> = args.iter().map(String::as_str).collect();
+            let (ok, _, err) = run_sutura(&args, dir.path());
+            assert!(ok, "{err}");
+        }
+        assert_eq!(
+            std::fs::read(&pa).unwrap(),
+            std::fs::read(&pb).unwrap(),
+            "{extra:?}"
+        );
+    }
+    // a 3D view of the store renders (a level within the budget)
+    let png = dir.path().join("r.png");
+    let (ok, _, err) = run_sutura(
+        &[
+            "render",
+            &s(&out),
+            "-o",
+            &s(&png),
+            "--size",
+            "64",
+            "--quiet",
+            "--mode",
+            "projection",
+        ],
+        dir.path(),
+    );
+    assert!(ok, "{err}");
+    // a half-written store is refused by name
+    std::fs::rename(&out, dir.path().join("half.ome.zarr.partial")).unwrap();
+    let (ok, _, err) = run_sutura(
+        &["info", &s(&dir.path().join("half.ome.zarr.partial"))],
+        dir.path(),
+    );
+    assert!(!ok && err.contains("half-written"), "{err}");
+}
