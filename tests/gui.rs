@@ -1182,3 +1182,143 @@ fn analysis_options_in_the_window_give_the_command_lines_numbers() {
     let row = specimens.lines().find(|l| l.contains(",HDC-002,")).unwrap();
     assert!(row.contains(",HDC-002,2,"), "{row}");
 }
+
+#[test]
+fn a_landmark_moved_by_a_millimetre_is_flagged_in_the_checklist() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    let checks = |h: &Harness<'_, App>| h.state().desk().unwrap().checks().cloned().unwrap();
+    // the sample as digitised raises no flag
+    let before = checks(&h);
+    assert!(before.not_checked.is_none(), "{before:?}");
+    assert!(before.flags.is_empty(), "{:?}", before.flags);
+    let d = h.state().desk().unwrap();
+    let p = d.trial_ref().unwrap().position("snout_tip").unwrap();
+    h.state_mut().send(DeskCommand::MoveLandmark {
+        landmark: "snout_tip".into(),
+        to: sutura_core::geometry::WorldPoint::new(p[0] + 1.0, p[1], p[2]),
+    });
+    h.step();
+    h.step();
+    let after = checks(&h);
+    let flag = after
+        .flags
+        .iter()
+        .find(|f| f.items == ["snout_tip"])
+        .unwrap_or_else(|| panic!("snout_tip not flagged: {:?}", after.flags));
+    // the reason is in the checklist, and the landmark's row is marked
+    h.get_by_label(&format!("• {}", flag.reason));
+    assert!(h.query_all_by_label("check").count() >= 1);
+    // undo brings the clean state back, and the flag goes
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    h.step();
+    assert!(checks(&h).flags.is_empty());
+}
+
+#[test]
+fn the_analysis_view_shows_operator_error_and_disparity_through_time_as_the_cli_computes_them() {
+    use sutura::gui::analysis_extras::TimeBins;
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let mut h = app_on_project(&path, named("Bo"));
+    // ages: the Harrowdene specimens older than the others (one with an interval age)
+    let ids: Vec<String> = h
+        .state()
+        .desk()
+        .unwrap()
+        .session
+        .project
+        .specimens()
+        .iter()
+        .map(|s| s.id.clone())
+        .collect();
+    for (n, id) in ids.iter().enumerate() {
+        let age = match (id.starts_with("HDC"), n % 5) {
+            (true, 0) => "131.0-127.5".to_owned(),
+            (true, k) => format!("{}", 126.0 + k as f64),
+            (false, k) => format!("{}", 112.0 + k as f64),
+        };
+        h.state_mut().send(DeskCommand::SetGroup {
+            specimens: vec![id.clone()],
+            key: "age_ma".into(),
+            value: Some(age),
+        });
+        h.step();
+    }
+    h.state_mut().send(DeskCommand::Save);
+    h.step();
+    h.key_press(egui::Key::A);
+    h.step();
+    h.step();
+    h.state_mut()
+        .send(AnalysisCommand::SetTimeBins(TimeBins::Edges(
+            "135,120,105".into(),
+        )));
+    h.step();
+    h.get_by_label("Run analysis").click();
+    step_until(&mut h, "the analysis", |a| {
+        !a.analysis().is_running() && a.analysis().extras.is_some()
+    });
+    h.step();
+    h.get_by_label("Measurement error by operator");
+    h.get_by_label("Disparity through time");
+    let options = h.state().analysis().options.analysis;
+    let extras = h.state().analysis().extras.clone().unwrap();
+    let gui = dir.path().join("gui");
+    let ops = extras.operators.as_ref().unwrap().as_ref().unwrap();
+    ops.write_tables(&gui).unwrap();
+    let dtt = extras.through_time.as_ref().unwrap().as_ref().unwrap();
+    assert_eq!(dtt.result.bins.len(), 2);
+    dtt.write_tables(&gui).unwrap();
+    // the command line on the saved project
+    let cli = dir.path().join("cli");
+    let run = |args: &[&str]| {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_sutura"))
+            .args(args)
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+    };
+    let p = path.to_str().unwrap();
+    let c = cli.to_str().unwrap();
+    run(&["measurement-error", p, "-o", c]);
+    run(&[
+        "disparity-through-time",
+        p,
+        "-o",
+        c,
+        "--bins",
+        "135,120,105",
+        "--resamples",
+        &options.resamples.to_string(),
+        "--seed",
+        &options.seed.to_string(),
+    ]);
+    for f in [
+        "operator_anova.csv",
+        "operator_shares.csv",
+        "disparity_through_time.csv",
+        "bin_changes.csv",
+    ] {
+        assert_eq!(
+            std::fs::read_to_string(gui.join(f)).unwrap(),
+            std::fs::read_to_string(cli.join(f)).unwrap(),
+            "{f} differs between the window and the command line"
+        );
+    }
+    // the operator term's test shown is the table's (the sample is unbalanced: no shares)
+    let shape = ops.tables()[0].1;
+    assert!(shape.components.is_none());
+    let term = shape.term("operator").unwrap();
+    h.get_by_label(&format!(
+        "F = {:.2}, p = {:.3}",
+        term.f.unwrap(),
+        term.p.unwrap()
+    ));
+}

@@ -1,6 +1,7 @@
 //! The analysis workspace: the project's superimposition run in the background with the
-//! options chosen here, the morphospace scatter, the disparity table, and a button for every
-//! export.
+//! options chosen here, the morphospace scatter, the disparity table, what the analysis could
+//! not produce and why, the results beside it ([`super::analysis_extras`]: operator error,
+//! disparity through time), and a button for every export.
 //!
 //! The analysis is [`analyse_project`] on the project as it stands in memory (unsaved edits
 //! included) with a [`ProjectAnalysisOptions`] — the same function and options as
@@ -14,6 +15,7 @@ use std::time::Instant;
 
 use eframe::egui::{self, Align2, Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, Ui, Vec2};
 
+use super::analysis_extras::{self, Extras, TimeBins};
 use super::command::{AnalysisCommand, AppCommand, Command, DeskCommand, DialogKind, Workspace};
 use super::status::Status;
 use sutura_core::analysis::{
@@ -40,7 +42,7 @@ const GROUP_COLOURS: [Color32; 6] = [
 /// A run in progress.
 pub struct Run {
     started: Instant,
-    rx: Receiver<Result<Analysis, String>>,
+    rx: Receiver<Result<(Analysis, Extras), String>>,
     options: ProjectAnalysisOptions,
 }
 
@@ -51,6 +53,12 @@ pub struct AnalysisState {
     pub options: ProjectAnalysisOptions,
     pub run: Option<Run>,
     pub result: Option<Arc<Analysis>>,
+    /// The results beside the shown analysis.
+    pub extras: Option<Arc<Extras>>,
+    /// The disparity-through-time figure on the GPU, made once per result.
+    time_texture: Option<egui::TextureHandle>,
+    /// How the next run bins the ages.
+    pub time_bins: TimeBins,
     /// The options the shown result was computed with.
     pub result_options: Option<ProjectAnalysisOptions>,
     /// Why the last run failed.
@@ -91,6 +99,10 @@ impl AnalysisState {
                 self.axes = a;
                 None
             }
+            AnalysisCommand::SetTimeBins(b) => {
+                self.time_bins = b;
+                None
+            }
             AnalysisCommand::SetExportFolder(p) => {
                 self.folder = Some(p);
                 None
@@ -123,11 +135,16 @@ impl AnalysisState {
         let project = project.clone();
         let options = self.options.clone();
         let opts = options.clone();
+        let bins = self.time_bins.clone();
         let (tx, rx) = channel();
         let spawned = std::thread::Builder::new()
             .name("sutura-analysis".into())
             .spawn(move || {
-                let _ = tx.send(run(&project, &opts));
+                let outcome = run(&project, &opts).map(|a| {
+                    let extras = analysis_extras::compute(&project, &a, &opts.analysis, &bins);
+                    (a, extras)
+                });
+                let _ = tx.send(outcome);
                 wake();
             });
         match spawned {
@@ -143,8 +160,8 @@ impl AnalysisState {
         }
     }
 
-    /// Takes a finished run's result.
-    pub fn poll(&mut self) {
+    /// Takes a finished run's result (`ctx` receives its figure).
+    pub fn poll(&mut self, ctx: &egui::Context) {
         let Some(r) = &self.run else {
             return;
         };
@@ -157,7 +174,12 @@ impl AnalysisState {
         let options = r.options.clone();
         self.run = None;
         match outcome {
-            Ok(a) => {
+            Ok((a, extras)) => {
+                self.time_texture = extras
+                    .time_figure
+                    .as_ref()
+                    .map(|img| analysis_extras::figure_texture(ctx, img));
+                self.extras = Some(Arc::new(extras));
                 let c = a.components();
                 self.axes = [
                     self.axes[0].min(c.saturating_sub(1)),
@@ -401,18 +423,36 @@ pub fn analysis_ui(ui: &mut Ui, st: &AnalysisState, project: &Project) -> Vec<Co
         ui.separator();
         ui.vertical(|ui| {
             ui.set_width(side);
-            egui::ScrollArea::vertical().show(ui, |ui| {
-                options_ui(ui, st, project, &mut out);
-                ui.separator();
-                if let Some(a) = &st.result {
-                    disparity_ui(ui, a);
-                    ui.separator();
-                }
-                exports_ui(ui, st, &mut out);
-            });
+            egui::ScrollArea::vertical().show(ui, |ui| side_ui(ui, st, project, &mut out));
         });
     });
     out
+}
+
+/// The column beside the morphospace: options, disparity, what was not produced, exports, then
+/// the results beside the superimposition.
+fn side_ui(ui: &mut Ui, st: &AnalysisState, project: &Project, out: &mut Vec<Command>) {
+    options_ui(ui, st, project, out);
+    ui.separator();
+    if let Some(a) = &st.result {
+        disparity_ui(ui, a);
+        report_ui(ui, a);
+        ui.separator();
+    }
+    exports_ui(ui, st, out);
+    ui.separator();
+    let extras = st.extras.as_deref();
+    if let Some(op) = extras.and_then(|x| x.operators.as_ref()) {
+        analysis_extras::operators_ui(ui, op);
+        ui.separator();
+    }
+    analysis_extras::through_time_ui(
+        ui,
+        &st.time_bins,
+        extras.map(|x| x.through_time.as_ref()),
+        st.time_texture.as_ref(),
+        out,
+    );
 }
 
 fn group_colour(groups: &[String], g: &str) -> Color32 {
@@ -606,6 +646,21 @@ fn disparity_ui(ui: &mut Ui, a: &Analysis) {
             ))
             .small(),
         );
+    }
+}
+
+/// What the analysis could not produce, and why (as `summary.json` lists it).
+fn report_ui(ui: &mut Ui, a: &Analysis) {
+    let r = a.report();
+    for o in &r.not_produced {
+        ui.label(
+            RichText::new(format!("not produced: {}: {}", o.output, o.reason))
+                .small()
+                .color(Color32::from_rgb(236, 190, 84)),
+        );
+    }
+    for n in &r.notes {
+        ui.label(RichText::new(n).small().weak());
     }
 }
 

@@ -256,7 +256,7 @@ impl App {
                 self.status = Some(Status::error(e));
             }
         }
-        self.analysis.poll();
+        self.analysis.poll(&ctx);
         self.autosave_tick(&ctx);
         if let Some(f) = &mut self.ui.new_project {
             f.poll();
@@ -460,6 +460,9 @@ impl App {
 
     /// The left column: with a project open, the landmarks tab or the display tab.
     fn column_ui(&mut self, ui: &mut egui::Ui, cmds: &mut Vec<Command>) {
+        if let Some(d) = &mut self.desk {
+            d.refresh_checks();
+        }
         let Some(d) = &self.desk else {
             cmds.extend(panels::controls_ui(ui, &self.doc, &self.prefs, &self.vs));
             return;

@@ -281,6 +281,8 @@ pub enum AnalysisCommand {
     SetOptions(Box<ProjectAnalysisOptions>),
     /// PC axes of the morphospace (0-based).
     SetAxes([usize; 2]),
+    /// How disparity through time bins the ages.
+    SetTimeBins(super::analysis_extras::TimeBins),
     SetExportFolder(PathBuf),
     Export(ExportKind),
 }

@@ -17,6 +17,7 @@ use super::command::{AppCommand, Command, DeskCommand, TypedPosition, ViewComman
 use super::state::{Preferences, Scan, ViewId, ViewState, clamp_to_volume};
 use super::status::Status;
 use super::view::plane_basis;
+use sutura_core::analysis::checks::{TrialChecks, check_trial};
 use sutura_core::geometry::WorldPoint;
 use sutura_core::landmarks::mirror::estimate_from_partner;
 use sutura_core::landmarks::pick::{PickOptions, pick_view_ray, snap_options, snap_to_boundary};
@@ -69,6 +70,12 @@ pub struct Desk {
     /// The specimen whose scan is shown, and whether it failed its fingerprint check.
     pub scan_of: Option<String>,
     pub scan_read_only: bool,
+    /// The digitising checks of the selected trial against the rest of the sample, and the
+    /// (specimen, trial, revision) they were made for.
+    checks: Option<TrialChecks>,
+    checks_for: Option<(String, String, u64)>,
+    /// Counts the document's changes made through the desk (edits, undo, redo, recovery).
+    revision: u64,
 }
 
 impl Desk {
@@ -91,11 +98,38 @@ impl Desk {
             tracing: None,
             scan_of: None,
             scan_read_only: false,
+            checks: None,
+            checks_for: None,
+            revision: 0,
         };
         if let Some(first) = d.session.project.specimens().first().map(|x| x.id.clone()) {
             d.select_specimen(&first);
         }
+        d.refresh_checks();
         d
+    }
+
+    /// The digitising checks of the selected trial (see [`check_trial`]): flags with their
+    /// reasons, or why the trial is not checked yet. They only report; nothing is blocked.
+    #[must_use]
+    pub fn checks(&self) -> Option<&TrialChecks> {
+        self.checks.as_ref()
+    }
+
+    /// Runs the checks again when the selected trial or the document changed (cheap when
+    /// neither did: [`Desk::apply`] calls it after every command).
+    pub fn refresh_checks(&mut self) {
+        let key = self
+            .specimen
+            .clone()
+            .zip(self.trial.clone())
+            .map(|(sp, t)| (sp, t, self.revision));
+        if key != self.checks_for {
+            self.checks = key
+                .as_ref()
+                .map(|(sp, t, _)| check_trial(&self.session.project, sp, t));
+            self.checks_for = key;
+        }
     }
 
     #[must_use]
@@ -215,12 +249,14 @@ impl Desk {
     }
 
     fn edit(&mut self, edit: Edit) -> Result<(), Status> {
+        self.revision += 1;
         self.session
             .edit(edit)
             .map_err(|e| Status::error(e.to_string()))
     }
 
     fn edit_all(&mut self, edits: Vec<Edit>, what: String) -> Result<(), Status> {
+        self.revision += 1;
         self.session
             .edit_all(edits, what)
             .map_err(|e| Status::error(e.to_string()))
@@ -276,9 +312,18 @@ impl Desk {
         Status::info(format!("placed {lm}{how}; {next}"))
     }
 
-    /// Applies a desk command.
-    #[allow(clippy::too_many_lines)] // reason: one arm per command, each short
+    /// Applies a desk command, then brings the digitising checks up to date.
     pub fn apply(&mut self, cmd: DeskCommand, env: &DeskEnv<'_>) -> Effects {
+        let effects = self.apply_command(cmd, env);
+        if effects.changed {
+            self.revision += 1;
+        }
+        self.refresh_checks();
+        effects
+    }
+
+    #[allow(clippy::too_many_lines)] // reason: one arm per command, each short
+    fn apply_command(&mut self, cmd: DeskCommand, env: &DeskEnv<'_>) -> Effects {
         let r = match cmd {
             DeskCommand::SelectSpecimen(id) => {
                 self.select_specimen(&id);
@@ -555,6 +600,7 @@ impl Desk {
         {
             self.select_specimen(first);
         }
+        self.refresh_checks();
         Ok(Status::info(format!("added {}", ids.join(", "))))
     }
 

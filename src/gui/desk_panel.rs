@@ -10,6 +10,7 @@ use super::command::{AppCommand, Command, DeskCommand, DialogKind, TypedPosition
 use super::desk::Desk;
 use super::marks::{CURRENT, MISSING, OPEN, PLACED, state_colour};
 use super::state::{Preferences, Scan, ViewState};
+use sutura_core::analysis::checks::{Flag, FlagKind, TrialChecks};
 use sutura_core::landmarks::project::{LandmarkState, Method};
 use sutura_core::measure::table::measure_trial;
 
@@ -689,9 +690,21 @@ fn checklist_ui(ui: &mut Ui, s: &Desk, out: &mut Vec<Command>) {
             .weak(),
         );
     }
+    let checks = s.checks();
+    let flags_of = |id: &str| -> Vec<&Flag> {
+        checks.map_or_else(Vec::new, |c| {
+            c.flags
+                .iter()
+                .filter(|f| {
+                    f.kind != FlagKind::OutlyingMeasurement && f.items.iter().any(|i| i == id)
+                })
+                .collect()
+        })
+    };
     for def in &scheme.landmarks {
         let state = s.state_of(&def.id);
         let is_current = s.current.as_deref() == Some(def.id.as_str());
+        let flags = flags_of(&def.id);
         ui.horizontal(|ui| {
             state_icon(ui, state);
             let text = RichText::new(&def.id).monospace();
@@ -710,7 +723,54 @@ fn checklist_ui(ui: &mut Ui, s: &Desk, out: &mut Vec<Command>) {
                 out.push(DeskCommand::SelectLandmark(def.id.clone()).into());
             }
             ui.label(RichText::new(def.bookstein_type.name()).small().weak());
+            if !flags.is_empty() {
+                let reasons: Vec<&str> = flags.iter().map(|f| f.reason.as_str()).collect();
+                ui.label(RichText::new("check").small().color(FLAG))
+                    .on_hover_text(reasons.join("\n"));
+            }
         });
+    }
+    checks_ui(ui, checks);
+}
+
+/// Colour of a digitising check's flag.
+const FLAG: Color32 = Color32::from_rgb(236, 190, 84);
+
+/// The digitising checks of the trial: each flag with its reason, or why there are none.
+fn checks_ui(ui: &mut Ui, checks: Option<&TrialChecks>) {
+    let Some(c) = checks else {
+        return;
+    };
+    ui.add_space(4.0);
+    if let Some(why) = &c.not_checked {
+        ui.label(
+            RichText::new(format!("Checks: not yet — {why}"))
+                .small()
+                .weak(),
+        );
+        return;
+    }
+    if c.flags.is_empty() {
+        ui.label(
+            RichText::new(format!(
+                "Checks: nothing unusual against {} complete specimens",
+                c.reference
+            ))
+            .small()
+            .weak(),
+        );
+        return;
+    }
+    ui.label(
+        RichText::new(format!(
+            "Checks against {} complete specimens (they never change the data):",
+            c.reference
+        ))
+        .small()
+        .color(FLAG),
+    );
+    for f in &c.flags {
+        ui.label(RichText::new(format!("• {}", f.reason)).small().color(FLAG));
     }
 }
 

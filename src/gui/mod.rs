@@ -29,6 +29,7 @@
 
 pub mod actions;
 pub mod adding;
+pub mod analysis_extras;
 pub mod analysis_view;
 pub mod app;
 pub mod camera;
