@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{Reference, root, run_sutura};
+use common::{Reference, root, run_sutura, sutura};
 use sutura_core::geometry::VoxelIndex;
 
 fn samples() -> std::path::PathBuf {
@@ -39,6 +39,30 @@ fn info_json_agrees_with_nibabel() {
             );
             assert!((x - y).abs() < 1e-6, "affine[{r}][{c}] {x} vs {y}");
         }
+    }
+}
+
+#[test]
+fn a_reader_that_goes_away_ends_the_output_quietly() {
+    // `sutura info SCAN | head -1` (the demo does this under `pipefail`): the pipe's reading
+    // end closed before anything is written gives EPIPE on the first write; the command ends
+    // with success and no panic message
+    for json in [false, true] {
+        let mut cmd = sutura();
+        cmd.arg("info")
+            .arg(samples().join("HDC-002.nii.gz"))
+            .arg("--quiet")
+            .stdout(std::process::Stdio::piped())
+            .stderr(std::process::Stdio::piped());
+        if json {
+            cmd.arg("--json");
+        }
+        let mut child = cmd.spawn().unwrap();
+        drop(child.stdout.take());
+        let out = child.wait_with_output().unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(out.status.success(), "json {json}: {:?}: {err}", out.status);
+        assert!(!err.contains("panicked"), "{err}");
     }
 }
 

@@ -128,13 +128,20 @@ fn run_store(a: &ConvertArgs) -> Result<()> {
     let [nx, ny, nz] = r.levels[0].dims;
     let coarsest = r.levels.last().map_or([0; 3], |l| l.dims);
     eprintln!(
-        "wrote {} ({nx} x {ny} x {nz} {}, {} levels down to {} x {} x {}, {:.1} MiB, {:.1} s{})",
+        "wrote {} ({nx} x {ny} x {nz} {}, {}, {:.1} MiB, {:.1} s{})",
         a.output.display(),
         reader.dtype(),
-        r.levels.len(),
-        coarsest[0],
-        coarsest[1],
-        coarsest[2],
+        if r.levels.len() == 1 {
+            "1 level".to_owned()
+        } else {
+            format!(
+                "{} levels down to {} x {} x {}",
+                r.levels.len(),
+                coarsest[0],
+                coarsest[1],
+                coarsest[2]
+            )
+        },
         r.stored_bytes as f64 / f64::from(1 << 20),
         started.elapsed().as_secs_f64(),
         r.resumed_from

@@ -4,6 +4,7 @@ use super::ScanArgs;
 use anyhow::Result;
 use clap::Args;
 use serde::Serialize;
+use std::fmt::Write as _;
 
 #[derive(Debug, Args)]
 pub struct InfoArgs {
@@ -93,64 +94,80 @@ pub fn run(a: &InfoArgs) -> Result<()> {
         notes,
     };
     if a.json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
-        return Ok(());
+        return super::emit(&format!("{}\n", serde_json::to_string_pretty(&report)?));
     }
     let [nx, ny, nz] = report.dims;
     let [sx, sy, sz] = report.voxel_size_mm;
-    println!("scan         {}", report.path);
-    println!(
+    // written at once by `emit`, which ends quietly when the reader has gone (`| head`)
+    let mut s = String::new();
+    macro_rules! out {
+        ($($t:tt)*) => {
+            let _ = writeln!(s, $($t)*);
+        };
+    }
+    out!("scan         {}", report.path);
+    out!(
         "dimensions   {nx} x {ny} x {nz} voxels ({} MiB of {})",
         report.voxel_bytes >> 20,
         report.dtype
     );
-    println!(
+    out!(
         "voxel size   {} x {} x {}",
         sutura_core::geometry::format_length_mm(sx),
         sutura_core::geometry::format_length_mm(sy),
         sutura_core::geometry::format_length_mm(sz)
     );
-    println!(
+    out!(
         "extent       {:.3} x {:.3} x {:.3} mm",
         sx * nx as f64,
         sy * ny as f64,
         sz * nz as f64
     );
-    println!("world_from_voxel (mm)");
+    out!("world_from_voxel (mm)");
     for row in &report.world_from_voxel {
-        println!(
+        out!(
             "  {:>12.6} {:>12.6} {:>12.6} {:>12.6}",
-            row[0], row[1], row[2], row[3]
+            row[0],
+            row[1],
+            row[2],
+            row[3]
         );
     }
     if r.is_some() {
-        println!(
+        out!(
             "rescale      value = {} * stored + {}",
-            report.rescale_slope, report.rescale_intercept
+            report.rescale_slope,
+            report.rescale_intercept
         );
     }
-    println!(
+    out!(
         "intensity    min {}  max {}  mean {:.4}",
-        report.min, report.max, report.mean
+        report.min,
+        report.max,
+        report.mean
     );
-    println!(
+    out!(
         "percentiles  0.5%: {}  50%: {}  99.5%: {}",
-        report.p0_5, report.p50, report.p99_5
+        report.p0_5,
+        report.p50,
+        report.p99_5
     );
     if report.levels.len() > 1 {
         for (l, lv) in report.levels.iter().enumerate() {
             let [x, y, z] = lv.dims;
-            println!(
+            out!(
                 "level {l:<6} {x} x {y} x {z} voxels ({}x{}x{} blocks)",
-                lv.factor[0], lv.factor[1], lv.factor[2]
+                lv.factor[0],
+                lv.factor[1],
+                lv.factor[2]
             );
         }
     }
     if report.nan_count > 0 {
-        println!("NaN voxels   {}", report.nan_count);
+        out!("NaN voxels   {}", report.nan_count);
     }
     for n in &report.notes {
-        println!("note         {n}");
+        out!("note         {n}");
     }
-    Ok(())
+    super::emit(&s)
 }

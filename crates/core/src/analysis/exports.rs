@@ -149,6 +149,7 @@ impl Exported {
                 let folder = files
                     .first()
                     .and_then(|p| p.parent())
+                    .filter(|d| !d.as_os_str().is_empty())
                     .map_or_else(String::new, |d| format!(" into {}", d.display()));
                 format!("wrote {} files{folder}: {}", names.len(), names.join(", "))
             }
@@ -264,5 +265,22 @@ mod tests {
             }
             assert!(out.describe().starts_with("wrote "), "{}", out.describe());
         }
+    }
+
+    #[test]
+    fn a_description_names_the_folder_only_when_there_is_one() {
+        let e = |files: &[&str]| Exported {
+            files: files.iter().map(PathBuf::from).collect(),
+            not_digitised: 0,
+        };
+        assert_eq!(
+            e(&["x.npy", "x.index.json"]).describe(),
+            "wrote 2 files: x.npy, x.index.json"
+        );
+        assert_eq!(
+            e(&["out/x.npy", "out/x.index.json"]).describe(),
+            "wrote 2 files into out: x.npy, x.index.json"
+        );
+        assert_eq!(e(&["out/a.csv"]).describe(), "wrote out/a.csv");
     }
 }
