@@ -96,6 +96,11 @@ pub fn run(a: &InfoArgs) -> Result<()> {
     if a.json {
         return super::emit(&format!("{}\n", serde_json::to_string_pretty(&report)?));
     }
+    super::emit(&text(&report, r.is_some()))
+}
+
+/// The report as lines for a reader.
+fn text(report: &InfoReport, rescaled: bool) -> String {
     let [nx, ny, nz] = report.dims;
     let [sx, sy, sz] = report.voxel_size_mm;
     // written at once by `emit`, which ends quietly when the reader has gone (`| head`)
@@ -133,7 +138,7 @@ pub fn run(a: &InfoArgs) -> Result<()> {
             row[3]
         );
     }
-    if r.is_some() {
+    if rescaled {
         out!(
             "rescale      value = {} * stored + {}",
             report.rescale_slope,
@@ -169,5 +174,5 @@ pub fn run(a: &InfoArgs) -> Result<()> {
     for n in &report.notes {
         out!("note         {n}");
     }
-    super::emit(&s)
+    s
 }
