@@ -307,3 +307,90 @@ fn commands_on_a_store_agree_with_the_source() {
     );
     assert!(!ok && err.contains("half-written"), "{err}");
 }
+
+#[test]
+fn commands_that_read_a_scan_whole_take_a_store() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let src = d.join("scan.nii");
+    sutura_core::io::nifti::write(&scan(), &src).unwrap();
+    let run = |args: &[&str]| {
+        let (ok, out, err) = run_sutura(args, d);
+        assert!(ok, "{args:?}: {err}");
+        out
+    };
+    run(&[
+        "convert",
+        "scan.nii",
+        "-o",
+        "scan.ome.zarr",
+        "--chunk",
+        "16",
+        "--coarsest-kib",
+        "4",
+        "--quiet",
+    ]);
+    // back to a file: the same voxels, placement and rescale as the source
+    run(&["convert", "scan.ome.zarr", "-o", "back.nii", "--quiet"]);
+    let open = |p: &Path| {
+        sutura_core::io::open(
+            p,
+            &sutura_core::io::OpenOptions::default(),
+            &sutura_core::io::Progress::none(),
+        )
+        .unwrap()
+    };
+    let (a, b) = (open(&src), open(&d.join("back.nii")));
+    assert_eq!(a.dims(), b.dims());
+    assert_eq!(a.world_from_voxel().rows(), b.world_from_voxel().rows());
+    assert_eq!(a.rescale(), b.rescale());
+    let values = |v: &Volume| -> Vec<f64> {
+        sutura_core::with_voxels!(v.voxels(), |s| s.iter().map(|x| f64::from(*x)).collect())
+    };
+    assert!(
+        values(&a) == values(&b),
+        "voxels differ after the round trip"
+    );
+    // a store converted again, with other chunks: the same scan
+    run(&[
+        "convert",
+        "scan.ome.zarr",
+        "-o",
+        "again.ome.zarr",
+        "--chunk",
+        "32",
+        "--quiet",
+    ]);
+    let info = |p: &str| -> serde_json::Value {
+        serde_json::from_str(&run(&["info", p, "--json", "--quiet"])).unwrap()
+    };
+    let (x, y) = (info("scan.ome.zarr"), info("again.ome.zarr"));
+    for key in [
+        "dims",
+        "dtype",
+        "world_from_voxel",
+        "min",
+        "max",
+        "sum",
+        "p50",
+    ] {
+        assert_eq!(x[key], y[key], "{key}");
+    }
+    // a project specimen on a store: its id from the store's name, its fingerprint checked
+    let scheme = common::root().join("sample_volumes/scheme.toml");
+    run(&[
+        "project",
+        "new",
+        "p.json",
+        "--scheme",
+        scheme.to_str().unwrap(),
+    ]);
+    run(&["project", "add", "p.json", "scan.ome.zarr"]);
+    let project = sutura_core::landmarks::Project::load(&d.join("p.json")).unwrap();
+    assert_eq!(project.specimens()[0].id, "scan");
+    run(&["project", "check", "p.json"]);
+    // a surface mesh of the store
+    let out = d.join("m.ply");
+    run(&["mesh", "scan.ome.zarr", "-o", "m.ply", "--quiet"]);
+    assert!(out.metadata().unwrap().len() > 1000);
+}

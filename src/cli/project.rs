@@ -70,8 +70,8 @@ pub struct NewArgs {
     #[arg(long)]
     scheme: PathBuf,
 
-    /// A folder of scans: each `.nii`, `.nii.gz`, `.hdr`, `.tif`/`.tiff` file and each folder
-    /// of TIFF slices becomes a specimen, in name order.
+    /// A folder of scans: each `.nii`, `.nii.gz`, `.hdr`, `.tif`/`.tiff` file, each folder
+    /// of TIFF slices and each OME-Zarr store becomes a specimen, in name order.
     #[arg(long)]
     scans: Option<PathBuf>,
 
@@ -94,7 +94,8 @@ pub struct AddArgs {
     /// The project file.
     project: PathBuf,
 
-    /// The scan: a NIfTI file, a TIFF file, or a folder of TIFF slices.
+    /// The scan: a NIfTI file, a TIFF file, a folder of TIFF slices or an OME-Zarr store
+    /// (read whole at full resolution).
     scan: PathBuf,
 
     /// Specimen id (default: the scan's name without its extension).

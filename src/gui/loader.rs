@@ -50,9 +50,14 @@ impl Loading {
         wake: impl Fn() + Send + Sync + 'static,
     ) -> Self {
         Self::spawn(path, None, id, wake, move |p, progress| {
-            io::open(p, &options, progress)
-                .map(|v| (v, None))
-                .map_err(|e| e.to_string())
+            // a store is read whole at full resolution, like a file
+            if sutura_core::store::is_store(p) {
+                sutura_core::landmarks::scan::open_scan(p, options.voxel_size_mm, progress)
+            } else {
+                io::open(p, &options, progress)
+            }
+            .map(|v| (v, None))
+            .map_err(|e| e.to_string())
         })
     }
 

@@ -8,8 +8,17 @@ use std::path::{Path, PathBuf};
 
 use super::IoError;
 
-/// The file name endings of the scan files Sutura reads (lower case).
-pub const SCAN_SUFFIXES: [&str; 6] = [".nii.gz", ".nii", ".hdr", ".img", ".tiff", ".tif"];
+/// The name endings of the scans Sutura reads (lower case): files, and OME-Zarr store folders.
+pub const SCAN_SUFFIXES: [&str; 8] = [
+    ".ome.zarr",
+    ".zarr",
+    ".nii.gz",
+    ".nii",
+    ".hdr",
+    ".img",
+    ".tiff",
+    ".tif",
+];
 
 /// Natural order of names: runs of digits compare by value (`s2` < `s10`, no overflow on long
 /// runs), other characters case-insensitively; names equal by those rules (`s02` and `s2`,
@@ -101,7 +110,8 @@ pub fn scans_in(dir: &Path) -> Result<Vec<PathBuf>, IoError> {
             continue;
         }
         let is_scan = if path.is_dir() {
-            super::tiff::list_slices(&path, super::Limits::default().max_slices).is_ok()
+            crate::store::is_store(&path)
+                || super::tiff::list_slices(&path, super::Limits::default().max_slices).is_ok()
         } else {
             is_scan_name(&name) && !name.to_lowercase().ends_with(".img")
         };
@@ -170,6 +180,8 @@ mod tests {
             ("x.hdr", "x"),
             (".nii", "specimen"),
             ("_x-1.tif", "x-1"),
+            ("stores/TF-003.ome.zarr", "TF-003"),
+            ("TF-004.zarr", "TF-004"),
         ] {
             assert_eq!(specimen_id_from_scan(Path::new(p)), id, "{p}");
         }

@@ -10,7 +10,7 @@
 
 use super::{IoError, OpenOptions, Progress};
 use crate::geometry::Affine3;
-use crate::volume::{DType, Rescale, SpacingOrigin, Volume};
+use crate::volume::{DType, Rescale, SpacingOrigin, Volume, VolumeSource};
 use std::path::{Path, PathBuf};
 
 /// A scan read slab by slab (see the module docs).
@@ -96,6 +96,79 @@ impl<V: std::ops::Deref<Target = Volume> + Send> SliceReader for VolumeSlices<V>
         };
         dst.copy_from_slice(part);
         Ok(())
+    }
+}
+
+/// Slices of any [`VolumeSource`]'s full-resolution level, read a slab at a time through its
+/// block reads (an OME-Zarr store converted again, with other chunks or another codec).
+pub struct SourceSlices<S> {
+    source: S,
+    path: PathBuf,
+    notes: Vec<String>,
+}
+
+impl<S: VolumeSource> SourceSlices<S> {
+    /// Reads `source`; `path` names it in messages.
+    pub fn new(source: S, path: &Path) -> Self {
+        let notes = source.notes().to_vec();
+        Self {
+            source,
+            path: path.to_owned(),
+            notes,
+        }
+    }
+}
+
+impl<S: VolumeSource> SliceReader for SourceSlices<S> {
+    fn path(&self) -> &Path {
+        &self.path
+    }
+    fn dims(&self) -> [usize; 3] {
+        self.source.dims()
+    }
+    fn dtype(&self) -> DType {
+        self.source.dtype()
+    }
+    fn world_from_voxel(&self) -> Affine3 {
+        self.source.world_from_voxel()
+    }
+    fn rescale(&self) -> Option<Rescale> {
+        self.source.rescale()
+    }
+    fn notes(&self) -> Vec<String> {
+        self.notes.clone()
+    }
+    fn spacing_origin(&self) -> SpacingOrigin {
+        self.source.spacing_origin()
+    }
+    fn read_slices(
+        &mut self,
+        k0: usize,
+        dst: &mut [u8],
+        progress: &Progress<'_>,
+    ) -> Result<(), IoError> {
+        let [nx, ny, nz] = self.dims();
+        let per = self.slice_bytes();
+        let n = dst.len().checked_div(per).unwrap_or(0);
+        if n == 0 || n * per != dst.len() || k0 + n > nz {
+            return Err(IoError::usage(
+                &self.path,
+                format!("slices {k0}..{} are outside the scan's {nz}", k0 + n),
+            ));
+        }
+        let block = self
+            .source
+            .read_block(0, &[0..nx, 0..ny, k0..k0 + n])
+            .map_err(|e| IoError::corrupt(&self.path, e.to_string()))?;
+        let src: &[u8] = crate::with_voxels!(block.voxels(), |s| bytemuck::cast_slice(s));
+        dst.copy_from_slice(src);
+        if progress.report((k0 + n) as u64, nz as u64) {
+            Ok(())
+        } else {
+            Err(IoError::Cancelled {
+                path: self.path.clone(),
+            })
+        }
     }
 }
 

@@ -5,6 +5,12 @@
 //! their own geometry, which a user value rescales axis by axis (keeping the direction cosines
 //! and the origin). Both the command line and the project use [`open_scan`], so a specimen's
 //! scan is placed in the world the same way every time it is opened.
+//!
+//! An OME-Zarr store ([`crate::store`]) opens here too, for the consumers that need the whole
+//! grid in memory (projects, picking on the command line, labels, meshes, conversion to a
+//! file): its full-resolution level is read whole, within the same voxel limit as a file.
+//! Views that read a store a block at a time open it as a [`crate::volume::VolumeSource`]
+//! instead.
 
 use std::path::Path;
 
@@ -35,6 +41,9 @@ pub fn open_scan(
         voxel_size_mm,
         ..OpenOptions::default()
     };
+    if crate::store::is_store(path) {
+        return open_store_whole(path, voxel_size_mm, &options);
+    }
     let mut volume = io::open(path, &options, progress)?;
     if let Some(s) = voxel_size_mm
         && io::detect(path)? == Format::Nifti
@@ -42,6 +51,37 @@ pub fn open_scan(
         set_voxel_size(&mut volume, Format::Nifti, s);
     }
     Ok(volume)
+}
+
+/// A store's full-resolution level, read whole (refused above the voxel limit of `options`).
+fn open_store_whole(
+    path: &Path,
+    voxel_size_mm: Option<[f64; 3]>,
+    options: &OpenOptions,
+) -> Result<Volume, IoError> {
+    use crate::store::{Store, StoreOptions};
+    use crate::volume::{Block, VolumeSource};
+    let store = Store::open(
+        path,
+        &StoreOptions {
+            // every chunk is read once: a small cache is enough
+            cache_bytes: 64 << 20,
+            max_block_bytes: options.limits.max_voxel_bytes,
+            voxel_size_mm,
+        },
+    )?;
+    let level = store.level(0);
+    let block = store
+        .read_block(0, &level.full_region())
+        .map_err(|e| IoError::corrupt(path, e.to_string()))?;
+    match block {
+        Block::Read(v) => Ok(v),
+        // a store holds no volume in memory; were it to, it could not be handed out whole
+        Block::Whole(_) => Err(IoError::corrupt(
+            path,
+            "the store's voxels are held in memory and cannot be read out",
+        )),
+    }
 }
 
 /// Gives a loaded volume the voxel size `s` (mm) as [`open_scan`] would have: a TIFF scan is
@@ -89,6 +129,19 @@ pub fn open_scan_slices(
         voxel_size_mm,
         ..OpenOptions::default()
     };
+    if crate::store::is_store(path) {
+        use crate::store::{Store, StoreOptions};
+        // one slab at a time: the cache holds the chunks of one slab
+        let store = Store::open(
+            path,
+            &StoreOptions {
+                cache_bytes: 256 << 20,
+                max_block_bytes: options.limits.max_voxel_bytes,
+                voxel_size_mm,
+            },
+        )?;
+        return Ok(Box::new(slices::SourceSlices::new(store, path)));
+    }
     let reader = slices::open_slices(path, &options)?;
     match voxel_size_mm {
         Some(s) if io::detect(path)? == Format::Nifti => {

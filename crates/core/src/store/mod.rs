@@ -132,6 +132,20 @@ impl From<StoreError> for ReadError {
     }
 }
 
+impl From<StoreError> for crate::io::IoError {
+    fn from(e: StoreError) -> Self {
+        use crate::io::IoError;
+        match e {
+            StoreError::Os { path, source } => IoError::Os { path, source },
+            StoreError::Corrupt { path, what } => IoError::Corrupt { path, what },
+            StoreError::Unsupported { path, what } => IoError::Unsupported { path, what },
+            StoreError::Usage { path, what } => IoError::Usage { path, what },
+            StoreError::Cancelled { path } => IoError::Cancelled { path },
+            StoreError::Source(e) => e,
+        }
+    }
+}
+
 /// Whether a path names an OME-Zarr store (a folder holding `zarr.json` or `.zgroup`).
 #[must_use]
 pub fn is_store(path: &Path) -> bool {
