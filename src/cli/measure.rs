@@ -42,7 +42,7 @@ pub fn run(a: &MeasureArgs) -> Result<()> {
     _ = writeln!(
         out,
         "{:<12} {:<5} {:<24} {:>12} {:>10}  unit  note",
-        "specimen", "trial", "measurement", "value", "± res."
+        "specimen", "trial", "measurement", "value", "resolution"
     );
     for r in &rows {
         match &r.result {

@@ -46,6 +46,7 @@ pub mod prompts;
 pub mod smoke;
 pub mod state;
 pub mod status;
+pub mod trial_lists;
 pub mod view;
 pub mod views;
 pub mod worker;
