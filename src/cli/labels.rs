@@ -527,55 +527,55 @@ fn run_grow(a: &GrowArgs) -> Result<()> {
             .map(|t| length(t, "--max-distance"))
             .transpose()?,
     };
-    let value = lv.value_of(&a.target.label).ok();
-    // by default the region does not enter voxels other labels hold
-    let within = (!a.through_labels).then(|| lv.mask_where(|v| v == 0 || Some(v) == value));
-    let sel = labels::region::grow(&volume, seed, &options, within.as_ref())?;
-    commit(
-        lv,
-        &a.target,
-        &sel,
+    let mut lv = lv;
+    let value = lv.value_or_add(&a.target.label)?;
+    let before = lv.counts()[usize::from(value)];
+    let edit = labels::ops::grow_label(
+        &mut lv,
+        &volume,
+        value,
+        seed,
+        &options,
+        a.through_labels,
         a.mode.mode.into(),
         a.mode.overwrite,
-        "grow",
-    )
+    )?;
+    save_and_report(&lv, &a.target, value, before, "grow", edit.bricks())
 }
 
 fn run_piece(a: &PieceArgs) -> Result<()> {
     let lv = load(&a.target.labels)?;
     let volume = open_matching(&a.scan, &lv, &a.target.labels)?;
     let at = point_voxel(a.at.as_deref(), a.at_voxel.as_deref(), "at", &volume)?;
+    let mut lv = lv;
     let value = lv.value_of(&a.target.label)?;
-    let piece = labels::region::keep_piece_at(
-        &lv.mask_of(value),
+    let before = lv.counts()[usize::from(value)];
+    let edit = labels::ops::keep_piece(
+        &mut lv,
+        value,
         at,
         Connectivity::from_count(a.connectivity)?,
     )?;
-    commit(
-        lv,
-        &a.target,
-        &piece,
-        Combine::Intersect,
-        false,
-        "keep piece",
-    )
+    save_and_report(&lv, &a.target, value, before, "keep piece", edit.bricks())
 }
 
 fn run_small(a: &SmallArgs) -> Result<()> {
-    let lv = load(&a.target.labels)?;
+    let mut lv = load(&a.target.labels)?;
     let value = lv.value_of(&a.target.label)?;
-    let kept = labels::region::remove_small(
-        &lv.mask_of(value),
+    let before = lv.counts()[usize::from(value)];
+    let edit = labels::ops::remove_small_pieces(
+        &mut lv,
+        value,
         a.min_voxels,
         Connectivity::from_count(a.connectivity)?,
-    );
-    commit(
-        lv,
+    )?;
+    save_and_report(
+        &lv,
         &a.target,
-        &kept,
-        Combine::Intersect,
-        false,
+        value,
+        before,
         "remove small pieces",
+        edit.bricks(),
     )
 }
 
@@ -625,9 +625,10 @@ fn run_brush(a: &BrushArgs) -> Result<()> {
 }
 
 fn run_interpolate(a: &InterpolateArgs) -> Result<()> {
-    let lv = load(&a.target.labels)?;
+    let mut lv = load(&a.target.labels)?;
     let value = lv.value_of(&a.target.label)?;
-    let (sel, drawn) = labels::interp::interpolate(&lv, value, axis_of(&a.axis)?)?;
+    let before = lv.counts()[usize::from(value)];
+    let (edit, drawn) = labels::ops::interpolate_label(&mut lv, value, axis_of(&a.axis)?)?;
     eprintln!(
         "drawn {} slices: {}",
         a.axis,
@@ -637,7 +638,7 @@ fn run_interpolate(a: &InterpolateArgs) -> Result<()> {
             .collect::<Vec<_>>()
             .join(", ")
     );
-    commit(lv, &a.target, &sel, Combine::Add, false, "interpolate")
+    save_and_report(&lv, &a.target, value, before, "interpolate", edit.bricks())
 }
 
 fn run_morph(a: &MorphArgs) -> Result<()> {
@@ -645,21 +646,18 @@ fn run_morph(a: &MorphArgs) -> Result<()> {
     let value = lv.value_of(&a.target.label)?;
     let op = MorphOp::parse(&a.op)?;
     let radius_mm = length(&a.radius, "--radius")?;
-    let m = labels::morph::morph(&lv.mask_of(value), op, radius_mm, lv.spacing_mm)?;
-    // the result replaces the label: remove what it lost, add what it gained
     let mut lv = lv;
     let before = lv.counts()[usize::from(value)];
-    let edit = lv
-        .apply(&m, value, Combine::Intersect, false)?
-        .then(lv.apply(&m, value, Combine::Add, false)?);
+    let edit = labels::ops::morph_label(&mut lv, value, op, radius_mm)?;
     save_and_report(&lv, &a.target, value, before, &a.op, edit.bricks())
 }
 
 fn run_fill(a: &TargetArgs) -> Result<()> {
-    let lv = load(&a.labels)?;
+    let mut lv = load(&a.labels)?;
     let value = lv.value_of(&a.label)?;
-    let filled = labels::region::fill_holes(&lv.mask_of(value));
-    commit(lv, a, &filled, Combine::Add, false, "fill holes")
+    let before = lv.counts()[usize::from(value)];
+    let edit = labels::ops::fill_label_holes(&mut lv, value)?;
+    save_and_report(&lv, a, value, before, "fill holes", edit.bricks())
 }
 
 fn run_combine(a: &CombineArgs) -> Result<()> {

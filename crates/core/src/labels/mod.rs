@@ -23,6 +23,7 @@ pub mod brush;
 pub mod interp;
 pub mod mask;
 pub mod morph;
+pub mod ops;
 pub mod region;
 pub mod zarr;
 

@@ -12,6 +12,8 @@
 //! - [`overlay`]: scale bar, orientation labels, markers and lines drawn with tiny-skia;
 //! - [`text`]: the bundled font (`DejaVu Sans`) and its glyphs drawn as paths, for overlays and
 //!   charts;
+//! - [`labels`]: label images blended over slice pictures, and a scan kept to chosen labels
+//!   for 3D views;
 //! - [`png`]: PNG encoding of an [`RgbaImage`].
 //!
 //! Image conventions, shared by every function here:
@@ -25,6 +27,7 @@
 //! Only this module and `chart` (through resvg) draw with tiny-skia. Must not import `gui`.
 
 pub mod budget;
+pub mod labels;
 pub mod overlay;
 pub mod png;
 pub mod pyramid;
