@@ -407,12 +407,19 @@ fn native(
 }
 
 /// Stores raw samples (`big_endian` or little-endian) as the series' voxel type: 8-bit
-/// unsigned as `u8`, 8-bit signed widened to `i16`, 16-bit as `u16`/`i16`; signed samples of
-/// fewer bits than allocated are sign-extended from their highest stored bit.
+/// unsigned as `u8`, 8-bit signed widened to `i16`, 16-bit as `u16`/`i16`. With fewer bits
+/// stored than allocated, signed samples are sign-extended from their highest stored bit and
+/// unsigned ones keep only their stored bits (the bits above are no part of the value; pydicom
+/// reads them the same way).
 fn store(raw: &[u8], big_endian: bool, expect: &SliceHeader, dst: &mut [u8]) {
     let bits = u32::from(expect.bits_stored.clamp(1, expect.bits_allocated));
     match (expect.bits_allocated, expect.signed) {
-        (8, false) => dst.copy_from_slice(raw),
+        (8, false) => {
+            let mask = u8::MAX >> (8 - bits.min(8));
+            for (d, &s) in dst.iter_mut().zip(raw) {
+                *d = s & mask;
+            }
+        }
         (8, true) => {
             let shift = 8 - bits.min(8);
             for (d, &s) in dst.chunks_exact_mut(2).zip(raw) {
@@ -432,7 +439,7 @@ fn store(raw: &[u8], big_endian: bool, expect: &SliceHeader, dst: &mut [u8]) {
                 let u = if signed {
                     ((u.cast_signed() << shift) >> shift).cast_unsigned()
                 } else {
-                    u
+                    u & (u16::MAX >> shift)
                 };
                 d.copy_from_slice(&u.to_ne_bytes());
             }

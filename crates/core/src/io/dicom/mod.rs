@@ -33,8 +33,9 @@
 //!   explicit VR little endian, explicit big endian) or encapsulated in what the crates decode
 //!   in pure Rust (RLE lossless, JPEG baseline, extended and lossless); JPEG 2000, JPEG-LS and
 //!   the deflated syntax are refused as unsupported. 8-bit unsigned stays `u8`, 16-bit stays
-//!   `u16`/`i16`, 8-bit signed is widened to `i16`; signed samples with fewer bits stored
-//!   than allocated are sign-extended from their highest stored bit. RescaleSlope and
+//!   `u16`/`i16`, 8-bit signed is widened to `i16`; with fewer bits stored than allocated,
+//!   signed samples are sign-extended from their highest stored bit and unsigned ones keep
+//!   their stored bits only. RescaleSlope and
 //!   RescaleIntercept become the volume's [`Rescale`](crate::volume::Rescale).
 //! - **Safety.** Each file's lengths are checked against its size before the parser reads it
 //!   (see [`walk`]), decoded pixels are checked against the header, and a compressed frame may

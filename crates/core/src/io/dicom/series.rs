@@ -434,7 +434,7 @@ fn build(
             "DICOM series {}; ImageOrientationPatient {} (LPS); slice step {} mm from ImagePositionPatient; world = LPS with x and y negated (RAS, as NIfTI)",
             summary(&slices),
             crate::message::numbers(&o),
-            crate::message::numbers(&[world_from_voxel.column_lengths()[2]]),
+            short(world_from_voxel.column_lengths()[2]),
         ),
     );
     Ok(Series {
@@ -597,5 +597,12 @@ fn place(
 }
 
 fn fmt_mm(v: f64) -> String {
-    crate::message::numbers(&[v])
+    short(v)
+}
+
+/// A length to 6 decimals without trailing zeros (decimal strings' last bits are noise).
+fn short(v: f64) -> String {
+    let s = format!("{v:.6}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s == "-0" { "0".into() } else { s.to_owned() }
 }
