@@ -7,6 +7,10 @@
 #   nifti_made/ NIfTI files written by nibabel (tests/python/nifti_make.py, seeded)
 #   tifffile/   TIFF files written by tifffile (tests/python/tiff_write_refs.py, seeded)
 #   zarr_made/  OME-Zarr multiscale images written by zarr-python (tests/python/zarr_store.py)
+#   dicom_made/ DICOM series written by pydicom from known arrays (tests/python/dicom_make.py)
+#   pydicom/    CT and MR files of pydicom's wheel, each in a folder of its own, and one
+#               5-slice CT series of its DICOMDIR test set
+#   pydicom_data/ 512x512 CT and MR files of the pydicom-data package, each in its own folder
 # After one run, `cargo test` needs neither the network nor Python: the Python libraries'
 # answers are committed under tests/fixtures/reference. Each part is remade when what makes it
 # changes (its stamp: the package version and the script's checksum), else left alone.
@@ -75,4 +79,34 @@ if ! fresh zarr_made "$stamp"; then
   rm -rf "$dest/zarr_made"
   "$PY" tests/python/zarr_store.py write "$dest/zarr_made"
   made zarr_made "$stamp"
+fi
+
+stamp="pydicom $("$PY" -c 'import pydicom; print(pydicom.__version__)') numpy $("$PY" -c 'import numpy; print(numpy.__version__)') $(sum tests/python/dicom_make.py)"
+if ! fresh dicom_made "$stamp"; then
+  rm -rf "$dest/dicom_made"
+  "$PY" tests/python/dicom_make.py "$dest/dicom_made" >/dev/null
+  made dicom_made "$stamp"
+fi
+
+pyd=$("$PY" -c 'import pydicom; print(pydicom.__version__)')
+if ! fresh pydicom "$pyd"; then
+  rm -rf "$dest/pydicom"
+  src=$("$PY" -c 'import pydicom, os; print(os.path.join(os.path.dirname(pydicom.__file__), "data", "test_files"))')
+  for f in CT_small MR_small MR_small_implicit MR_small_bigendian MR_small_expb MR_small_RLE \
+    MR_small_padded MR_truncated 693_J2KI rtdose SC_rgb_rle JPEG-lossy; do
+    mkdir -p "$dest/pydicom/$f" && cp "$src/$f.dcm" "$dest/pydicom/$f/"
+  done
+  mkdir -p "$dest/pydicom/CT5N" && cp "$src"/dicomdirtests/98892001/CT5N/* "$dest/pydicom/CT5N/"
+  mkdir -p "$dest/pydicom/MR700" && cp "$src"/dicomdirtests/98892003/MR700/* "$dest/pydicom/MR700/"
+  made pydicom "$pyd"
+fi
+
+pdd=$("$PY" -c 'import importlib.metadata as m; print(m.version("pydicom-data"))')
+if ! fresh pydicom_data "$pdd"; then
+  rm -rf "$dest/pydicom_data"
+  src=$("$PY" -c 'import data_store, os; print(os.path.join(os.path.dirname(data_store.__file__), "data"))')
+  for f in 693_UNCI 693_UNCR MR2_UNCI MR2_UNCR; do
+    mkdir -p "$dest/pydicom_data/$f" && cp "$src/$f.dcm" "$dest/pydicom_data/$f/"
+  done
+  made pydicom_data "$pdd"
 fi

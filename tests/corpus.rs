@@ -240,6 +240,22 @@ const CASES: &[Case] = &[
         outcome: Outcome::Refused,
         stderr: &["unsupported: datatype 128 (RGB voxels)"],
     },
+    // DICOM: lengths and sizes a damaged slice claims
+    Case {
+        file: "dicom_pixel_data_claims_4GiB",
+        args: &["info", "{file}"],
+        outcome: Outcome::Refused,
+        stderr: &[
+            "element (7FE0,0010) claims 4294967280 bytes",
+            "the file is truncated or damaged",
+        ],
+    },
+    Case {
+        file: "dicom_rows_65535_tiny_pixel_data",
+        args: &["info", "{file}"],
+        outcome: Outcome::Refused,
+        stderr: &["the pixel data hold 280 bytes, fewer than the 1834980 of 14 x 65535 samples"],
+    },
     // Defect 11: tables, projects and schemes
     Case {
         file: "csv_nan_coordinate.csv",

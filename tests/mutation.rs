@@ -1,5 +1,5 @@
 //! Seeded mutation testing of every reader of a user's file: `NIfTI` (`.nii`, `.nii.gz`,
-//! `NIfTI`-2), TIFF (classic, Deflate, `BigTIFF`), the project file, the landmark scheme and the
+//! `NIfTI`-2), TIFF (classic, Deflate, `BigTIFF`), DICOM (a one-slice series), the project file, the landmark scheme and the
 //! landmark table. Each case takes a valid seed file, damages it (bit flips, random bytes,
 //! truncation, a header field or a TIFF directory entry set to an extreme, a number in a text
 //! file replaced by an extreme, lines dropped or repeated) and reads it the way the command line
@@ -44,6 +44,7 @@ enum Kind {
     Nifti,
     NiftiGz,
     Tiff,
+    Dicom,
     Project,
     Scheme,
     Csv,
@@ -55,6 +56,7 @@ impl Kind {
             Self::Nifti => "nii",
             Self::NiftiGz => "nii.gz",
             Self::Tiff => "tif",
+            Self::Dicom => "dcm",
             Self::Project => "json",
             Self::Scheme => "toml",
             Self::Csv => "csv",
@@ -160,6 +162,13 @@ fn seeds(dir: &Path) -> Vec<Seed> {
             kind: Kind::Tiff,
             name: "tiff-deflate",
             bytes: tif("seed-deflate.tif", true),
+        },
+        // an oblique int16 CT slice pydicom wrote (one file of the `dicom_made` reference
+        // series, see tests/python/dicom_make.py)
+        Seed {
+            kind: Kind::Dicom,
+            name: "dicom",
+            bytes: read("tests/fixtures/dicom_seed.dcm"),
         },
         Seed {
             kind: Kind::Project,
@@ -352,6 +361,13 @@ fn mutate_binary(rng: &mut ChaCha8Rng, seed: &Seed) -> (Vec<u8>, String) {
             b.truncate(cut);
             (b, format!("truncated to {cut} bytes"))
         }
+        _ if seed.kind == Kind::Dicom => {
+            // a 16- or 32-bit length or value field after the preamble set to an extreme
+            let at = rng.random_range(132..len.saturating_sub(4).max(133));
+            let width = [2, 4][rng.random_range(0..2)];
+            put(&mut b, at, &extreme_bytes(rng, width, false));
+            (b, format!("{width} bytes at {at} set to an extreme"))
+        }
         _ if seed.kind == Kind::Tiff => {
             let entries = tiff_entries(&b);
             if entries.is_empty() {
@@ -533,7 +549,7 @@ fn exercise_table(t: &LandmarkTable) {
 /// Reads a mutant as the command line does; `Err` holds the error's text.
 fn read(kind: Kind, path: &Path, bytes: &[u8]) -> Result<(), String> {
     match kind {
-        Kind::Nifti | Kind::NiftiGz | Kind::Tiff => {
+        Kind::Nifti | Kind::NiftiGz | Kind::Tiff | Kind::Dicom => {
             let v = io::open(path, &OpenOptions::default(), &Progress::none())
                 .map_err(|e| e.to_string())?;
             exercise_volume(&v);

@@ -7,7 +7,7 @@ use clap::Args;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
 use sutura_core::io::Progress;
-use sutura_core::landmarks::scan::open_scan_slices;
+use sutura_core::landmarks::scan::open_scan_slices_with;
 use sutura_core::store::{Codec, ConvertOptions, convert};
 
 #[derive(Debug, Args)]
@@ -85,8 +85,7 @@ fn run_store(a: &ConvertArgs) -> Result<()> {
         );
     }
     let codec = Codec::parse(&a.codec).map_err(|e| anyhow::anyhow!("--codec {}: {e}", a.codec))?;
-    let voxel_size_mm = a.scan.voxel_size.map(|v| v.0);
-    let mut reader = open_scan_slices(&a.scan.scan, voxel_size_mm)?;
+    let mut reader = open_scan_slices_with(&a.scan.scan, &a.scan.open_options())?;
     let fingerprint = sutura_core::landmarks::fingerprint::file_facts(&a.scan.scan)?;
     let options = ConvertOptions {
         chunk: a.chunk,

@@ -24,7 +24,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use sutura_core::geometry::VoxelSizeMm;
-use sutura_core::io::Progress;
+use sutura_core::io::{OpenOptions, Progress};
 use sutura_core::store::{Store, StoreOptions};
 use sutura_core::volume::{Volume, VolumeSource};
 
@@ -105,9 +105,15 @@ struct OpenArgs {
 /// How to read a scan; shared by every command that opens one.
 #[derive(Debug, Args, Clone)]
 pub struct ScanArgs {
-    /// The scan: a folder of TIFF slices, a TIFF file, a `NIfTI` file, or an OME-Zarr store
-    /// (`NAME.ome.zarr`, see `sutura convert`).
+    /// The scan: a folder of TIFF slices, a TIFF file, a `NIfTI` file, a folder of DICOM
+    /// slices (or one file of the series), or an OME-Zarr store (`NAME.ome.zarr`, see
+    /// `sutura convert`).
     pub scan: PathBuf,
+
+    /// The DICOM series to read, by its `SeriesInstanceUID`, when the folder holds several
+    /// (the error without it lists them).
+    #[arg(long, value_name = "UID")]
+    pub series: Option<String>,
 
     /// Voxel size for scans that do not record one (TIFF), overriding any resolution tags:
     /// one length for cubic voxels (`12um`), or three for x,y,z (`12um,12um,30um`).
@@ -140,9 +146,18 @@ impl ScanArgs {
         Ok(Box::new(self.open()?))
     }
 
+    /// The options of opening the scan: the voxel size and the DICOM series given.
+    #[must_use]
+    pub fn open_options(&self) -> OpenOptions {
+        OpenOptions {
+            voxel_size_mm: self.voxel_size.map(|v| v.0),
+            dicom_series: self.series.clone(),
+            ..OpenOptions::default()
+        }
+    }
+
     /// Opens the scan with a progress bar on stderr.
     pub fn open(&self) -> Result<Volume> {
-        let voxel_size_mm = self.voxel_size.map(|v| v.0);
         let bar = (!self.quiet).then(|| {
             let b = indicatif::ProgressBar::with_draw_target(
                 None,
@@ -162,7 +177,11 @@ impl ScanArgs {
             true
         };
         let progress = Progress::new(Some(&report));
-        let volume = sutura_core::landmarks::scan::open_scan(&self.scan, voxel_size_mm, &progress)?;
+        let volume = sutura_core::landmarks::scan::open_scan_with(
+            &self.scan,
+            &self.open_options(),
+            &progress,
+        )?;
         if let Some(b) = &bar {
             b.finish_and_clear();
         }

@@ -231,14 +231,14 @@ fn run_new(a: &NewArgs) -> Result<()> {
         let scans = io::names::scans_in(dir)?;
         if scans.is_empty() {
             bail!(
-                "{}: no scans found (NIfTI, TIFF, or folders of TIFF slices)",
+                "{}: no scans found (NIfTI, TIFF, or folders of TIFF or DICOM slices)",
                 dir.display()
             );
         }
         for scan in scans {
-            let is_nifti = io::detect(&scan)? == io::Format::Nifti;
+            let placed = io::detect(&scan)?.records_placement();
             let new = NewSpecimen {
-                voxel_size_mm: if is_nifti {
+                voxel_size_mm: if placed {
                     None
                 } else {
                     a.voxel_size.map(|v| v.0)

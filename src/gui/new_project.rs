@@ -142,7 +142,7 @@ impl NewProjectForm {
     /// adds each of them. Ids are proposed from the names, unique within the form.
     pub fn add_scans(&mut self, paths: Vec<PathBuf>) {
         for p in paths {
-            let expanded = if p.is_dir() && io::tiff::list_slices(&p, u64::MAX).is_err() {
+            let expanded = if p.is_dir() && !is_one_scan(&p) {
                 io::names::scans_in(&p).unwrap_or_default()
             } else {
                 vec![p]
@@ -261,7 +261,7 @@ pub fn specimens_for(
     let mut taken: BTreeSet<String> = project.specimens().iter().map(|s| s.id.clone()).collect();
     let mut out = Vec::new();
     for p in paths {
-        let scans = if p.is_dir() && io::tiff::list_slices(p, u64::MAX).is_err() {
+        let scans = if p.is_dir() && !is_one_scan(p) {
             io::names::scans_in(p).unwrap_or_default()
         } else {
             vec![p.clone()]
@@ -270,13 +270,19 @@ pub fn specimens_for(
             let mut n = NewSpecimen::for_scan(&scan);
             n.id = unique_id(&n.id, &taken);
             taken.insert(n.id.clone());
-            if io::detect(&scan).is_ok_and(|f| f != io::Format::Nifti) {
+            if io::detect(&scan).is_ok_and(|f| !f.records_placement()) {
                 n.voxel_size_mm = tiff_voxel;
             }
             out.push(n);
         }
     }
     out
+}
+
+/// Whether a folder is one scan (TIFF or DICOM slices) rather than a folder of scans.
+fn is_one_scan(dir: &Path) -> bool {
+    io::tiff::list_slices(dir, u64::MAX).is_ok()
+        || io::dicom::dicom_files(dir, u64::MAX).is_ok_and(|f| !f.is_empty())
 }
 
 fn scheme_summary(path: &Path) -> Result<String, String> {

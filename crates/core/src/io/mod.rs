@@ -1,8 +1,8 @@
 //! Reading and writing scans.
 //!
 //! [`open`] detects the format of a path (a folder of TIFF slices, a single- or multi-page
-//! (Big)TIFF, a NIfTI-1/2 `.nii`, `.nii.gz` or `.hdr`/`.img` pair) and hands it to the loader in
-//! [`tiff`] or [`nifti`]. Loaders check every header against [`Limits`] before allocating, report
+//! (Big)TIFF, a NIfTI-1/2 `.nii`, `.nii.gz` or `.hdr`/`.img` pair, a folder of DICOM slices or
+//! a file of one) and hands it to the loader in [`tiff`], [`nifti`] or [`dicom`]. Loaders check every header against [`Limits`] before allocating, report
 //! progress through a [`Progress`] callback, and fail with an [`IoError`] that names the file and
 //! what is wrong with it. Writers produce NIfTI-1 and TIFF stacks that read back exactly.
 //! [`slices`] reads any of these formats a slab of slices at a time, for conversions whose
@@ -10,6 +10,7 @@
 //!
 //! Must not import `render` or `gui`.
 
+pub mod dicom;
 pub mod names;
 pub mod nifti;
 pub mod slices;
@@ -227,12 +228,15 @@ impl<'a> Progress<'a> {
 }
 
 /// Options for [`open`].
-#[derive(Clone, Copy, Debug, Default)]
+#[derive(Clone, Debug, Default)]
 pub struct OpenOptions {
     pub limits: Limits,
     /// Voxel size in mm to use where the file has none (TIFF). `None`: the file's own
     /// resolution tags if present, else 1 mm with a note saying so.
     pub voxel_size_mm: Option<[f64; 3]>,
+    /// The `SeriesInstanceUID` of the DICOM series to read from a folder that holds several.
+    /// `None`: the folder's only series (or the series of the DICOM file given).
+    pub dicom_series: Option<String>,
 }
 
 /// The formats [`open`] recognises.
@@ -241,6 +245,17 @@ pub enum Format {
     TiffFolder,
     Tiff,
     Nifti,
+    /// A folder of DICOM slices, or one DICOM file (read with the rest of its series).
+    Dicom,
+}
+
+impl Format {
+    /// Whether the file records its voxel size and placement in full (`NIfTI`, DICOM), so that a
+    /// voxel size given by the user overrides rather than supplies it.
+    #[must_use]
+    pub fn records_placement(self) -> bool {
+        matches!(self, Self::Nifti | Self::Dicom)
+    }
 }
 
 /// Checks that `path` is a regular file (following links) without opening it: opening a named
@@ -274,6 +289,13 @@ pub fn require_regular_file(path: &Path) -> std::io::Result<std::fs::Metadata> {
 pub fn detect(path: &Path) -> Result<Format, IoError> {
     let meta = std::fs::metadata(path).map_err(|e| IoError::os(path, e))?;
     if meta.is_dir() {
+        // TIFF slices first (the older rule); a folder with no TIFF but DICOM files is DICOM
+        let limit = Limits::default().max_slices;
+        if tiff::list_slices(path, limit).is_err()
+            && dicom::dicom_files(path, limit).is_ok_and(|f| !f.is_empty())
+        {
+            return Ok(Format::Dicom);
+        }
         return Ok(Format::TiffFolder);
     }
     require_regular_file(path).map_err(|e| IoError::os(path, e))?;
@@ -289,13 +311,20 @@ pub fn detect(path: &Path) -> Result<Format, IoError> {
             ));
         }
     }
-    if matches!(&magic, b"II*\0" | b"MM\0*" | b"II+\0" | b"MM\0+") {
-        return Ok(Format::Tiff);
-    }
     let name = path
         .file_name()
         .map(|n| n.to_string_lossy().to_lowercase())
         .unwrap_or_default();
+    // the DICOM marker first: a DICOM file's free preamble may hold a TIFF header
+    if dicom::has_dicom_marker(path) {
+        return Ok(Format::Dicom);
+    }
+    if matches!(&magic, b"II*\0" | b"MM\0*" | b"II+\0" | b"MM\0+") {
+        return Ok(Format::Tiff);
+    }
+    if names::is_dicom_name(&name) {
+        return Ok(Format::Dicom);
+    }
     #[allow(
         clippy::case_sensitive_file_extension_comparisons,
         reason = "`name` is already lowercased"
@@ -315,7 +344,7 @@ pub fn detect(path: &Path) -> Result<Format, IoError> {
     }
     Err(IoError::usage(
         path,
-        "not a scan Sutura reads (expected a TIFF, a folder of TIFF slices, or NIfTI .nii/.nii.gz/.hdr)",
+        "not a scan Sutura reads (expected a TIFF, a folder of TIFF slices, NIfTI .nii/.nii.gz/.hdr, or DICOM)",
     ))
 }
 
@@ -329,5 +358,6 @@ pub fn open(
         Format::TiffFolder => tiff::open_folder(path, options, progress),
         Format::Tiff => tiff::open_file(path, options, progress),
         Format::Nifti => nifti::open(path, options, progress),
+        Format::Dicom => dicom::open(path, options, progress),
     }
 }

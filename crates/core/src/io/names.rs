@@ -1,7 +1,10 @@
 //! Names of scans on disk: the order files are listed and stacked in, which names are scans,
 //! and the specimen id a scan proposes. Both front ends (file lists, `project new`, the
-//! workstation's new-project dialog) and the TIFF folder loader use these rules, so a folder
-//! lists, stacks and names its scans the same way everywhere.
+//! workstation's new-project dialog) and the TIFF folder and DICOM series loaders use these
+//! rules, so a folder lists, stacks and names its scans the same way everywhere.
+//!
+//! A DICOM series is a folder: its files (named `.dcm`, or with any name and the `DICM` marker
+//! at byte 128, see [`is_dicom_file`]) are slices, not scans of their own.
 
 use std::cmp::Ordering;
 use std::path::{Path, PathBuf};
@@ -19,6 +22,23 @@ pub const SCAN_SUFFIXES: [&str; 8] = [
     ".tiff",
     ".tif",
 ];
+
+/// Whether a file name is a DICOM file's by its ending (`.dcm`, any case).
+#[must_use]
+pub fn is_dicom_name(name: &str) -> bool {
+    name.to_lowercase().ends_with(".dcm")
+}
+
+/// Whether a file is DICOM: named `.dcm`, or carrying the `DICM` marker at byte 128 whatever
+/// its name (series are often written without extensions). Reads at most 132 bytes.
+#[must_use]
+pub fn is_dicom_file(path: &Path) -> bool {
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    is_dicom_name(&name) || super::dicom::has_dicom_marker(path)
+}
 
 /// Natural order of names: runs of digits compare by value (`s2` < `s10`, no overflow on long
 /// runs), other characters case-insensitively; names equal by those rules (`s02` and `s2`,
@@ -97,7 +117,7 @@ pub fn specimen_id_from_scan(scan: &Path) -> String {
 }
 
 /// The scans in a folder, in natural order of their names: scan files, and folders that hold
-/// TIFF slices. Hidden entries (`.name`) are left out.
+/// TIFF slices or DICOM files. Hidden entries (`.name`) are left out.
 pub fn scans_in(dir: &Path) -> Result<Vec<PathBuf>, IoError> {
     let mut out = Vec::new();
     for entry in std::fs::read_dir(dir).map_err(|e| IoError::os(dir, e))? {
@@ -110,8 +130,10 @@ pub fn scans_in(dir: &Path) -> Result<Vec<PathBuf>, IoError> {
             continue;
         }
         let is_scan = if path.is_dir() {
+            let limit = super::Limits::default().max_slices;
             crate::store::is_store(&path)
-                || super::tiff::list_slices(&path, super::Limits::default().max_slices).is_ok()
+                || super::tiff::list_slices(&path, limit).is_ok()
+                || super::dicom::dicom_files(&path, limit).is_ok_and(|f| !f.is_empty())
         } else {
             is_scan_name(&name) && !name.to_lowercase().ends_with(".img")
         };

@@ -5,7 +5,8 @@
 //! run of consecutive `k` slices into a caller's buffer (native byte order, `i` fastest, then
 //! `j`, then `k`: the memory order of [`Volume`]). [`open_slices`] picks the reader for a path:
 //! TIFF folders, multi-page (Big)TIFF files and uncompressed `NIfTI` files are read slab by
-//! slab (only the slices asked for are touched); `.nii.gz` streams through its gzip member
+//! slab (only the slices asked for are touched), and so are DICOM series (the files of a
+//! slab decoded in parallel); `.nii.gz` streams through its gzip member
 //! once, front to back; a [`Volume`] already in memory reads from itself ([`VolumeSlices`]).
 
 use super::{IoError, OpenOptions, Progress};
@@ -179,5 +180,6 @@ pub fn open_slices(path: &Path, options: &OpenOptions) -> Result<Box<dyn SliceRe
         super::Format::TiffFolder => Ok(Box::new(super::tiff::FolderSlices::open(path, options)?)),
         super::Format::Tiff => Ok(Box::new(super::tiff::PageSlices::open(path, options)?)),
         super::Format::Nifti => super::nifti::open_slices(path, options),
+        super::Format::Dicom => Ok(Box::new(super::dicom::DicomSlices::open(path, options)?)),
     }
 }

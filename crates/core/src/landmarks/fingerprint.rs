@@ -201,8 +201,13 @@ pub fn file_facts(path: &Path) -> Result<FileFacts, IoError> {
             head_sha256: hex(&Sha256::digest(head(&meta, HEAD_BYTES)?)),
         });
     }
-    if io::detect(path)? == Format::TiffFolder {
-        let slices = io::tiff::list_slices(path, Limits::default().max_slices)?;
+    let format = io::detect(path)?;
+    if format == Format::TiffFolder || (format == Format::Dicom && path.is_dir()) {
+        let slices = if format == Format::Dicom {
+            io::dicom::dicom_files(path, Limits::default().max_slices)?
+        } else {
+            io::tiff::list_slices(path, Limits::default().max_slices)?
+        };
         let mut h = Sha256::new();
         let mut bytes = 0u64;
         for s in &slices {

@@ -26,6 +26,21 @@ pub fn open_scan(
     voxel_size_mm: Option<[f64; 3]>,
     progress: &Progress<'_>,
 ) -> Result<Volume, IoError> {
+    let options = OpenOptions {
+        voxel_size_mm,
+        ..OpenOptions::default()
+    };
+    open_scan_with(path, &options, progress)
+}
+
+/// [`open_scan`] with every option of [`io::open`] (the DICOM series to read, decode limits);
+/// `options.voxel_size_mm` overrides the file's voxel size as in [`open_scan`].
+pub fn open_scan_with(
+    path: &Path,
+    options: &OpenOptions,
+    progress: &Progress<'_>,
+) -> Result<Volume, IoError> {
+    let voxel_size_mm = options.voxel_size_mm;
     if let Some(s) = voxel_size_mm
         && s.iter().any(|v| !(v.is_finite() && *v > 0.0))
     {
@@ -37,16 +52,12 @@ pub fn open_scan(
             ),
         ));
     }
-    let options = OpenOptions {
-        voxel_size_mm,
-        ..OpenOptions::default()
-    };
     if crate::store::is_store(path) {
-        return open_store_whole(path, voxel_size_mm, &options);
+        return open_store_whole(path, voxel_size_mm, options);
     }
-    let mut volume = io::open(path, &options, progress)?;
+    let mut volume = io::open(path, options, progress)?;
     if let Some(s) = voxel_size_mm
-        && io::detect(path)? == Format::Nifti
+        && io::detect(path)?.records_placement()
     {
         set_voxel_size(&mut volume, Format::Nifti, s);
     }
@@ -89,7 +100,7 @@ fn open_store_whole(
 /// directions and the origin. The override is recorded in the volume's notes.
 pub fn set_voxel_size(volume: &mut Volume, format: Format, s: [f64; 3]) {
     match format {
-        Format::Nifti => {
+        Format::Nifti | Format::Dicom => {
             let lin = volume.world_from_voxel().linear();
             let cols = volume.spacing_mm();
             let mut new = lin;
@@ -117,6 +128,20 @@ pub fn open_scan_slices(
     path: &Path,
     voxel_size_mm: Option<[f64; 3]>,
 ) -> Result<Box<dyn SliceReader>, IoError> {
+    let options = OpenOptions {
+        voxel_size_mm,
+        ..OpenOptions::default()
+    };
+    open_scan_slices_with(path, &options)
+}
+
+/// [`open_scan_slices`] with every option of [`slices::open_slices`] (the DICOM series to
+/// read, decode limits).
+pub fn open_scan_slices_with(
+    path: &Path,
+    options: &OpenOptions,
+) -> Result<Box<dyn SliceReader>, IoError> {
+    let voxel_size_mm = options.voxel_size_mm;
     if let Some(s) = voxel_size_mm
         && s.iter().any(|v| !(v.is_finite() && *v > 0.0))
     {
@@ -125,10 +150,6 @@ pub fn open_scan_slices(
             format!("voxel size {s:?} mm is not positive and finite"),
         ));
     }
-    let options = OpenOptions {
-        voxel_size_mm,
-        ..OpenOptions::default()
-    };
     if crate::store::is_store(path) {
         use crate::store::{Store, StoreOptions};
         // one slab at a time: the cache holds the chunks of one slab
@@ -142,9 +163,9 @@ pub fn open_scan_slices(
         )?;
         return Ok(Box::new(slices::SourceSlices::new(store, path)));
     }
-    let reader = slices::open_slices(path, &options)?;
+    let reader = slices::open_slices(path, options)?;
     match voxel_size_mm {
-        Some(s) if io::detect(path)? == Format::Nifti => {
+        Some(s) if io::detect(path)?.records_placement() => {
             let w = reader.world_from_voxel();
             let lin = w.linear();
             let cols = w.column_lengths();

@@ -113,7 +113,7 @@ fn opts() -> OpenOptions {
             max_voxel_bytes: 1 << 20,
             ..Limits::default()
         },
-        voxel_size_mm: None,
+        ..OpenOptions::default()
     }
 }
 
