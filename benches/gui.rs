@@ -211,12 +211,15 @@ fn main() {
         // as the render worker does: a window change maps the kept values again
         let mut last = None;
         std::hint::black_box(
-            render_view_reusing(vol, &RenderKey::Plane(key), None, &mut last).expect("render"),
+            render_view_reusing(vol, &RenderKey::Plane(key), None, &mut last, None)
+                .expect("render"),
         );
         let m = time(label, 25, || {
             i += 1;
             let k = RenderKey::Plane(make(i));
-            std::hint::black_box(render_view_reusing(vol, &k, None, &mut last).expect("render"));
+            std::hint::black_box(
+                render_view_reusing(vol, &k, None, &mut last, None).expect("render"),
+            );
         });
         redraw.push(m);
     }

@@ -1274,17 +1274,7 @@ fn the_analysis_view_shows_operator_error_and_disparity_through_time_as_the_cli_
     dtt.write_tables(&gui).unwrap();
     // the command line on the saved project
     let cli = dir.path().join("cli");
-    let run = |args: &[&str]| {
-        let out = std::process::Command::new(env!("CARGO_BIN_EXE_sutura"))
-            .args(args)
-            .output()
-            .unwrap();
-        assert!(
-            out.status.success(),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
-    };
+    let run = run_cli;
     let p = path.to_str().unwrap();
     let c = cli.to_str().unwrap();
     run(&["measurement-error", p, "-o", c]);
@@ -1321,4 +1311,229 @@ fn the_analysis_view_shows_operator_error_and_disparity_through_time_as_the_cli_
         term.f.unwrap(),
         term.p.unwrap()
     ));
+}
+
+/// Drags the primary button from `a` to `b` on the stage (press, one move, release, each in
+/// its own frame).
+fn drag(h: &mut Harness<'_, App>, a: Pos2, b: Pos2) {
+    h.hover_at(a);
+    h.step();
+    h.event(Event::PointerButton {
+        pos: a,
+        button: PointerButton::Primary,
+        pressed: true,
+        modifiers: Modifiers::NONE,
+    });
+    h.step();
+    h.hover_at(b);
+    h.step();
+    h.event(Event::PointerButton {
+        pos: b,
+        button: PointerButton::Primary,
+        pressed: false,
+        modifiers: Modifiers::NONE,
+    });
+    h.step();
+    h.step();
+}
+
+/// Where a world point lies on the stage (the k plane view), after moving the crosshair there
+/// so the plane passes through it; returns the screen point and the world point it maps back
+/// to (on the plane), which is what the window's tools receive.
+fn on_stage(h: &mut Harness<'_, App>, w: [f64; 3]) -> (Pos2, [f64; 3]) {
+    use sutura_core::geometry::WorldPoint;
+    h.state_mut()
+        .send(sutura::gui::ViewCommand::MoveCursor(WorldPoint::new(
+            w[0], w[1], w[2],
+        )));
+    h.step();
+    h.step();
+    let m = h.state().screen_map(ViewId::PlaneK).unwrap();
+    let s = m.screen(WorldPoint::new(w[0], w[1], w[2]));
+    let p = Pos2::new(s[0] as f32, s[1] as f32);
+    (p, world_at(h, p))
+}
+
+fn triple(w: [f64; 3]) -> String {
+    format!("{},{},{}", w[0], w[1], w[2])
+}
+
+/// The README's recipe for the rock sample, done in the window by a user's drags and clicks on
+/// the k plane view (the Prepare tab, its buttons, the brush and the grow tool), writes the
+/// same label voxels as `sutura labels` given the same points; Ctrl+Z undoes the grow and
+/// Ctrl+Y redoes it; the planes draw the labels and the 3D view keeps only the specimen, so a
+/// surface pick lands on it.
+#[test]
+#[allow(clippy::too_many_lines)] // reason: one preparator's session, step by step, then the CLI
+fn the_rock_specimen_is_prepared_in_the_window_as_the_command_line_prepares_it() {
+    use sutura::gui::{GrowSettings, PrepCommand};
+    use sutura_core::labels::region::Connectivity;
+    use sutura_core::labels::{dice, zarr};
+    let dir = tempfile::tempdir().unwrap();
+    let root = PathBuf::from(env!("CARGO_MANIFEST_DIR"));
+    let scan = dir.path().join("RM-001.nii.gz");
+    std::os::unix::fs::symlink(root.join("sample_volumes/rock/RM-001.nii.gz"), &scan).unwrap();
+    let app = App::new(Preferences::default(), Some(scan.clone()));
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    step_until(&mut h, "the rock scan to load", |a| {
+        a.document().scan.is_some() && !a.is_loading()
+    });
+    step_until(&mut h, "the stage picture", |a| {
+        a.is_view_current(ViewId::PlaneK)
+    });
+    // a new label image beside the scan, by the Prepare tab's button
+    h.get_by_label("Prepare").click();
+    h.step();
+    h.get_by_label("New label image").click();
+    h.step();
+    let labels_path = dir.path().join("RM-001.labels.zarr");
+    assert!(h.state().prep().is_some(), "{:?}", h.state().status());
+    assert!(labels_path.exists());
+    h.step();
+    // 1. three matrix strokes of 90 µm across the vein (README: slices k = 11, 16, 21)
+    h.get_by_label("matrix").click();
+    h.step();
+    h.get_by_label("brush").click();
+    h.step();
+    h.state_mut().send(PrepCommand::SetBrushUm(90.0));
+    h.step();
+    let mut strokes = Vec::new();
+    for z in [0.55, 0.80, 1.05] {
+        let (a, wa) = on_stage(&mut h, [1.374, 2.288, z]);
+        let (b, wb) = on_stage(&mut h, [0.736, 2.235, z]);
+        drag(&mut h, a, b);
+        strokes.push((wa, wb));
+    }
+    let prep = h.state().prep().unwrap();
+    let matrix = prep
+        .label_list()
+        .iter()
+        .find(|l| l.name == "matrix")
+        .unwrap()
+        .value;
+    assert!(prep.voxels(matrix) > 0, "{:?}", h.state().status());
+    assert!(!prep.stroking(), "each stroke ended at the release");
+    // 2. interpolate along k (the stage's axis)
+    h.get_by_label("Interpolate along k").click();
+    h.step();
+    // 3. grow the specimen from the braincase wall through values ≥ 22000
+    h.get_by_label("specimen").click();
+    h.step();
+    h.get_by_label("grow").click();
+    h.step();
+    h.state_mut().send(PrepCommand::SetGrow(GrowSettings {
+        lo: 22000.0,
+        hi: f64::INFINITY,
+        connectivity: Connectivity::Faces6,
+        max_distance_mm: None,
+    }));
+    let (p, seed) = on_stage(&mut h, [1.224, 1.44, 1.55]);
+    click(&mut h, p);
+    let specimen = 1;
+    let grown = h.state().prep().unwrap().voxels(specimen);
+    assert!(grown > 1000, "{:?}", h.state().status());
+    // undo and redo by keys
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Z);
+    h.step();
+    assert_eq!(h.state().prep().unwrap().voxels(specimen), 0);
+    h.key_press_modifiers(Modifiers::COMMAND, egui::Key::Y);
+    h.step();
+    assert_eq!(h.state().prep().unwrap().voxels(specimen), grown);
+    // the planes draw the labels at the latest revision
+    h.step();
+    match h.state().requested(ViewId::PlaneK) {
+        Some(sutura::gui::worker::RenderKey::Plane(k)) => {
+            let o = k.labels.expect("labels drawn over the stage");
+            assert_eq!(o.revision, h.state().prep().unwrap().revision());
+        }
+        other => panic!("{other:?}"),
+    }
+    // the 3D view keeps the specimen only: its copy holds the scan's minimum outside it
+    h.get_by_label("3D view: ticked labels only").click();
+    h.step();
+    h.step();
+    match h.state().requested(ViewId::Volume) {
+        Some(sutura::gui::worker::RenderKey::Volume(k)) => {
+            assert!(k.kept.is_some_and(|kk| kk.kept.contains(specimen)));
+        }
+        other => panic!("{other:?}"),
+    }
+    let kept = h.state().prep().unwrap().pick_volume().unwrap().clone();
+    let original = h.state().document().scan.as_ref().unwrap().volume.clone();
+    let min = original.percentiles(&[0.0])[0];
+    let truth_free = [2, 2, 2]; // a corner of the rock block, outside the skull
+    let at = sutura_core::geometry::VoxelIndex::new(truth_free[0], truth_free[1], truth_free[2]);
+    assert!(original.value(at).unwrap() > min);
+    assert!((kept.value(at).unwrap() - min).abs() < 1e-9);
+    // saved by the button
+    h.get_by_label("Save").click();
+    h.step();
+    assert!(!h.state().prep().unwrap().is_dirty());
+
+    // the command line, given the points the window's tools received
+    let cli = dir.path().join("cli.labels.zarr");
+    let run = run_cli;
+    let (s, l) = (scan.to_str().unwrap(), cli.to_str().unwrap());
+    run(&[
+        "labels", "new", "--quiet", s, "-o", l, "--label", "specimen", "--label", "matrix",
+    ]);
+    for (a, b) in &strokes {
+        let points = format!("{};{}", triple(*a), triple(*b));
+        run(&[
+            "labels", "brush", "--quiet", s, "--labels", l, "--label", "matrix", "--points",
+            &points, "--radius", "90um",
+        ]);
+    }
+    run(&["labels", "interpolate", "--labels", l, "--label", "matrix"]);
+    run(&[
+        "labels",
+        "grow",
+        "--quiet",
+        s,
+        "--labels",
+        l,
+        "--label",
+        "specimen",
+        "--seed",
+        &triple(seed),
+        "--range",
+        "22000:",
+    ]);
+    let window = zarr::load(&labels_path).unwrap();
+    let line = zarr::load(&cli).unwrap();
+    for name in ["specimen", "matrix"] {
+        let a = window.mask_of(window.value_of(name).unwrap());
+        let b = line.mask_of(line.value_of(name).unwrap());
+        assert_eq!(a.count(), b.count(), "{name}");
+        assert!(a.words() == b.words(), "{name}: the same voxels");
+    }
+    // and the recipe frees the skull (README: Dice 0.987 with the true mask)
+    let truth = sutura_core::landmarks::scan::open_scan(
+        &root.join("sample_volumes/rock/RM-001_skull_truth.nii.gz"),
+        None,
+        &sutura_core::io::Progress::new(None),
+    )
+    .unwrap();
+    let bytes: Vec<u8> = match truth.voxels() {
+        sutura_core::volume::Voxels::U8(b) => b.as_slice().to_vec(),
+        _ => panic!("the truth mask is u8"),
+    };
+    let truth = sutura_core::labels::BitMask::from_bytes(truth.dims(), &bytes);
+    let d = dice(&window.mask_of(specimen), &truth);
+    assert!(d >= 0.95, "Dice {d}");
+}
+
+/// Runs the command line, asserting it succeeds.
+fn run_cli(args: &[&str]) {
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_sutura"))
+        .args(args)
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{args:?}: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
 }

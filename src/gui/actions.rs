@@ -5,7 +5,9 @@
 
 use eframe::egui::{self, Key, Modifiers};
 
-use super::command::{AppCommand, Command, DeskCommand, DialogKind, PrefsCommand, ViewCommand};
+use super::command::{
+    AppCommand, Command, DeskCommand, DialogKind, PrefsCommand, PrepCommand, ViewCommand,
+};
 use super::state::ViewId;
 
 /// A key with its modifiers.
@@ -368,13 +370,13 @@ pub const ACTIONS: &[ActionDef] = &[
         Project,
         "new trial of the specimen",
     ),
-    def(A::Undo, &[ctrl(Key::Z)], Project, "undo"),
     def(
-        A::Redo,
-        &[ctrl_shift(Key::Z), ctrl(Key::Y)],
-        Project,
-        "redo",
+        A::Undo,
+        &[ctrl(Key::Z)],
+        Scan,
+        "undo (the label image's last step while preparing, else the project's)",
     ),
+    def(A::Redo, &[ctrl_shift(Key::Z), ctrl(Key::Y)], Scan, "redo"),
     def(A::Save, &[ctrl(Key::S)], Project, "save the project"),
     def(
         A::Workspace,
@@ -397,6 +399,8 @@ pub struct KeyContext {
     pub loading: bool,
     pub help_open: bool,
     pub placing: bool,
+    /// The preparation tab is open on a label image: undo and redo are its.
+    pub preparing: bool,
 }
 
 /// The command an action sends now, if it does anything now.
@@ -489,8 +493,11 @@ pub fn command_for(action: Action, cx: &KeyContext) -> Option<Command> {
         A::Labels => PrefsCommand::ToggleLabels.into(),
         A::Trace => DeskCommand::CycleTracing.into(),
         A::NewTrial => DeskCommand::StartTrial.into(),
-        A::Undo => DeskCommand::Undo.into(),
-        A::Redo => DeskCommand::Redo.into(),
+        A::Undo if cx.preparing => PrepCommand::Undo.into(),
+        A::Redo if cx.preparing => PrepCommand::Redo.into(),
+        A::Undo if cx.project => DeskCommand::Undo.into(),
+        A::Redo if cx.project => DeskCommand::Redo.into(),
+        A::Undo | A::Redo => return None,
         A::Save => DeskCommand::Save.into(),
         A::Workspace => AppCommand::ToggleWorkspace.into(),
     })
@@ -584,6 +591,7 @@ mod tests {
             loading: false,
             help_open: true,
             placing: true,
+            preparing: false,
         };
         for d in ACTIONS {
             assert!(command_for(d.action, &cx).is_some(), "{:?}", d.action);

@@ -15,17 +15,23 @@ use super::actions::{self, KeyContext};
 use super::adding::Adding;
 use super::analysis_view::{self, AnalysisState};
 use super::camera::ScreenMap;
-use super::command::{AppCommand, Command, DeskCommand, ViewCommand, Workspace};
+use super::command::{
+    AppCommand, Command, DeskCommand, PrepCommand, PrepTool, ViewCommand, Workspace,
+};
 use super::desk::{Desk, DeskEnv, Effects};
 use super::desk_panel;
 use super::files::{self, FileBrowser};
 use super::loader::Loading;
 use super::new_project::NewProjectForm;
 use super::panels;
+use super::prep::Prep;
+use super::prep_panel;
 use super::prompts::{After, Prompt};
 use super::smoke::Smoke;
+use super::state::Scan;
 use super::state::{Document, Preferences, StripSide, ViewId, ViewState};
 use super::status::Status;
+use super::view::PrepInput;
 use super::view::{VIEW_BACKGROUND, ViewInput, view_ui};
 use super::views::Views;
 use super::worker::{RenderKey, Workers};
@@ -34,7 +40,7 @@ use sutura_core::landmarks::project::is_project_file;
 /// Width of the strip of small views, in points.
 const STRIP_WIDTH: f32 = 232.0;
 
-/// The left column's two tabs while a project is open.
+/// The left column's tabs (the landmarks tab while a project is open).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
 pub enum ColumnTab {
     /// Specimens, trial, landmarks, measurements.
@@ -42,6 +48,8 @@ pub enum ColumnTab {
     Landmarks,
     /// Window, colours, oblique plane, 3D view.
     Display,
+    /// Virtual preparation: the scan's label image, tools and steps.
+    Prepare,
 }
 
 /// Window state that is neither document, preferences nor view state: modes of panels and
@@ -61,6 +69,8 @@ pub struct UiState {
     /// Specimens ticked in the specimen list, for editing their groups together.
     pub ticked: Vec<String>,
     pub group_form: desk_panel::GroupForm,
+    /// The name being typed for a new label.
+    pub new_label: String,
 }
 
 /// The workstation.
@@ -70,6 +80,8 @@ pub struct App {
     pub(super) vs: ViewState,
     pub(super) views: Views,
     pub(super) desk: Option<Desk>,
+    /// The label image of the scan shown, while preparing it.
+    pub(super) prep: Option<Prep>,
     pub(super) analysis: AnalysisState,
     pub(super) status: Option<Status>,
     pub(super) ui: UiState,
@@ -95,6 +107,7 @@ impl App {
             vs: ViewState::default(),
             views: Views::default(),
             desk: None,
+            prep: None,
             analysis: AnalysisState::default(),
             status: None,
             ui: UiState::default(),
@@ -153,6 +166,12 @@ impl App {
     }
 
     /// Whether placing mode is on.
+    /// The preparation of the scan shown, if a label image is open.
+    #[must_use]
+    pub fn prep(&self) -> Option<&Prep> {
+        self.prep.as_ref()
+    }
+
     #[must_use]
     pub fn is_placing(&self) -> bool {
         self.desk.as_ref().is_some_and(|d| d.placing)
@@ -281,6 +300,7 @@ impl App {
                 loading: self.loading.is_some(),
                 help_open: self.vs.help_open,
                 placing: self.is_placing(),
+                preparing: self.preparing(),
             };
             cmds.extend(actions::keyboard(&ctx, &cx));
         }
@@ -381,8 +401,20 @@ impl App {
             self.apply(c, now);
         }
         if let (Some(scan), Some(workers)) = (self.doc.scan.clone(), self.workers.as_mut()) {
-            self.views
-                .request(workers, &scan, &self.prefs, &self.vs, &ctx, now);
+            let layers = self
+                .prep
+                .as_mut()
+                .filter(|p| p.scan_id() == scan.id)
+                .map(|p| p.layers(&scan));
+            self.views.request(
+                workers,
+                &scan,
+                &self.prefs,
+                &self.vs,
+                layers.as_ref(),
+                &ctx,
+                now,
+            );
         }
         if changed {
             ctx.request_repaint();
@@ -395,7 +427,34 @@ impl App {
         self.desk.as_ref().is_some_and(|d| d.session.is_dirty())
     }
 
+    /// Whether the preparation tab is open on a label image: its tools take the views' clicks
+    /// and Ctrl+Z undoes its steps.
+    #[must_use]
+    pub fn preparing(&self) -> bool {
+        self.column_shown() == ColumnTab::Prepare
+            && self.prep.is_some()
+            && (self.desk.is_none() || self.ui.workspace == Workspace::Digitise)
+    }
+
+    /// The column's tab on screen: without a project the landmarks tab is not offered, and
+    /// the display tab takes its place.
+    fn column_shown(&self) -> ColumnTab {
+        match self.ui.column {
+            ColumnTab::Landmarks if self.desk.is_none() => ColumnTab::Display,
+            c => c,
+        }
+    }
+
     fn view_input(&self, view: ViewId, on_stage: bool) -> ViewInput<'_> {
+        let prep = self
+            .prep
+            .as_ref()
+            .filter(|p| on_stage && self.preparing() && p.tool != PrepTool::Look)
+            .map(|p| PrepInput {
+                tool: p.tool,
+                radius_mm: p.brush_um * 1e-3,
+                stroking: p.stroking(),
+            });
         ViewInput {
             view,
             on_stage,
@@ -403,7 +462,11 @@ impl App {
             vs: &self.vs,
             shown: self.views.slot(view).shown.as_ref(),
             desk: self.desk.as_ref(),
-            placing: on_stage && self.ui.workspace == Workspace::Digitise && self.is_placing(),
+            placing: on_stage
+                && prep.is_none()
+                && self.ui.workspace == Workspace::Digitise
+                && self.is_placing(),
+            prep,
         }
     }
 
@@ -463,10 +526,7 @@ impl App {
         if let Some(d) = &mut self.desk {
             d.refresh_checks();
         }
-        let Some(d) = &self.desk else {
-            cmds.extend(panels::controls_ui(ui, &self.doc, &self.prefs, &self.vs));
-            return;
-        };
+        let shown = self.column_shown();
         ui.add_space(4.0);
         ui.horizontal(|ui| {
             for (tab, name, tip) in [
@@ -480,9 +540,17 @@ impl App {
                     "Display",
                     "window, colours, oblique plane, 3D view",
                 ),
+                (
+                    ColumnTab::Prepare,
+                    "Prepare",
+                    "label the specimen and its matrix: brush, grow, interpolate, keep in 3D",
+                ),
             ] {
+                if tab == ColumnTab::Landmarks && self.desk.is_none() {
+                    continue;
+                }
                 if ui
-                    .selectable_label(self.ui.column == tab, RichText::new(name).strong())
+                    .selectable_label(shown == tab, RichText::new(name).strong())
                     .on_hover_text(tip)
                     .clicked()
                 {
@@ -491,10 +559,29 @@ impl App {
             }
         });
         ui.separator();
-        if self.ui.column == ColumnTab::Display {
-            cmds.extend(panels::controls_ui(ui, &self.doc, &self.prefs, &self.vs));
-            return;
+        let shown = self.column_shown();
+        match shown {
+            ColumnTab::Display => {
+                cmds.extend(panels::controls_ui(ui, &self.doc, &self.prefs, &self.vs));
+                return;
+            }
+            ColumnTab::Prepare => {
+                let path = self.doc.scan.as_ref().map(|s| self.prep_path(s));
+                prep_panel::prep_ui(
+                    ui,
+                    self.prep.as_ref(),
+                    path.as_deref(),
+                    self.prefs.stage,
+                    &mut self.ui.new_label,
+                    cmds,
+                );
+                return;
+            }
+            ColumnTab::Landmarks => {}
         }
+        let Some(d) = &self.desk else {
+            return;
+        };
         // the note field follows the current landmark
         let key = d
             .specimen
@@ -564,10 +651,12 @@ impl App {
                     scan: self.doc.scan.as_ref(),
                     vs: &self.vs,
                     prefs: &self.prefs,
+                    surface: self.prep.as_ref().and_then(Prep::pick_volume),
                 };
                 let effects = desk.apply(c, &env);
                 self.take_effects(effects);
             }
+            Command::Prep(c) => self.apply_prep(c),
             Command::Analysis(c) => {
                 if let Some(d) = &self.desk {
                     let wake = self.ctx.clone();
@@ -597,6 +686,73 @@ impl App {
             self.ui.prompt = Some(Prompt::Operator);
         }
         self.pending.extend(e.then);
+    }
+
+    /// Where the label image of `scan` is kept (see [`super::prep::default_path`]).
+    fn prep_path(&self, scan: &Scan) -> PathBuf {
+        let project = self.desk.as_ref().and_then(|d| {
+            let id = d.scan_of.clone().or_else(|| d.specimen.clone())?;
+            Some((d.session.path().to_path_buf(), id))
+        });
+        super::prep::default_path(
+            &scan.path,
+            project.as_ref().map(|(p, id)| (p.as_path(), id.as_str())),
+        )
+    }
+
+    /// Saves the label image if it changed (the scan is being replaced, or the window closes):
+    /// label work is never dropped unasked.
+    pub(super) fn settle_prep(&mut self) {
+        if let Some(p) = &mut self.prep
+            && p.is_dirty()
+        {
+            self.status = Some(match p.save() {
+                Ok(s) => s,
+                Err(e) => Status::error(e),
+            });
+        }
+    }
+
+    /// Preparation commands: making or opening the label image here (they need the scan and
+    /// where it is kept), everything else by [`Prep::apply`].
+    fn apply_prep(&mut self, cmd: PrepCommand) {
+        let Some(scan) = self.doc.scan.clone() else {
+            return;
+        };
+        let r = match cmd {
+            PrepCommand::Create | PrepCommand::Open => {
+                self.settle_prep();
+                let path = self.prep_path(&scan);
+                let made = if cmd == PrepCommand::Create {
+                    Prep::create(&path, &scan)
+                } else {
+                    Prep::open(&path, &scan)
+                };
+                made.map(|p| {
+                    let what = if cmd == PrepCommand::Create {
+                        "made"
+                    } else {
+                        "opened"
+                    };
+                    let s = Status::info(format!(
+                        "{what} {} ({} labels)",
+                        p.path().display(),
+                        p.label_list().len()
+                    ));
+                    self.prep = Some(p);
+                    Some(s)
+                })
+            }
+            c => match &mut self.prep {
+                Some(p) if p.scan_id() == scan.id => p.apply(c, &scan),
+                _ => Ok(None),
+            },
+        };
+        match r {
+            Ok(Some(s)) => self.status = Some(s),
+            Ok(None) => {}
+            Err(e) => self.status = Some(Status::error(e)),
+        }
     }
 
     /// The app's own commands.
@@ -733,6 +889,12 @@ impl eframe::App for App {
     /// Unsaved work left at exit (the window closed some other way than through the
     /// question) goes to the autosave, to be offered next time.
     fn on_exit(&mut self, _gl: Option<&eframe::glow::Context>) {
+        self.settle_prep();
+        if let Some(Status { text, .. }) = &self.status
+            && self.prep.as_ref().is_some_and(Prep::is_dirty)
+        {
+            eprintln!("sutura: {text}");
+        }
         if let Some(d) = &mut self.desk
             && d.session.is_dirty()
             && let Err(e) = d.session.autosave()

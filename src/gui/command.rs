@@ -10,6 +10,7 @@
 //! | [`PrefsCommand`] | the user's preferences ([`super::state::Preferences`]) | `Preferences::apply` |
 //! | [`DeskCommand`] | the open project and its digitising ([`super::desk::Desk`]) | `Desk::apply` |
 //! | [`AnalysisCommand`] | the analysis workspace ([`super::analysis_view::AnalysisState`]) | `AnalysisState::apply` |
+//! | [`PrepCommand`] | virtual preparation: the scan's label image ([`super::prep::Prep`]) | `Prep::apply` (making or opening one: `App::apply_prep`) |
 
 use std::path::PathBuf;
 
@@ -18,6 +19,8 @@ use nalgebra::Vector3;
 use super::state::{Hover, ViewId, VolumeMode};
 use sutura_core::analysis::{ExportKind, ProjectAnalysisOptions};
 use sutura_core::geometry::{VoxelSizeMm, WorldPoint};
+use sutura_core::labels::morph::MorphOp;
+use sutura_core::labels::region::Connectivity;
 use sutura_core::landmarks::project::create::NewSpecimen;
 use sutura_core::render::{ColourMap, WindowLevel};
 
@@ -29,6 +32,7 @@ pub enum Command {
     Prefs(PrefsCommand),
     Desk(DeskCommand),
     Analysis(AnalysisCommand),
+    Prep(PrepCommand),
 }
 
 /// Which file dialog to open.
@@ -287,6 +291,80 @@ pub enum AnalysisCommand {
     Export(ExportKind),
 }
 
+/// Virtual preparation of the scan shown: its label image, the tools and the steps, each one
+/// call of `sutura_core::labels` as `sutura labels` makes it.
+#[derive(Clone, Debug, PartialEq)]
+pub enum PrepCommand {
+    /// Make an empty label image for the scan shown (labels `specimen` and `matrix`), saved
+    /// at the preparation's path.
+    Create,
+    /// Open the label image saved at the preparation's path (it must fit the scan).
+    Open,
+    Save,
+    AddLabel(String),
+    /// The label the tools and steps change.
+    SetCurrent(u8),
+    /// Draw a label over the plane views or not.
+    ToggleDrawn(u8),
+    /// Keep a label in the 3D view (when the 3D view keeps only the ticked labels).
+    ToggleKept(u8),
+    /// The 3D view shows only the ticked labels' material (`true`) or the whole scan.
+    SetKeptIn3d(bool),
+    /// Opacity of the labels over the plane views (0 to 1).
+    SetOpacity(f32),
+    SetTool(PrepTool),
+    /// The brush's radius, µm.
+    SetBrushUm(f64),
+    SetGrow(GrowSettings),
+    /// The radius of erosion, dilation, opening and closing, µm.
+    SetMorphUm(f64),
+    /// Pieces with fewer voxels are removed by [`PrepCommand::RemoveSmall`].
+    SetMinVoxels(u64),
+    /// Paint (or erase, with the eraser) the current label from the stroke's last point to
+    /// `at`: a disc on the voxel plane normal to `axis`, or a ball (`None`, the oblique view).
+    PaintTo {
+        at: WorldPoint,
+        axis: Option<usize>,
+    },
+    /// The stroke ends: its painting is one step to undo.
+    EndStroke,
+    /// Grow the current label from a seed.
+    Grow(WorldPoint),
+    /// The current label keeps only its piece under a point.
+    KeepPiece(WorldPoint),
+    /// Fill the current label between its drawn slices along an axis (0 = i, 1 = j, 2 = k).
+    Interpolate(usize),
+    FillHoles,
+    Morph(MorphOp),
+    RemoveSmall,
+    Undo,
+    Redo,
+}
+
+/// What a click or drag on a view does while preparing.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum PrepTool {
+    /// Nothing: the views move the crosshair as usual.
+    #[default]
+    Look,
+    Brush,
+    Eraser,
+    /// A click grows the current label from the voxel under it.
+    Grow,
+    /// A click keeps the current label's piece under it.
+    KeepPiece,
+}
+
+/// How a region grows: through voxels in `lo..=hi` (rescaled units; an infinite end is open),
+/// joined by faces (6) or also by edges and corners (26), up to a distance from the seed.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct GrowSettings {
+    pub lo: f64,
+    pub hi: f64,
+    pub connectivity: Connectivity,
+    pub max_distance_mm: Option<f64>,
+}
+
 macro_rules! group {
     ($variant:ident, $ty:ty) => {
         impl From<$ty> for Command {
@@ -301,3 +379,4 @@ group!(View, ViewCommand);
 group!(Prefs, PrefsCommand);
 group!(Desk, DeskCommand);
 group!(Analysis, AnalysisCommand);
+group!(Prep, PrepCommand);

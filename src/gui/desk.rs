@@ -25,6 +25,7 @@ use sutura_core::landmarks::project::{
     AutosaveStatus, Edit, LandmarkState, Method, PickRecord, ProjectError, Session, Specimen,
     Timestamp, Trial,
 };
+use sutura_core::volume::Volume;
 
 /// What a desk command may read of the rest of the app.
 #[derive(Clone, Copy)]
@@ -33,6 +34,9 @@ pub struct DeskEnv<'a> {
     pub scan: Option<&'a Arc<Scan>>,
     pub vs: &'a ViewState,
     pub prefs: &'a Preferences,
+    /// The volume surface picks land on, when not the scan itself: the preparation's copy
+    /// keeping only some labels' material, which the 3D view then shows.
+    pub surface: Option<&'a Arc<Volume>>,
 }
 
 /// What a desk command asks of the rest of the app.
@@ -720,7 +724,8 @@ impl Desk {
             return Effects::default();
         };
         let iso = env.vs.iso.value;
-        let hit = match pick_view_ray(&scan.volume, through, direction, &PickOptions::new(iso)) {
+        let surface = env.surface.unwrap_or(&scan.volume);
+        let hit = match pick_view_ray(surface, through, direction, &PickOptions::new(iso)) {
             Ok(Some(p)) => p,
             Ok(None) => {
                 return Effects::status(Status::error(format!(

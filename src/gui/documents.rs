@@ -129,6 +129,7 @@ impl App {
     }
 
     pub(super) fn close_window(&mut self) {
+        self.settle_prep();
         if let Some(d) = &self.desk
             && !d.session.is_dirty()
         {
@@ -255,6 +256,9 @@ impl App {
     }
 
     pub(super) fn install(&mut self, scan: Scan) {
+        // the label image belongs to the scan it replaces
+        self.settle_prep();
+        self.prep = None;
         let help = self.vs.help_open;
         self.vs = ViewState::for_scan(&scan);
         self.vs.help_open = help;

@@ -19,7 +19,8 @@
 //! A landmark project opens on the *desk* ([`desk`]: the library's project session with what
 //! the user is working on); [`desk_panel`] draws its column, [`marks`] the landmarks over the
 //! views, [`new_project`] the form that starts a project from scans, and [`analysis_view`] the
-//! whole sample's superimposition and the exports.
+//! whole sample's superimposition and the exports. [`prep`] holds the scan's label image for
+//! virtual preparation and [`prep_panel`] its column tab.
 //!
 //! Loading ([`loader`]) and rendering ([`worker`]) run on background threads and report by
 //! channel; the UI thread never waits for either. The 3D view shows a coarse picture while it
@@ -42,6 +43,8 @@ pub mod loader;
 pub mod marks;
 pub mod new_project;
 pub mod panels;
+pub mod prep;
+pub mod prep_panel;
 pub mod prompts;
 pub mod smoke;
 pub mod state;
@@ -53,8 +56,8 @@ pub mod worker;
 
 pub use app::App;
 pub use command::{
-    AnalysisCommand, Answer, AppCommand, Command, DeskCommand, DialogKind, PrefsCommand,
-    TypedPosition, ViewCommand, Workspace,
+    AnalysisCommand, Answer, AppCommand, Command, DeskCommand, DialogKind, GrowSettings,
+    PrefsCommand, PrepCommand, PrepTool, TypedPosition, ViewCommand, Workspace,
 };
 pub use prompts::{After, Prompt};
 pub use smoke::Smoke;

@@ -41,6 +41,14 @@ pub const POINTER: &[(&str, &str)] = &[
     ),
     ("placing: drag a mark", "move a placed landmark"),
     (
+        "preparing: drag (brush, eraser)",
+        "paint or erase the chosen label on the stage's plane",
+    ),
+    (
+        "preparing: click (grow, keep piece)",
+        "grow the chosen label from the voxel, or keep its piece there",
+    ),
+    (
         "placing: click a mark",
         "make that landmark the current one",
     ),

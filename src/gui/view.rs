@@ -29,7 +29,7 @@ use std::fmt::Write as _;
 use super::camera::{
     ScreenMap, axis_basis, fit_mm_per_point, half_extents, onto_slice, slice_index,
 };
-use super::command::{Command, DeskCommand, PrefsCommand, ViewCommand};
+use super::command::{Command, DeskCommand, PrefsCommand, PrepCommand, PrepTool, ViewCommand};
 use super::desk::Desk;
 use super::marks;
 use super::state::{Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
@@ -158,6 +158,18 @@ pub struct ViewInput<'a> {
     pub desk: Option<&'a Desk>,
     /// A click places the current landmark (placing mode, on the stage).
     pub placing: bool,
+    /// A preparation tool takes the clicks and drags (on the stage).
+    pub prep: Option<PrepInput>,
+}
+
+/// The preparation tool a view's clicks and drags serve.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct PrepInput {
+    pub tool: PrepTool,
+    /// The brush's radius in the world.
+    pub radius_mm: f64,
+    /// A stroke is being painted (it ends when the button is up).
+    pub stroking: bool,
 }
 
 /// Shows a view in `rect` and collects its commands; returns a plane view's screen map.
@@ -177,6 +189,7 @@ pub fn view_ui(
         shown,
         desk,
         placing,
+        prep,
     } = *input;
     let volume = &scan.volume;
     let id = ui.scope_id().with(("view", view.index(), on_stage));
@@ -316,6 +329,8 @@ pub fn view_ui(
         if delta != Vec2::ZERO {
             out.push(window_drag(vs, d));
         }
+    } else if let Some(tool) = prep {
+        prep_input(ui, &response, view, rect, map.as_ref(), shown, tool, out);
     } else if let (true, Some(d)) = (placing && !modifiers.command, desk) {
         place_input(
             ui,
@@ -359,7 +374,20 @@ pub fn view_ui(
         }
     }
 
+    if let (Some(t), Some(m), Some(p)) = (prep, &map, response.hover_pos())
+        && matches!(t.tool, PrepTool::Brush | PrepTool::Eraser)
+    {
+        // the brush's footprint on the plane
+        let r = (t.radius_mm / m.mm_per_point) as f32;
+        let colour = if t.tool == PrepTool::Eraser {
+            Color32::from_rgb(240, 120, 110)
+        } else {
+            Color32::from_rgb(250, 230, 150)
+        };
+        painter.circle_stroke(p, r.max(1.5), egui::Stroke::new(1.2, colour));
+    }
     let icon = match view {
+        _ if prep.is_some() => CursorIcon::Crosshair,
         _ if placing && vs.drag.is_some() => CursorIcon::Grabbing,
         _ if placing && !panning => CursorIcon::Cell,
         ViewId::Volume if response.dragged() => CursorIcon::Grabbing,
@@ -369,6 +397,62 @@ pub fn view_ui(
     };
     let _ = response.on_hover_cursor(icon);
     map
+}
+
+/// Pointer input while a preparation tool is chosen: the brush and the eraser paint while the
+/// primary button is down on a view (a disc on a voxel-plane view's plane, a ball on the
+/// oblique view) and end the stroke when it is released; growing and keeping a piece take a
+/// click, on a plane or on the 3D view's surface.
+#[allow(clippy::too_many_arguments)] // reason: the view, its geometry and the tool
+fn prep_input(
+    ui: &Ui,
+    response: &egui::Response,
+    view: ViewId,
+    rect: Rect,
+    map: Option<&ScreenMap>,
+    shown: Option<&Shown>,
+    tool: PrepInput,
+    out: &mut Vec<Command>,
+) {
+    let at = |p: Pos2| match map {
+        Some(m) => Some(m.world(arr(p))),
+        None => shown.and_then(|s| surface_hit(s, rect, p)),
+    };
+    match tool.tool {
+        PrepTool::Brush | PrepTool::Eraser => {
+            let Some(m) = map else {
+                return;
+            };
+            let down = ui.input(|i| i.pointer.primary_down());
+            let held = response.is_pointer_button_down_on() && down;
+            if (held || response.clicked_by(PointerButton::Primary))
+                && let Some(p) = response.interact_pointer_pos()
+            {
+                out.push(
+                    PrepCommand::PaintTo {
+                        at: m.world(arr(p)),
+                        axis: view.axis(),
+                    }
+                    .into(),
+                );
+            }
+            if tool.stroking && (!held || response.clicked_by(PointerButton::Primary)) {
+                out.push(PrepCommand::EndStroke.into());
+            }
+        }
+        PrepTool::Grow | PrepTool::KeepPiece => {
+            if response.clicked_by(PointerButton::Primary)
+                && let Some(w) = response.interact_pointer_pos().and_then(at)
+            {
+                out.push(if tool.tool == PrepTool::Grow {
+                    PrepCommand::Grow(w).into()
+                } else {
+                    PrepCommand::KeepPiece(w).into()
+                });
+            }
+        }
+        PrepTool::Look => {}
+    }
 }
 
 /// Pointer input while placing: on a plane view a click places the current landmark (a click

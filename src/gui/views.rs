@@ -9,9 +9,10 @@ use std::time::Duration;
 use eframe::egui::{self, Rect, TextureOptions};
 
 use super::camera::ScreenMap;
+use super::prep::Layers;
 use super::state::{Preferences, Scan, ViewId, ViewState};
 use super::view::{Shown, pixels_for, plane_map, volume_camera};
-use super::worker::{PlaneKey, RenderKey, VolumeKey, Workers};
+use super::worker::{JobLayers, PlaneKey, RenderKey, VolumeKey, Workers};
 use sutura_core::geometry::Plane;
 use sutura_core::render::{Quality, SliceGeometry};
 
@@ -132,13 +133,16 @@ impl Views {
         errors
     }
 
-    /// Asks for a new picture for every drawn view whose key changed.
+    /// Asks for a new picture for every drawn view whose key changed; `layers`, the
+    /// preparation's labels over the planes and kept in 3D.
+    #[allow(clippy::too_many_arguments)] // reason: the state tiers a picture depends on
     pub fn request(
         &mut self,
         workers: &mut Workers,
         scan: &Arc<Scan>,
         prefs: &Preferences,
         vs: &ViewState,
+        layers: Option<&Layers>,
         ctx: &egui::Context,
         now: f64,
     ) {
@@ -180,6 +184,7 @@ impl Views {
                     scale_bar: prefs.show_scale_bar,
                     orientation: prefs.show_orientation && on_stage,
                     coarse,
+                    labels: layers.and_then(|l| l.overlay),
                 })
             } else {
                 let Some(camera) = volume_camera(&scan.volume, vs, pixels) else {
@@ -202,11 +207,16 @@ impl Views {
                         Quality::full()
                     },
                     scale_bar: prefs.show_scale_bar && on_stage,
+                    kept: layers.and_then(|l| l.kept.as_ref().map(|(k, _)| *k)),
                 })
             };
             let slot = self.slot_mut(view);
             if slot.sent != Some(key) {
-                workers.request(view, key, Arc::clone(scan), u8::from(!on_stage));
+                let job = JobLayers {
+                    labels: layers.map(|l| Arc::clone(&l.labels)),
+                    kept: layers.and_then(|l| l.kept.as_ref().map(|(_, v)| Arc::clone(v))),
+                };
+                workers.request(view, key, Arc::clone(scan), job, u8::from(!on_stage));
                 slot.sent = Some(key);
             }
         }

@@ -14,15 +14,17 @@
 //! texture format, so the benchmark measures exactly what the workstation does per redraw.
 
 use std::sync::mpsc::{Receiver, Sender, channel};
-use std::sync::{Arc, Condvar, Mutex, PoisonError};
+use std::sync::{Arc, Condvar, Mutex, PoisonError, RwLock};
 use std::thread::JoinHandle;
 use std::time::{Duration, Instant};
 
 use eframe::egui;
 use rayon::prelude::*;
 
+use super::prep::{KeptKey, OverlayKey};
 use super::state::{Scan, ViewId, VolumeMode};
 use sutura_core::geometry::WorldPoint;
+use sutura_core::labels::LabelVolume;
 use sutura_core::render::overlay::{AxisNames, Overlay};
 use sutura_core::render::pyramid::Pyramid;
 use sutura_core::render::raycast::{self, Bricks};
@@ -44,6 +46,8 @@ pub struct PlaneKey {
     pub orientation: bool,
     /// A preview at reduced resolution while the view moves (see the app's redraw budget).
     pub coarse: bool,
+    /// The label image drawn over the slice, if any.
+    pub labels: Option<OverlayKey>,
 }
 
 /// Everything that decides the 3D view's pixels.
@@ -58,6 +62,9 @@ pub struct VolumeKey {
     pub colours: ColourMap,
     pub quality: Quality,
     pub scale_bar: bool,
+    /// The 3D view shows the scan's copy keeping only some labels' material (see
+    /// [`super::prep`]); `None`: the whole scan.
+    pub kept: Option<KeptKey>,
 }
 
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -112,7 +119,7 @@ pub fn render_view(
     key: &RenderKey,
     bricks: Option<&Bricks>,
 ) -> Result<Picture, RenderError> {
-    render_view_reusing(volume, key, bricks, &mut None)
+    render_view_reusing(volume, key, bricks, &mut None, None)
 }
 
 /// The resampled values of a plane view's last picture, kept so that a change of window or
@@ -120,12 +127,14 @@ pub fn render_view(
 pub type PlaneValues = Option<(PlaneKey, F32Image)>;
 
 /// As [`render_view`], reusing `last` (and replacing it) for plane views: when only the
-/// window, colour map or overlays changed, the slice is not resampled again.
+/// window, colour map or overlays changed, the slice is not resampled again. A plane key with
+/// labels blends `labels` (on the volume's grid) over the slice.
 pub fn render_view_reusing(
     volume: &Volume,
     key: &RenderKey,
     bricks: Option<&Bricks>,
     last: &mut PlaneValues,
+    labels: Option<&LabelVolume>,
 ) -> Result<Picture, RenderError> {
     match key {
         RenderKey::Plane(p) => {
@@ -139,8 +148,20 @@ pub fn render_view_reusing(
                 }
                 _ => slice::render_slice(volume, &p.geometry, p.interpolation, None)?,
             };
-            let rgba = p.window.colourize(&img, p.colours);
+            let mut rgba = p.window.colourize(&img, p.colours);
             *last = Some((*p, img));
+            if let (Some(o), Some(l)) = (p.labels, labels)
+                && l.dims() == volume.dims()
+            {
+                sutura_core::render::labels::blend_labels(
+                    &mut rgba,
+                    &p.geometry,
+                    volume.world_from_voxel(),
+                    l,
+                    f64::from(o.opacity),
+                    &|v| o.drawn.contains(v),
+                );
+            }
             let rgba = if p.scale_bar || p.orientation {
                 let mut o = Overlay::new(&rgba)?;
                 if p.scale_bar {
@@ -203,10 +224,19 @@ pub fn to_color_image(rgba: &RgbaImage) -> egui::ColorImage {
     egui::ColorImage::new([rgba.width, rgba.height], pixels)
 }
 
+/// What a job needs besides the scan: the label image (plane views) and the 3D view's
+/// kept-labels copy of the scan.
+#[derive(Clone, Default)]
+pub struct JobLayers {
+    pub labels: Option<Arc<RwLock<LabelVolume>>>,
+    pub kept: Option<Arc<Volume>>,
+}
+
 struct Job {
     generation: u64,
     key: RenderKey,
     scan: Arc<Scan>,
+    layers: JobLayers,
     /// Lower runs first: the stage view before the strip.
     priority: u8,
 }
@@ -270,7 +300,14 @@ impl Workers {
 
     /// Queues a picture for `view`, replacing any job of that view still waiting. Returns the
     /// job's generation.
-    pub fn request(&mut self, view: ViewId, key: RenderKey, scan: Arc<Scan>, priority: u8) -> u64 {
+    pub fn request(
+        &mut self,
+        view: ViewId,
+        key: RenderKey,
+        scan: Arc<Scan>,
+        layers: JobLayers,
+        priority: u8,
+    ) -> u64 {
         let i = view.index();
         self.generation[i] += 1;
         let generation = self.generation[i];
@@ -283,6 +320,7 @@ impl Workers {
             generation,
             key,
             scan,
+            layers,
             priority,
         });
         drop(slots);
@@ -420,7 +458,7 @@ fn volume_job<'a>(
 }
 
 fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() + Send + Sync)) {
-    let mut aids: Option<VolumeAids> = None;
+    let mut aids: Option<(Option<KeptKey>, VolumeAids)> = None;
     let mut values: [PlaneValues; 5] = Default::default();
     loop {
         let (view, job) = {
@@ -447,15 +485,32 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
             }
         };
         let start = Instant::now();
-        let picture = if let RenderKey::Volume(_) = job.key {
-            if aids.as_ref().is_none_or(|a| a.scan != job.scan.id) {
-                aids = Some(VolumeAids::new(job.scan.id, &job.scan.volume));
+        let picture = if let RenderKey::Volume(k) = job.key {
+            // the kept-labels copy, when the key asks for one and it came with the job
+            let (volume, kept) = match (&job.layers.kept, k.kept) {
+                (Some(v), Some(key)) => (&**v, Some(key)),
+                _ => (&*job.scan.volume, None),
+            };
+            if aids
+                .as_ref()
+                .is_none_or(|(kk, a)| a.scan != job.scan.id || *kk != kept)
+            {
+                aids = Some((kept, VolumeAids::new(job.scan.id, volume)));
             }
-            aids.as_mut()
-                .expect("just set")
-                .render(&job.scan.volume, &job.key)
+            aids.as_mut().expect("just set").1.render(volume, &job.key)
         } else {
-            render_view_reusing(&job.scan.volume, &job.key, None, &mut values[view.index()])
+            let labels = job
+                .layers
+                .labels
+                .as_ref()
+                .map(|l| l.read().unwrap_or_else(PoisonError::into_inner));
+            render_view_reusing(
+                &job.scan.volume,
+                &job.key,
+                None,
+                &mut values[view.index()],
+                labels.as_deref(),
+            )
         }
         .map_err(|e| e.to_string());
         let sent = tx.send(Rendered {
@@ -493,6 +548,7 @@ mod tests {
             scale_bar: true,
             orientation: false,
             coarse: false,
+            labels: None,
         }
     }
 
@@ -515,20 +571,21 @@ mod tests {
             ..a
         };
         let mut last = None;
-        render_view_reusing(&vol, &RenderKey::Plane(a), None, &mut last).unwrap();
+        render_view_reusing(&vol, &RenderKey::Plane(a), None, &mut last, None).unwrap();
         let bits = |l: &PlaneValues| {
             l.as_ref()
                 .map(|(_, img)| img.pixels.iter().map(|v| v.to_bits()).collect::<Vec<u32>>())
         };
         let kept = bits(&last);
-        let reused = render_view_reusing(&vol, &RenderKey::Plane(b), None, &mut last).unwrap();
+        let reused =
+            render_view_reusing(&vol, &RenderKey::Plane(b), None, &mut last, None).unwrap();
         let fresh = render_view(&vol, &RenderKey::Plane(b), None).unwrap();
         assert_eq!(reused.image, fresh.image);
         assert_eq!(bits(&last), kept, "the values were kept, not resampled");
         // a new geometry resamples
         let mut c = b;
         c.geometry.origin = WorldPoint(c.geometry.origin.0 + Vector3::new(0.0, 0.0, 0.02));
-        let moved = render_view_reusing(&vol, &RenderKey::Plane(c), None, &mut last).unwrap();
+        let moved = render_view_reusing(&vol, &RenderKey::Plane(c), None, &mut last, None).unwrap();
         assert_eq!(
             moved.image,
             render_view(&vol, &RenderKey::Plane(c), None).unwrap().image
@@ -568,6 +625,7 @@ mod tests {
                 colours: ColourMap::Grey,
                 quality,
                 scale_bar: false,
+                kept: None,
             })
         };
         let (still_vol, _, still_preview) = volume_job(&aids, &vol, &key(Quality::full()));

@@ -32,13 +32,24 @@ pub enum MorphOp {
 }
 
 impl MorphOp {
+    /// All four, in the order the command line lists them.
+    pub const ALL: [Self; 4] = [Self::Erode, Self::Dilate, Self::Open, Self::Close];
+
+    /// The operation's word, as [`MorphOp::parse`] reads it.
+    #[must_use]
+    pub const fn name(self) -> &'static str {
+        match self {
+            Self::Erode => "erode",
+            Self::Dilate => "dilate",
+            Self::Open => "open",
+            Self::Close => "close",
+        }
+    }
+
     pub fn parse(s: &str) -> Result<Self, LabelsError> {
-        match s {
-            "erode" => Ok(Self::Erode),
-            "dilate" => Ok(Self::Dilate),
-            "open" => Ok(Self::Open),
-            "close" => Ok(Self::Close),
-            _ => Err(LabelsError::Invalid(format!(
+        match Self::ALL.into_iter().find(|op| op.name() == s) {
+            Some(op) => Ok(op),
+            None => Err(LabelsError::Invalid(format!(
                 "operation {s:?}: give erode, dilate, open or close"
             ))),
         }
