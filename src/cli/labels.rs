@@ -493,25 +493,26 @@ fn run_threshold(a: &ThresholdArgs) -> Result<()> {
     let lv = load(&a.target.labels)?;
     let volume = open_matching(&a.scan, &lv, &a.target.labels)?;
     let range = parse_range(&a.range)?;
-    let within = a
-        .within
-        .as_deref()
-        .map(|n| lv.value_of(n).map(|v| lv.mask_of(v)))
-        .transpose()?;
+    let within = a.within.as_deref().map(|n| lv.value_of(n)).transpose()?;
     let bounds = a
         .bounds
         .as_deref()
         .map(|b| super::convert::parse_crop(b, volume.dims()))
         .transpose()?;
-    let sel = labels::region::threshold(&volume, range, within.as_ref(), bounds.as_ref());
-    commit(
-        lv,
-        &a.target,
-        &sel,
+    let mut lv = lv;
+    let value = lv.value_or_add(&a.target.label)?;
+    let before = lv.counts()[usize::from(value)];
+    let edit = labels::ops::threshold_label(
+        &mut lv,
+        &volume,
+        value,
+        range,
+        within,
+        bounds.as_ref(),
         a.mode.mode.into(),
         a.mode.overwrite,
-        "threshold",
-    )
+    )?;
+    save_and_report(&lv, &a.target, value, before, "threshold", edit.bricks())
 }
 
 fn run_grow(a: &GrowArgs) -> Result<()> {
@@ -661,24 +662,27 @@ fn run_fill(a: &TargetArgs) -> Result<()> {
 }
 
 fn run_combine(a: &CombineArgs) -> Result<()> {
-    let lv = load(&a.target.labels)?;
-    let other = match &a.from {
-        Some(p) => {
-            let o = load(p)?;
-            if o.dims() != lv.dims() {
-                bail!(
-                    "{}: a {:?} grid, but {} is {:?}",
-                    p.display(),
-                    o.dims(),
-                    a.target.labels.display(),
-                    lv.dims()
-                );
-            }
-            o.mask_of(o.value_of(&a.with)?)
-        }
-        None => lv.mask_of(lv.value_of(&a.with)?),
-    };
+    let mut lv = load(&a.target.labels)?;
     let mode: Combine = a.mode.mode.into();
+    let Some(p) = &a.from else {
+        // one label image: the library's rule (adding moves the voxels; not with itself)
+        let value = lv.value_or_add(&a.target.label)?;
+        let other = lv.value_of(&a.with)?;
+        let before = lv.counts()[usize::from(value)];
+        let edit = labels::ops::combine_labels(&mut lv, value, other, mode)?;
+        return save_and_report(&lv, &a.target, value, before, mode.name(), edit.bricks());
+    };
+    let o = load(p)?;
+    if o.dims() != lv.dims() {
+        bail!(
+            "{}: a {:?} grid, but {} is {:?}",
+            p.display(),
+            o.dims(),
+            a.target.labels.display(),
+            lv.dims()
+        );
+    }
+    let other = o.mask_of(o.value_of(&a.with)?);
     commit(lv, &a.target, &other, mode, a.mode.overwrite, mode.name())
 }
 

@@ -19,6 +19,7 @@ use nalgebra::Vector3;
 use super::state::{Hover, ViewId, VolumeMode};
 use sutura_core::analysis::{ExportKind, ProjectAnalysisOptions};
 use sutura_core::geometry::{VoxelSizeMm, WorldPoint};
+use sutura_core::labels::Combine;
 use sutura_core::labels::morph::MorphOp;
 use sutura_core::labels::region::Connectivity;
 use sutura_core::landmarks::project::create::NewSpecimen;
@@ -312,6 +313,8 @@ pub enum PrepCommand {
     SetKeptIn3d(bool),
     /// Opacity of the labels over the plane views (0 to 1).
     SetOpacity(f32),
+    /// Labels over the plane views as outlines (`true`) or filled.
+    SetOutline(bool),
     SetTool(PrepTool),
     /// The brush's radius, µm.
     SetBrushUm(f64),
@@ -335,6 +338,13 @@ pub enum PrepCommand {
     /// Fill the current label between its drawn slices along an axis (0 = i, 1 = j, 2 = k).
     Interpolate(usize),
     FillHoles,
+    /// Add the voxels in the intensity range (within the other label, if one is chosen) to
+    /// the current label.
+    Threshold,
+    /// The label the threshold keeps within and the current label combines with (0: none).
+    SetOther(u8),
+    /// Add, subtract or intersect the other label with the current one.
+    Combine(Combine),
     Morph(MorphOp),
     RemoveSmall,
     Undo,

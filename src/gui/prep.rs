@@ -62,6 +62,7 @@ pub struct OverlayKey {
     pub revision: u64,
     pub drawn: LabelSet,
     pub opacity: f32,
+    pub outline: bool,
 }
 
 /// What decides the 3D view's kept-labels copy of the scan.
@@ -94,11 +95,15 @@ pub struct Prep {
     pub kept: LabelSet,
     pub kept_in_3d: bool,
     pub opacity: f32,
+    pub outline: bool,
     pub tool: PrepTool,
     pub brush_um: f64,
     pub grow: GrowSettings,
     pub morph_um: f64,
     pub min_voxels: u64,
+    /// The other label: what a threshold keeps within and the current label combines with
+    /// (0: none).
+    pub other: u8,
     /// The scan's largest value: the top of a grow range shown when the range has none.
     pub scan_max: f64,
     undo: Vec<Edit>,
@@ -191,6 +196,7 @@ impl Prep {
             kept,
             kept_in_3d: false,
             opacity: 0.45,
+            outline: false,
             tool: PrepTool::Look,
             // three voxels across, and one and a half voxels: a first guess the user changes
             brush_um: (3.0 * finest_um).round().max(1.0),
@@ -202,6 +208,7 @@ impl Prep {
             },
             morph_um: (1.5 * finest_um).round().max(1.0),
             min_voxels: 100,
+            other: 0,
             scan_max: scan.full_range.1,
             undo: Vec::new(),
             redo: Vec::new(),
@@ -289,6 +296,7 @@ impl Prep {
             revision: self.revision,
             drawn: self.drawn,
             opacity: self.opacity,
+            outline: self.outline,
         });
         if self.kept_in_3d && self.stroke.is_none() {
             let key = KeptKey {
@@ -460,6 +468,10 @@ impl Prep {
                 self.opacity = a.clamp(0.0, 1.0);
                 Ok(None)
             }
+            PrepCommand::SetOutline(on) => {
+                self.outline = on;
+                Ok(None)
+            }
             PrepCommand::SetTool(t) => {
                 self.tool = t;
                 Ok(None)
@@ -573,6 +585,42 @@ impl Prep {
                         .join(", ")
                 ))))
             }
+            PrepCommand::Threshold => {
+                let (value, name) = self.current_label()?;
+                let g = self.grow;
+                let range = IntensityRange::new(g.lo, g.hi).map_err(err)?;
+                let within = (self.other != 0).then_some(self.other);
+                let edit = ops::threshold_label(
+                    &mut self.write(),
+                    volume,
+                    value,
+                    range,
+                    within,
+                    None,
+                    Combine::Add,
+                    false,
+                )
+                .map_err(err)?;
+                let place =
+                    within.map_or_else(String::new, |w| format!(" within {}", self.name_of(w)));
+                let what = format!("threshold {name}{place}");
+                Ok(Some(self.record(edit, &what, value)))
+            }
+            PrepCommand::SetOther(v) => {
+                self.other = v;
+                Ok(None)
+            }
+            PrepCommand::Combine(mode) => {
+                let (value, name) = self.current_label()?;
+                if self.other == 0 {
+                    return Err("choose the other label first".into());
+                }
+                let other = self.other;
+                let edit =
+                    ops::combine_labels(&mut self.write(), value, other, mode).map_err(err)?;
+                let what = format!("{} {} {name}", mode.name(), self.name_of(other));
+                Ok(Some(self.record(edit, &what, value)))
+            }
             PrepCommand::FillHoles => {
                 let (value, name) = self.current_label()?;
                 let edit = ops::fill_label_holes(&mut self.write(), value).map_err(err)?;
@@ -604,5 +652,106 @@ impl Prep {
             PrepCommand::Undo => Ok(Some(self.replay(true))),
             PrepCommand::Redo => Ok(Some(self.replay(false))),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use sutura_core::geometry::Affine3;
+    use sutura_core::labels::Combine;
+
+    /// A 24 × 20 × 10 scan of 0.1 mm voxels: value 100 for i < 12, 300 beyond.
+    fn scan(dir: &Path) -> Scan {
+        let dims = [24, 20, 10];
+        let data: Vec<u16> = (0..dims.iter().product::<usize>())
+            .map(|n| if n % 24 < 12 { 100 } else { 300 })
+            .collect();
+        let v = Volume::from_vec(dims, Affine3::from_spacing([0.1; 3]), data).unwrap();
+        let path = dir.join("scan.nii");
+        sutura_core::io::nifti::write(&v, &path).unwrap();
+        Scan::new(1, path, v)
+    }
+
+    fn at(i: f64, j: f64, k: f64) -> WorldPoint {
+        WorldPoint::new(i * 0.1, j * 0.1, k * 0.1)
+    }
+
+    #[test]
+    fn a_stroke_is_one_step_and_undo_and_redo_replay_it() {
+        let dir = tempfile::tempdir().unwrap();
+        let s = scan(dir.path());
+        let mut p = Prep::create(&dir.path().join("s.labels.zarr"), &s).unwrap();
+        p.apply(PrepCommand::SetTool(PrepTool::Brush), &s).unwrap();
+        p.apply(PrepCommand::SetBrushUm(150.0), &s).unwrap();
+        for i in [3.0, 8.0, 14.0] {
+            p.apply(
+                PrepCommand::PaintTo {
+                    at: at(i, 10.0, 5.0),
+                    axis: Some(2),
+                },
+                &s,
+            )
+            .unwrap();
+        }
+        assert!(p.stroking());
+        p.apply(PrepCommand::EndStroke, &s).unwrap();
+        let painted = p.voxels(1);
+        // a disc of 1.5 voxels swept from i = 3 to 14 on one plane: 12 columns of 3 rows plus
+        // the round ends (centres within 1.5 voxels of the segment)
+        assert!((36..60).contains(&painted), "{painted}");
+        assert_eq!(p.history().0, Some("brush specimen"));
+        p.apply(PrepCommand::Undo, &s).unwrap();
+        assert_eq!(p.voxels(1), 0, "the whole stroke is one step");
+        p.apply(PrepCommand::Redo, &s).unwrap();
+        assert_eq!(p.voxels(1), painted);
+        assert!(p.is_dirty());
+        p.apply(PrepCommand::Save, &s).unwrap();
+        assert!(!p.is_dirty());
+        let back = Prep::open(p.path(), &s).unwrap();
+        assert_eq!(back.voxels(1), painted);
+    }
+
+    #[test]
+    fn threshold_within_the_other_label_and_combining_follow_the_library() {
+        let dir = tempfile::tempdir().unwrap();
+        let s = scan(dir.path());
+        let mut p = Prep::create(&dir.path().join("s.labels.zarr"), &s).unwrap();
+        // matrix (2): every voxel at 300 (i ≥ 12)
+        p.apply(PrepCommand::SetCurrent(2), &s).unwrap();
+        p.apply(
+            PrepCommand::SetGrow(GrowSettings {
+                lo: 250.0,
+                hi: f64::INFINITY,
+                connectivity: Connectivity::Faces6,
+                max_distance_mm: None,
+            }),
+            &s,
+        )
+        .unwrap();
+        p.apply(PrepCommand::Threshold, &s).unwrap();
+        assert_eq!(p.voxels(2), 12 * 20 * 10);
+        // a threshold of specimen (1) within the matrix takes nothing: other labels' voxels
+        // are kept, as `labels threshold --within` keeps them
+        p.apply(PrepCommand::SetCurrent(1), &s).unwrap();
+        p.apply(PrepCommand::SetOther(2), &s).unwrap();
+        p.apply(PrepCommand::Threshold, &s).unwrap();
+        assert_eq!(p.voxels(1), 0);
+        // adding the other label moves its voxels
+        p.apply(PrepCommand::Combine(Combine::Add), &s).unwrap();
+        assert_eq!((p.voxels(1), p.voxels(2)), (12 * 20 * 10, 0));
+        // combining a label with itself is refused in words
+        p.apply(PrepCommand::SetOther(1), &s).unwrap();
+        let e = p.apply(PrepCommand::Combine(Combine::Add), &s).unwrap_err();
+        assert!(e.contains("itself"), "{e}");
+        // the kept-labels copy holds the scan's minimum outside the kept label
+        p.apply(PrepCommand::SetKeptIn3d(true), &s).unwrap();
+        let layers = p.layers(&s);
+        let (key, kept) = layers.kept.expect("a kept copy");
+        assert!(key.kept.contains(1));
+        let v = |vol: &Volume, i| vol.value(sutura_core::geometry::VoxelIndex::new(i, 3, 3));
+        assert_eq!(v(&kept, 20), Some(300.0));
+        assert_eq!(v(&kept, 2), Some(100.0));
+        assert!(p.pick_volume().is_some());
     }
 }

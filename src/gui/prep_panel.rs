@@ -11,6 +11,7 @@ use super::command::{Command, PrepCommand, PrepTool};
 use super::prep::Prep;
 use super::state::ViewId;
 use super::view::format_value;
+use sutura_core::labels::Combine;
 use sutura_core::labels::morph::MorphOp;
 use sutura_core::labels::region::Connectivity;
 
@@ -113,6 +114,54 @@ fn file_ui(ui: &mut Ui, p: &Prep, out: &mut Vec<Command>) {
     });
 }
 
+/// The other label (for a threshold within it, and to combine with) and the combine buttons.
+fn other_ui(ui: &mut Ui, p: &Prep, out: &mut Vec<Command>) {
+    let labels = p.label_list();
+    let name_of = |v: u8| {
+        labels
+            .iter()
+            .find(|l| l.value == v)
+            .map_or_else(|| "none".to_owned(), |l| l.name.clone())
+    };
+    ui.horizontal(|ui| {
+        ui.label("other label");
+        egui::ComboBox::from_id_salt("prep_other")
+            .selected_text(name_of(p.other))
+            .show_ui(ui, |ui| {
+                if ui.selectable_label(p.other == 0, "none").clicked() {
+                    out.push(PrepCommand::SetOther(0).into());
+                }
+                for l in &labels {
+                    if ui.selectable_label(p.other == l.value, &l.name).clicked() {
+                        out.push(PrepCommand::SetOther(l.value).into());
+                    }
+                }
+            });
+    });
+    ui.add_enabled_ui(p.other != 0 && p.other != p.current, |ui| {
+        ui.horizontal(|ui| {
+            for (mode, tip) in [
+                (
+                    Combine::Add,
+                    "the other label's voxels move to the chosen label",
+                ),
+                (
+                    Combine::Subtract,
+                    "the chosen label loses the other label's voxels",
+                ),
+                (
+                    Combine::Intersect,
+                    "the chosen label keeps only its voxels the other label holds",
+                ),
+            ] {
+                if ui.button(mode.name()).on_hover_text(tip).clicked() {
+                    out.push(PrepCommand::Combine(mode).into());
+                }
+            }
+        });
+    });
+}
+
 /// A radius in µm with its name; the new value when the user changed it.
 fn radius_ui(ui: &mut Ui, name: &str, um: f64) -> Option<f64> {
     let mut r = um;
@@ -187,13 +236,25 @@ fn labels_ui(ui: &mut Ui, p: &Prep, new_label: &mut String, out: &mut Vec<Comman
             out.push(PrepCommand::AddLabel(std::mem::take(new_label)).into());
         }
     });
-    let mut opacity = p.opacity;
-    if ui
-        .add(egui::Slider::new(&mut opacity, 0.0..=1.0).text("opacity"))
-        .changed()
-    {
-        out.push(PrepCommand::SetOpacity(opacity).into());
-    }
+    ui.horizontal(|ui| {
+        let mut opacity = p.opacity;
+        ui.add_enabled_ui(!p.outline, |ui| {
+            if ui
+                .add(egui::Slider::new(&mut opacity, 0.0..=1.0).text("opacity"))
+                .changed()
+            {
+                out.push(PrepCommand::SetOpacity(opacity).into());
+            }
+        });
+        let mut outline = p.outline;
+        if ui
+            .checkbox(&mut outline, "outline")
+            .on_hover_text("only the labels' edges, in full colour")
+            .changed()
+        {
+            out.push(PrepCommand::SetOutline(outline).into());
+        }
+    });
     let mut kept = p.kept_in_3d;
     if ui
         .checkbox(&mut kept, "3D view: ticked labels only")
@@ -249,8 +310,9 @@ fn tools_ui(ui: &mut Ui, p: &Prep, out: &mut Vec<Command>) {
 fn grow_ui(ui: &mut Ui, p: &Prep, out: &mut Vec<Command>) {
     let mut g = p.grow;
     let mut changed = false;
+    ui.label(RichText::new("Intensity range (grow, threshold)").weak());
     ui.horizontal(|ui| {
-        ui.label("grow through");
+        ui.label("from");
         changed |= ui
             .add(egui::DragValue::new(&mut g.lo).speed(10.0))
             .changed();
@@ -327,7 +389,18 @@ fn steps_ui(ui: &mut Ui, p: &Prep, stage: ViewId, out: &mut Vec<Command>) {
         {
             out.push(PrepCommand::FillHoles.into());
         }
+        if ui
+            .button("Threshold")
+            .on_hover_text(
+                "add every voxel in the intensity range (within the other label, if one is \
+                 chosen) that no other label holds",
+            )
+            .clicked()
+        {
+            out.push(PrepCommand::Threshold.into());
+        }
     });
+    other_ui(ui, p, out);
     if let Some(r) = radius_ui(ui, "ball radius", p.morph_um) {
         out.push(PrepCommand::SetMorphUm(r).into());
     }

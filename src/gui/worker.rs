@@ -158,7 +158,10 @@ pub fn render_view_reusing(
                     &p.geometry,
                     volume.world_from_voxel(),
                     l,
-                    f64::from(o.opacity),
+                    sutura_core::render::labels::LabelStyle {
+                        opacity: f64::from(o.opacity),
+                        outline: o.outline,
+                    },
                     &|v| o.drawn.contains(v),
                 );
             }

@@ -5,11 +5,53 @@
 //! otherwise; keeping a piece and removing small pieces intersect the label with what is kept;
 //! a morphological operation replaces the label with its result.
 
+use std::ops::Range;
+
 use super::interp::interpolate;
 use super::morph::{MorphOp, morph};
-use super::region::{Connectivity, GrowOptions, fill_holes, grow, keep_piece_at, remove_small};
+use super::region::{
+    Connectivity, GrowOptions, IntensityRange, fill_holes, grow, keep_piece_at, remove_small,
+    threshold,
+};
 use super::{Combine, Edit, LabelVolume, LabelsError};
 use crate::volume::Volume;
+
+/// Selects the voxels whose value lies in `range`, within label `within` (anywhere when
+/// `None`) and the voxel box `bounds` (the whole grid when `None`), and applies them to label
+/// `value` in `mode`.
+#[allow(clippy::too_many_arguments)] // reason: the command line's options, one by one
+pub fn threshold_label(
+    labels: &mut LabelVolume,
+    volume: &Volume,
+    value: u8,
+    range: IntensityRange,
+    within: Option<u8>,
+    bounds: Option<&[Range<usize>; 3]>,
+    mode: Combine,
+    overwrite: bool,
+) -> Result<Edit, LabelsError> {
+    let within = within.map(|w| labels.mask_of(w));
+    let sel = threshold(volume, range, within.as_ref(), bounds);
+    labels.apply(&sel, value, mode, overwrite)
+}
+
+/// Adds, subtracts or intersects label `other` of the same label image with label `value`.
+/// Adding moves `other`'s voxels to `value` (each voxel holds one label, so adding without
+/// taking them would change nothing).
+pub fn combine_labels(
+    labels: &mut LabelVolume,
+    value: u8,
+    other: u8,
+    mode: Combine,
+) -> Result<Edit, LabelsError> {
+    if other == value {
+        return Err(LabelsError::Invalid(
+            "a label combined with itself changes nothing: choose another label".into(),
+        ));
+    }
+    let m = labels.mask_of(other);
+    labels.apply(&m, value, mode, mode == Combine::Add)
+}
 
 /// Grows a region from `seed` (see [`grow`]) and applies it to label `value` in `mode`;
 /// unless `through_labels`, the region does not enter voxels of other labels.

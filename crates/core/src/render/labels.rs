@@ -11,31 +11,41 @@ use crate::geometry::Affine3;
 use crate::labels::{LabelVolume, palette_colour};
 use crate::volume::{Volume, VolumeError};
 
+/// How labels are drawn over a slice.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct LabelStyle {
+    /// How much of the label colour is mixed in (0 to 1).
+    pub opacity: f64,
+    /// Only the labels' edges, in full colour: pixels whose label differs from a pixel beside
+    /// them (left, right, above, below); the slice shows through inside.
+    pub outline: bool,
+}
+
 /// Blends the labels under each pixel of a slice picture (`geometry` on a scan placed by
-/// `world_from_voxel`, the grid of `labels`) over `rgba`, at `opacity` (0 to 1): the nearest
-/// voxel's label in its palette colour; unlabelled voxels and pixels outside the grid are left
-/// as they are. Labels for which `shown` is false are left out.
+/// `world_from_voxel`, the grid of `labels`) over `rgba` in `style`: the nearest voxel's label
+/// in its palette colour; unlabelled voxels and pixels outside the grid are left as they are.
+/// Labels for which `shown` is false are left out.
 pub fn blend_labels(
     rgba: &mut RgbaImage,
     geometry: &SliceGeometry,
     world_from_voxel: &Affine3,
     labels: &LabelVolume,
-    opacity: f64,
+    style: LabelStyle,
     shown: &(dyn Fn(u8) -> bool + Sync),
 ) {
-    let a = opacity.clamp(0.0, 1.0);
     let voxel_from_world = world_from_voxel.inverse();
     let dims = labels.dims();
-    let width = rgba.width;
-    if width == 0 {
+    let (width, height) = (rgba.width, rgba.height);
+    if width == 0 || height == 0 {
         return;
     }
-    let colours: Vec<[u8; 4]> = (0..=255u8).map(palette_colour).collect();
-    rgba.pixels
-        .par_chunks_mut(width * 4)
+    // the label under each pixel (0: none drawn)
+    let mut under = vec![0u8; width * height];
+    under
+        .par_chunks_mut(width)
         .enumerate()
         .for_each(|(row, line)| {
-            for (col, px) in line.chunks_exact_mut(4).enumerate() {
+            for (col, out) in line.iter_mut().enumerate() {
                 let w = geometry.pixel_world(col as f64, row as f64);
                 let v = voxel_from_world.world_to_voxel(w).0;
                 let idx = [v.x.round(), v.y.round(), v.z.round()];
@@ -47,8 +57,36 @@ pub fn blend_labels(
                     continue;
                 }
                 let value = labels.get(idx[0] as usize, idx[1] as usize, idx[2] as usize);
-                if value == 0 || !shown(value) {
+                if value != 0 && shown(value) {
+                    *out = value;
+                }
+            }
+        });
+    let colours: Vec<[u8; 4]> = (0..=255u8).map(palette_colour).collect();
+    let a = if style.outline {
+        1.0
+    } else {
+        style.opacity.clamp(0.0, 1.0)
+    };
+    let under = &under;
+    rgba.pixels
+        .par_chunks_mut(width * 4)
+        .enumerate()
+        .for_each(|(row, line)| {
+            for (col, px) in line.chunks_exact_mut(4).enumerate() {
+                let value = under[row * width + col];
+                if value == 0 {
                     continue;
+                }
+                if style.outline {
+                    let differs = |r: usize, c: usize| under[r * width + c] != value;
+                    let edge = (col > 0 && differs(row, col - 1))
+                        || (col + 1 < width && differs(row, col + 1))
+                        || (row > 0 && differs(row - 1, col))
+                        || (row + 1 < height && differs(row + 1, col));
+                    if !edge {
+                        continue;
+                    }
                 }
                 let c = colours[usize::from(value)];
                 for ch in 0..3 {
@@ -129,7 +167,17 @@ mod tests {
             height: g.height,
             pixels: vec![0; g.width * g.height * 4],
         };
-        blend_labels(&mut img, &g, v.world_from_voxel(), &l, 1.0, &|_| true);
+        blend_labels(
+            &mut img,
+            &g,
+            v.world_from_voxel(),
+            &l,
+            LabelStyle {
+                opacity: 1.0,
+                outline: false,
+            },
+            &|_| true,
+        );
         // one pixel per voxel on this plane: pixel (i, j) is voxel (i, j, 1)
         let px = |i: usize, j: usize| &img.pixels[(j * g.width + i) * 4..][..3];
         assert_eq!(px(2, 3), &palette_colour(1)[..3]);
@@ -141,7 +189,17 @@ mod tests {
             height: g.height,
             pixels: vec![100; g.width * g.height * 4],
         };
-        blend_labels(&mut img2, &g, v.world_from_voxel(), &l, 0.5, &|x| x == 1);
+        blend_labels(
+            &mut img2,
+            &g,
+            v.world_from_voxel(),
+            &l,
+            LabelStyle {
+                opacity: 0.5,
+                outline: false,
+            },
+            &|x| x == 1,
+        );
         let px2 = |i: usize, j: usize| &img2.pixels[(j * g.width + i) * 4..][..3];
         assert_eq!(px2(5, 1), &[100, 100, 100]);
         let c = palette_colour(1);
@@ -149,6 +207,47 @@ mod tests {
             let want = (100.0 * 0.5 + f64::from(value) * 0.5).round() as u8;
             assert_eq!(px2(2, 3)[ch], want);
         }
+    }
+
+    #[test]
+    fn an_outline_draws_only_the_edge_of_a_label() {
+        let (v, mut l) = scan();
+        // a 3 × 3 block of label 1 on plane k = 2, voxels (3..6, 1..4)
+        let mut sel = crate::labels::mask::BitMask::new(v.dims());
+        for i in 3..6 {
+            for j in 1..4 {
+                sel.set(i, j, 2, true);
+            }
+        }
+        l.apply(&sel, 1, crate::labels::Combine::Add, false)
+            .unwrap();
+        let g = SliceGeometry::axis(&v, AxisPlane { axis: 2, index: 2 }, None).unwrap();
+        let mut img = RgbaImage {
+            width: g.width,
+            height: g.height,
+            pixels: vec![50; g.width * g.height * 4],
+        };
+        let style = LabelStyle {
+            opacity: 0.3,
+            outline: true,
+        };
+        blend_labels(&mut img, &g, v.world_from_voxel(), &l, style, &|_| true);
+        let px = |i: usize, j: usize| &img.pixels[(j * g.width + i) * 4..][..3];
+        // the eight edge voxels in full colour, the centre and the outside untouched
+        for (i, j) in [
+            (3, 1),
+            (4, 1),
+            (5, 1),
+            (3, 2),
+            (5, 2),
+            (3, 3),
+            (4, 3),
+            (5, 3),
+        ] {
+            assert_eq!(px(i, j), &palette_colour(1)[..3], "({i}, {j})");
+        }
+        assert_eq!(px(4, 2), &[50, 50, 50]);
+        assert_eq!(px(1, 4), &[50, 50, 50]);
     }
 
     #[test]
