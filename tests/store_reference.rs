@@ -394,3 +394,80 @@ fn commands_that_read_a_scan_whole_take_a_store() {
     run(&["mesh", "scan.ome.zarr", "-o", "m.ply", "--quiet"]);
     assert!(out.metadata().unwrap().len() > 1000);
 }
+
+/// A project specimen on a store is recorded and picked on through the volume interface (a
+/// block at a time, never the whole store): its record is the one its `NIfTI` source gets, and
+/// a pick on either gives the same sub-voxel point.
+#[test]
+fn a_store_specimen_is_recorded_and_picked_a_block_at_a_time() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    sutura_core::io::nifti::write(&scan(), &d.join("scan.nii")).unwrap();
+    let run = |args: &[&str]| {
+        let (ok, out, err) = run_sutura(args, d);
+        assert!(ok, "{args:?}: {err}");
+        out
+    };
+    run(&[
+        "convert",
+        "scan.nii",
+        "-o",
+        "scan.ome.zarr",
+        "--chunk",
+        "16",
+        "--quiet",
+    ]);
+    let scheme = common::root().join("sample_volumes/scheme.toml");
+    run(&[
+        "project",
+        "new",
+        "p.json",
+        "--scheme",
+        scheme.to_str().unwrap(),
+    ]);
+    run(&["project", "add", "p.json", "scan.ome.zarr"]);
+    run(&["project", "add", "p.json", "scan.nii", "--id", "in_memory"]);
+    let project = sutura_core::landmarks::Project::load(&d.join("p.json")).unwrap();
+    let (on_store, in_memory) = (&project.specimens()[0].scan, &project.specimens()[1].scan);
+    assert_eq!(
+        on_store.world_from_voxel.rows(),
+        in_memory.world_from_voxel.rows()
+    );
+    assert_eq!(on_store.fingerprint.dims, in_memory.fingerprint.dims);
+    assert_eq!(
+        on_store.fingerprint.voxels_sha256,
+        in_memory.fingerprint.voxels_sha256
+    );
+    let pick = |specimen: &str| -> [f64; 3] {
+        run(&[
+            "landmark",
+            "pick",
+            "p.json",
+            specimen,
+            "snout_tip",
+            "--operator",
+            "Ana",
+            "--from",
+            "-2.0,0.9,2.55",
+            "--toward",
+            "0.0,0.88,2.6",
+        ]);
+        let project = sutura_core::landmarks::Project::load(&d.join("p.json")).unwrap();
+        let s = project.specimen(specimen).unwrap();
+        s.trials[0]
+            .landmark("snout_tip")
+            .unwrap()
+            .position_mm
+            .unwrap()
+    };
+    let (a, b) = (pick("scan"), pick("in_memory"));
+    for i in 0..3 {
+        assert!((a[i] - b[i]).abs() < 1e-9, "{a:?} vs {b:?}");
+    }
+    // on the ball's surface (radius 14 voxels of 0.02 mm about voxel (22, 19, 14.5))
+    let centre = [-1.0 + 22.0 * 0.02, 0.5 + 19.0 * 0.02, 2.0 + 14.5 * 0.04];
+    let r = ((a[0] - centre[0]).powi(2) + (a[1] - centre[1]).powi(2) + (a[2] - centre[2]).powi(2))
+        .sqrt();
+    assert!((r - 0.28).abs() < 0.03, "{r}");
+    run(&["project", "check", "p.json"]);
+}

@@ -22,11 +22,10 @@ use std::path::PathBuf;
 use super::project::{TimeArgs, load, open};
 use nalgebra::Vector3;
 use sutura_core::geometry::{LengthMm, Triple, WorldPoint};
-use sutura_core::io::Progress;
 use sutura_core::landmarks::project::{
     Edit, LandmarkState, Method, PickRecord, Project, Session, Trial,
 };
-use sutura_core::landmarks::{mirror, pick};
+use sutura_core::landmarks::{mirror, pick, pick_source};
 use sutura_core::message::numbers;
 
 #[derive(Debug, Subcommand)]
@@ -413,6 +412,9 @@ fn run_pick(a: &PickArgs) -> Result<()> {
     Ok(())
 }
 
+/// The chunk cache of a pick on a store: the blocks around one ray segment, many times over.
+const PICK_CACHE_BYTES: u64 = 256 << 20;
+
 /// Opens the specimen's scan (refusing one that differs from its fingerprint) and picks along
 /// the ray `--from` → `--toward` / `--direction`.
 fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<PickRecord>)> {
@@ -421,7 +423,8 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
         .specimen(&t.specimen)
         .with_context(|| format!("no specimen '{}'", t.specimen))?;
     let scan = &s.scan;
-    let (volume, mismatch) = scan.open(&t.project, &Progress::none())?;
+    // a store is read a block at a time: full-resolution chunks around the ray only
+    let (source, mismatch) = scan.open_source(&t.project, PICK_CACHE_BYTES)?;
     if let Some(m) = mismatch {
         bail!("{m}; refusing to pick on it");
     }
@@ -449,17 +452,18 @@ fn pick_position(a: &PickArgs, project: &Project) -> Result<([f64; 3], Option<Pi
         }
         (None, None) => bail!("give --toward X,Y,Z or --direction DX,DY,DZ"),
     };
-    let iso = a
-        .iso_value
-        .map_or_else(|| pick::default_iso_value(&volume), pick::IsoValue::given);
+    let iso = match a.iso_value {
+        Some(v) => pick::IsoValue::given(v),
+        None => pick_source::default_iso_value(source.as_ref())?,
+    };
     let threshold = iso.value;
     let options = pick::PickOptions {
         threshold,
         max_distance_mm: a.max_distance.map_or(f64::INFINITY, |l| l.0),
         refine_to_edge: a.refine,
     };
-    let hit = pick::pick_along_ray(
-        &volume,
+    let hit = pick_source::pick_along_ray(
+        source.as_ref(),
         WorldPoint::new(origin[0], origin[1], origin[2]),
         Vector3::from(direction),
         &options,

@@ -18,7 +18,7 @@ use std::path::{Path, PathBuf};
 use sutura_core::geometry::VoxelSizeMm;
 use sutura_core::io::{self, Progress};
 use sutura_core::landmarks::project::create::{
-    NewSpecimen, parse_group, project_from_scheme_file, specimen_from_scan,
+    NewSpecimen, parse_group, project_from_scheme_file, specimen_from_scan, specimen_from_store,
 };
 use sutura_core::landmarks::project::{Edit, Project, ProjectLock, Session, Timestamp, Trial};
 
@@ -94,8 +94,8 @@ pub struct AddArgs {
     /// The project file.
     project: PathBuf,
 
-    /// The scan: a NIfTI file, a TIFF file, a folder of TIFF slices or an OME-Zarr store
-    /// (read whole at full resolution).
+    /// The scan: a NIfTI file, a TIFF file, a folder of TIFF slices or DICOM slices, or an
+    /// OME-Zarr store (recorded without reading it whole).
     scan: PathBuf,
 
     /// Specimen id (default: the scan's name without its extension).
@@ -177,8 +177,13 @@ fn new_specimen(
     project_file: &Path,
     new: &NewSpecimen,
 ) -> Result<sutura_core::landmarks::project::Specimen> {
-    let (s, volume) = specimen_from_scan(project_file, new, &Progress::none())?;
-    let [nx, ny, nz] = volume.dims();
+    // a store is recorded without reading it whole (it may be larger than memory)
+    let (s, [nx, ny, nz]) = if sutura_core::store::is_store(&new.scan) {
+        specimen_from_store(project_file, new)?
+    } else {
+        let (s, volume) = specimen_from_scan(project_file, new, &Progress::none())?;
+        (s, volume.dims())
+    };
     let [sx, sy, sz] = s.scan.voxel_size_mm;
     eprintln!(
         "added {}: {} ({nx} x {ny} x {nz}, voxel {sx} x {sy} x {sz} mm, {})",

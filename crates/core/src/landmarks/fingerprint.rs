@@ -153,6 +153,42 @@ impl Fingerprint {
         Self::mismatch(path, differences)
     }
 
+    /// [`Fingerprint::check_volume`] for a scan of any size, read through the volume interface
+    /// (the sampled voxels only).
+    pub fn check_source(
+        &self,
+        path: &Path,
+        source: &dyn crate::volume::VolumeSource,
+    ) -> Result<Option<Mismatch>, crate::volume::ReadError> {
+        if let Some(v) = source.whole() {
+            return Ok(self.check_volume(path, v));
+        }
+        let mut differences = Vec::new();
+        if source.dims() != self.dims {
+            differences.push(format!(
+                "grid {}, recorded {}",
+                crate::message::numbers(&source.dims()),
+                crate::message::numbers(&self.dims)
+            ));
+        }
+        if source.dtype().name() != self.dtype {
+            differences.push(format!(
+                "voxel type {}, recorded {}",
+                source.dtype(),
+                self.dtype
+            ));
+        }
+        let v = voxel_sample_sha256_of(source)?;
+        if v != self.voxels_sha256 {
+            differences.push(format!(
+                "sampled voxels hash {}…, recorded {}…",
+                &v[..12],
+                short(&self.voxels_sha256)
+            ));
+        }
+        Ok(Self::mismatch(path, differences))
+    }
+
     fn mismatch(path: &Path, differences: Vec<String>) -> Option<Mismatch> {
         (!differences.is_empty()).then(|| Mismatch {
             path: path.to_owned(),

@@ -64,6 +64,36 @@ pub fn open_scan_with(
     Ok(volume)
 }
 
+/// A scan of any size behind the volume interface: a store read a block at a time through a
+/// chunk cache of `cache_bytes`, anything else opened whole with [`open_scan`]. `voxel_size_mm`
+/// overrides the file's voxel size as in [`open_scan`].
+pub fn open_source(
+    path: &Path,
+    voxel_size_mm: Option<[f64; 3]>,
+    cache_bytes: u64,
+) -> Result<Box<dyn crate::volume::VolumeSource + Send + Sync>, IoError> {
+    if crate::store::is_store(path) {
+        if let Some(s) = voxel_size_mm
+            && s.iter().any(|v| !(v.is_finite() && *v > 0.0))
+        {
+            return Err(IoError::usage(
+                path,
+                format!("voxel size {s:?} mm is not positive and finite"),
+            ));
+        }
+        let store = crate::store::Store::open(
+            path,
+            &crate::store::StoreOptions {
+                cache_bytes,
+                max_block_bytes: cache_bytes.max(64 << 20),
+                voxel_size_mm,
+            },
+        )?;
+        return Ok(Box::new(store));
+    }
+    Ok(Box::new(open_scan(path, voxel_size_mm, &Progress::none())?))
+}
+
 /// A store's full-resolution level, read whole (refused above the voxel limit of `options`).
 fn open_store_whole(
     path: &Path,

@@ -8,7 +8,7 @@ use std::path::{Path, PathBuf};
 use super::{Project, ScanRecord, Specimen, VoxelSizeSource, project_dir, relative_path};
 use crate::io::{self, IoError, Progress};
 use crate::landmarks::fingerprint::Fingerprint;
-use crate::landmarks::scan::{open_scan, set_voxel_size};
+use crate::landmarks::scan::{open_scan, open_source, set_voxel_size};
 use crate::landmarks::scheme::{Scheme, SchemeError, is_valid_id};
 use crate::volume::{SpacingOrigin, Volume};
 
@@ -168,6 +168,47 @@ pub fn specimen_from_loaded(
         trials: Vec::new(),
     };
     Ok((specimen, volume))
+}
+
+/// Records an OME-Zarr store as a new specimen without reading it whole: the fingerprint from
+/// the sampled voxels read through the volume interface, the placement and voxel size from the
+/// store (the voxel size given in `new`, if any, overrides it). Returns the specimen and the
+/// store's grid.
+pub fn specimen_from_store(
+    project_file: &Path,
+    new: &NewSpecimen,
+) -> Result<(Specimen, [usize; 3]), CreateError> {
+    if !is_valid_id(&new.id) {
+        return Err(CreateError::BadId {
+            scan: new.scan.clone(),
+            id: new.id.clone(),
+        });
+    }
+    // a small cache: the fingerprint reads a lattice of single voxels
+    let source = open_source(&new.scan, new.voxel_size_mm, 64 << 20)?;
+    let fingerprint = Fingerprint::of_source(&new.scan, source.as_ref())?;
+    let path = relative_path(&project_dir(project_file), &new.scan)
+        .map_err(|e| IoError::os(&new.scan, e))?;
+    let record = ScanRecord {
+        path,
+        voxel_size_mm: new
+            .voxel_size_mm
+            .unwrap_or_else(|| source.level(0).spacing_mm()),
+        voxel_size_source: if new.voxel_size_mm.is_some() {
+            VoxelSizeSource::User
+        } else {
+            VoxelSizeSource::File
+        },
+        world_from_voxel: source.world_from_voxel(),
+        fingerprint,
+    };
+    let specimen = Specimen {
+        id: new.id.clone(),
+        groups: new.groups.clone(),
+        scan: record,
+        trials: Vec::new(),
+    };
+    Ok((specimen, source.dims()))
 }
 
 /// Opens a scan and records it as a new specimen (see [`specimen_from_loaded`]).

@@ -49,7 +49,10 @@ use std::path::{Path, PathBuf};
 
 use super::curve;
 use super::fingerprint::{Fingerprint, Mismatch};
-use super::scan::open_scan;
+use super::scan::{open_scan, open_source};
+
+/// A scan behind the volume interface (see [`open_source`]).
+pub type SourceBox = Box<dyn crate::volume::VolumeSource + Send + Sync>;
 use super::scheme::{Scheme, SchemeError, is_valid_id, sha256_hex};
 use crate::geometry::{Affine3, VoxelPoint, WorldPoint};
 use crate::io::{IoError, Progress};
@@ -138,14 +141,43 @@ impl ScanRecord {
         let path = self.resolve(project_file);
         let files = self.fingerprint.check_files(&path)?;
         let volume = open_scan(&path, self.voxel_size_override(), progress)?;
+        let voxels = self.fingerprint.check_volume(&path, &volume);
+        let mismatch = self.compare(path, files, voxels, volume.world_from_voxel());
+        Ok((volume, mismatch))
+    }
+
+    /// [`ScanRecord::open`] for a scan of any size: a store is read a block at a time through
+    /// a chunk cache of `cache_bytes` (see [`open_source`]), with the same checks.
+    pub fn open_source(
+        &self,
+        project_file: &Path,
+        cache_bytes: u64,
+    ) -> Result<(SourceBox, Option<Mismatch>), IoError> {
+        let path = self.resolve(project_file);
+        let files = self.fingerprint.check_files(&path)?;
+        let source = open_source(&path, self.voxel_size_override(), cache_bytes)?;
+        let voxels = self
+            .fingerprint
+            .check_source(&path, source.as_ref())
+            .map_err(|e| IoError::corrupt(&path, e.to_string()))?;
+        let mismatch = self.compare(path, files, voxels, &source.world_from_voxel());
+        Ok((source, mismatch))
+    }
+
+    /// What differs between the record and an opened scan: its files, its sampled voxels, its
+    /// placement.
+    fn compare(
+        &self,
+        path: PathBuf,
+        files: Option<Mismatch>,
+        voxels: Option<Mismatch>,
+        world_from_voxel: &Affine3,
+    ) -> Option<Mismatch> {
         let mut differences: Vec<String> = files.map(|m| m.differences).unwrap_or_default();
-        if let Some(m) = self.fingerprint.check_volume(&path, &volume) {
+        if let Some(m) = voxels {
             differences.extend(m.differences);
         }
-        let (a, b) = (
-            volume.world_from_voxel().rows(),
-            self.world_from_voxel.rows(),
-        );
+        let (a, b) = (world_from_voxel.rows(), self.world_from_voxel.rows());
         let worst = (0..4)
             .flat_map(|r| (0..4).map(move |c| (r, c)))
             .map(|(r, c)| (a[r][c] - b[r][c]).abs())
@@ -155,8 +187,7 @@ impl ScanRecord {
                 "placement (world_from_voxel) differs from the record by up to {worst:.3e} mm"
             ));
         }
-        let mismatch = (!differences.is_empty()).then_some(Mismatch { path, differences });
-        Ok((volume, mismatch))
+        (!differences.is_empty()).then_some(Mismatch { path, differences })
     }
 
     /// Compares the scan's files with the record without loading it (sizes and header hashes).
