@@ -285,21 +285,33 @@ pub fn load(path: &Path) -> Result<LabelVolume> {
 /// Opens the scan and checks it is the one the labels were made on.
 pub fn open_matching(scan: &ScanArgs, labels: &LabelVolume, labels_path: &Path) -> Result<Volume> {
     let volume = scan.open()?;
-    if volume.dims() != labels.dims() {
+    check_matching(scan, labels, labels_path, &volume)?;
+    Ok(volume)
+}
+
+/// Checks a scan read through the volume interface is the one the labels were made on (its
+/// grid, and the fingerprint the label image recorded).
+pub fn check_matching(
+    scan: &ScanArgs,
+    labels: &LabelVolume,
+    labels_path: &Path,
+    source: &dyn sutura_core::volume::VolumeSource,
+) -> Result<()> {
+    if source.dims() != labels.dims() {
         bail!(
             "{}: labels for a {:?} grid, but {} is {:?}",
             labels_path.display(),
             labels.dims(),
             scan.scan.display(),
-            volume.dims()
+            source.dims()
         );
     }
     if let Some(f) = &labels.fingerprint
-        && let Some(m) = f.check_volume(&scan.scan, &volume)
+        && let Some(m) = f.check_source(&scan.scan, source)?
     {
         bail!("{}: {m}", labels_path.display());
     }
-    Ok(volume)
+    Ok(())
 }
 
 /// Writes a selection into the target label, saves, and reports.

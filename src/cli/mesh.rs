@@ -5,8 +5,9 @@ use anyhow::{Context, Result, bail};
 use clap::Args;
 use std::path::PathBuf;
 
-use sutura_core::landmarks::pick::{IsoValue, default_iso_value, iso50};
-use sutura_core::mesh::{IntensityField, MaskField, march, smooth, write};
+use sutura_core::landmarks::pick::IsoValue;
+use sutura_core::landmarks::pick_source;
+use sutura_core::mesh::{MaskField, SourceField, march, smooth, write};
 
 use super::ScanArgs;
 
@@ -56,10 +57,12 @@ pub struct MeshArgs {
 #[allow(clippy::too_many_lines)] // reason: one command: read, select, extract, report, write
 pub fn run(a: &MeshArgs) -> Result<()> {
     let labels = a.labels.as_deref().map(super::labels::load).transpose()?;
-    let volume = match (&labels, &a.labels) {
-        (Some(lv), Some(p)) => super::labels::open_matching(&a.scan, lv, p)?,
-        _ => a.scan.open()?,
-    };
+    // through the volume interface: a store is read a few chunk layers at a time
+    let source = a.scan.open_source()?;
+    let src = source.as_ref();
+    if let (Some(lv), Some(p)) = (&labels, &a.labels) {
+        super::labels::check_matching(&a.scan, lv, p, src)?;
+    }
     let mask = match (&labels, &a.label) {
         (Some(lv), Some(name)) => {
             let m = lv.mask_of(lv.value_of(name)?);
@@ -70,21 +73,20 @@ pub fn run(a: &MeshArgs) -> Result<()> {
         }
         _ => None,
     };
+    let world_from_voxel = src.world_from_voxel();
     let started = std::time::Instant::now();
     let (mut mesh, iso_used) = if a.label_surface {
         let mask = mask.as_ref().expect("clap requires --label");
-        (
-            march::extract(&MaskField { mask }, volume.world_from_voxel()),
-            None,
-        )
+        (march::extract(&MaskField { mask }, &world_from_voxel), None)
     } else {
         // the scan's one iso-value (ISO-50, or its stated fallback) unless one is given
-        let iso_value = a
-            .iso
-            .map_or_else(|| default_iso_value(&volume), IsoValue::given);
+        let iso_value = match a.iso {
+            Some(v) => IsoValue::given(v),
+            None => pick_source::default_iso_value(src)?,
+        };
         let iso = iso_value.value;
-        let lowest = volume.stats().min;
-        let outside = match iso50(&volume) {
+        let lowest = src.intensity()?.stats.min;
+        let outside = match pick_source::iso50(src) {
             Ok(p) if p.background < iso => p.background,
             _ => lowest.min(iso - 1.0),
         };
@@ -93,16 +95,22 @@ pub fn run(a: &MeshArgs) -> Result<()> {
                 "every voxel is at or above the iso-value {iso}: the surface would be the grid's box"
             );
         }
-        let field = IntensityField {
-            volume: &volume,
+        let field = SourceField {
+            source: src,
             iso,
             outside,
             within: mask.as_ref(),
+            failed: std::sync::Mutex::new(None),
         };
-        (
-            march::extract(&field, volume.world_from_voxel()),
-            Some(iso_value),
-        )
+        let mesh = march::extract(&field, &world_from_voxel);
+        if let Some(e) = field
+            .failed
+            .into_inner()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+        {
+            bail!("{}: {e}", a.scan.scan.display());
+        }
+        (mesh, Some(iso_value))
     };
     if mesh.triangles.is_empty() {
         bail!(
@@ -122,7 +130,8 @@ pub fn run(a: &MeshArgs) -> Result<()> {
         let max_error = match &a.max_error {
             Some(t) => sutura_core::geometry::parse_length_mm(t)
                 .with_context(|| format!("--max-error {t}"))?,
-            None => volume
+            None => src
+                .level(0)
                 .spacing_mm()
                 .iter()
                 .copied()

@@ -25,7 +25,6 @@ use std::process::ExitCode;
 
 use sutura_core::geometry::VoxelSizeMm;
 use sutura_core::io::{OpenOptions, Progress};
-use sutura_core::store::{Store, StoreOptions};
 use sutura_core::volume::{Volume, VolumeSource};
 
 /// Sutura: measure fossil specimens in CT scans.
@@ -135,13 +134,11 @@ impl ScanArgs {
     /// where it lies (chunks read as needed, within `--cache-mib`); any other scan is loaded.
     pub fn open_source(&self) -> Result<Box<dyn VolumeSource>> {
         if sutura_core::store::is_store(&self.scan) {
-            let voxel_size_mm = self.voxel_size.map(|v| v.0);
-            let options = StoreOptions {
-                cache_bytes: self.cache_mib << 20,
-                max_block_bytes: (self.cache_mib << 20).max(64 << 20),
-                voxel_size_mm,
-            };
-            return Ok(Box::new(Store::open(&self.scan, &options)?));
+            return Ok(sutura_core::landmarks::scan::open_source(
+                &self.scan,
+                self.voxel_size.map(|v| v.0),
+                self.cache_mib << 20,
+            )?);
         }
         Ok(Box::new(self.open()?))
     }

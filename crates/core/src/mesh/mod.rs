@@ -81,15 +81,78 @@ impl march::Field for IntensityField<'_> {
             }
         });
         if let Some(m) = self.within {
-            let outside = self.outside as f32;
-            for j in 0..ny {
-                let row = m.row(j, k);
-                for i in 0..nx {
-                    if row[i / 64] >> (i % 64) & 1 == 0 {
-                        let o = &mut out[i + nx * j];
-                        *o = o.min(outside);
-                    }
-                }
+            lower_outside(m, k, self.outside as f32, out);
+        }
+    }
+}
+
+/// [`IntensityField`] on a scan of any size: each plane read at full resolution through the
+/// volume interface, so a store is meshed a few chunk layers at a time (the slabs of
+/// [`march::extract`] are stitched at their seams) and memory stays within the source's cache
+/// budget plus the mesh. A plane that cannot be read is an error recorded in `failed`; the
+/// plane then reads as outside and the caller refuses the mesh.
+pub struct SourceField<'a> {
+    pub source: &'a dyn crate::volume::VolumeSource,
+    pub iso: f64,
+    pub outside: f64,
+    pub within: Option<&'a BitMask>,
+    pub failed: std::sync::Mutex<Option<String>>,
+}
+
+impl march::Field for SourceField<'_> {
+    fn dims(&self) -> [usize; 3] {
+        self.source.dims()
+    }
+    fn iso(&self) -> f64 {
+        self.iso
+    }
+    fn outside(&self) -> f64 {
+        self.outside
+    }
+    fn plane(&self, k: usize, out: &mut [f32]) {
+        let [nx, ny, _] = self.source.dims();
+        let block = match self.source.read_block(0, &[0..nx, 0..ny, k..k + 1]) {
+            Ok(b) => b,
+            Err(e) => {
+                out.fill(self.outside as f32);
+                let mut f = self
+                    .failed
+                    .lock()
+                    .unwrap_or_else(std::sync::PoisonError::into_inner);
+                f.get_or_insert_with(|| format!("plane {k}: {e}"));
+                return;
+            }
+        };
+        // a whole volume is the source itself; a block read holds just this plane
+        let base = match block {
+            crate::volume::Block::Whole(_) => nx * ny * k,
+            crate::volume::Block::Read(_) => 0,
+        };
+        let rescale = block.rescale();
+        crate::with_voxels!(block.voxels(), |s| {
+            use crate::volume::Voxel;
+            for (o, v) in out.iter_mut().zip(&s[base..base + nx * ny]) {
+                *o = match rescale {
+                    None => v.to_f32(),
+                    Some(r) => r.apply(v.to_f64()) as f32,
+                };
+            }
+        });
+        if let Some(m) = self.within {
+            lower_outside(m, k, self.outside as f32, out);
+        }
+    }
+}
+
+/// Plane `k`'s values outside mask `m` lowered to at most `outside`.
+fn lower_outside(m: &BitMask, k: usize, outside: f32, out: &mut [f32]) {
+    let [nx, ny, _] = m.dims();
+    for j in 0..ny {
+        let row = m.row(j, k);
+        for i in 0..nx {
+            if row[i / 64] >> (i % 64) & 1 == 0 {
+                let o = &mut out[i + nx * j];
+                *o = o.min(outside);
             }
         }
     }
