@@ -219,16 +219,25 @@ pub fn extract_in_slabs(field: &dyn Field, world_from_voxel: &Affine3, slab_laye
     // cell layers: z from −1 (padding) to nz − 1 (the last plane and the padding above)
     let layers: Vec<isize> = (-1..nz as isize).collect();
     let flip = world_from_voxel.linear().determinant() < 0.0;
-    let slabs: Vec<Slab> = layers
-        .par_chunks(slab_layers.max(1))
-        .map(|ls| slab(field, world_from_voxel, ls[0], ls[ls.len() - 1] + 1, flip))
-        .collect();
-    stitch(slabs)
-}
-
-fn stitch(slabs: Vec<Slab>) -> Mesh {
+    let slab_layers = slab_layers.max(1);
+    // a few slabs per worker at a time, stitched onto the mesh as they finish: the slabs'
+    // own copies of their vertices and triangles never add up to a second mesh
+    let group = slab_layers * 4 * rayon::current_num_threads().max(1);
     let mut mesh = Mesh::default();
     let mut prev_last: HashMap<u64, u32> = HashMap::new();
+    for layers in layers.chunks(group) {
+        let slabs: Vec<Slab> = layers
+            .par_chunks(slab_layers)
+            .map(|ls| slab(field, world_from_voxel, ls[0], ls[ls.len() - 1] + 1, flip))
+            .collect();
+        stitch(&mut mesh, &mut prev_last, slabs);
+    }
+    mesh
+}
+
+/// Appends slabs (in order) to `mesh`, sharing the vertices on the seam with the slab before
+/// (`prev_last`: its last plane's vertices by edge key, updated to the last slab's).
+fn stitch(mesh: &mut Mesh, prev_last: &mut HashMap<u64, u32>, slabs: Vec<Slab>) {
     for s in slabs {
         let shared: HashMap<u32, u32> = s
             .first
@@ -246,13 +255,12 @@ fn stitch(slabs: Vec<Slab>) -> Mesh {
         }
         mesh.triangles
             .extend(s.triangles.iter().map(|t| t.map(|v| remap[v as usize])));
-        prev_last = s
+        *prev_last = s
             .last
             .iter()
             .map(|(key, local)| (*key, remap[*local as usize]))
             .collect();
     }
-    mesh
 }
 
 /// Cells of layers `z0..z1` (layer `z` spans planes `z` and `z + 1`; planes −1 and `nz` are

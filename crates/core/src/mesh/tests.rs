@@ -235,3 +235,45 @@ fn smoothing_keeps_the_volume_and_decimation_the_shape() {
     );
     assert!(err <= 0.5);
 }
+
+/// The edge checks of the report on meshes small enough to count by hand: one triangle (three
+/// boundary edges), two triangles sharing an edge the same way round (four, the shared one
+/// inner), the same triangle twice (each edge used twice in one direction: bad), and a
+/// tetrahedron (closed; Euler characteristic 4 − 6 + 4 = 2).
+#[test]
+fn the_report_counts_boundary_bad_and_all_edges() {
+    let v = vec![
+        [0.0, 0.0, 0.0],
+        [1.0, 0.0, 0.0],
+        [0.0, 1.0, 0.0],
+        [0.0, 0.0, 1.0],
+    ];
+    let report = |triangles: Vec<[u32; 3]>| {
+        Mesh {
+            vertices: v.clone(),
+            triangles,
+        }
+        .report()
+    };
+    let one = report(vec![[0, 1, 2]]);
+    assert_eq!(
+        (one.boundary_edges, one.bad_edges, one.closed),
+        (3, 0, false)
+    );
+    let two = report(vec![[0, 1, 2], [2, 1, 3]]);
+    assert_eq!((two.boundary_edges, two.bad_edges), (4, 0));
+    assert_eq!(two.euler_characteristic, 4 - 5 + 2);
+    let twice = report(vec![[0, 1, 2], [0, 1, 2]]);
+    assert_eq!((twice.boundary_edges, twice.bad_edges), (0, 3));
+    assert!(!twice.closed);
+    let tetra = report(vec![[0, 2, 1], [0, 1, 3], [1, 2, 3], [0, 3, 2]]);
+    assert_eq!((tetra.boundary_edges, tetra.bad_edges), (0, 0));
+    assert!(tetra.closed);
+    assert_eq!(tetra.euler_characteristic, 2);
+    assert_eq!(tetra.pieces, 1);
+    assert!(
+        (tetra.volume_mm3 - 1.0 / 6.0).abs() < 1e-12,
+        "{}",
+        tetra.volume_mm3
+    );
+}
