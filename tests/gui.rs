@@ -1471,6 +1471,13 @@ fn the_rock_specimen_is_prepared_in_the_window_as_the_command_line_prepares_it()
     h.get_by_label("Save").click();
     h.step();
     assert!(!h.state().prep().unwrap().is_dirty());
+    // the specimen's surface written as a mesh by the tab's button, and its report
+    h.get_by_label("Write PLY").click();
+    h.step();
+    let (mesh_path, report) = h.state().prep().unwrap().last_mesh.clone().unwrap();
+    assert_eq!(mesh_path, dir.path().join("RM-001-specimen.ply"));
+    assert!(mesh_path.exists());
+    assert!(report.closed, "{report:?}");
 
     // the command line, given the points the window's tools received
     let cli = dir.path().join("cli.labels.zarr");
@@ -1523,6 +1530,28 @@ fn the_rock_specimen_is_prepared_in_the_window_as_the_command_line_prepares_it()
     let truth = sutura_core::labels::BitMask::from_bytes(truth.dims(), &bytes);
     let d = dice(&window.mask_of(specimen), &truth);
     assert!(d >= 0.95, "Dice {d}");
+    // the command line's mesh of the same label: the same surface
+    let cli_mesh = dir.path().join("cli.ply");
+    let cli_report = dir.path().join("cli.json");
+    run(&[
+        "mesh",
+        "--quiet",
+        s,
+        "--labels",
+        l,
+        "--label",
+        "specimen",
+        "-o",
+        cli_mesh.to_str().unwrap(),
+        "--report",
+        cli_report.to_str().unwrap(),
+    ]);
+    let cli: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&cli_report).unwrap()).unwrap();
+    assert_eq!(cli["report"]["triangles"], report.triangles);
+    assert_eq!(cli["report"]["area_mm2"], report.area_mm2);
+    assert_eq!(cli["report"]["volume_mm3"], report.volume_mm3);
+    assert_eq!(cli["report"]["closed"], true);
 }
 
 /// Runs the command line, asserting it succeeds.
@@ -1535,5 +1564,91 @@ fn run_cli(args: &[&str]) {
         out.status.success(),
         "{args:?}: {}",
         String::from_utf8_lossy(&out.stderr)
+    );
+}
+
+/// With the 3D view keeping only the specimen label, a landmark placed on the 3D view lands on
+/// the specimen, not on a rock grain in front of it: the pick is made on the copy the view
+/// shows.
+#[test]
+fn a_surface_pick_lands_on_the_kept_specimen_not_on_the_rock() {
+    use nalgebra::Vector3;
+    use sutura::gui::{DeskCommand, GrowSettings, PrepCommand};
+    use sutura_core::geometry::WorldPoint;
+    use sutura_core::labels::region::Connectivity;
+    use sutura_core::landmarks::pick::{PickOptions, pick_view_ray};
+    let dir = tempfile::tempdir().unwrap();
+    let root = PathBuf::from(env!("CARGO_MANIFEST_DIR"));
+    let scan = dir.path().join("RM-001.nii.gz");
+    std::os::unix::fs::symlink(root.join("sample_volumes/rock/RM-001.nii.gz"), &scan).unwrap();
+    let project = dir.path().join("rock.json");
+    let (p, s) = (project.to_str().unwrap(), scan.to_str().unwrap());
+    let scheme = root.join("sample_volumes/scheme.toml");
+    run_cli(&["project", "new", p, "--scheme", scheme.to_str().unwrap()]);
+    run_cli(&["project", "add", p, s]);
+    let mut h = app_on_project(&project, named("Ana"));
+    step_until(&mut h, "the stage picture", |a| {
+        a.is_view_current(ViewId::PlaneK)
+    });
+    // the skull grown from its braincase wall, kept alone in the 3D view
+    h.get_by_label("Prepare").click();
+    h.step();
+    h.get_by_label("New label image").click();
+    h.step();
+    assert!(
+        dir.path().join("RM-001.labels.zarr").exists(),
+        "beside the project"
+    );
+    h.state_mut().send(PrepCommand::SetGrow(GrowSettings {
+        lo: 22000.0,
+        hi: f64::INFINITY,
+        connectivity: Connectivity::Faces6,
+        max_distance_mm: None,
+    }));
+    h.state_mut()
+        .send(PrepCommand::Grow(WorldPoint::new(1.224, 1.44, 1.55)));
+    h.state_mut().send(PrepCommand::SetKeptIn3d(true));
+    h.step();
+    h.step();
+    let kept = h.state().prep().unwrap().pick_volume().unwrap().clone();
+    let whole = h.state().document().scan.as_ref().unwrap().volume.clone();
+    // a vertical ray on which a grain of rock lies above the skull
+    let iso = h.state().view_state().iso.value;
+    let options = PickOptions::new(iso);
+    let down = Vector3::new(0.0, 0.0, -1.0);
+    let ray = (0..60)
+        .flat_map(|a| (0..44).map(move |b| (f64::from(a) * 0.072, f64::from(b) * 0.072)))
+        .map(|(x, y)| WorldPoint::new(x, y, 3.0))
+        .find_map(|through| {
+            let on_kept = pick_view_ray(&kept, through, down, &options).ok()??;
+            let on_whole = pick_view_ray(&whole, through, down, &options).ok()??;
+            (on_whole.point.distance_mm(on_kept.point) > 0.2).then_some((through, on_kept))
+        })
+        .expect("a ray meeting rock before the skull");
+    // place the first landmark on the 3D view along that ray
+    h.get_by_label("Landmarks").click();
+    h.step();
+    h.state_mut().send(DeskCommand::StartTrial);
+    h.step();
+    h.state_mut().send(DeskCommand::TogglePlacing);
+    h.step();
+    h.state_mut().send(DeskCommand::PlaceOnSurface {
+        through: ray.0,
+        direction: down,
+    });
+    h.step();
+    let d = h.state().desk().unwrap();
+    let current = d.session.project.specimen("RM-001").unwrap();
+    let placed = current.trials[0]
+        .landmarks
+        .iter()
+        .find_map(|l| l.position_mm)
+        .unwrap_or_else(|| panic!("nothing placed: {:?}", h.state().status()));
+    let p = ray.1.point.0;
+    assert!(
+        (placed[0] - p.x).abs() < 1e-9
+            && (placed[1] - p.y).abs() < 1e-9
+            && (placed[2] - p.z).abs() < 1e-9,
+        "{placed:?} vs {p:?}"
     );
 }

@@ -6,8 +6,7 @@ use clap::Args;
 use std::path::PathBuf;
 
 use sutura_core::landmarks::pick::IsoValue;
-use sutura_core::landmarks::pick_source;
-use sutura_core::mesh::{MaskField, SourceField, march, smooth, write};
+use sutura_core::mesh::{MaskField, march, smooth, write};
 
 use super::ScanArgs;
 
@@ -73,56 +72,19 @@ pub fn run(a: &MeshArgs) -> Result<()> {
         }
         _ => None,
     };
-    let world_from_voxel = src.world_from_voxel();
     let started = std::time::Instant::now();
     let (mut mesh, iso_used) = if a.label_surface {
         let mask = mask.as_ref().expect("clap requires --label");
-        (march::extract(&MaskField { mask }, &world_from_voxel), None)
+        let mesh = march::extract(&MaskField { mask }, &src.world_from_voxel());
+        if mesh.triangles.is_empty() {
+            bail!("{}: the label's surface is empty", a.scan.scan.display());
+        }
+        (mesh, None)
     } else {
-        // the scan's one iso-value (ISO-50, or its stated fallback) unless one is given
-        let iso_value = match a.iso {
-            Some(v) => IsoValue::given(v),
-            None => pick_source::default_iso_value(src)?,
-        };
-        let iso = iso_value.value;
-        let lowest = src.intensity()?.stats.min;
-        let outside = match pick_source::iso50(src) {
-            Ok(p) if p.background < iso => p.background,
-            _ => lowest.min(iso - 1.0),
-        };
-        if lowest >= iso && mask.is_none() {
-            bail!(
-                "every voxel is at or above the iso-value {iso}: the surface would be the grid's box"
-            );
-        }
-        let field = SourceField {
-            source: src,
-            iso,
-            outside,
-            within: mask.as_ref(),
-            failed: std::sync::Mutex::new(None),
-        };
-        let mesh = march::extract(&field, &world_from_voxel);
-        if let Some(e) = field
-            .failed
-            .into_inner()
-            .unwrap_or_else(std::sync::PoisonError::into_inner)
-        {
-            bail!("{}: {e}", a.scan.scan.display());
-        }
-        (mesh, Some(iso_value))
+        let (mesh, iso) = sutura_core::mesh::iso_surface(src, a.iso, mask.as_ref())
+            .map_err(|e| anyhow::anyhow!("{}: {e}", a.scan.scan.display()))?;
+        (mesh, Some(iso))
     };
-    if mesh.triangles.is_empty() {
-        bail!(
-            "{}: the surface is empty (no voxel reaches the iso-value{})",
-            a.scan.scan.display(),
-            if mask.is_some() {
-                " inside the label"
-            } else {
-                ""
-            }
-        );
-    }
     let extracted = mesh.triangles.len();
     smooth::taubin(&mut mesh, a.smooth);
     let mut decimation_error_mm = None;

@@ -743,6 +743,13 @@ impl App {
                     Some(s)
                 })
             }
+            // the surface the 3D view shows: its iso-value
+            PrepCommand::ExportMesh(format) => match &mut self.prep {
+                Some(p) if p.scan_id() == scan.id => p
+                    .export_mesh(&scan, format, Some(self.vs.iso.value))
+                    .map(Some),
+                _ => Ok(None),
+            },
             c => match &mut self.prep {
                 Some(p) if p.scan_id() == scan.id => p.apply(c, &scan),
                 _ => Ok(None),

@@ -23,6 +23,7 @@ use sutura_core::labels::Combine;
 use sutura_core::labels::morph::MorphOp;
 use sutura_core::labels::region::Connectivity;
 use sutura_core::landmarks::project::create::NewSpecimen;
+use sutura_core::mesh::write::MeshFormat;
 use sutura_core::render::{ColourMap, WindowLevel};
 
 /// One command, by owner.
@@ -347,6 +348,9 @@ pub enum PrepCommand {
     Combine(Combine),
     Morph(MorphOp),
     RemoveSmall,
+    /// Write the current label's surface (the scan at the 3D view's iso-value inside the
+    /// label) beside the label image, and report it.
+    ExportMesh(MeshFormat),
     Undo,
     Redo,
 }

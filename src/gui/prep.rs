@@ -19,6 +19,8 @@ use sutura_core::labels::brush::{self, BrushShape, Stroke};
 use sutura_core::labels::region::{Connectivity, GrowOptions, IntensityRange};
 use sutura_core::labels::{Combine, Edit, LabelInfo, LabelVolume, ops, zarr};
 use sutura_core::landmarks::fingerprint::Fingerprint;
+use sutura_core::mesh::MeshReport;
+use sutura_core::mesh::write::MeshFormat;
 use sutura_core::volume::Volume;
 
 /// The undo history keeps at most this many bytes of saved bricks; older steps are forgotten
@@ -111,6 +113,8 @@ pub struct Prep {
     /// The stroke being painted: what it changed so far and its last point.
     stroke: Option<(Edit, WorldPoint)>,
     kept_volume: Option<(KeptKey, Arc<Volume>)>,
+    /// The last mesh written: its file and what it measures.
+    pub last_mesh: Option<(PathBuf, MeshReport)>,
 }
 
 /// Where the window keeps a scan's label image: beside the project as `SPECIMEN.labels.zarr`
@@ -214,6 +218,7 @@ impl Prep {
             redo: Vec::new(),
             stroke: None,
             kept_volume: None,
+            last_mesh: None,
         }
     }
 
@@ -417,6 +422,66 @@ impl Prep {
         Some(self.record(edit, &what, value))
     }
 
+    /// Where the current label's mesh goes: beside the label image, named after it and the
+    /// label (`RM-001.labels.zarr`, label `specimen`: `RM-001-specimen.ply`).
+    #[must_use]
+    pub fn mesh_path(&self, format: MeshFormat) -> PathBuf {
+        let name = self
+            .path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        let stem = name.strip_suffix(".labels.zarr").unwrap_or(&name);
+        let label: String = self
+            .name_of(self.current)
+            .chars()
+            .map(|c| {
+                if c.is_alphanumeric() || c == '-' || c == '_' {
+                    c
+                } else {
+                    '_'
+                }
+            })
+            .collect();
+        self.path
+            .with_file_name(format!("{stem}-{label}.{}", format.extension()))
+    }
+
+    /// Writes the current label's surface: the scan at `iso` (else its ISO-50) inside the
+    /// label, by [`sutura_core::mesh::iso_surface`] as `sutura mesh --labels --label` makes it.
+    pub fn export_mesh(
+        &mut self,
+        scan: &Scan,
+        format: MeshFormat,
+        iso: Option<f64>,
+    ) -> Result<Status, String> {
+        self.end_stroke();
+        let (value, name) = self.current_label()?;
+        let mask = self.read().mask_of(value);
+        if mask.is_empty() {
+            return Err(format!("label {name} holds no voxel"));
+        }
+        let (mesh, iso) = sutura_core::mesh::iso_surface(&*scan.volume, iso, Some(&mask))
+            .map_err(|e| e.to_string())?;
+        let path = self.mesh_path(format);
+        let title = format!("Sutura mesh of {}, label {name}", scan.name());
+        sutura_core::mesh::write::write(&mesh, &path, &title).map_err(|e| e.to_string())?;
+        let r = mesh.report();
+        let text = format!(
+            "wrote {}: {} triangles, {:.4} mm², {:.4} mm³, {} piece{}{} (iso-value {})",
+            path.display(),
+            r.triangles,
+            r.area_mm2,
+            r.volume_mm3,
+            r.pieces,
+            if r.pieces == 1 { "" } else { "s" },
+            if r.closed { ", closed" } else { ", not closed" },
+            iso.value
+        );
+        self.last_mesh = Some((path, r));
+        Ok(Status::info(text))
+    }
+
     /// Applies a command that changes this preparation (not [`PrepCommand::Create`] or
     /// [`PrepCommand::Open`], which the app handles). Returns what to tell the user.
     #[allow(
@@ -439,6 +504,7 @@ impl Prep {
         let err = |e: sutura_core::labels::LabelsError| e.to_string();
         match cmd {
             PrepCommand::Create | PrepCommand::Open => Ok(None),
+            PrepCommand::ExportMesh(format) => self.export_mesh(scan, format, None).map(Some),
             PrepCommand::Save => self.save().map(Some),
             PrepCommand::AddLabel(name) => {
                 let name = name.trim().to_owned();

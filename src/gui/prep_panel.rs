@@ -14,6 +14,7 @@ use super::view::format_value;
 use sutura_core::labels::Combine;
 use sutura_core::labels::morph::MorphOp;
 use sutura_core::labels::region::Connectivity;
+use sutura_core::mesh::write::MeshFormat;
 
 /// The preparation tab. `path` is where the scan's label image is kept (`None`: no scan);
 /// `stage` the view on the stage, whose axis interpolation follows.
@@ -65,6 +66,8 @@ pub fn prep_ui(
         tools_ui(ui, p, out);
         ui.separator();
         steps_ui(ui, p, stage, out);
+        ui.separator();
+        mesh_ui(ui, p, out);
     });
 }
 
@@ -160,6 +163,49 @@ fn other_ui(ui: &mut Ui, p: &Prep, out: &mut Vec<Command>) {
             }
         });
     });
+}
+
+/// The current label's surface written as a mesh, and the last one's report.
+fn mesh_ui(ui: &mut Ui, p: &Prep, out: &mut Vec<Command>) {
+    ui.label(RichText::new("Surface mesh of the chosen label").strong());
+    ui.horizontal(|ui| {
+        for format in MeshFormat::ALL {
+            let path = p.mesh_path(format);
+            if ui
+                .button(format!("Write {}", format.extension().to_uppercase()))
+                .on_hover_text(format!(
+                    "the scan at the 3D view's iso-value inside the label, to {}",
+                    path.display()
+                ))
+                .clicked()
+            {
+                out.push(PrepCommand::ExportMesh(format).into());
+            }
+        }
+    });
+    if let Some((path, r)) = &p.last_mesh {
+        egui::Grid::new("prep_mesh_report")
+            .num_columns(2)
+            .spacing([8.0, 2.0])
+            .show(ui, |ui| {
+                let name = path.file_name().map_or_else(
+                    || path.display().to_string(),
+                    |n| n.to_string_lossy().into_owned(),
+                );
+                for (k, v) in [
+                    ("file", name),
+                    ("triangles", r.triangles.to_string()),
+                    ("area", format!("{} mm²", format_value(r.area_mm2))),
+                    ("volume", format!("{} mm³", format_value(r.volume_mm3))),
+                    ("pieces", r.pieces.to_string()),
+                    ("closed", if r.closed { "yes" } else { "no" }.to_owned()),
+                ] {
+                    ui.label(RichText::new(k).weak());
+                    ui.label(v);
+                    ui.end_row();
+                }
+            });
+    }
 }
 
 /// A radius in µm with its name; the new value when the user changed it.

@@ -30,7 +30,9 @@ use crate::volume::Volume;
 /// Why a mesh could not be made or written.
 #[derive(Debug, thiserror::Error)]
 pub enum MeshError {
-    #[error("the surface is empty: no voxel reaches {0} (or none of the label's does)")]
+    #[error(
+        "the surface is empty: no voxel reaches the iso-value {0} (inside the label, if one is given)"
+    )]
     Empty(f64),
     #[error("the label grid {0:?} is not the scan's {1:?}")]
     GridMismatch([usize; 3], [usize; 3]),
@@ -202,6 +204,61 @@ fn edge_counts(triangles: &[[u32; 3]]) -> (usize, usize, i64) {
         }
     }
     (boundary, bad, edges)
+}
+
+/// The surface of a scan at an iso-value, inside a label if `within` is given: `iso`, else the
+/// scan's one iso-value (ISO-50, or its stated fallback). Voxels outside the label (and
+/// outside the grid) read the histogram's background when it lies below the iso-value, else
+/// the scan's minimum (at most one below the iso-value). Read through the volume interface
+/// ([`SourceField`]), so a store is meshed a few chunk layers at a time. The rule `sutura mesh`
+/// and the workstation's mesh export share; returns the mesh and the iso-value used.
+pub fn iso_surface(
+    source: &dyn crate::volume::VolumeSource,
+    iso: Option<f64>,
+    within: Option<&BitMask>,
+) -> Result<(Mesh, crate::landmarks::pick::IsoValue), MeshError> {
+    use crate::landmarks::pick::IsoValue;
+    use crate::landmarks::pick_source;
+    let read = |e: &dyn std::fmt::Display| MeshError::Invalid(e.to_string());
+    if let Some(m) = within
+        && m.dims() != source.dims()
+    {
+        return Err(MeshError::GridMismatch(m.dims(), source.dims()));
+    }
+    let iso_value = match iso {
+        Some(v) => IsoValue::given(v),
+        None => pick_source::default_iso_value(source).map_err(|e| read(&e))?,
+    };
+    let level = iso_value.value;
+    let lowest = source.intensity().map_err(|e| read(&e))?.stats.min;
+    let outside = match pick_source::iso50(source) {
+        Ok(p) if p.background < level => p.background,
+        _ => lowest.min(level - 1.0),
+    };
+    if lowest >= level && within.is_none() {
+        return Err(MeshError::Invalid(format!(
+            "every voxel is at or above the iso-value {level}: the surface would be the grid's box"
+        )));
+    }
+    let field = SourceField {
+        source,
+        iso: level,
+        outside,
+        within,
+        failed: std::sync::Mutex::new(None),
+    };
+    let mesh = march::extract(&field, &source.world_from_voxel());
+    if let Some(e) = field
+        .failed
+        .into_inner()
+        .unwrap_or_else(std::sync::PoisonError::into_inner)
+    {
+        return Err(MeshError::Invalid(e));
+    }
+    if mesh.triangles.is_empty() {
+        return Err(MeshError::Empty(level));
+    }
+    Ok((mesh, iso_value))
 }
 
 /// Plane `k`'s values outside mask `m` lowered to at most `outside`.

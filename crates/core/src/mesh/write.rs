@@ -26,17 +26,28 @@ pub enum MeshFormat {
 }
 
 impl MeshFormat {
+    /// All three, in the order they are offered.
+    pub const ALL: [Self; 3] = [Self::Ply, Self::Stl, Self::Obj];
+
+    /// The file extension (lower case, no dot).
+    #[must_use]
+    pub const fn extension(self) -> &'static str {
+        match self {
+            Self::Ply => "ply",
+            Self::Stl => "stl",
+            Self::Obj => "obj",
+        }
+    }
+
     /// The format named by a file's extension (`.ply`, `.stl`, `.obj`, any case).
     pub fn from_path(path: &Path) -> Result<Self, MeshError> {
         let ext = path
             .extension()
             .map(|e| e.to_string_lossy().to_lowercase())
             .unwrap_or_default();
-        match ext.as_str() {
-            "ply" => Ok(Self::Ply),
-            "stl" => Ok(Self::Stl),
-            "obj" => Ok(Self::Obj),
-            _ => Err(MeshError::Invalid(format!(
+        match Self::ALL.into_iter().find(|f| f.extension() == ext) {
+            Some(f) => Ok(f),
+            None => Err(MeshError::Invalid(format!(
                 "{}: name the mesh file .ply, .stl or .obj",
                 path.display()
             ))),
