@@ -160,10 +160,15 @@ fn comparative_methods_agree_with_numpy() {
             "eb_r": eb_r,
             "ou_alpha": ou_alpha,
         });
+        // the drift check is looser than the rest: scipy's bounded search for the EB and OU
+        // maxima stops on a likelihood surface flat to rounding, so where it stops moves in the
+        // 7th digit from one CPU to another (seen: OU alpha 1.12181618 vs 1.12181636); the
+        // comparisons below with Sutura keep their own tolerances
         let py = common::Reference::new(&format!("evolution_gls_{k}"), "evolution_gls.py")
             .dir("tmp", dir.path())
             .arg(arg.to_string())
             .input(std::path::Path::new(&path))
+            .tolerance(1e-6, 1e-9)
             .run();
         let close = |a: f64, b: f64, tol: f64, what: &str| {
             assert!(

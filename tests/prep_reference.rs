@@ -352,3 +352,81 @@ fn label_image_opens_in_zarr_python() {
         serde_json::json!([0.05, 0.036, 0.036])
     );
 }
+
+/// A label image saved inside a scan's OME-Zarr store (`STORE/labels/NAME`, what `labels new`
+/// writes when given that path, and where the workstation keeps the labels of a store) is
+/// listed in the store's `labels` group, so zarr-python finds it beside the scan by the NGFF
+/// rules (reference: zarr-python 3 via `tests/python/prep_zarr_store.py`).
+#[test]
+fn a_label_image_inside_a_store_is_listed_where_ngff_readers_look() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let rock = common::root().join("sample_volumes/rock/RM-001.nii.gz");
+    let run = |args: &[&str]| {
+        let (ok, _, err) = common::run_sutura(args, d);
+        assert!(ok, "{args:?}: {err}");
+    };
+    run(&[
+        "convert",
+        rock.to_str().unwrap(),
+        "-o",
+        "rm.ome.zarr",
+        "--quiet",
+    ]);
+    let store = d.join("rm.ome.zarr");
+    let labels = store.join("labels/preparation");
+    let l = labels.to_str().unwrap();
+    run(&[
+        "labels",
+        "new",
+        "--quiet",
+        "rm.ome.zarr",
+        "-o",
+        l,
+        "--label",
+        "skull",
+        "--label",
+        "matrix",
+    ]);
+    run(&[
+        "labels",
+        "threshold",
+        "--quiet",
+        "rm.ome.zarr",
+        "--labels",
+        l,
+        "--label",
+        "skull",
+        "--range",
+        "22000:",
+    ]);
+    // saved twice: listed once
+    let opened =
+        sutura_core::store::Store::open(&store, &sutura_core::store::StoreOptions::default())
+            .unwrap();
+    assert_eq!(
+        opened.label_names().unwrap(),
+        vec!["preparation".to_owned()]
+    );
+    let lv = zarr::load(&labels).unwrap();
+    assert!(lv.counts()[1] > 0);
+    let out = common::Reference::new("prep_zarr_store_labels", "prep_zarr_store.py")
+        .dir("tmp", d)
+        .path_arg(&store)
+        .input(&store)
+        .run();
+    assert_eq!(out["labels"], serde_json::json!(["preparation"]));
+    let image = &out["images"]["preparation"];
+    assert_eq!(image["shape"], out["image_shape"]);
+    assert_eq!(image["shape"], serde_json::json!([48, 88, 120]));
+    assert_eq!(image["dtype"], "uint8");
+    assert_eq!(image["source"]["image"], "../../");
+    let counts = lv.counts();
+    for v in [0u8, 1] {
+        assert_eq!(
+            image["counts"][v.to_string()].as_u64().unwrap(),
+            counts[usize::from(v)],
+            "value {v}"
+        );
+    }
+}

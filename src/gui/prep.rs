@@ -117,11 +117,18 @@ pub struct Prep {
     pub last_mesh: Option<(PathBuf, MeshReport)>,
 }
 
-/// Where the window keeps a scan's label image: beside the project as `SPECIMEN.labels.zarr`
-/// when the scan is a project specimen's, else beside the scan as `NAME.labels.zarr` (the
-/// scan's name without its extension, as specimen ids are made).
+/// The name of the label image the window keeps inside a scan's OME-Zarr store.
+pub const STORE_LABEL_IMAGE: &str = "preparation";
+
+/// Where the window keeps a scan's label image: inside the scan's store as
+/// `STORE/labels/preparation` when the scan is an OME-Zarr store; else beside the project as
+/// `SPECIMEN.labels.zarr` when the scan is a project specimen's, else beside the scan as
+/// `NAME.labels.zarr` (the scan's name without its extension, as specimen ids are made).
 #[must_use]
 pub fn default_path(scan: &Path, project: Option<(&Path, &str)>) -> PathBuf {
+    if sutura_core::store::is_store(scan) {
+        return scan.join("labels").join(STORE_LABEL_IMAGE);
+    }
     if let Some((project, specimen)) = project {
         project
             .parent()
@@ -426,11 +433,20 @@ impl Prep {
     /// label (`RM-001.labels.zarr`, label `specimen`: `RM-001-specimen.ply`).
     #[must_use]
     pub fn mesh_path(&self, format: MeshFormat) -> PathBuf {
-        let name = self
-            .path
-            .file_name()
-            .map(|n| n.to_string_lossy().into_owned())
-            .unwrap_or_default();
+        // a label image inside a scan's store: the mesh goes beside the store
+        let (beside, name) = match sutura_core::labels::zarr::store_of(&self.path) {
+            Some(store) => (
+                store.to_path_buf(),
+                sutura_core::io::names::specimen_id_from_scan(store),
+            ),
+            None => (
+                self.path.clone(),
+                self.path
+                    .file_name()
+                    .map(|n| n.to_string_lossy().into_owned())
+                    .unwrap_or_default(),
+            ),
+        };
         let stem = name.strip_suffix(".labels.zarr").unwrap_or(&name);
         let label: String = self
             .name_of(self.current)
@@ -443,8 +459,7 @@ impl Prep {
                 }
             })
             .collect();
-        self.path
-            .with_file_name(format!("{stem}-{label}.{}", format.extension()))
+        beside.with_file_name(format!("{stem}-{label}.{}", format.extension()))
     }
 
     /// Writes the current label's surface: the scan at `iso` (else its ISO-50) inside the

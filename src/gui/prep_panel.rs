@@ -41,7 +41,10 @@ pub fn prep_ui(
             .weak(),
         );
         ui.add_space(4.0);
-        ui.label(format!("label image: {}", file_name(path)))
+        let place = sutura_core::labels::zarr::store_of(path)
+            .map(|store| format!(" in {}", file_name(store)))
+            .unwrap_or_default();
+        ui.label(format!("label image: {}{place}", file_name(path)))
             .on_hover_text(path.display().to_string());
         ui.horizontal(|ui| {
             if path.exists() {

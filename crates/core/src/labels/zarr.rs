@@ -11,10 +11,12 @@
 //! fingerprint.
 //!
 //! [`write_label_image`] and [`read_label_image`] work on any `zarrs` store at any group path,
-//! so the same code writes the labels into a scan's store as `labels/NAME`. Until scans have a
-//! store, [`save`] writes a standalone label image folder beside the project, atomically: into
-//! a temporary folder, flushed, then renamed into place; the folder it replaces is kept as
-//! `NAME.bak` until the next save (at every instant `NAME` or `NAME.bak` is a whole copy).
+//! so the same code writes the labels into a scan's store as `labels/NAME`. [`save`] writes a
+//! label image folder atomically: into a temporary folder, flushed, then renamed into place;
+//! the folder it replaces is kept as `NAME.bak` until the next save (at every instant `NAME` or
+//! `NAME.bak` is a whole copy). Saved as `STORE/labels/NAME` inside a scan's OME-Zarr store,
+//! it is also listed in the store's `labels` group, where NGFF readers look for label images;
+//! anywhere else it is a standalone label image.
 
 use rayon::prelude::*;
 use std::path::{Path, PathBuf};
@@ -290,12 +292,60 @@ pub fn save(labels: &LabelVolume, path: &Path) -> Result<(), LabelsError> {
         if let Ok(d) = std::fs::File::open(&dir) {
             let _ = d.sync_all(); // best effort: not every file system syncs folders
         }
-        Ok(())
+        register_in_store(path)
     })();
     if result.is_err() {
         let _ = std::fs::remove_dir_all(&tmp);
     }
     result
+}
+
+/// The scan store a label image at `path` lies in, when `path` is `STORE/labels/NAME` of an
+/// OME-Zarr store.
+#[must_use]
+pub fn store_of(path: &Path) -> Option<&Path> {
+    let labels = path.parent()?;
+    let store = labels.parent()?;
+    (labels.file_name()? == "labels" && crate::store::is_store(store)).then_some(store)
+}
+
+/// Lists a label image saved as `STORE/labels/NAME` in the store's `labels` group (NGFF: the
+/// group's `ome.labels` attribute), so that OME-Zarr readers find it beside the scan; a label
+/// image anywhere else is left alone.
+fn register_in_store(path: &Path) -> Result<(), LabelsError> {
+    let (Some(labels), Some(_)) = (path.parent(), store_of(path)) else {
+        return Ok(());
+    };
+    let name = path.file_name().unwrap_or_default().to_string_lossy();
+    let meta_path = labels.join("zarr.json");
+    let mut meta: Value = match std::fs::read(&meta_path) {
+        Ok(b) => serde_json::from_slice(&b)
+            .map_err(|e| file_err(&meta_path, format!("not JSON: {e}")))?,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+            json!({"zarr_format": 3, "node_type": "group", "attributes": {}})
+        }
+        Err(e) => return Err(file_err(&meta_path, e)),
+    };
+    let ome = meta
+        .as_object_mut()
+        .and_then(|m| {
+            m.entry("attributes")
+                .or_insert_with(|| json!({}))
+                .as_object_mut()
+        })
+        .map(|a| a.entry("ome").or_insert_with(|| json!({"version": "0.5"})))
+        .and_then(Value::as_object_mut)
+        .ok_or_else(|| file_err(&meta_path, "not a group's metadata"))?;
+    let list = ome
+        .entry("labels")
+        .or_insert_with(|| json!([]))
+        .as_array_mut()
+        .ok_or_else(|| file_err(&meta_path, "ome.labels is not a list"))?;
+    if list.iter().any(|v| v.as_str() == Some(&*name)) {
+        return Ok(());
+    }
+    list.push(json!(name));
+    crate::export::write_json(&meta_path, &meta).map_err(|e| file_err(&meta_path, e))
 }
 
 /// Flushes every file under a folder to disk.
