@@ -405,7 +405,7 @@ impl App {
                 .prep
                 .as_mut()
                 .filter(|p| p.scan_id() == scan.id)
-                .map(|p| p.layers(&scan));
+                .map(|p| p.layers(&scan, self.vs.iso.value));
             self.views.request(
                 workers,
                 &scan,

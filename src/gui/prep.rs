@@ -72,6 +72,8 @@ pub struct OverlayKey {
 pub struct KeptKey {
     pub revision: u64,
     pub kept: LabelSet,
+    /// The 3D view's iso-value (its bits): the kept labels' rims keep what lies below it.
+    pub iso_bits: u64,
 }
 
 /// What the views need of the preparation this frame.
@@ -303,7 +305,7 @@ impl Prep {
 
     /// What the views draw this frame. The 3D view's copy of the scan is made again when the
     /// kept labels changed and no stroke is open.
-    pub fn layers(&mut self, scan: &Scan) -> Layers {
+    pub fn layers(&mut self, scan: &Scan, iso: f64) -> Layers {
         let overlay = (!self.drawn.is_empty()).then_some(OverlayKey {
             revision: self.revision,
             drawn: self.drawn,
@@ -314,13 +316,16 @@ impl Prep {
             let key = KeptKey {
                 revision: self.revision,
                 kept: self.kept,
+                iso_bits: iso.to_bits(),
             };
             if self.kept_volume.as_ref().is_none_or(|(k, _)| *k != key) {
                 let kept = self.kept;
-                let made =
-                    sutura_core::render::labels::keep_labels(&scan.volume, &self.read(), &|v| {
-                        kept.contains(v)
-                    });
+                let made = sutura_core::render::labels::keep_labels(
+                    &scan.volume,
+                    &self.read(),
+                    &|v| kept.contains(v),
+                    Some(iso),
+                );
                 self.kept_volume = made.ok().map(|v| (key, Arc::new(v)));
             }
         }
@@ -827,7 +832,7 @@ mod tests {
         assert!(e.contains("itself"), "{e}");
         // the kept-labels copy holds the scan's minimum outside the kept label
         p.apply(PrepCommand::SetKeptIn3d(true), &s).unwrap();
-        let layers = p.layers(&s);
+        let layers = p.layers(&s, 200.0);
         let (key, kept) = layers.kept.expect("a kept copy");
         assert!(key.kept.contains(1));
         let v = |vol: &Volume, i| vol.value(sutura_core::geometry::VoxelIndex::new(i, 3, 3));

@@ -99,14 +99,29 @@ pub fn blend_labels(
 
 /// A copy of `volume` in which every voxel outside the labels for which `keep` is true holds
 /// the scan's smallest stored value, so that surfaces and projections show only the kept
-/// labels' material. `labels` must be on the volume's grid.
+/// labels' material. With `iso` (rescaled units), the voxels just outside the labels (sharing
+/// a face with a kept voxel) keep their value when it lies below `iso`: a surface at `iso`
+/// then meets the background where it did in the scan, smooth, instead of following the
+/// labels' voxel steps; where a kept label touches other material, that material's first voxel
+/// is lowered too and the surface closes between the two. `labels` must be on the volume's
+/// grid.
 pub fn keep_labels(
     volume: &Volume,
     labels: &LabelVolume,
     keep: &(dyn Fn(u8) -> bool + Sync),
+    iso: Option<f64>,
 ) -> Result<Volume, VolumeError> {
     let mask = labels.mask_where(keep);
-    let [nx, ny, _] = volume.dims();
+    let [nx, ny, nz] = volume.dims();
+    let rescale = volume.rescale();
+    let beside = |i: usize, j: usize, k: usize| {
+        (i > 0 && mask.get(i - 1, j, k))
+            || (i + 1 < nx && mask.get(i + 1, j, k))
+            || (j > 0 && mask.get(i, j - 1, k))
+            || (j + 1 < ny && mask.get(i, j + 1, k))
+            || (k > 0 && mask.get(i, j, k - 1))
+            || (k + 1 < nz && mask.get(i, j, k + 1))
+    };
     let mut out = crate::with_voxels!(volume.voxels(), |s| {
         let low = s
             .iter()
@@ -116,7 +131,15 @@ pub fn keep_labels(
         data.par_chunks_mut(nx).enumerate().for_each(|(r, line)| {
             let (j, k) = (r % ny, r / ny);
             for (i, x) in line.iter_mut().enumerate() {
-                if !mask.get(i, j, k) {
+                if mask.get(i, j, k) {
+                    continue;
+                }
+                let below_iso = iso.is_some_and(|level| {
+                    use crate::volume::Voxel;
+                    let v = x.to_f64();
+                    rescale.map_or(v, |r| r.apply(v)) < level
+                });
+                if !(below_iso && beside(i, j, k)) {
                     *x = low;
                 }
             }
@@ -253,12 +276,33 @@ mod tests {
     #[test]
     fn keeping_a_label_lowers_everything_else_to_the_minimum() {
         let (v, l) = scan();
-        let kept = keep_labels(&v, &l, &|x| x == 1).unwrap();
+        let kept = keep_labels(&v, &l, &|x| x == 1, None).unwrap();
         assert_eq!(kept.dims(), v.dims());
         assert_eq!(kept.world_from_voxel().rows(), v.world_from_voxel().rows());
         let at = |vol: &Volume, i, j, k| vol.value(crate::geometry::VoxelIndex::new(i, j, k));
         assert_eq!(at(&kept, 2, 3, 1), at(&v, 2, 3, 1));
         assert_eq!(at(&kept, 5, 1, 1), Some(10.0));
         assert_eq!(at(&kept, 7, 5, 3), Some(10.0));
+        // with an iso-value: the kept voxel's face neighbours below it keep their values, those
+        // at or above it and every voxel further away are lowered (voxel (i, j, k) holds
+        // 10 + i + 8j + 48k)
+        let kept = keep_labels(&v, &l, &|x| x == 1, Some(100.0)).unwrap();
+        assert_eq!(at(&kept, 2, 3, 1), at(&v, 2, 3, 1));
+        assert_eq!(
+            at(&kept, 1, 3, 1),
+            Some(83.0),
+            "beside, below the iso-value"
+        );
+        assert_eq!(
+            at(&kept, 2, 3, 2),
+            Some(10.0),
+            "beside, above it: 132 lowered"
+        );
+        assert_eq!(at(&kept, 0, 3, 1), Some(10.0), "not beside");
+        assert_eq!(
+            at(&kept, 1, 2, 1),
+            Some(10.0),
+            "only faces count, not edges"
+        );
     }
 }
