@@ -496,7 +496,7 @@ impl Prep {
             r.pieces,
             if r.pieces == 1 { "" } else { "s" },
             if r.closed { ", closed" } else { ", not closed" },
-            iso.value
+            super::view::format_value(iso.value)
         );
         self.last_mesh = Some((path, r));
         Ok(Status::info(text))
