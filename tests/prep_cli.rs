@@ -668,3 +668,53 @@ fn sample_rock_regenerates_the_bundled_files() {
         );
     }
 }
+
+/// Negative numbers are values, not options: an intensity range below zero (CT in Hounsfield
+/// units) and points with negative coordinates are taken as given.
+#[test]
+fn negative_values_are_read_as_values() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let l = fresh(d);
+    let (s, l) = (rock(), l);
+    let (s, l) = (s.to_str().unwrap(), l.to_str().unwrap());
+    let out = run_sutura(
+        &[
+            "labels",
+            "threshold",
+            "--quiet",
+            s,
+            "--labels",
+            l,
+            "--label",
+            "matrix",
+            "--range",
+            "-500:14000",
+        ],
+        d,
+    );
+    assert!(out.0, "{}", out.2);
+    assert!(label_mask(Path::new(l), "matrix").count() > 0);
+    // a point outside the scan, given with negative coordinates: the scan's own refusal
+    let (ok, _, err) = run_sutura(
+        &[
+            "labels",
+            "keep-piece",
+            "--quiet",
+            s,
+            "--labels",
+            l,
+            "--label",
+            "matrix",
+            "--at",
+            "-1,-2,-3",
+        ],
+        d,
+    );
+    assert!(!ok);
+    assert!(err.contains("lies outside the scan"), "{err}");
+    // a negative iso-value reaches the mesh's own check
+    let (ok, _, err) = run_sutura(&["mesh", "--quiet", s, "-o", "m.ply", "--iso", "-100"], d);
+    assert!(!ok);
+    assert!(err.contains("at or above the iso-value -100"), "{err}");
+}

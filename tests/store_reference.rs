@@ -500,3 +500,106 @@ fn a_store_specimen_is_recorded_and_picked_a_block_at_a_time() {
     };
     assert!(body("m.ply") == body("n.ply"), "the meshes differ");
 }
+
+/// The `labels` commands that need only the grid, the placement or one pass over the voxels
+/// (new, threshold, brush, keep-piece, export) read a store through the volume interface, here
+/// through a cache of one MiB so chunks are evicted as the planes move on: the label images
+/// and the exported mask are those made on its `NIfTI` source.
+#[test]
+fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    sutura_core::io::nifti::write(&scan(), &d.join("scan.nii")).unwrap();
+    let run = |args: &[&str]| {
+        let (ok, out, err) = run_sutura(args, d);
+        assert!(ok, "{args:?}: {err}");
+        out
+    };
+    run(&[
+        "convert",
+        "scan.nii",
+        "-o",
+        "scan.ome.zarr",
+        "--chunk",
+        "16",
+        "--quiet",
+    ]);
+    for (scan, labels, mask) in [
+        ("scan.nii", "n.labels.zarr", "n_mask.nii"),
+        ("scan.ome.zarr", "s.labels.zarr", "s_mask.nii"),
+    ] {
+        let small = ["--cache-mib", "1", "--quiet"];
+        let with = |args: &[&str]| {
+            let mut all = args.to_vec();
+            all.extend_from_slice(&small);
+            run(&all);
+        };
+        with(&[
+            "labels", "new", scan, "-o", labels, "--label", "ball", "--label", "rest",
+        ]);
+        with(&[
+            "labels",
+            "threshold",
+            scan,
+            "--labels",
+            labels,
+            "--label",
+            "ball",
+            "--range",
+            "1500:",
+            "--box",
+            "0:45,0:38,3:20",
+        ]);
+        with(&[
+            "labels",
+            "brush",
+            scan,
+            "--labels",
+            labels,
+            "--label",
+            "rest",
+            "--points",
+            "-0.8,0.7,2.2;-0.5,0.9,2.2",
+            "--radius",
+            "60um",
+        ]);
+        with(&[
+            "labels",
+            "keep-piece",
+            scan,
+            "--labels",
+            labels,
+            "--label",
+            "ball",
+            "--at-voxel",
+            "22,19,10",
+        ]);
+        with(&[
+            "labels", "export", scan, "--labels", labels, "--label", "ball", "-o", mask,
+        ]);
+    }
+    let load = |p: &str| sutura_core::labels::zarr::load(&d.join(p)).unwrap();
+    let (n, s) = (load("n.labels.zarr"), load("s.labels.zarr"));
+    for name in ["ball", "rest"] {
+        let (a, b) = (
+            n.mask_of(n.value_of(name).unwrap()),
+            s.mask_of(s.value_of(name).unwrap()),
+        );
+        assert!(a.count() > 0, "{name} is empty");
+        assert!(a.words() == b.words(), "{name} differs");
+    }
+    let open = |p: &str| {
+        sutura_core::io::open(
+            &d.join(p),
+            &sutura_core::io::OpenOptions::default(),
+            &sutura_core::io::Progress::none(),
+        )
+        .unwrap()
+    };
+    let (a, b) = (open("n_mask.nii"), open("s_mask.nii"));
+    assert_eq!(a.world_from_voxel().rows(), b.world_from_voxel().rows());
+    let bytes = |v: &Volume| -> Vec<f64> {
+        sutura_core::with_voxels!(v.voxels(), |s| s.iter().map(|x| f64::from(*x)).collect())
+    };
+    assert!(bytes(&a) == bytes(&b), "the exported masks differ");
+}

@@ -17,7 +17,7 @@ use sutura_core::labels::morph::MorphOp;
 use sutura_core::labels::region::{Connectivity, GrowOptions, IntensityRange};
 use sutura_core::labels::{self, BitMask, Combine, LabelVolume, zarr};
 use sutura_core::landmarks::fingerprint::Fingerprint;
-use sutura_core::volume::Volume;
+use sutura_core::volume::{Volume, VolumeSource};
 
 use super::ScanArgs;
 
@@ -119,7 +119,7 @@ pub struct ThresholdArgs {
     #[command(flatten)]
     mode: ModeArgs,
     /// Intensity range LO:HI (closed; an empty end is open), rescaled units.
-    #[arg(long, value_name = "LO:HI")]
+    #[arg(long, value_name = "LO:HI", allow_hyphen_values = true)]
     range: String,
     /// Only within this label.
     #[arg(long, value_name = "NAME")]
@@ -138,13 +138,18 @@ pub struct GrowArgs {
     #[command(flatten)]
     mode: ModeArgs,
     /// The seed in world mm `x,y,z`.
-    #[arg(long, value_name = "X,Y,Z", conflicts_with = "seed_voxel")]
+    #[arg(
+        long,
+        value_name = "X,Y,Z",
+        conflicts_with = "seed_voxel",
+        allow_hyphen_values = true
+    )]
     seed: Option<String>,
     /// The seed as a voxel index `i,j,k`.
     #[arg(long, value_name = "I,J,K")]
     seed_voxel: Option<String>,
     /// Intensity range LO:HI the region grows through.
-    #[arg(long, value_name = "LO:HI")]
+    #[arg(long, value_name = "LO:HI", allow_hyphen_values = true)]
     range: String,
     /// 6 (faces) or 26 (faces, edges, corners).
     #[arg(long, default_value_t = 6)]
@@ -164,7 +169,12 @@ pub struct PieceArgs {
     #[command(flatten)]
     target: TargetArgs,
     /// A point of the piece to keep, world mm `x,y,z`.
-    #[arg(long, value_name = "X,Y,Z", conflicts_with = "at_voxel")]
+    #[arg(
+        long,
+        value_name = "X,Y,Z",
+        conflicts_with = "at_voxel",
+        allow_hyphen_values = true
+    )]
     at: Option<String>,
     /// The same as a voxel index `i,j,k`.
     #[arg(long, value_name = "I,J,K")]
@@ -191,7 +201,7 @@ pub struct BrushArgs {
     #[command(flatten)]
     target: TargetArgs,
     /// The stroke's points in world mm: `x,y,z;x,y,z;…`.
-    #[arg(long, value_name = "X,Y,Z;…")]
+    #[arg(long, value_name = "X,Y,Z;…", allow_hyphen_values = true)]
     points: String,
     /// Brush radius (e.g. `80um`).
     #[arg(long, value_name = "LEN")]
@@ -287,6 +297,19 @@ pub fn open_matching(scan: &ScanArgs, labels: &LabelVolume, labels_path: &Path) 
     let volume = scan.open()?;
     check_matching(scan, labels, labels_path, &volume)?;
     Ok(volume)
+}
+
+/// [`open_matching`] through the volume interface: a store is opened where it lies (chunks
+/// read as needed within `--cache-mib`), so the commands that need only the grid, the
+/// placement or a pass over the voxels work on scans of any size.
+pub fn open_matching_source(
+    scan: &ScanArgs,
+    labels: &LabelVolume,
+    labels_path: &Path,
+) -> Result<Box<dyn VolumeSource>> {
+    let source = scan.open_source()?;
+    check_matching(scan, labels, labels_path, source.as_ref())?;
+    Ok(source)
 }
 
 /// Checks a scan read through the volume interface is the one the labels were made on (its
@@ -395,12 +418,15 @@ fn point_voxel(
     mm: Option<&str>,
     voxel: Option<&str>,
     what: &str,
-    volume: &Volume,
+    volume: &dyn VolumeSource,
 ) -> Result<[usize; 3]> {
     match (mm, voxel) {
         (Some(t), _) => {
             let [x, y, z] = parse_triple(t, what)?;
-            let v = volume.world_to_voxel(WorldPoint::new(x, y, z));
+            let v = volume
+                .world_from_voxel()
+                .inverse()
+                .world_to_voxel(WorldPoint::new(x, y, z));
             let VoxelIndex { i, j, k } = v
                 .nearest_index(volume.dims())
                 .with_context(|| format!("{what} {t} mm lies outside the scan"))?;
@@ -425,9 +451,10 @@ fn length(text: &str, what: &str) -> Result<f64> {
 }
 
 fn run_new(a: &NewArgs) -> Result<()> {
-    let volume = a.scan.open()?;
-    let mut lv = LabelVolume::new(volume.dims(), volume.spacing_mm());
-    lv.fingerprint = Some(Fingerprint::of(&a.scan.scan, &volume)?);
+    // the grid, voxel size and fingerprint: a store is not read whole for them
+    let source = a.scan.open_source()?;
+    let mut lv = LabelVolume::new(source.dims(), source.level(0).spacing_mm());
+    lv.fingerprint = Some(Fingerprint::of_source(&a.scan.scan, source.as_ref())?);
     for n in &a.names {
         lv.add_label(n)?;
     }
@@ -503,20 +530,20 @@ fn run_info(a: &InfoArgs) -> Result<()> {
 
 fn run_threshold(a: &ThresholdArgs) -> Result<()> {
     let lv = load(&a.target.labels)?;
-    let volume = open_matching(&a.scan, &lv, &a.target.labels)?;
+    let source = open_matching_source(&a.scan, &lv, &a.target.labels)?;
     let range = parse_range(&a.range)?;
     let within = a.within.as_deref().map(|n| lv.value_of(n)).transpose()?;
     let bounds = a
         .bounds
         .as_deref()
-        .map(|b| super::convert::parse_crop(b, volume.dims()))
+        .map(|b| super::convert::parse_crop(b, source.dims()))
         .transpose()?;
     let mut lv = lv;
     let value = lv.value_or_add(&a.target.label)?;
     let before = lv.counts()[usize::from(value)];
     let edit = labels::ops::threshold_label(
         &mut lv,
-        &volume,
+        source.as_ref(),
         value,
         range,
         within,
@@ -558,8 +585,13 @@ fn run_grow(a: &GrowArgs) -> Result<()> {
 
 fn run_piece(a: &PieceArgs) -> Result<()> {
     let lv = load(&a.target.labels)?;
-    let volume = open_matching(&a.scan, &lv, &a.target.labels)?;
-    let at = point_voxel(a.at.as_deref(), a.at_voxel.as_deref(), "at", &volume)?;
+    let source = open_matching_source(&a.scan, &lv, &a.target.labels)?;
+    let at = point_voxel(
+        a.at.as_deref(),
+        a.at_voxel.as_deref(),
+        "at",
+        source.as_ref(),
+    )?;
     let mut lv = lv;
     let value = lv.value_of(&a.target.label)?;
     let before = lv.counts()[usize::from(value)];
@@ -594,7 +626,7 @@ fn run_small(a: &SmallArgs) -> Result<()> {
 
 fn run_brush(a: &BrushArgs) -> Result<()> {
     let mut lv = load(&a.target.labels)?;
-    let volume = open_matching(&a.scan, &lv, &a.target.labels)?;
+    let source = open_matching_source(&a.scan, &lv, &a.target.labels)?;
     let points = a
         .points
         .split(';')
@@ -621,7 +653,7 @@ fn run_brush(a: &BrushArgs) -> Result<()> {
     };
     let edit = labels::brush::paint(
         &mut lv,
-        volume.world_from_voxel(),
+        &source.world_from_voxel(),
         &stroke,
         value,
         mode,
@@ -700,9 +732,9 @@ fn run_combine(a: &CombineArgs) -> Result<()> {
 
 fn run_export(a: &ExportArgs) -> Result<()> {
     let lv = load(&a.labels)?;
-    let volume = open_matching(&a.scan, &lv, &a.labels)?;
+    let source = open_matching_source(&a.scan, &lv, &a.labels)?;
     let m = lv.mask_of(lv.value_of(&a.label)?);
-    let out = Volume::from_vec(volume.dims(), *volume.world_from_voxel(), m.to_bytes())?;
+    let out = Volume::from_vec(source.dims(), source.world_from_voxel(), m.to_bytes())?;
     sutura_core::io::nifti::write(&out, &a.output)?;
     eprintln!(
         "wrote {} ({} voxels of {})",

@@ -162,7 +162,7 @@ pub struct PickArgs {
     /// The iso-value separating material from background, in the scan's grey values
     /// (default: the scan's ISO-50, halfway between the histogram's background and material
     /// peaks; the same value the workstation's 3D view and snapping use).
-    #[arg(long, value_name = "GREY")]
+    #[arg(long, value_name = "GREY", allow_hyphen_values = true)]
     pub iso_value: Option<f64>,
     /// How far along the ray to search (default: through the whole scan), e.g. 2mm.
     #[arg(long, value_name = "LEN")]

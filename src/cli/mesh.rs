@@ -28,7 +28,12 @@ pub struct MeshArgs {
     label: Option<String>,
 
     /// Iso-value in rescaled units (default: the scan's ISO-50).
-    #[arg(long, value_name = "VALUE", conflicts_with = "label_surface")]
+    #[arg(
+        long,
+        value_name = "VALUE",
+        conflicts_with = "label_surface",
+        allow_hyphen_values = true
+    )]
     iso: Option<f64>,
 
     /// Mesh the label's voxels themselves (vertices at edge midpoints) instead of the

@@ -678,7 +678,7 @@ impl Prep {
                 let within = (self.other != 0).then_some(self.other);
                 let edit = ops::threshold_label(
                     &mut self.write(),
-                    volume,
+                    &**volume,
                     value,
                     range,
                     within,

@@ -11,18 +11,19 @@ use super::interp::interpolate;
 use super::morph::{MorphOp, morph};
 use super::region::{
     Connectivity, GrowOptions, IntensityRange, fill_holes, grow, keep_piece_at, remove_small,
-    threshold,
+    threshold_source,
 };
 use super::{Combine, Edit, LabelVolume, LabelsError};
 use crate::volume::Volume;
 
 /// Selects the voxels whose value lies in `range`, within label `within` (anywhere when
 /// `None`) and the voxel box `bounds` (the whole grid when `None`), and applies them to label
-/// `value` in `mode`.
+/// `value` in `mode`. The scan is read through the volume interface (a store 16 planes at a
+/// time).
 #[allow(clippy::too_many_arguments)] // reason: the command line's options, one by one
 pub fn threshold_label(
     labels: &mut LabelVolume,
-    volume: &Volume,
+    source: &dyn crate::volume::VolumeSource,
     value: u8,
     range: IntensityRange,
     within: Option<u8>,
@@ -30,8 +31,11 @@ pub fn threshold_label(
     mode: Combine,
     overwrite: bool,
 ) -> Result<Edit, LabelsError> {
+    if source.dims() != labels.dims() {
+        return Err(LabelsError::GridMismatch(labels.dims(), source.dims()));
+    }
     let within = within.map(|w| labels.mask_of(w));
-    let sel = threshold(volume, range, within.as_ref(), bounds);
+    let sel = threshold_source(source, range, within.as_ref(), bounds)?;
     labels.apply(&sel, value, mode, overwrite)
 }
 

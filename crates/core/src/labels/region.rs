@@ -88,6 +88,46 @@ pub fn threshold(
     m
 }
 
+/// [`threshold`] on a scan of any size: a store is read at full resolution 16 planes at a time
+/// through the volume interface (only the planes `bounds` spans), so its voxels are never held
+/// whole; the selection itself is one bit per voxel of the grid.
+pub fn threshold_source(
+    source: &dyn crate::volume::VolumeSource,
+    range: IntensityRange,
+    within: Option<&BitMask>,
+    bounds: Option<&[Range<usize>; 3]>,
+) -> Result<BitMask, LabelsError> {
+    if let Some(v) = source.whole() {
+        return Ok(threshold(v, range, within, bounds));
+    }
+    let dims = source.dims();
+    let [nx, ny, nz] = dims;
+    let mut m = BitMask::new(dims);
+    let planes = bounds.map_or(0..nz, |b| b[2].start.min(nz)..b[2].end.min(nz));
+    let mut z0 = planes.start;
+    while z0 < planes.end {
+        let z1 = (z0 + 16).min(planes.end);
+        let block = source
+            .read_block(0, &[0..nx, 0..ny, z0..z1])
+            .map_err(|e| LabelsError::Invalid(e.to_string()))?;
+        // the block's own planes, placed at z0 in the grid
+        let part = threshold(&block, range, None, None);
+        for k in 0..z1 - z0 {
+            for j in 0..ny {
+                m.row_mut(j, z0 + k).copy_from_slice(part.row(j, k));
+            }
+        }
+        z0 = z1;
+    }
+    if let Some(w) = within {
+        m.and_with(w);
+    }
+    if let Some(b) = bounds {
+        m.keep_box(b);
+    }
+    Ok(m)
+}
+
 /// The voxels with `lo ≤ value ≤ hi`, 64 at a time, planes in parallel.
 fn in_range_bits<T: Voxel>(s: &[T], dims: [usize; 3], lo: f64, hi: f64) -> BitMask {
     use rayon::prelude::*;
