@@ -501,8 +501,8 @@ fn a_store_specimen_is_recorded_and_picked_a_block_at_a_time() {
     assert!(body("m.ply") == body("n.ply"), "the meshes differ");
 }
 
-/// The `labels` commands that need only the grid, the placement or one pass over the voxels
-/// (new, threshold, brush, keep-piece, export) read a store through the volume interface, here
+/// The `labels` commands (new, threshold, grow, brush, keep-piece, export) read a store through
+/// the volume interface, here
 /// through a cache of one MiB so chunks are evicted as the planes move on: the label images
 /// and the exported mask are those made on its `NIfTI` source.
 #[test]
@@ -536,6 +536,21 @@ fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
         };
         with(&[
             "labels", "new", scan, "-o", labels, "--label", "ball", "--label", "rest",
+        ]);
+        with(&[
+            "labels",
+            "grow",
+            scan,
+            "--labels",
+            labels,
+            "--label",
+            "core",
+            "--seed-voxel",
+            "22,19,14",
+            "--range",
+            "1900:",
+            "--max-distance",
+            "150um",
         ]);
         with(&[
             "labels",
@@ -580,7 +595,7 @@ fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
     }
     let load = |p: &str| sutura_core::labels::zarr::load(&d.join(p)).unwrap();
     let (n, s) = (load("n.labels.zarr"), load("s.labels.zarr"));
-    for name in ["ball", "rest"] {
+    for name in ["ball", "rest", "core"] {
         let (a, b) = (
             n.mask_of(n.value_of(name).unwrap()),
             s.mask_of(s.value_of(name).unwrap()),

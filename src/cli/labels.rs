@@ -292,16 +292,9 @@ pub fn load(path: &Path) -> Result<LabelVolume> {
     Ok(zarr::load(path)?)
 }
 
-/// Opens the scan and checks it is the one the labels were made on.
-pub fn open_matching(scan: &ScanArgs, labels: &LabelVolume, labels_path: &Path) -> Result<Volume> {
-    let volume = scan.open()?;
-    check_matching(scan, labels, labels_path, &volume)?;
-    Ok(volume)
-}
-
-/// [`open_matching`] through the volume interface: a store is opened where it lies (chunks
-/// read as needed within `--cache-mib`), so the commands that need only the grid, the
-/// placement or a pass over the voxels work on scans of any size.
+/// Opens the scan through the volume interface and checks it is the one the labels were made
+/// on: a store is opened where it lies (chunks read as needed within `--cache-mib`), so every
+/// command works on scans of any size.
 pub fn open_matching_source(
     scan: &ScanArgs,
     labels: &LabelVolume,
@@ -556,8 +549,13 @@ fn run_threshold(a: &ThresholdArgs) -> Result<()> {
 
 fn run_grow(a: &GrowArgs) -> Result<()> {
     let lv = load(&a.target.labels)?;
-    let volume = open_matching(&a.scan, &lv, &a.target.labels)?;
-    let seed = point_voxel(a.seed.as_deref(), a.seed_voxel.as_deref(), "seed", &volume)?;
+    let source = open_matching_source(&a.scan, &lv, &a.target.labels)?;
+    let seed = point_voxel(
+        a.seed.as_deref(),
+        a.seed_voxel.as_deref(),
+        "seed",
+        source.as_ref(),
+    )?;
     let options = GrowOptions {
         range: parse_range(&a.range)?,
         connectivity: Connectivity::from_count(a.connectivity)?,
@@ -572,7 +570,7 @@ fn run_grow(a: &GrowArgs) -> Result<()> {
     let before = lv.counts()[usize::from(value)];
     let edit = labels::ops::grow_label(
         &mut lv,
-        &volume,
+        source.as_ref(),
         value,
         seed,
         &options,

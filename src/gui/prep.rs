@@ -629,7 +629,7 @@ impl Prep {
                 };
                 let edit = ops::grow_label(
                     &mut self.write(),
-                    volume,
+                    &**volume,
                     value,
                     seed,
                     &options,

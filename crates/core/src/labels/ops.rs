@@ -14,7 +14,6 @@ use super::region::{
     threshold_source,
 };
 use super::{Combine, Edit, LabelVolume, LabelsError};
-use crate::volume::Volume;
 
 /// Selects the voxels whose value lies in `range`, within label `within` (anywhere when
 /// `None`) and the voxel box `bounds` (the whole grid when `None`), and applies them to label
@@ -62,7 +61,7 @@ pub fn combine_labels(
 #[allow(clippy::too_many_arguments)] // reason: the command line's options, one by one
 pub fn grow_label(
     labels: &mut LabelVolume,
-    volume: &Volume,
+    volume: &dyn crate::volume::VolumeSource,
     value: u8,
     seed: [usize; 3],
     options: &GrowOptions,

@@ -171,7 +171,7 @@ pub struct GrowOptions {
 /// The voxels it may enter are found first, 64 at a time ([`threshold`] with `within`, rows
 /// cut to the distance limit); the flood then works on whole words of that mask.
 pub fn grow(
-    volume: &Volume,
+    volume: &dyn crate::volume::VolumeSource,
     seed: [usize; 3],
     options: &GrowOptions,
     within: Option<&BitMask>,
@@ -180,11 +180,13 @@ pub fn grow(
     if (0..3).any(|a| seed[a] >= dims[a]) {
         return Err(LabelsError::Outside(format!("seed voxel {seed:?}"), dims));
     }
-    let mut allowed = threshold(volume, options.range, within, None);
+    // a scan of any size: the voxels in range are found a slab at a time, the flood runs on
+    // their bits (one per voxel)
+    let mut allowed = threshold_source(volume, options.range, within, None)?;
     if let Some(d) = options.max_distance_mm {
         let limit = Limit {
             seed,
-            spacing: volume.spacing_mm(),
+            spacing: volume.level(0).spacing_mm(),
             r2: d * d,
         };
         let [nx, ny, nz] = dims;
@@ -200,7 +202,21 @@ pub fn grow(
         }
     }
     if !allowed.get(seed[0], seed[1], seed[2]) {
-        let v = volume.value(crate::geometry::VoxelIndex::new(seed[0], seed[1], seed[2]));
+        let at = crate::geometry::VoxelIndex::new(seed[0], seed[1], seed[2]);
+        let v = match volume.whole() {
+            Some(whole) => whole.value(at),
+            None => volume
+                .read_block(
+                    0,
+                    &[
+                        seed[0]..seed[0] + 1,
+                        seed[1]..seed[1] + 1,
+                        seed[2]..seed[2] + 1,
+                    ],
+                )
+                .ok()
+                .and_then(|b| b.value(crate::geometry::VoxelIndex::new(0, 0, 0))),
+        };
         return Err(LabelsError::Invalid(format!(
             "the seed voxel {seed:?} (value {}) is not in the range {}..{}{}",
             v.unwrap_or(f64::NAN),
