@@ -528,70 +528,7 @@ fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
         ("scan.nii", "n.labels.zarr", "n_mask.nii"),
         ("scan.ome.zarr", "s.labels.zarr", "s_mask.nii"),
     ] {
-        let small = ["--cache-mib", "1", "--quiet"];
-        let with = |args: &[&str]| {
-            let mut all = args.to_vec();
-            all.extend_from_slice(&small);
-            run(&all);
-        };
-        with(&[
-            "labels", "new", scan, "-o", labels, "--label", "ball", "--label", "rest",
-        ]);
-        with(&[
-            "labels",
-            "grow",
-            scan,
-            "--labels",
-            labels,
-            "--label",
-            "core",
-            "--seed-voxel",
-            "22,19,14",
-            "--range",
-            "1900:",
-            "--max-distance",
-            "150um",
-        ]);
-        with(&[
-            "labels",
-            "threshold",
-            scan,
-            "--labels",
-            labels,
-            "--label",
-            "ball",
-            "--range",
-            "1500:",
-            "--box",
-            "0:45,0:38,3:20",
-        ]);
-        with(&[
-            "labels",
-            "brush",
-            scan,
-            "--labels",
-            labels,
-            "--label",
-            "rest",
-            "--points",
-            "-0.8,0.7,2.2;-0.5,0.9,2.2",
-            "--radius",
-            "60um",
-        ]);
-        with(&[
-            "labels",
-            "keep-piece",
-            scan,
-            "--labels",
-            labels,
-            "--label",
-            "ball",
-            "--at-voxel",
-            "22,19,10",
-        ]);
-        with(&[
-            "labels", "export", scan, "--labels", labels, "--label", "ball", "-o", mask,
-        ]);
+        prepare(&run, scan, labels, mask);
     }
     let load = |p: &str| sutura_core::labels::zarr::load(&d.join(p)).unwrap();
     let (n, s) = (load("n.labels.zarr"), load("s.labels.zarr"));
@@ -617,4 +554,74 @@ fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
         sutura_core::with_voxels!(v.voxels(), |s| s.iter().map(|x| f64::from(*x)).collect())
     };
     assert!(bytes(&a) == bytes(&b), "the exported masks differ");
+}
+
+/// One scan labelled by the commands of the test above, each through a cache of one MiB:
+/// labels `ball` (threshold in a box, kept piece), `core` (a grown region) and `rest` (a
+/// stroke), and `ball` exported as a mask.
+fn prepare(run: &dyn Fn(&[&str]) -> String, scan: &str, labels: &str, mask: &str) {
+    let small = ["--cache-mib", "1", "--quiet"];
+    let with = |args: &[&str]| {
+        let mut all = args.to_vec();
+        all.extend_from_slice(&small);
+        run(&all);
+    };
+    with(&[
+        "labels", "new", scan, "-o", labels, "--label", "ball", "--label", "rest",
+    ]);
+    with(&[
+        "labels",
+        "grow",
+        scan,
+        "--labels",
+        labels,
+        "--label",
+        "core",
+        "--seed-voxel",
+        "22,19,14",
+        "--range",
+        "1900:",
+        "--max-distance",
+        "150um",
+    ]);
+    with(&[
+        "labels",
+        "threshold",
+        scan,
+        "--labels",
+        labels,
+        "--label",
+        "ball",
+        "--range",
+        "1500:",
+        "--box",
+        "0:45,0:38,3:20",
+    ]);
+    with(&[
+        "labels",
+        "brush",
+        scan,
+        "--labels",
+        labels,
+        "--label",
+        "rest",
+        "--points",
+        "-0.8,0.7,2.2;-0.5,0.9,2.2",
+        "--radius",
+        "60um",
+    ]);
+    with(&[
+        "labels",
+        "keep-piece",
+        scan,
+        "--labels",
+        labels,
+        "--label",
+        "ball",
+        "--at-voxel",
+        "22,19,10",
+    ]);
+    with(&[
+        "labels", "export", scan, "--labels", labels, "--label", "ball", "-o", mask,
+    ]);
 }
