@@ -392,27 +392,14 @@ fn commands_that_read_a_scan_whole_take_a_store() {
 }
 
 /// A project specimen on a store is recorded and picked on, and the store meshed, through the
-/// volume interface (a block at a time, never the whole store): its record is the one its `NIfTI` source gets, and
-/// a pick on either gives the same sub-voxel point.
+/// volume interface (a block at a time, never the whole store): its record is the one its
+/// `NIfTI` source gets, and a pick on either gives the same sub-voxel point.
 #[test]
 fn a_store_specimen_is_recorded_and_picked_a_block_at_a_time() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
-    sutura_core::io::nifti::write(&scan(), &d.join("scan.nii")).unwrap();
-    let run = |args: &[&str]| {
-        let (ok, out, err) = run_sutura(args, d);
-        assert!(ok, "{args:?}: {err}");
-        out
-    };
-    run(&[
-        "convert",
-        "scan.nii",
-        "-o",
-        "scan.ome.zarr",
-        "--chunk",
-        "16",
-        "--quiet",
-    ]);
+    scan_and_store(d);
+    let run = |args: &[&str]| ok_in(d, args);
     let scheme = common::root().join("sample_volumes/scheme.toml");
     run(&[
         "project",
@@ -502,33 +489,18 @@ fn a_store_specimen_is_recorded_and_picked_a_block_at_a_time() {
 }
 
 /// The `labels` commands (new, threshold, grow, brush, keep-piece, export) read a store through
-/// the volume interface, here
-/// through a cache of one MiB so chunks are evicted as the planes move on: the label images
-/// and the exported mask are those made on its `NIfTI` source.
+/// the volume interface, here through a cache of one MiB so chunks are evicted as the planes
+/// move on: the label images and the exported mask are those made on its `NIfTI` source.
 #[test]
 fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
-    sutura_core::io::nifti::write(&scan(), &d.join("scan.nii")).unwrap();
-    let run = |args: &[&str]| {
-        let (ok, out, err) = run_sutura(args, d);
-        assert!(ok, "{args:?}: {err}");
-        out
-    };
-    run(&[
-        "convert",
-        "scan.nii",
-        "-o",
-        "scan.ome.zarr",
-        "--chunk",
-        "16",
-        "--quiet",
-    ]);
+    scan_and_store(d);
     for (scan, labels, mask) in [
         ("scan.nii", "n.labels.zarr", "n_mask.nii"),
         ("scan.ome.zarr", "s.labels.zarr", "s_mask.nii"),
     ] {
-        prepare(&run, scan, labels, mask);
+        prepare(d, scan, labels, mask);
     }
     let load = |p: &str| sutura_core::labels::zarr::load(&d.join(p)).unwrap();
     let (n, s) = (load("n.labels.zarr"), load("s.labels.zarr"));
@@ -559,12 +531,12 @@ fn labels_commands_prepare_a_store_as_they_prepare_its_source() {
 /// One scan labelled by the commands of the test above, each through a cache of one MiB:
 /// labels `ball` (threshold in a box, kept piece), `core` (a grown region) and `rest` (a
 /// stroke), and `ball` exported as a mask.
-fn prepare(run: &dyn Fn(&[&str]) -> String, scan: &str, labels: &str, mask: &str) {
+fn prepare(d: &Path, scan: &str, labels: &str, mask: &str) {
     let small = ["--cache-mib", "1", "--quiet"];
     let with = |args: &[&str]| {
         let mut all = args.to_vec();
         all.extend_from_slice(&small);
-        run(&all);
+        ok_in(d, &all);
     };
     with(&[
         "labels", "new", scan, "-o", labels, "--label", "ball", "--label", "rest",
@@ -624,4 +596,28 @@ fn prepare(run: &dyn Fn(&[&str]) -> String, scan: &str, labels: &str, mask: &str
     with(&[
         "labels", "export", scan, "--labels", labels, "--label", "ball", "-o", mask,
     ]);
+}
+
+/// Runs the command line in `d`, asserting it succeeds; returns stdout.
+fn ok_in(d: &Path, args: &[&str]) -> String {
+    let (ok, out, err) = run_sutura(args, d);
+    assert!(ok, "{args:?}: {err}");
+    out
+}
+
+/// The test scan in `d` as `scan.nii` and converted to `scan.ome.zarr` in 16³ chunks.
+fn scan_and_store(d: &Path) {
+    sutura_core::io::nifti::write(&scan(), &d.join("scan.nii")).unwrap();
+    ok_in(
+        d,
+        &[
+            "convert",
+            "scan.nii",
+            "-o",
+            "scan.ome.zarr",
+            "--chunk",
+            "16",
+            "--quiet",
+        ],
+    );
 }
