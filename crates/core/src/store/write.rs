@@ -22,6 +22,7 @@ use super::meta::{self, Facts, IntensityFacts, LevelFacts, SourceFacts};
 use super::{PARTIAL_SUFFIX, StoreError, ZArray};
 use crate::io::Progress;
 use crate::io::slices::SliceReader;
+use crate::volume::stats::{Partial as FloatPartial, partial_of};
 use crate::volume::stats::{count_into, intensity_from_counts, intensity_from_fine_histogram};
 use crate::volume::{DType, Histogram, Intensity, Level, Rescale, Stats, Voxel};
 use rayon::prelude::*;
@@ -201,34 +202,6 @@ struct Checkpoint {
     next_k: usize,
     /// Float scans: the statistics so far.
     partial: Option<FloatPartial>,
-}
-
-#[derive(Serialize, Deserialize, PartialEq, Debug, Clone, Copy)]
-struct FloatPartial {
-    min: f64,
-    max: f64,
-    sum: f64,
-    count: u64,
-    nan: u64,
-}
-
-impl FloatPartial {
-    const EMPTY: Self = Self {
-        min: f64::INFINITY,
-        max: f64::NEG_INFINITY,
-        sum: 0.0,
-        count: 0,
-        nan: 0,
-    };
-    fn merge(self, o: Self) -> Self {
-        Self {
-            min: self.min.min(o.min),
-            max: self.max.max(o.max),
-            sum: self.sum + o.sum,
-            count: self.count + o.count,
-            nan: self.nan + o.nan,
-        }
-    }
 }
 
 /// A voxel type a store holds: its Zarr data type and the rounding of a block mean.
@@ -617,21 +590,7 @@ impl<T: StoreVoxel> Converter<T> {
             {
                 let p = data
                     .par_chunks(PART)
-                    .map(|c| {
-                        let mut p = FloatPartial::EMPTY;
-                        for &v in c {
-                            let x = v.to_f64();
-                            if x.is_nan() {
-                                p.nan += 1;
-                            } else {
-                                p.min = p.min.min(x);
-                                p.max = p.max.max(x);
-                                p.sum += x;
-                                p.count += 1;
-                            }
-                        }
-                        p
-                    })
+                    .map(partial_of)
                     .reduce(|| FloatPartial::EMPTY, FloatPartial::merge);
                 self.float = self.float.merge(p);
             }

@@ -30,17 +30,19 @@ pub struct Stats {
     pub nan_count: u64,
 }
 
-#[derive(Clone, Copy)]
-struct Partial {
-    min: f64,
-    max: f64,
-    sum: f64,
-    count: u64,
-    nan: u64,
+/// Statistics of a part of a scan, merged part by part (the store's converter keeps one in its
+/// checkpoint).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub(crate) struct Partial {
+    pub(crate) min: f64,
+    pub(crate) max: f64,
+    pub(crate) sum: f64,
+    pub(crate) count: u64,
+    pub(crate) nan: u64,
 }
 
 impl Partial {
-    const EMPTY: Self = Self {
+    pub(crate) const EMPTY: Self = Self {
         min: f64::INFINITY,
         max: f64::NEG_INFINITY,
         sum: 0.0,
@@ -48,7 +50,7 @@ impl Partial {
         nan: 0,
     };
 
-    fn merge(self, o: Self) -> Self {
+    pub(crate) fn merge(self, o: Self) -> Self {
         Self {
             min: self.min.min(o.min),
             max: self.max.max(o.max),
@@ -59,7 +61,7 @@ impl Partial {
     }
 }
 
-fn partial_of<T: Voxel>(chunk: &[T]) -> Partial {
+pub(crate) fn partial_of<T: Voxel>(chunk: &[T]) -> Partial {
     let mut p = Partial::EMPTY;
     for &v in chunk {
         let x = v.to_f64();
