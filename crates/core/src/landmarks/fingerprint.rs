@@ -127,26 +127,33 @@ impl Fingerprint {
     /// Compares a loaded volume with the fingerprint's grid, type and sampled voxels.
     #[must_use]
     pub fn check_volume(&self, path: &Path, volume: &Volume) -> Option<Mismatch> {
+        let sampled = voxel_sample_sha256(volume);
+        self.compare_voxels(path, volume.dims(), volume.dtype().name(), &sampled)
+    }
+
+    /// What differs between the record and a scan's grid, voxel type and sampled voxels.
+    fn compare_voxels(
+        &self,
+        path: &Path,
+        dims: [usize; 3],
+        dtype: &str,
+        sampled: &str,
+    ) -> Option<Mismatch> {
         let mut differences = Vec::new();
-        if volume.dims() != self.dims {
+        if dims != self.dims {
             differences.push(format!(
                 "grid {}, recorded {}",
-                crate::message::numbers(&volume.dims()),
+                crate::message::numbers(&dims),
                 crate::message::numbers(&self.dims)
             ));
         }
-        if volume.dtype().name() != self.dtype {
-            differences.push(format!(
-                "voxel type {}, recorded {}",
-                volume.dtype(),
-                self.dtype
-            ));
+        if dtype != self.dtype {
+            differences.push(format!("voxel type {dtype}, recorded {}", self.dtype));
         }
-        let v = voxel_sample_sha256(volume);
-        if v != self.voxels_sha256 {
+        if sampled != self.voxels_sha256 {
             differences.push(format!(
                 "sampled voxels hash {}…, recorded {}…",
-                &v[..12],
+                &sampled[..12],
                 short(&self.voxels_sha256)
             ));
         }
@@ -160,33 +167,8 @@ impl Fingerprint {
         path: &Path,
         source: &dyn crate::volume::VolumeSource,
     ) -> Result<Option<Mismatch>, crate::volume::ReadError> {
-        if let Some(v) = source.whole() {
-            return Ok(self.check_volume(path, v));
-        }
-        let mut differences = Vec::new();
-        if source.dims() != self.dims {
-            differences.push(format!(
-                "grid {}, recorded {}",
-                crate::message::numbers(&source.dims()),
-                crate::message::numbers(&self.dims)
-            ));
-        }
-        if source.dtype().name() != self.dtype {
-            differences.push(format!(
-                "voxel type {}, recorded {}",
-                source.dtype(),
-                self.dtype
-            ));
-        }
-        let v = voxel_sample_sha256_of(source)?;
-        if v != self.voxels_sha256 {
-            differences.push(format!(
-                "sampled voxels hash {}…, recorded {}…",
-                &v[..12],
-                short(&self.voxels_sha256)
-            ));
-        }
-        Ok(Self::mismatch(path, differences))
+        let sampled = voxel_sample_sha256_of(source)?;
+        Ok(self.compare_voxels(path, source.dims(), source.dtype().name(), &sampled))
     }
 
     fn mismatch(path: &Path, differences: Vec<String>) -> Option<Mismatch> {
