@@ -164,7 +164,7 @@ fn main() {
         key.geometry.height
     );
     let scan = h.state().document().scan.clone().expect("scan open");
-    let vol = &scan.volume;
+    let vol = scan.whole().expect("the sample is read whole");
 
     // 1. the redraw itself, per kind of change
     let normal = key.geometry.u.cross(&key.geometry.v);

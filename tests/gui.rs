@@ -56,9 +56,7 @@ fn stage_centre(h: &Harness<'_, App>) -> Pos2 {
 
 fn k_slice(app: &App) -> usize {
     let scan = app.document().scan.as_ref().unwrap();
-    app.view_state()
-        .slice(&scan.volume, ViewId::PlaneK)
-        .unwrap()
+    app.view_state().slice(scan.grid(), ViewId::PlaneK).unwrap()
 }
 
 fn wheel(h: &Harness<'_, App>, lines: f32, modifiers: Modifiers) {
@@ -77,7 +75,7 @@ fn opens_the_sample_and_shows_every_view() {
     let app = h.state();
     let scan = app.document().scan.as_ref().unwrap();
     assert_eq!(
-        scan.volume.dims(),
+        scan.grid().dims(),
         [120, 88, 48],
         "HDC-002 is 120 × 88 × 48 voxels"
     );
@@ -312,7 +310,7 @@ fn a_slice_folder_opens_with_the_voxel_size_given() {
         .scan
         .as_ref()
         .unwrap()
-        .volume
+        .grid()
         .spacing_mm();
     for (got, want) in sp.iter().zip([0.036, 0.036, 0.050]) {
         assert!((got - want).abs() < 1e-12, "{sp:?}");
@@ -465,16 +463,16 @@ fn digitising_a_specimen_through_the_ui_gives_exactly_the_clicked_document() {
     let w0 = world_at(&h, p0);
     let scan = h.state().document().scan.clone().unwrap();
     let threshold = h.state().view_state().iso.value;
-    let sp = scan.volume.spacing_mm();
+    let sp = scan.grid().spacing_mm();
     let opts = PickOptions {
         threshold,
-        max_distance_mm: sutura_core::landmarks::pick::SNAP_REACH_VOXELS
+        max_distance_mm: sutura_core::landmarks::pick_source::SNAP_REACH_VOXELS
             * sp[0].min(sp[1]).min(sp[2]),
         refine_to_edge: true,
     };
     let m = h.state().screen_map(ViewId::PlaneK).unwrap();
     let pick = pick_in_slice(
-        &scan.volume,
+        scan.whole().unwrap(),
         sutura_core::geometry::WorldPoint::new(w0[0], w0[1], w0[2]),
         m.u.cross(&m.v),
         SliceSearch::AllAround,
@@ -1461,7 +1459,8 @@ fn the_rock_specimen_is_prepared_in_the_window_as_the_command_line_prepares_it()
         other => panic!("{other:?}"),
     }
     let kept = h.state().prep().unwrap().pick_volume().unwrap().clone();
-    let original = h.state().document().scan.as_ref().unwrap().volume.clone();
+    let opened = h.state().document().scan.clone().unwrap();
+    let original = opened.whole().unwrap();
     let min = original.percentiles(&[0.0])[0];
     let truth_free = [2, 2, 2]; // a corner of the rock block, outside the skull
     let at = sutura_core::geometry::VoxelIndex::new(truth_free[0], truth_free[1], truth_free[2]);
@@ -1576,7 +1575,8 @@ fn a_surface_pick_lands_on_the_kept_specimen_not_on_the_rock() {
     use sutura::gui::{DeskCommand, GrowSettings, PrepCommand};
     use sutura_core::geometry::WorldPoint;
     use sutura_core::labels::region::Connectivity;
-    use sutura_core::landmarks::pick::{PickOptions, pick_view_ray};
+    use sutura_core::landmarks::pick::PickOptions;
+    use sutura_core::landmarks::pick_source::pick_view_ray;
     let dir = tempfile::tempdir().unwrap();
     let root = PathBuf::from(env!("CARGO_MANIFEST_DIR"));
     let scan = dir.path().join("RM-001.nii.gz");
@@ -1611,7 +1611,8 @@ fn a_surface_pick_lands_on_the_kept_specimen_not_on_the_rock() {
     h.step();
     h.step();
     let kept = h.state().prep().unwrap().pick_volume().unwrap().clone();
-    let whole = h.state().document().scan.as_ref().unwrap().volume.clone();
+    let scan = h.state().document().scan.clone().unwrap();
+    let whole = scan.whole().unwrap();
     // a vertical ray on which a grain of rock lies above the skull
     let iso = h.state().view_state().iso.value;
     let options = PickOptions::new(iso);
@@ -1620,8 +1621,8 @@ fn a_surface_pick_lands_on_the_kept_specimen_not_on_the_rock() {
         .flat_map(|a| (0..44).map(move |b| (f64::from(a) * 0.072, f64::from(b) * 0.072)))
         .map(|(x, y)| WorldPoint::new(x, y, 3.0))
         .find_map(|through| {
-            let on_kept = pick_view_ray(&kept, through, down, &options).ok()??;
-            let on_whole = pick_view_ray(&whole, through, down, &options).ok()??;
+            let on_kept = pick_view_ray(&*kept, through, down, &options).ok()??;
+            let on_whole = pick_view_ray(whole, through, down, &options).ok()??;
             (on_whole.point.distance_mm(on_kept.point) > 0.2).then_some((through, on_kept))
         })
         .expect("a ray meeting rock before the skull");
@@ -1650,5 +1651,148 @@ fn a_surface_pick_lands_on_the_kept_specimen_not_on_the_rock() {
             && (placed[1] - p.y).abs() < 1e-9
             && (placed[2] - p.z).abs() < 1e-9,
         "{placed:?} vs {p:?}"
+    );
+}
+
+/// A specimen's scan larger than the window's memory budget is not read: the window offers to
+/// build an OME-Zarr store of it in the store folder, builds it, and shows the scan through the
+/// volume interface (a chunk cache of a few chunks, the 3D view from a coarser level). Every
+/// view draws; the cursor read-out and a snapped landmark are those of the scan in memory (the
+/// pick reads full-resolution chunks around the click); the record's fingerprint check passes
+/// on the store; opening the specimen again takes the store already built, without asking.
+#[test]
+#[allow(clippy::too_many_lines)] // reason: one user's session, step by step
+fn a_scan_over_the_memory_budget_is_shown_from_a_store_built_for_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let cache = dir.path().join("stores");
+    let prefs = Preferences {
+        operator: "Ana Ruiz".into(),
+        // 0.5 MiB: each sample scan (1 MB of voxels) is over it
+        memory_budget_gib: Some(1.0 / 2048.0),
+        store_cache: cache.to_string_lossy().into_owned(),
+        ..Preferences::default()
+    };
+    let app = App::new(prefs, Some(path.clone()));
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    step_until(&mut h, "the question about the store", |a| {
+        matches!(a.prompt(), Some(Prompt::BuildStore { .. }))
+    });
+    assert!(h.state().document().scan.is_none(), "nothing was read");
+    h.get_by_label("Build the store and open it").click();
+    step_until(&mut h, "the store built and opened", |a| {
+        a.scan_of().is_some() && !a.is_loading()
+    });
+    assert_eq!(h.state().scan_of(), Some("HDC-001"));
+    assert!(h.state().prompt().is_none(), "the record's checks pass");
+    let stores: Vec<_> = std::fs::read_dir(&cache)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(stores.len(), 1, "{stores:?}");
+    assert!(stores[0].starts_with("HDC-001-") && stores[0].ends_with(".ome.zarr"));
+    let scan = h.state().document().scan.clone().unwrap();
+    assert!(scan.whole().is_none(), "read through the store, not whole");
+    assert!(scan.grid().level_count() > 1);
+    // the scan in memory as the project places it (a folder of TIFF slices and the recorded
+    // voxel size)
+    let (whole, _) = Project::load(&path)
+        .unwrap()
+        .specimen("HDC-001")
+        .unwrap()
+        .scan
+        .open(&path, &sutura_core::io::Progress::none())
+        .unwrap();
+    assert_eq!(scan.grid().dims(), whole.dims());
+    assert_eq!(
+        scan.iso,
+        sutura_core::landmarks::pick::default_iso_value(&whole)
+    );
+
+    // every view draws, the 3D view from a level within its share of the budget
+    for view in ViewId::ALL {
+        h.state_mut().send(PrefsCommand::SetStage(view));
+        step_until(&mut h, "the view's picture", |a| a.is_view_current(view));
+        assert!(
+            h.state().status().is_none_or(|s| !s.is_error()),
+            "{view:?}: {:?}",
+            h.state().status()
+        );
+    }
+    h.state_mut().send(PrefsCommand::SetStage(ViewId::PlaneK));
+    step_until(&mut h, "the stage picture", |a| {
+        a.is_view_current(ViewId::PlaneK)
+    });
+
+    // the read-out under the pointer is the voxel's value
+    let centre = stage_centre(&h);
+    let p0 = centre + Vec2::new(-40.0, 10.0);
+    h.hover_at(p0);
+    h.step();
+    let hover = h.state().view_state().hover.expect("a read-out");
+    let voxel = hover.voxel.expect("over the scan");
+    assert_eq!(hover.value, whole.value(voxel));
+
+    // a snapped landmark lands where the pick on the scan in memory does
+    h.get_by_label("New trial").click();
+    h.step();
+    h.step();
+    assert!(h.state().is_placing());
+    let lm = h.state().desk().unwrap().current.clone().unwrap();
+    h.hover_at(p0);
+    h.step();
+    let w0 = world_at(&h, p0);
+    let threshold = h.state().view_state().iso.value;
+    let m = h.state().screen_map(ViewId::PlaneK).unwrap();
+    click(&mut h, p0);
+    let e = h
+        .state()
+        .desk()
+        .unwrap()
+        .trial_ref()
+        .unwrap()
+        .landmark(&lm)
+        .cloned()
+        .expect("placed");
+    assert_eq!(e.method, Some(Method::Surface));
+    let clicked = e.pick.as_ref().unwrap().origin_mm;
+    assert!(close(clicked, w0, 1e-9), "{clicked:?} vs {w0:?}");
+    let pick = sutura_core::landmarks::pick_source::snap_to_boundary(
+        &whole,
+        sutura_core::geometry::WorldPoint::new(clicked[0], clicked[1], clicked[2]),
+        m.u.cross(&m.v),
+        threshold,
+    )
+    .unwrap()
+    .expect("a boundary within reach of the click");
+    let want = [pick.point.0.x, pick.point.0.y, pick.point.0.z];
+    assert!(
+        close(e.position_mm.unwrap(), want, 1e-9),
+        "{e:?} vs {want:?}"
+    );
+
+    // another specimen and back: the store built is opened without asking again
+    h.get_by_label("HDC-002").click();
+    step_until(&mut h, "the question for HDC-002", |a| {
+        matches!(a.prompt(), Some(Prompt::BuildStore { .. }))
+    });
+    h.key_press(egui::Key::Escape);
+    h.step();
+    h.step();
+    assert!(h.state().prompt().is_none());
+    h.get_by_label("HDC-001").click();
+    step_until(&mut h, "HDC-001 from its store", |a| {
+        a.scan_of() == Some("HDC-001") && !a.is_loading() && a.prompt().is_none()
+    });
+    assert!(
+        h.state()
+            .document()
+            .scan
+            .as_ref()
+            .unwrap()
+            .whole()
+            .is_none()
     );
 }

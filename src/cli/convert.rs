@@ -7,8 +7,8 @@ use clap::Args;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
 use sutura_core::io::Progress;
-use sutura_core::landmarks::scan::open_scan_slices_with;
-use sutura_core::store::{Codec, ConvertOptions, convert};
+use sutura_core::landmarks::scan::convert_to_store;
+use sutura_core::store::{Codec, ConvertOptions};
 
 #[derive(Debug, Args)]
 pub struct ConvertArgs {
@@ -85,16 +85,10 @@ fn run_store(a: &ConvertArgs) -> Result<()> {
         );
     }
     let codec = Codec::parse(&a.codec).map_err(|e| anyhow::anyhow!("--codec {}: {e}", a.codec))?;
-    let mut reader = open_scan_slices_with(&a.scan.scan, &a.scan.open_options())?;
-    let fingerprint = sutura_core::landmarks::fingerprint::file_facts(&a.scan.scan)?;
     let options = ConvertOptions {
         chunk: a.chunk,
         codec,
-        source_fingerprint: Some(serde_json::json!({
-            "files": fingerprint.files,
-            "bytes": fingerprint.bytes,
-            "head_sha256": fingerprint.head_sha256,
-        })),
+        source_fingerprint: None,
         resume: !a.restart,
         coarsest_bytes: a.coarsest_kib.saturating_mul(1024),
     };
@@ -120,7 +114,13 @@ fn run_store(a: &ConvertArgs) -> Result<()> {
     };
     let progress = Progress::new(Some(&report));
     let started = std::time::Instant::now();
-    let r = convert(reader.as_mut(), &a.output, &options, &progress)?;
+    let r = convert_to_store(
+        &a.scan.scan,
+        &a.scan.open_options(),
+        &a.output,
+        options,
+        &progress,
+    )?;
     if let Some(b) = &bar {
         b.finish_and_clear();
     }
@@ -129,7 +129,7 @@ fn run_store(a: &ConvertArgs) -> Result<()> {
     eprintln!(
         "wrote {} ({nx} x {ny} x {nz} {}, {}, {:.1} MiB, {:.1} s{})",
         a.output.display(),
-        reader.dtype(),
+        r.dtype,
         if r.levels.len() == 1 {
             "1 level".to_owned()
         } else {

@@ -362,7 +362,7 @@ pub fn run_view3d(a: &View3dArgs) -> Result<()> {
     };
     sutura_core::render::check_pixels(a.size, a.size, max_pixels(a.max_megapixels)?)
         .with_context(|| format!("--size {} (raise --max-megapixels to allow it)", a.size))?;
-    let camera = Camera::fit(&v, dir, up, a.size, a.size)?;
+    let camera = Camera::fit(&*v, dir, up, a.size, a.size)?;
     let quality = if a.coarse {
         Quality::coarse()
     } else {

@@ -856,6 +856,24 @@ impl App {
                     }
                 }
             }
+            AppCommand::BuildStore(build) => {
+                if let Some(Prompt::BuildStore {
+                    scan,
+                    store,
+                    specimen,
+                    ..
+                }) = self.ui.prompt.take()
+                {
+                    if build {
+                        self.build_store(&scan, &store, specimen);
+                    } else {
+                        self.status = Some(Status::info(format!(
+                            "{}: not opened (over the memory budget)",
+                            scan.display()
+                        )));
+                    }
+                }
+            }
             AppCommand::Operator(name) => {
                 let name = name.map(|n| n.trim().to_owned()).filter(|n| !n.is_empty());
                 if matches!(self.ui.prompt, Some(Prompt::Operator)) {

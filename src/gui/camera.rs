@@ -18,7 +18,7 @@ use nalgebra::{Matrix3, Rotation3, UnitQuaternion, Vector3};
 
 use sutura_core::geometry::{VoxelPoint, WorldPoint};
 use sutura_core::render::{Camera, RenderError};
-use sutura_core::volume::Volume;
+use sutura_core::volume::VolumeSource;
 
 /// Zoom limits relative to the fitted view (1 = the whole volume fits).
 pub const MIN_ZOOM: f64 = 0.25;
@@ -28,7 +28,7 @@ pub const MAX_ZOOM: f64 = 64.0;
 /// first other voxel axis, `v` along the second, made orthogonal to `u` — the convention of
 /// [`sutura_core::render::SliceGeometry::axis`].
 #[must_use]
-pub fn axis_basis(volume: &Volume, axis: usize) -> (Vector3<f64>, Vector3<f64>) {
+pub fn axis_basis(volume: &dyn VolumeSource, axis: usize) -> (Vector3<f64>, Vector3<f64>) {
     let (ca, ra) = match axis {
         0 => (1, 2),
         1 => (0, 2),
@@ -44,7 +44,7 @@ pub fn axis_basis(volume: &Volume, axis: usize) -> (Vector3<f64>, Vector3<f64>) 
 /// The half extents (mm) of the volume's box (voxel cells included) along `u` and `v`,
 /// measured from its centre.
 #[must_use]
-pub fn half_extents(volume: &Volume, u: &Vector3<f64>, v: &Vector3<f64>) -> (f64, f64) {
+pub fn half_extents(volume: &dyn VolumeSource, u: &Vector3<f64>, v: &Vector3<f64>) -> (f64, f64) {
     let d = volume.dims();
     let c = volume.centre_world().0;
     let (mut eu, mut ev) = (0.0f64, 0.0f64);
@@ -85,7 +85,7 @@ pub struct PlaneCamera {
 impl PlaneCamera {
     /// Centred on the volume, whole volume in view.
     #[must_use]
-    pub fn fitted(volume: &Volume) -> Self {
+    pub fn fitted(volume: &dyn VolumeSource) -> Self {
         Self {
             centre: volume.centre_world(),
             zoom: 1.0,
@@ -186,7 +186,7 @@ pub fn zoom_about(
 /// The voxel plane through `point` nearest to it along `axis`: the slice index (clamped to the
 /// volume).
 #[must_use]
-pub fn slice_index(volume: &Volume, axis: usize, point: WorldPoint) -> usize {
+pub fn slice_index(volume: &dyn VolumeSource, axis: usize, point: WorldPoint) -> usize {
     let n = volume.dims()[axis];
     let c = volume.world_to_voxel(point).0[axis].round();
     if c.is_nan() || c < 0.0 {
@@ -199,7 +199,12 @@ pub fn slice_index(volume: &Volume, axis: usize, point: WorldPoint) -> usize {
 /// `point` moved within voxel plane `axis` onto slice `index` (along the voxel axis, so it
 /// keeps its other voxel coordinates).
 #[must_use]
-pub fn onto_slice(volume: &Volume, axis: usize, index: usize, point: WorldPoint) -> WorldPoint {
+pub fn onto_slice(
+    volume: &dyn VolumeSource,
+    axis: usize,
+    index: usize,
+    point: WorldPoint,
+) -> WorldPoint {
     let mut p = volume.world_to_voxel(point);
     p.0[axis] = index as f64;
     volume.voxel_to_world(p)
@@ -254,7 +259,7 @@ impl Oblique {
 
     /// The world basis `(u, v, n)` of the oblique plane for a volume.
     #[must_use]
-    pub fn basis(&self, volume: &Volume) -> (Vector3<f64>, Vector3<f64>, Vector3<f64>) {
+    pub fn basis(&self, volume: &dyn VolumeSource) -> (Vector3<f64>, Vector3<f64>, Vector3<f64>) {
         let (ku, kv) = axis_basis(volume, 2);
         let k = Matrix3::from_columns(&[ku, kv, ku.cross(&kv)]);
         let r: Rotation3<f64> = self.rotation.to_rotation_matrix();
@@ -319,7 +324,7 @@ impl Orbit {
     /// The render camera for an image of `width`×`height` pixels.
     pub fn camera(
         &self,
-        volume: &Volume,
+        volume: &dyn VolumeSource,
         width: usize,
         height: usize,
     ) -> Result<Camera, RenderError> {
@@ -335,6 +340,7 @@ mod tests {
     use super::*;
     use approx::assert_relative_eq;
     use sutura_core::geometry::Affine3;
+    use sutura_core::volume::Volume;
 
     fn volume() -> Volume {
         // anisotropic, translated, slightly sheared: the maps must not assume a diagonal affine
@@ -348,7 +354,7 @@ mod tests {
         Volume::from_vec([40, 30, 20], a, vec![0u16; 40 * 30 * 20]).unwrap()
     }
 
-    fn map(volume: &Volume) -> ScreenMap {
+    fn map(volume: &dyn VolumeSource) -> ScreenMap {
         let (u, v) = axis_basis(volume, 2);
         ScreenMap {
             rect: [100.0, 50.0, 500.0, 350.0],

@@ -96,6 +96,8 @@ pub enum AppCommand {
     Unsaved(Answer),
     /// Open a specimen whose scan is not the one recorded, read-only (`true`), or cancel.
     Mismatch(bool),
+    /// Build a store of a scan over the memory budget and open it (`true`), or cancel.
+    BuildStore(bool),
     /// The operator's name for trials from now on (asked before the first trial); `None`
     /// cancels the question.
     Operator(Option<String>),
@@ -200,6 +202,11 @@ pub enum PrefsCommand {
     ToggleSnap,
     /// The voxel size given to TIFF scans opened from now on (`None`: the file's own).
     SetTiffVoxelSize(Option<VoxelSizeMm>),
+    /// The memory budget in GiB for scans opened from now on (`None`: a quarter of the
+    /// machine's memory).
+    SetMemoryBudget(Option<f64>),
+    /// The folder for stores built of scans over the budget (empty: the user's cache folder).
+    SetStoreCache(String),
 }
 
 /// A landmark position typed by the user.

@@ -20,12 +20,13 @@ use super::view::plane_basis;
 use sutura_core::analysis::checks::{TrialChecks, check_trial};
 use sutura_core::geometry::WorldPoint;
 use sutura_core::landmarks::mirror::estimate_from_partner;
-use sutura_core::landmarks::pick::{PickOptions, pick_view_ray, snap_options, snap_to_boundary};
+use sutura_core::landmarks::pick::PickOptions;
+use sutura_core::landmarks::pick_source::{pick_view_ray, snap_options, snap_to_boundary};
 use sutura_core::landmarks::project::{
     AutosaveStatus, Edit, LandmarkState, Method, PickRecord, ProjectError, Session, Specimen,
     Timestamp, Trial,
 };
-use sutura_core::volume::Volume;
+use sutura_core::volume::{Volume, VolumeSource};
 
 /// What a desk command may read of the rest of the app.
 #[derive(Clone, Copy)]
@@ -383,7 +384,7 @@ impl Desk {
             DeskCommand::PlaceTyped(p) => self.place_typed(p, env),
             DeskCommand::EstimateFromPartner => self.estimate_from_partner(),
             DeskCommand::MoveLandmark { landmark, to } => self.target().and_then(|(sp, t)| {
-                let to = env.scan.map_or(to, |sc| clamp_to_volume(&sc.volume, to));
+                let to = env.scan.map_or(to, |sc| clamp_to_volume(sc.grid(), to));
                 self.edit(Edit::SetLandmark {
                     specimen: sp,
                     trial: t,
@@ -621,13 +622,11 @@ impl Desk {
             let Some(scan) = env.scan else {
                 return Ok(None);
             };
-            return self
-                .trace_point(clamp_to_volume(&scan.volume, at))
-                .map(Some);
+            return self.trace_point(clamp_to_volume(scan.grid(), at)).map(Some);
         }
         let (specimen, trial, lm, on_surface) = self.placing_target(env)?;
         let scan = env.scan.expect("placing_target checked");
-        let vol = &scan.volume;
+        let vol = scan.grid();
         let at = clamp_to_volume(vol, at);
         let (_, _, normal) = plane_basis(vol, env.vs, view);
         let mut placed = (at, Method::Slice, None, String::new());
@@ -724,7 +723,7 @@ impl Desk {
             return Effects::default();
         };
         let iso = env.vs.iso.value;
-        let surface = env.surface.unwrap_or(&scan.volume);
+        let surface: &dyn VolumeSource = env.surface.map_or(scan.grid(), |s| &**s);
         let hit = match pick_view_ray(surface, through, direction, &PickOptions::new(iso)) {
             Ok(Some(p)) => p,
             Ok(None) => {

@@ -201,6 +201,7 @@ impl App {
             d.session.path(),
             &sp.id,
             sp.scan.clone(),
+            self.prefs.budget(),
             self.next_scan_id,
             move || {
                 if let Some(c) = &wake {
@@ -238,6 +239,7 @@ impl App {
         self.loading = Some(Loading::start(
             path,
             options,
+            self.prefs.budget(),
             self.next_scan_id,
             move || {
                 if let Some(c) = &wake {
@@ -320,6 +322,7 @@ impl App {
                     });
                 }
             }
+            Outcome::TooLarge { bytes } => self.too_large(path, specimen, bytes),
             Outcome::Failed(msg) => self.status = Some(Status::error(msg)),
             Outcome::Cancelled => {
                 self.status = Some(Status::info(format!(
@@ -328,6 +331,75 @@ impl App {
                 )));
             }
         }
+    }
+
+    /// A scan over the memory budget: opened from its store in the cache folder when one of
+    /// it is there, else the user is asked whether to build one.
+    fn too_large(&mut self, scan: PathBuf, specimen: Option<String>, bytes: u64) {
+        let store = match sutura_core::landmarks::scan::cached_store_path(
+            &self.prefs.store_cache_dir(),
+            &scan,
+        ) {
+            Ok(s) => s,
+            Err(e) => {
+                self.status = Some(Status::error(e.to_string()));
+                return;
+            }
+        };
+        if sutura_core::landmarks::scan::store_is_of(&store, &scan) {
+            self.build_store(&scan, &store, specimen);
+            return;
+        }
+        self.ui.prompt = Some(Prompt::BuildStore {
+            scan,
+            store,
+            bytes,
+            budget: self.prefs.budget().bytes,
+            specimen,
+        });
+    }
+
+    /// Builds (or, when it is there, opens) the store `store` of the scan `scan` and shows it;
+    /// for a project specimen, with its scan record's checks.
+    pub(super) fn build_store(&mut self, scan: &Path, store: &Path, specimen: Option<String>) {
+        if let Some(l) = &self.loading {
+            l.cancel();
+        }
+        let record = specimen.as_ref().and_then(|id| {
+            let d = self.desk.as_ref()?;
+            let sp = d.session.project.specimen(id)?;
+            Some((d.session.path().to_path_buf(), id.clone(), sp.scan.clone()))
+        });
+        if specimen.is_some() && record.is_none() {
+            self.status = Some(Status::error(format!(
+                "{}: the specimen is no longer in the project",
+                specimen.unwrap_or_default()
+            )));
+            return;
+        }
+        self.next_scan_id += 1;
+        let options = OpenOptions {
+            voxel_size_mm: match &record {
+                Some((_, _, r)) => r.voxel_size_override(),
+                None => self.prefs.tiff_voxel_size_mm(),
+            },
+            ..OpenOptions::default()
+        };
+        let wake = self.ctx.clone();
+        self.loading = Some(Loading::build_store(
+            scan,
+            store,
+            options,
+            self.prefs.budget(),
+            self.next_scan_id,
+            record,
+            move || {
+                if let Some(c) = &wake {
+                    c.request_repaint();
+                }
+            },
+        ));
+        self.status = None;
     }
 
     /// Takes specimens whose scans finished loading and adds them to the project.

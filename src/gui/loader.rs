@@ -6,6 +6,12 @@
 //! percentiles). The outcome comes back by channel; the UI thread never waits for it. A project
 //! specimen's scan is opened through its [`ScanRecord`], which also checks that it is the scan
 //! the landmarks were placed on.
+//!
+//! Memory: a scan is read whole only when its voxels fit the [`MemoryBudget`]. An OME-Zarr
+//! store larger than that is opened as a [`VolumeSource`] and read a chunk at a time
+//! (through a chunk cache of a quarter of the budget); any other scan larger than that is not
+//! read at all: the load ends with [`Outcome::TooLarge`], and the app offers to build a store
+//! of it ([`Loading::build_store`]) in its cache folder.
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -16,7 +22,80 @@ use std::time::Instant;
 use super::state::Scan;
 use sutura_core::io::{self, OpenOptions, Progress};
 use sutura_core::landmarks::project::ScanRecord;
-use sutura_core::volume::Volume;
+use sutura_core::landmarks::scan::{convert_to_store, open_source, scan_voxel_bytes};
+use sutura_core::store::write::ConvertOptions;
+use sutura_core::volume::{Volume, VolumeSource};
+
+/// How much memory the window gives the scan it shows.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct MemoryBudget {
+    /// A scan whose voxels take at most this many bytes is read whole into memory; a larger
+    /// one is read from an OME-Zarr store, a chunk at a time.
+    pub bytes: u64,
+}
+
+impl MemoryBudget {
+    /// The smallest budget the window accepts (a few chunks: small enough for the tests to
+    /// read a sample scan through its store).
+    pub const MIN_BYTES: u64 = 256 << 10;
+
+    /// A budget of `gib` GiB, or a quarter of this machine's memory when `None` (common
+    /// practice: room for the system, the user's other programs and the window's own
+    /// pictures).
+    #[must_use]
+    pub fn new(gib: Option<f64>) -> Self {
+        let bytes = match gib {
+            Some(g) if g.is_finite() && g > 0.0 => (g * f64::from(1u32 << 30)) as u64,
+            _ => machine_memory_bytes() / 4,
+        };
+        Self {
+            bytes: bytes.max(Self::MIN_BYTES),
+        }
+    }
+
+    /// Bytes of decoded chunks a store keeps in memory: a quarter of the budget.
+    #[must_use]
+    pub fn cache_bytes(self) -> u64 {
+        (self.bytes / 4).max(64 << 10)
+    }
+
+    /// How the window builds a store: levels down to one the 3D view can read (within
+    /// [`Self::volume_view_bytes`], at most the usual 64 MiB), and chunks of 64³ voxels, or
+    /// smaller when the chunk cache would hold fewer than eight of them (16-bit voxels).
+    #[must_use]
+    pub fn convert_options(self) -> ConvertOptions {
+        let cache = self.cache_bytes();
+        let chunk = [64usize, 32]
+            .into_iter()
+            .find(|&c| 8 * 2 * (c as u64).pow(3) <= cache)
+            .unwrap_or(16);
+        ConvertOptions {
+            chunk,
+            coarsest_bytes: self.volume_view_bytes().min(64 << 20),
+            ..ConvertOptions::default()
+        }
+    }
+
+    /// Bytes of the level the 3D view reads of a store: a quarter of the budget, at most
+    /// 512 MiB (a 2400³ scan's 600³ level, more voxels across than a screen has pixels).
+    #[must_use]
+    pub fn volume_view_bytes(self) -> u64 {
+        (self.bytes / 4).clamp(64 << 10, 512 << 20)
+    }
+}
+
+/// This machine's memory (`MemTotal` of `/proc/meminfo`); 8 GiB where that cannot be read.
+#[must_use]
+pub fn machine_memory_bytes() -> u64 {
+    std::fs::read_to_string("/proc/meminfo")
+        .ok()
+        .and_then(|t| {
+            t.lines()
+                .find_map(|l| l.strip_prefix("MemTotal:"))
+                .and_then(|v| v.trim().trim_end_matches("kB").trim().parse::<u64>().ok())
+        })
+        .map_or(8 << 30, |kib| kib * 1024)
+}
 
 /// How a load ended.
 #[derive(Debug)]
@@ -24,13 +103,32 @@ pub enum Outcome {
     Loaded(Scan),
     /// A specimen's scan that is not the one its record describes: what differs.
     Mismatched(Scan, String),
+    /// The scan's voxels take `bytes`, more than the budget: it was not read (see the module
+    /// docs).
+    TooLarge {
+        bytes: u64,
+    },
     Failed(String),
     Cancelled,
 }
 
+/// What a loading job produced.
+#[allow(
+    clippy::large_enum_variant,
+    reason = "one value per load, moved once to the loading thread's end"
+)]
+enum Opened {
+    Memory(Volume),
+    Source(Box<dyn VolumeSource + Send + Sync>),
+    TooLarge(u64),
+}
+
 /// A load in progress.
 pub struct Loading {
+    /// The scan asked for.
     pub path: PathBuf,
+    /// What the scan shown will be read from: `path`, or the store built of it.
+    pub opens: PathBuf,
     /// The project specimen whose scan this is.
     pub specimen: Option<String>,
     pub started: Instant,
@@ -46,19 +144,73 @@ impl Loading {
     pub fn start(
         path: &Path,
         options: OpenOptions,
+        budget: MemoryBudget,
         id: u64,
         wake: impl Fn() + Send + Sync + 'static,
     ) -> Self {
-        Self::spawn(path, None, id, wake, move |p, progress| {
-            // a store is read whole at full resolution, like a file
-            if sutura_core::store::is_store(p) {
-                sutura_core::landmarks::scan::open_scan(p, options.voxel_size_mm, progress)
+        Self::spawn(path, None, id, budget, wake, move |p, progress| {
+            let bytes = scan_voxel_bytes(p, &options).map_err(|e| e.to_string())?;
+            let opened = if bytes <= budget.bytes {
+                // within the budget: read whole at full resolution (a store like a file)
+                if sutura_core::store::is_store(p) {
+                    sutura_core::landmarks::scan::open_scan(p, options.voxel_size_mm, progress)
+                } else {
+                    io::open(p, &options, progress)
+                }
+                .map(Opened::Memory)
+            } else if sutura_core::store::is_store(p) {
+                open_source(p, options.voxel_size_mm, budget.cache_bytes()).map(Opened::Source)
             } else {
-                io::open(p, &options, progress)
-            }
-            .map(|v| (v, None))
-            .map_err(|e| e.to_string())
+                Ok(Opened::TooLarge(bytes))
+            };
+            opened.map(|o| (o, None)).map_err(|e| e.to_string())
         })
+    }
+
+    /// Converts the scan at `scan` into an OME-Zarr store at `store` (resuming an interrupted
+    /// conversion of the same scan), with progress and cancel, then opens the store as the
+    /// scan shown.
+    /// For a project specimen (`specimen`: the project file, the specimen and its scan
+    /// record), the store is opened with the record's checks: the recorded scan's files as
+    /// they are, the voxels sampled from the store.
+    pub fn build_store(
+        scan: &Path,
+        store: &Path,
+        options: OpenOptions,
+        budget: MemoryBudget,
+        id: u64,
+        specimen: Option<(PathBuf, String, ScanRecord)>,
+        wake: impl Fn() + Send + Sync + 'static,
+    ) -> Self {
+        let out = store.to_path_buf();
+        let name = specimen.as_ref().map(|(_, s, _)| s.clone());
+        let mut loading = Self::spawn(scan, name, id, budget, wake, move |p, progress| {
+            if let Some(parent) = out.parent() {
+                std::fs::create_dir_all(parent)
+                    .map_err(|e| format!("{}: cannot make the folder: {e}", parent.display()))?;
+            }
+            if !out.exists() {
+                convert_to_store(p, &options, &out, budget.convert_options(), progress)
+                    .map_err(|e| e.to_string())?;
+            }
+            if progress.is_cancelled() {
+                return Err("cancelled".into());
+            }
+            if let Some((project_file, _, record)) = specimen {
+                let (source, mismatch) = record
+                    .open_source_from(&project_file, Some(&out), budget.cache_bytes())
+                    .map_err(|e| e.to_string())?;
+                return Ok((
+                    Opened::Source(source),
+                    mismatch.map(|m| m.differences.join("; ")),
+                ));
+            }
+            let source = open_source(&out, options.voxel_size_mm, budget.cache_bytes())
+                .map_err(|e| e.to_string())?;
+            Ok((Opened::Source(source), None))
+        });
+        loading.opens = store.to_path_buf();
+        loading
     }
 
     /// Starts loading the scan of project specimen `specimen` as its record says (the recorded
@@ -67,6 +219,7 @@ impl Loading {
         project_file: &Path,
         specimen: &str,
         record: ScanRecord,
+        budget: MemoryBudget,
         id: u64,
         wake: impl Fn() + Send + Sync + 'static,
     ) -> Self {
@@ -76,12 +229,30 @@ impl Loading {
             &path,
             Some(specimen.to_owned()),
             id,
+            budget,
             wake,
-            move |_, progress| {
-                let (volume, mismatch) = record
-                    .open(&project_file, progress)
-                    .map_err(|e| e.to_string())?;
-                Ok((volume, mismatch.map(|m| m.differences.join("; "))))
+            move |p, progress| {
+                let options = OpenOptions {
+                    voxel_size_mm: record.voxel_size_override(),
+                    ..OpenOptions::default()
+                };
+                let bytes = scan_voxel_bytes(p, &options).map_err(|e| e.to_string())?;
+                let why = |m: Option<sutura_core::landmarks::fingerprint::Mismatch>| {
+                    m.map(|m| m.differences.join("; "))
+                };
+                if bytes <= budget.bytes {
+                    let (volume, mismatch) = record
+                        .open(&project_file, progress)
+                        .map_err(|e| e.to_string())?;
+                    Ok((Opened::Memory(volume), why(mismatch)))
+                } else if sutura_core::store::is_store(p) {
+                    let (source, mismatch) = record
+                        .open_source(&project_file, budget.cache_bytes())
+                        .map_err(|e| e.to_string())?;
+                    Ok((Opened::Source(source), why(mismatch)))
+                } else {
+                    Ok((Opened::TooLarge(bytes), None))
+                }
             },
         )
     }
@@ -90,8 +261,9 @@ impl Loading {
         path: &Path,
         specimen: Option<String>,
         id: u64,
+        budget: MemoryBudget,
         wake: impl Fn() + Send + Sync + 'static,
-        job: impl FnOnce(&Path, &Progress<'_>) -> Result<(Volume, Option<String>), String>
+        job: impl FnOnce(&Path, &Progress<'_>) -> Result<(Opened, Option<String>), String>
         + Send
         + 'static,
     ) -> Self {
@@ -119,11 +291,21 @@ impl Loading {
                 let outcome = if c.load(Ordering::Relaxed) {
                     Outcome::Cancelled
                 } else {
-                    match result {
-                        Ok((volume, None)) => Outcome::Loaded(Scan::new(id, p, volume)),
-                        Ok((volume, Some(why))) => {
-                            Outcome::Mismatched(Scan::new(id, p, volume), why)
+                    let scan = |opened: Opened| match opened {
+                        Opened::Memory(v) => Ok(Scan::new(id, p.clone(), v)),
+                        Opened::Source(s) => {
+                            let shared: Arc<dyn VolumeSource + Send + Sync> = Arc::from(s);
+                            Scan::from_source(id, p.clone(), shared, budget.volume_view_bytes())
                         }
+                        Opened::TooLarge(_) => Err(String::new()),
+                    };
+                    match result {
+                        Ok((Opened::TooLarge(bytes), _)) => Outcome::TooLarge { bytes },
+                        Ok((opened, why)) => match (scan(opened), why) {
+                            (Ok(s), None) => Outcome::Loaded(s),
+                            (Ok(s), Some(why)) => Outcome::Mismatched(s, why),
+                            (Err(e), _) => Outcome::Failed(e),
+                        },
                         Err(e) => Outcome::Failed(e),
                     }
                 };
@@ -142,6 +324,7 @@ impl Loading {
         };
         Self {
             path: path.to_path_buf(),
+            opens: path.to_path_buf(),
             specimen,
             started: Instant::now(),
             done,
@@ -200,7 +383,13 @@ mod tests {
     #[test]
     fn loads_the_sample_scan_in_the_background() {
         let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz");
-        let l = Loading::start(&p, OpenOptions::default(), 7, || {});
+        let l = Loading::start(
+            &p,
+            OpenOptions::default(),
+            MemoryBudget::new(None),
+            7,
+            || {},
+        );
         match wait(&l) {
             Outcome::Loaded(s) => {
                 assert_eq!(s.id, 7);
@@ -214,7 +403,13 @@ mod tests {
     #[test]
     fn a_cancelled_load_reports_cancelled() {
         let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz");
-        let l = Loading::start(&p, OpenOptions::default(), 1, || {});
+        let l = Loading::start(
+            &p,
+            OpenOptions::default(),
+            MemoryBudget::new(None),
+            1,
+            || {},
+        );
         l.cancel();
         assert!(matches!(wait(&l), Outcome::Cancelled));
     }
@@ -224,10 +419,68 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let p = dir.path().join("broken.nii");
         std::fs::write(&p, b"not a scan at all").unwrap();
-        let l = Loading::start(&p, OpenOptions::default(), 1, || {});
+        let l = Loading::start(
+            &p,
+            OpenOptions::default(),
+            MemoryBudget::new(None),
+            1,
+            || {},
+        );
         match wait(&l) {
             Outcome::Failed(msg) => assert!(msg.contains("broken.nii"), "{msg}"),
             o => panic!("expected a failure, got {o:?}"),
+        }
+    }
+
+    /// Over the budget, a scan file is not read (the app offers a store), and a store is read
+    /// through the volume interface; within it, both are read whole.
+    #[test]
+    fn the_budget_decides_whole_source_or_too_large() {
+        let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz");
+        let dir = tempfile::tempdir().unwrap();
+        let store = dir.path().join("s.ome.zarr");
+        let tiny = MemoryBudget::new(Some(1.0 / 4096.0));
+        assert_eq!(tiny.bytes, MemoryBudget::MIN_BYTES);
+        convert_to_store(
+            &p,
+            &OpenOptions::default(),
+            &store,
+            tiny.convert_options(),
+            &Progress::none(),
+        )
+        .unwrap();
+        match wait(&Loading::start(&p, OpenOptions::default(), tiny, 1, || {})) {
+            Outcome::TooLarge { bytes } => assert_eq!(bytes, 120 * 88 * 48 * 2),
+            o => panic!("expected too large, got {o:?}"),
+        }
+        match wait(&Loading::start(
+            &store,
+            OpenOptions::default(),
+            tiny,
+            2,
+            || {},
+        )) {
+            Outcome::Loaded(s) => {
+                assert!(s.whole().is_none());
+                assert!(
+                    s.grid().level_count() > 1,
+                    "levels down to the 3D view's share"
+                );
+            }
+            o => panic!("expected a scan, got {o:?}"),
+        }
+        let roomy = MemoryBudget::new(Some(1.0));
+        for (n, path) in [&p, &store].into_iter().enumerate() {
+            match wait(&Loading::start(
+                path,
+                OpenOptions::default(),
+                roomy,
+                n as u64,
+                || {},
+            )) {
+                Outcome::Loaded(s) => assert!(s.whole().is_some()),
+                o => panic!("expected a scan, got {o:?}"),
+            }
         }
     }
 }

@@ -16,6 +16,7 @@ use super::worker::RenderKey;
 use sutura_core::geometry::WorldPoint;
 use sutura_core::landmarks::palette;
 use sutura_core::landmarks::project::LandmarkState;
+use sutura_core::volume::VolumeSource;
 
 /// How many slice spacings from the plane a landmark is still drawn in a plane view.
 pub const NEAR_SLICES: f64 = 8.0;
@@ -56,7 +57,7 @@ pub enum Depth {
 
 /// The slice spacing of a plane view: the voxel spacing along its normal.
 #[must_use]
-pub fn slice_spacing(volume: &sutura_core::volume::Volume, m: &ScreenMap) -> f64 {
+pub fn slice_spacing(volume: &dyn VolumeSource, m: &ScreenMap) -> f64 {
     let n = m.u.cross(&m.v);
     let sp = volume.spacing_mm();
     // the spacing seen along n: the voxel box's extent along n, at least the smallest spacing
@@ -100,7 +101,7 @@ pub fn plane_marks(
     let Some(t) = d.trial_ref() else {
         return;
     };
-    let spacing = slice_spacing(&scan.volume, m);
+    let spacing = slice_spacing(scan.grid(), m);
     let r = if on_stage { 5.5 } else { 3.5 };
     let mut labels_out = Labels::default();
     for e in &t.landmarks {
@@ -295,7 +296,7 @@ impl Labels {
 #[must_use]
 pub fn grab_on_plane(scan: &Scan, m: &ScreenMap, d: &Desk, at: Pos2) -> Option<String> {
     let t = d.trial_ref()?;
-    let spacing = slice_spacing(&scan.volume, m);
+    let spacing = slice_spacing(scan.grid(), m);
     t.landmarks
         .iter()
         .filter_map(|e| {
@@ -324,7 +325,7 @@ pub fn volume_marks(
     };
     let cam = &k.camera;
     let dir = cam.view_dir.normalize();
-    let sp = scan.volume.spacing_mm();
+    let sp = scan.grid().spacing_mm();
     let tolerance = 2.0 * sp[0].max(sp[1]).max(sp[2]);
     let [w, h] = shown.key.size();
     // the picture is stretched over the rect: pixel (col, row) → point

@@ -127,6 +127,7 @@ pub fn top_bar_ui(
                 );
             }
             ui.data_mut(|d| d.insert_temp(id, text));
+            memory_ui(ui, prefs, &mut out);
             if !prefs.recent.is_empty() {
                 ui.separator();
                 ui.label(RichText::new("Recent").weak());
@@ -275,6 +276,59 @@ pub fn controls_ui(
     cmd
 }
 
+/// The memory budget and the folder of stores built for scans over it (File menu).
+fn memory_ui(ui: &mut Ui, prefs: &Preferences, out: &mut Vec<Command>) {
+    let budget = prefs.budget();
+    ui.horizontal(|ui| {
+        let l = ui.label("Memory budget");
+        let mut gib = budget.bytes as f64 / f64::from(1u32 << 30);
+        let r = ui
+            .add(
+                egui::DragValue::new(&mut gib)
+                    .range(0.0625..=4096.0)
+                    .speed(0.25)
+                    .max_decimals(2)
+                    .suffix(" GiB"),
+            )
+            .labelled_by(l.id)
+            .on_hover_text(
+                "scans up to this size are read whole into memory; larger ones are read from \
+                 an OME-Zarr store, a chunk at a time",
+            );
+        if r.changed() {
+            out.push(PrefsCommand::SetMemoryBudget(Some(gib)).into());
+        }
+        if prefs.memory_budget_gib.is_some()
+            && ui
+                .small_button("automatic")
+                .on_hover_text("a quarter of this machine's memory")
+                .clicked()
+        {
+            out.push(PrefsCommand::SetMemoryBudget(None).into());
+        }
+    });
+    let id = ui.scope_id().with("store_cache");
+    let mut text = ui.data_mut(|d| {
+        d.get_temp::<String>(id)
+            .unwrap_or_else(|| prefs.store_cache.clone())
+    });
+    ui.horizontal(|ui| {
+        let l = ui.label("Store folder");
+        let r = ui
+            .add(
+                egui::TextEdit::singleline(&mut text)
+                    .hint_text(prefs.store_cache_dir().display().to_string())
+                    .desired_width(220.0),
+            )
+            .labelled_by(l.id)
+            .on_hover_text("where stores of scans over the memory budget are built and kept");
+        if r.lost_focus() && text.trim() != prefs.store_cache {
+            out.push(PrefsCommand::SetStoreCache(text.clone()).into());
+        }
+    });
+    ui.data_mut(|d| d.insert_temp(id, text));
+}
+
 fn heading(ui: &mut Ui, text: &str) {
     ui.add_space(4.0);
     ui.label(RichText::new(text).strong().size(14.0));
@@ -282,7 +336,7 @@ fn heading(ui: &mut Ui, text: &str) {
 
 fn scan_facts_ui(ui: &mut Ui, scan: &Scan) {
     heading(ui, "This scan");
-    let v = &scan.volume;
+    let v = scan.grid();
     let d = v.dims();
     let sp = v.spacing_mm();
     egui::Grid::new("scan_facts")
@@ -316,7 +370,7 @@ fn scan_facts_ui(ui: &mut Ui, scan: &Scan) {
             ));
             ui.end_row();
         });
-    for note in &v.notes {
+    for note in v.notes() {
         ui.label(RichText::new(format!("• {note}")).small().weak());
     }
 }

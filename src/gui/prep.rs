@@ -119,6 +119,19 @@ pub struct Prep {
     pub last_mesh: Option<(PathBuf, MeshReport)>,
 }
 
+/// The scan's voxels in memory, which a label image in the window is drawn on; a scan read
+/// through its store (over the memory budget) is prepared on the command line, whose `labels`
+/// commands read a scan of any size.
+fn in_memory(scan: &Scan) -> Result<&Volume, String> {
+    scan.whole().ok_or_else(|| {
+        format!(
+            "{} is larger than the window's memory budget and is read from its store: prepare it \
+             with `sutura labels` on the command line, which reads scans of any size",
+            scan.name()
+        )
+    })
+}
+
 /// The name of the label image the window keeps inside a scan's OME-Zarr store.
 pub const STORE_LABEL_IMAGE: &str = "preparation";
 
@@ -153,7 +166,7 @@ impl Prep {
                 path.display()
             ));
         }
-        let v = &scan.volume;
+        let v = in_memory(scan)?;
         let mut lv = LabelVolume::new(v.dims(), v.spacing_mm());
         lv.fingerprint = Some(Fingerprint::of(&scan.path, v).map_err(|e| e.to_string())?);
         for name in ["specimen", "matrix"] {
@@ -165,8 +178,8 @@ impl Prep {
 
     /// The label image at `path`, checked to be on `scan`'s grid and made on it.
     pub fn open(path: &Path, scan: &Scan) -> Result<Self, String> {
+        let v = in_memory(scan)?;
         let lv = zarr::load(path).map_err(|e| e.to_string())?;
-        let v = &scan.volume;
         if lv.dims() != v.dims() {
             return Err(format!(
                 "{}: labels for a {:?} grid, but the scan is {:?}",
@@ -184,7 +197,7 @@ impl Prep {
     }
 
     fn with(lv: LabelVolume, path: &Path, scan: &Scan) -> Self {
-        let spacing = scan.volume.spacing_mm();
+        let spacing = scan.grid().spacing_mm();
         let finest_um = spacing.iter().copied().fold(f64::INFINITY, f64::min) * 1e3;
         let current = lv.labels().first().map_or(0, |l| l.value);
         let mut drawn = LabelSet::default();
@@ -318,10 +331,12 @@ impl Prep {
                 kept: self.kept,
                 iso_bits: iso.to_bits(),
             };
-            if self.kept_volume.as_ref().is_none_or(|(k, _)| *k != key) {
+            if self.kept_volume.as_ref().is_none_or(|(k, _)| *k != key)
+                && let Some(volume) = scan.whole()
+            {
                 let kept = self.kept;
                 let made = sutura_core::render::labels::keep_labels(
-                    &scan.volume,
+                    volume,
                     &self.read(),
                     &|v| kept.contains(v),
                     Some(iso),
@@ -481,7 +496,7 @@ impl Prep {
         if mask.is_empty() {
             return Err(format!("label {name} holds no voxel"));
         }
-        let (mesh, iso) = sutura_core::mesh::iso_surface(&*scan.volume, iso, Some(&mask))
+        let (mesh, iso) = sutura_core::mesh::iso_surface(in_memory(scan)?, iso, Some(&mask))
             .map_err(|e| e.to_string())?;
         let path = self.mesh_path(format);
         let title = format!("Sutura mesh of {}, label {name}", scan.name());
@@ -513,7 +528,7 @@ impl Prep {
             // any other command ends the stroke first, so it is one undo step of its own
             self.end_stroke();
         }
-        let volume = &scan.volume;
+        let volume = in_memory(scan)?;
         let voxel = |w: WorldPoint| -> Result<[usize; 3], String> {
             volume
                 .world_to_voxel(w)
@@ -629,7 +644,7 @@ impl Prep {
                 };
                 let edit = ops::grow_label(
                     &mut self.write(),
-                    &**volume,
+                    volume,
                     value,
                     seed,
                     &options,
@@ -678,7 +693,7 @@ impl Prep {
                 let within = (self.other != 0).then_some(self.other);
                 let edit = ops::threshold_label(
                     &mut self.write(),
-                    &**volume,
+                    volume,
                     value,
                     range,
                     within,

@@ -31,6 +31,20 @@ pub enum Prompt {
     },
     /// The operator's name, asked before the first trial.
     Operator,
+    /// A scan too large for the memory budget: build a store of it in the cache folder?
+    BuildStore {
+        scan: PathBuf,
+        store: PathBuf,
+        bytes: u64,
+        budget: u64,
+        /// The project specimen whose scan it is.
+        specimen: Option<String>,
+    },
+}
+
+/// Bytes in GB (10⁹, as disks are sold) with one decimal.
+fn gigabytes(bytes: u64) -> String {
+    format!("{:.1} GB", bytes as f64 / 1e9)
 }
 
 fn ago_text(secs: u64) -> String {
@@ -122,6 +136,49 @@ pub fn prompt_ui(
                         out.push(AppCommand::Mismatch(false).into());
                     }
                 });
+            }
+            Prompt::BuildStore {
+                scan,
+                store,
+                bytes,
+                budget,
+                ..
+            } => {
+                ui.heading("A scan larger than the memory budget");
+                let name = scan.file_name().map_or_else(
+                    || scan.display().to_string(),
+                    |n| n.to_string_lossy().into(),
+                );
+                ui.label(format!(
+                    "{name} holds {} of voxels, more than the window's memory budget of {}. \
+                     The window reads a scan this size from an OME-Zarr store: a copy in \
+                     chunks and levels of detail, built once in one pass over the file \
+                     (resumed if stopped), then opened at once every time.",
+                    gigabytes(*bytes),
+                    gigabytes(*budget)
+                ));
+                ui.label(
+                    RichText::new(format!("store: {}", store.display()))
+                        .small()
+                        .monospace(),
+                );
+                ui.label(
+                    RichText::new(
+                        "The memory budget and the store folder are set in the File menu.",
+                    )
+                    .small()
+                    .weak(),
+                );
+                ui.add_space(8.0);
+                ui.horizontal(|ui| {
+                    if ui.button("Build the store and open it").clicked() || enter {
+                        out.push(AppCommand::BuildStore(true).into());
+                    }
+                    if ui.button("Cancel").clicked() || escape {
+                        out.push(AppCommand::BuildStore(false).into());
+                    }
+                });
+                ui.label(RichText::new("Enter builds · Esc cancels").small().weak());
             }
             Prompt::Operator => {
                 ui.heading("Who is digitising?");

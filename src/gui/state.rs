@@ -22,7 +22,7 @@ use super::command::{PrefsCommand, ViewCommand};
 use sutura_core::geometry::{VoxelIndex, VoxelPoint, WorldPoint};
 use sutura_core::landmarks::pick::{IsoValue, default_iso_value};
 use sutura_core::render::{ColourMap, Interpolation, WindowLevel};
-use sutura_core::volume::Volume;
+use sutura_core::volume::{Volume, VolumeSource};
 
 /// The five views. The first four are planes through the crosshair point.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize, Default)]
@@ -122,12 +122,13 @@ pub enum VolumeMode {
 }
 
 /// A scan that is open, with what the views need to start from.
-#[derive(Debug)]
 pub struct Scan {
     /// Distinguishes scans opened one after the other (renders of an older one are dropped).
     pub id: u64,
     pub path: PathBuf,
-    pub volume: Arc<Volume>,
+    /// The voxels, through the volume interface: the whole scan in memory, or an OME-Zarr
+    /// store larger than the memory budget, read chunk by chunk at the level each view needs.
+    pub source: Arc<dyn VolumeSource>,
     /// The 0.5th and 99.5th percentiles of the intensities: the default window.
     pub robust_range: (f64, f64),
     /// The minimum and maximum intensity.
@@ -135,6 +136,20 @@ pub struct Scan {
     /// The scan's default iso-value (ISO-50, or the library's stated fallback): the 3D view's
     /// surface, snapping and 3D picking start at it.
     pub iso: IsoValue,
+    /// Bytes of the level the 3D view reads of a scan that is not in memory (the finest level
+    /// within them).
+    pub volume_view_bytes: u64,
+}
+
+impl std::fmt::Debug for Scan {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Scan")
+            .field("id", &self.id)
+            .field("path", &self.path)
+            .field("dims", &self.source.dims())
+            .field("in_memory", &self.source.whole().is_some())
+            .finish_non_exhaustive()
+    }
 }
 
 impl Scan {
@@ -146,11 +161,50 @@ impl Scan {
         Self {
             id,
             path,
-            volume: Arc::new(volume),
+            source: Arc::new(volume),
             robust_range: (p[1], p[2]),
             full_range: (p[0], p[3]),
             iso,
+            volume_view_bytes: 0,
         }
+    }
+
+    /// A scan read through `source` (a store): its intensity statistics, percentiles and
+    /// ISO-50 are the ones the source keeps (written when the store was made), so opening reads
+    /// no voxels.
+    pub fn from_source(
+        id: u64,
+        path: PathBuf,
+        source: Arc<dyn VolumeSource>,
+        volume_view_bytes: u64,
+    ) -> Result<Self, String> {
+        let name = path.display().to_string();
+        let intensity = source.intensity().map_err(|e| format!("{name}: {e}"))?;
+        let p = |q: f64| intensity.percentile(q).unwrap_or(f64::NAN);
+        let (lo, hi) = (intensity.stats.min, intensity.stats.max);
+        let iso = sutura_core::landmarks::pick_source::default_iso_value(&*source)
+            .map_err(|e| format!("{name}: {e}"))?;
+        Ok(Self {
+            id,
+            path,
+            source,
+            robust_range: (p(0.5), p(99.5)),
+            full_range: (lo, hi),
+            iso,
+            volume_view_bytes,
+        })
+    }
+
+    /// The whole scan in memory, when it is (else it is read through [`Self::source`]).
+    #[must_use]
+    pub fn whole(&self) -> Option<&Volume> {
+        self.source.whole()
+    }
+
+    /// The scan's full-resolution grid and placement (and its voxels, read as needed).
+    #[must_use]
+    pub fn grid(&self) -> &dyn VolumeSource {
+        &*self.source
     }
 
     /// The window from the 0.5th to the 99.5th percentile (common practice for a first look).
@@ -221,6 +275,12 @@ pub struct Preferences {
     pub snap: bool,
     /// Labels beside the landmarks in the views.
     pub landmark_labels: bool,
+    /// The window's memory budget in GiB (`None`: a quarter of the machine's memory); see
+    /// [`super::loader::MemoryBudget`].
+    pub memory_budget_gib: Option<f64>,
+    /// The folder where stores built of scans over the budget are kept (empty: the user's
+    /// cache folder, see [`Preferences::store_cache_dir`]).
+    pub store_cache: String,
 }
 
 impl Default for Preferences {
@@ -239,6 +299,8 @@ impl Default for Preferences {
             operator: String::new(),
             snap: true,
             landmark_labels: true,
+            memory_budget_gib: None,
+            store_cache: String::new(),
         }
     }
 }
@@ -252,6 +314,33 @@ impl Preferences {
         self.recent.retain(|p| p != &path);
         self.recent.insert(0, path);
         self.recent.truncate(8);
+    }
+
+    /// The memory budget scans are opened with.
+    #[must_use]
+    pub fn budget(&self) -> super::loader::MemoryBudget {
+        super::loader::MemoryBudget::new(self.memory_budget_gib)
+    }
+
+    /// Where stores built of scans over the budget go: the folder set, else
+    /// `$XDG_CACHE_HOME/sutura/stores`, else `~/.cache/sutura/stores` (the XDG base directory
+    /// convention), else the system's temporary folder.
+    #[must_use]
+    pub fn store_cache_dir(&self) -> PathBuf {
+        let set = self.store_cache.trim();
+        if !set.is_empty() {
+            return PathBuf::from(set);
+        }
+        let var = |k: &str| {
+            std::env::var_os(k)
+                .filter(|v| !v.is_empty())
+                .map(PathBuf::from)
+        };
+        var("XDG_CACHE_HOME")
+            .or_else(|| var("HOME").map(|h| h.join(".cache")))
+            .unwrap_or_else(std::env::temp_dir)
+            .join("sutura")
+            .join("stores")
     }
 
     /// The voxel size for TIFF scans opened from now on (`None`: the file's own).
@@ -292,6 +381,10 @@ impl Preferences {
             PrefsCommand::SetTiffVoxelSize(v) => {
                 self.tiff_voxel_size = v.map(|v| v.to_text()).unwrap_or_default();
             }
+            PrefsCommand::SetMemoryBudget(gib) => {
+                self.memory_budget_gib = gib.filter(|g| g.is_finite() && *g > 0.0);
+            }
+            PrefsCommand::SetStoreCache(folder) => folder.trim().clone_into(&mut self.store_cache),
         }
     }
 }
@@ -364,7 +457,7 @@ impl ViewState {
     /// The start state for a freshly opened scan.
     #[must_use]
     pub fn for_scan(scan: &Scan) -> Self {
-        let v = &scan.volume;
+        let v = scan.grid();
         Self {
             cursor: v.centre_world(),
             planes: [PlaneCamera::fitted(v); 4],
@@ -376,7 +469,7 @@ impl ViewState {
 
     /// The crosshair's slice index in a voxel-plane view.
     #[must_use]
-    pub fn slice(&self, volume: &Volume, view: ViewId) -> Option<usize> {
+    pub fn slice(&self, volume: &dyn VolumeSource, view: ViewId) -> Option<usize> {
         view.axis().map(|a| slice_index(volume, a, self.cursor))
     }
 
@@ -384,7 +477,7 @@ impl ViewState {
     /// rendering).
     #[allow(clippy::too_many_lines)] // reason: one arm per command, each a few lines
     pub fn apply(&mut self, scan: &Scan, cmd: ViewCommand, now: f64) {
-        let vol = &scan.volume;
+        let vol = scan.grid();
         if matches!(
             cmd,
             ViewCommand::Scroll { .. }
@@ -543,7 +636,7 @@ impl ViewState {
         }
     }
 
-    fn scroll(&mut self, vol: &Volume, view: ViewId, steps: i32) {
+    fn scroll(&mut self, vol: &dyn VolumeSource, view: ViewId, steps: i32) {
         if let Some(axis) = view.axis() {
             let n = vol.dims()[axis] as i64;
             let i = slice_index(vol, axis, self.cursor) as i64 + i64::from(steps);
@@ -560,20 +653,20 @@ impl ViewState {
 
     /// The read-out for a world point in a view.
     #[must_use]
-    pub fn hover_at(volume: &Volume, view: ViewId, world: WorldPoint) -> Hover {
+    pub fn hover_at(volume: &dyn VolumeSource, view: ViewId, world: WorldPoint) -> Hover {
         let voxel = volume.world_to_voxel(world).nearest_index(volume.dims());
         Hover {
             view,
             world,
             voxel,
-            value: voxel.and_then(|v| volume.value(v)),
+            value: voxel.and_then(|v| volume.voxel_value(v).ok().flatten()),
         }
     }
 }
 
 /// The point moved into the volume's box of voxel centres.
 #[must_use]
-pub fn clamp_to_volume(volume: &Volume, p: WorldPoint) -> WorldPoint {
+pub fn clamp_to_volume(volume: &dyn VolumeSource, p: WorldPoint) -> WorldPoint {
     let d = volume.dims();
     let v = volume.world_to_voxel(p).0;
     if !v.iter().all(|c| c.is_finite()) {
@@ -604,7 +697,7 @@ mod tests {
         let s = scan();
         let mut vs = ViewState::for_scan(&s);
         // centre of 5 slices along k is 2
-        assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(2));
+        assert_eq!(vs.slice(s.grid(), ViewId::PlaneK), Some(2));
         vs.apply(
             &s,
             ViewCommand::Scroll {
@@ -613,9 +706,9 @@ mod tests {
             },
             0.0,
         );
-        assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(3));
+        assert_eq!(vs.slice(s.grid(), ViewId::PlaneK), Some(3));
         // the other planes' slices do not move
-        assert_eq!(vs.slice(&s.volume, ViewId::PlaneI), Some(4));
+        assert_eq!(vs.slice(s.grid(), ViewId::PlaneI), Some(4));
         vs.apply(
             &s,
             ViewCommand::Scroll {
@@ -624,7 +717,7 @@ mod tests {
             },
             0.0,
         );
-        assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(4));
+        assert_eq!(vs.slice(s.grid(), ViewId::PlaneK), Some(4));
         vs.apply(
             &s,
             ViewCommand::Scroll {
@@ -633,7 +726,7 @@ mod tests {
             },
             0.0,
         );
-        assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(0));
+        assert_eq!(vs.slice(s.grid(), ViewId::PlaneK), Some(0));
     }
 
     #[test]
@@ -715,7 +808,7 @@ mod tests {
             ViewCommand::MoveCursor(WorldPoint::new(-5.0, 0.1, 99.0)),
             0.0,
         );
-        let v = s.volume.world_to_voxel(vs.cursor).0;
+        let v = s.grid().world_to_voxel(vs.cursor).0;
         assert_relative_eq!(v.x, 0.0, epsilon = 1e-9);
         assert_relative_eq!(v.y, 0.1 / 0.036, epsilon = 1e-9);
         assert_relative_eq!(v.z, 4.0, epsilon = 1e-9);
@@ -761,8 +854,8 @@ mod tests {
     #[test]
     fn hover_reads_the_voxel_value() {
         let s = scan();
-        let p = s.volume.voxel_to_world(VoxelPoint::new(3.2, 1.9, 4.4));
-        let h = ViewState::hover_at(&s.volume, ViewId::PlaneK, p);
+        let p = s.grid().voxel_to_world(VoxelPoint::new(3.2, 1.9, 4.4));
+        let h = ViewState::hover_at(s.grid(), ViewId::PlaneK, p);
         assert_eq!(h.voxel, Some(VoxelIndex::new(3, 2, 4)));
         // value = 10 × linear index
         assert_eq!(h.value, Some(10.0 * f64::from(3 + 8 * (2 + 6 * 4))));
@@ -775,7 +868,7 @@ mod tests {
         assert_relative_eq!(s.robust_range.0, 0.005 * 2390.0, epsilon = 1e-9);
         assert_relative_eq!(s.robust_range.1, 0.995 * 2390.0, epsilon = 1e-9);
         // one surface value: the one the command line's render and pick default to
-        assert_eq!(s.iso, default_iso_value(&s.volume));
+        assert_eq!(s.iso, default_iso_value(s.whole().unwrap()));
         assert_eq!(ViewState::for_scan(&s).iso, s.iso);
     }
 
@@ -783,7 +876,7 @@ mod tests {
     fn the_wheel_keeps_fractions_of_a_line_for_the_next_movement() {
         let s = scan();
         let mut vs = ViewState::for_scan(&s);
-        let k0 = vs.slice(&s.volume, ViewId::PlaneK).unwrap();
+        let k0 = vs.slice(s.grid(), ViewId::PlaneK).unwrap();
         for _ in 0..3 {
             vs.apply(
                 &s,
@@ -794,6 +887,6 @@ mod tests {
                 0.0,
             );
         }
-        assert_eq!(vs.slice(&s.volume, ViewId::PlaneK), Some(k0 + 1));
+        assert_eq!(vs.slice(s.grid(), ViewId::PlaneK), Some(k0 + 1));
     }
 }

@@ -36,7 +36,7 @@ use super::state::{Hover, Preferences, Scan, ViewId, ViewState, VolumeMode};
 use super::worker::RenderKey;
 use sutura_core::geometry::WorldPoint;
 use sutura_core::render::Camera;
-use sutura_core::volume::Volume;
+use sutura_core::volume::VolumeSource;
 
 /// A picture a view shows: its texture, what it was rendered from, and (surface views) the
 /// world point behind each pixel.
@@ -82,7 +82,7 @@ fn arr(p: Pos2) -> [f64; 2] {
 /// The basis `(u, v, n)` of a plane view.
 #[must_use]
 pub fn plane_basis(
-    volume: &Volume,
+    volume: &dyn VolumeSource,
     vs: &ViewState,
     view: ViewId,
 ) -> (Vector3<f64>, Vector3<f64>, Vector3<f64>) {
@@ -98,7 +98,12 @@ pub fn plane_basis(
 /// A point on a plane view's plane: the voxel plane at the crosshair's slice, or the oblique
 /// plane through the crosshair.
 #[must_use]
-pub fn plane_point(volume: &Volume, vs: &ViewState, view: ViewId, near: WorldPoint) -> WorldPoint {
+pub fn plane_point(
+    volume: &dyn VolumeSource,
+    vs: &ViewState,
+    view: ViewId,
+    near: WorldPoint,
+) -> WorldPoint {
     if let Some(a) = view.axis() {
         onto_slice(volume, a, slice_index(volume, a, vs.cursor), near)
     } else {
@@ -109,7 +114,7 @@ pub fn plane_point(volume: &Volume, vs: &ViewState, view: ViewId, near: WorldPoi
 
 /// This frame's screen map of a plane view occupying `rect`.
 #[must_use]
-pub fn plane_map(volume: &Volume, vs: &ViewState, view: ViewId, rect: Rect) -> ScreenMap {
+pub fn plane_map(volume: &dyn VolumeSource, vs: &ViewState, view: ViewId, rect: Rect) -> ScreenMap {
     let (u, v, _) = plane_basis(volume, vs, view);
     let cam = vs.planes[view.index()];
     let r = rect4(rect);
@@ -125,7 +130,11 @@ pub fn plane_map(volume: &Volume, vs: &ViewState, view: ViewId, rect: Rect) -> S
 
 /// The 3D view's render camera for a view of `pixels` (physical pixels).
 #[must_use]
-pub fn volume_camera(volume: &Volume, vs: &ViewState, pixels: [usize; 2]) -> Option<Camera> {
+pub fn volume_camera(
+    volume: &dyn VolumeSource,
+    vs: &ViewState,
+    pixels: [usize; 2],
+) -> Option<Camera> {
     vs.orbit.camera(volume, pixels[0], pixels[1]).ok()
 }
 
@@ -191,7 +200,7 @@ pub fn view_ui(
         placing,
         prep,
     } = *input;
-    let volume = &scan.volume;
+    let volume = scan.grid();
     let id = ui.scope_id().with(("view", view.index(), on_stage));
     let response = ui.interact(rect, id, Sense::click_and_drag());
     let painter = ui.painter_at(rect);
@@ -622,7 +631,7 @@ fn surface_hit(s: &Shown, rect: Rect, p: Pos2) -> Option<WorldPoint> {
 /// around the crosshair point.
 fn crosshair(
     painter: &egui::Painter,
-    volume: &Volume,
+    volume: &dyn VolumeSource,
     vs: &ViewState,
     view: ViewId,
     m: &ScreenMap,
@@ -675,7 +684,7 @@ fn frame_and_label(
     rect: Rect,
     view: ViewId,
     on_stage: bool,
-    volume: &Volume,
+    volume: &dyn VolumeSource,
     vs: &ViewState,
 ) {
     let colour = colour32(view.colour());

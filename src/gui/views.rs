@@ -155,7 +155,7 @@ impl Views {
             let pixels = pixels_for(rect, ppp);
             let on_stage = view == prefs.stage;
             let key = if view.is_plane() {
-                let m = plane_map(&scan.volume, vs, view, rect);
+                let m = plane_map(scan.grid(), vs, view, rect);
                 let plane = Plane {
                     origin: m.origin,
                     u: m.u,
@@ -187,7 +187,7 @@ impl Views {
                     labels: layers.and_then(|l| l.overlay),
                 })
             } else {
-                let Some(camera) = volume_camera(&scan.volume, vs, pixels) else {
+                let Some(camera) = volume_camera(scan.grid(), vs, pixels) else {
                     continue;
                 };
                 let moving = now - vs.volume_changed_at < SETTLE_SECS;

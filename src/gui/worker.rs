@@ -28,11 +28,12 @@ use sutura_core::labels::LabelVolume;
 use sutura_core::render::overlay::{AxisNames, Overlay};
 use sutura_core::render::pyramid::Pyramid;
 use sutura_core::render::raycast::{self, Bricks};
+use sutura_core::render::source::{self as render_source, Detail};
 use sutura_core::render::{
     Camera, ColourMap, F32Image, Interpolation, MipOptions, Quality, RenderError, RgbaImage,
-    SliceGeometry, SurfaceOptions, WindowLevel, slice,
+    SliceGeometry, SurfaceOptions, WindowLevel,
 };
-use sutura_core::volume::Volume;
+use sutura_core::volume::{Block, Volume, VolumeSource};
 
 /// Everything that decides a plane view's pixels.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -115,7 +116,7 @@ const OVERLAY_COLOUR: [u8; 4] = [245, 236, 214, 255];
 /// bar and orientation labels, converted to an egui image. `bricks` gives the empty-space
 /// table for surface views (built once per scan by the caller).
 pub fn render_view(
-    volume: &Volume,
+    volume: &dyn VolumeSource,
     key: &RenderKey,
     bricks: Option<&Bricks>,
 ) -> Result<Picture, RenderError> {
@@ -129,8 +130,14 @@ pub type PlaneValues = Option<(PlaneKey, F32Image)>;
 /// As [`render_view`], reusing `last` (and replacing it) for plane views: when only the
 /// window, colour map or overlays changed, the slice is not resampled again. A plane key with
 /// labels blends `labels` (on the volume's grid) over the slice.
+///
+/// A plane of a scan that is not in memory is read through the volume interface at the
+/// coarsest level with a voxel per pixel ([`Detail::Screen`]): a moving (coarse) picture reads
+/// a coarse level, the picture at rest the level its zoom needs — full resolution when zoomed
+/// in to the voxels. A 3D picture needs the scan in memory: the caller passes the level it
+/// reads for the 3D view ([`render_source::volume_for_3d`]).
 pub fn render_view_reusing(
-    volume: &Volume,
+    volume: &dyn VolumeSource,
     key: &RenderKey,
     bricks: Option<&Bricks>,
     last: &mut PlaneValues,
@@ -146,7 +153,13 @@ pub fn render_view_reusing(
                 {
                     img
                 }
-                _ => slice::render_slice(volume, &p.geometry, p.interpolation, None)?,
+                _ => render_source::render_slice(
+                    volume,
+                    &p.geometry,
+                    p.interpolation,
+                    None,
+                    Detail::Screen,
+                )?,
             };
             let mut rgba = p.window.colourize(&img, p.colours);
             *last = Some((*p, img));
@@ -156,7 +169,7 @@ pub fn render_view_reusing(
                 sutura_core::render::labels::blend_labels(
                     &mut rgba,
                     &p.geometry,
-                    volume.world_from_voxel(),
+                    &volume.world_from_voxel(),
                     l,
                     sutura_core::render::labels::LabelStyle {
                         opacity: f64::from(o.opacity),
@@ -188,6 +201,7 @@ pub fn render_view_reusing(
             })
         }
         RenderKey::Volume(v) => {
+            let volume = volume.whole().ok_or(RenderError::NotInMemory)?;
             let (rgba, hits) = match v.mode {
                 VolumeMode::Projection => {
                     let img = raycast::mip(volume, &v.camera, MipOptions { quality: v.quality })?;
@@ -460,9 +474,79 @@ fn volume_job<'a>(
     (scan, *key, false)
 }
 
+/// A 3D job: the scan in memory (or its kept-labels copy), or, for a scan read through its
+/// store, the finest level within its `volume_view_bytes`, read once per scan and kept in
+/// `overview`. Picks on the 3D view go back to full resolution (see `pick_source`).
+fn render_3d(
+    job: &Job,
+    k: VolumeKey,
+    aids: &mut Option<(Option<KeptKey>, VolumeAids)>,
+    overview: &mut Option<(u64, Volume)>,
+) -> Result<Picture, RenderError> {
+    // the kept-labels copy, when the key asks for one and it came with the job
+    let (volume, kept) = match (&job.layers.kept, k.kept, job.scan.whole()) {
+        (Some(v), Some(key), _) => (&**v, Some(key)),
+        (_, _, Some(v)) => (v, None),
+        (_, _, None) => {
+            if overview.as_ref().is_none_or(|(id, _)| *id != job.scan.id) {
+                *overview = None; // the old scan's level goes before the new one is read
+                let level = match render_source::volume_for_3d(
+                    job.scan.grid(),
+                    job.scan.volume_view_bytes,
+                )? {
+                    Block::Read(v) => v,
+                    // a source that is not whole reads blocks; never the whole of it
+                    Block::Whole(_) => return Err(RenderError::NotInMemory),
+                };
+                *overview = Some((job.scan.id, level));
+            }
+            (&overview.as_ref().expect("just read").1, None)
+        }
+    };
+    if aids
+        .as_ref()
+        .is_none_or(|(kk, a)| a.scan != job.scan.id || *kk != kept)
+    {
+        *aids = None;
+        *aids = Some((kept, VolumeAids::new(job.scan.id, volume)));
+    }
+    aids.as_mut().expect("just set").1.render(volume, &job.key)
+}
+
+/// Warms the cache for the next planes of a view scrolling through a scan read from its store:
+/// when the plane moved along its normal since the last picture, the two planes further on in
+/// that direction are read in the background (at the level the picture read).
+fn prefetch_ahead(source: &dyn VolumeSource, p: &PlaneKey, last: &mut Option<SliceGeometry>) {
+    let g = p.geometry;
+    let before = last.replace(g);
+    let Some(b) = before else { return };
+    let n = g.normal();
+    let step = g.origin.0 - b.origin.0;
+    let along = step.dot(&n);
+    // the same plane orientation and framing, moved only along its normal
+    let moved_in_plane = (step - n * along).norm();
+    if along.abs() < 1e-12
+        || moved_in_plane > 1e-9 * (1.0 + step.norm())
+        || (g.u - b.u).norm() > 1e-12
+        || (g.v - b.v).norm() > 1e-12
+    {
+        return;
+    }
+    let level = Detail::Screen.level(source, g.pixel_mm);
+    for ahead in 1..=2 {
+        let mut next = g;
+        next.origin = WorldPoint(g.origin.0 + n * (along * f64::from(ahead)));
+        if let Some(region) = render_source::slice_region(source, level, &next, None) {
+            source.prefetch(level, &region);
+        }
+    }
+}
+
 fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() + Send + Sync)) {
     let mut aids: Option<(Option<KeptKey>, VolumeAids)> = None;
+    let mut overview: Option<(u64, Volume)> = None;
     let mut values: [PlaneValues; 5] = Default::default();
+    let mut last_plane: [Option<SliceGeometry>; 5] = Default::default();
     loop {
         let (view, job) = {
             let mut slots = mb.slots.lock().unwrap_or_else(PoisonError::into_inner);
@@ -489,31 +573,27 @@ fn serve(mb: &Mailbox, lane: &[ViewId], tx: &Sender<Rendered>, wake: &(dyn Fn() 
         };
         let start = Instant::now();
         let picture = if let RenderKey::Volume(k) = job.key {
-            // the kept-labels copy, when the key asks for one and it came with the job
-            let (volume, kept) = match (&job.layers.kept, k.kept) {
-                (Some(v), Some(key)) => (&**v, Some(key)),
-                _ => (&*job.scan.volume, None),
-            };
-            if aids
-                .as_ref()
-                .is_none_or(|(kk, a)| a.scan != job.scan.id || *kk != kept)
-            {
-                aids = Some((kept, VolumeAids::new(job.scan.id, volume)));
-            }
-            aids.as_mut().expect("just set").1.render(volume, &job.key)
+            render_3d(&job, k, &mut aids, &mut overview)
         } else {
             let labels = job
                 .layers
                 .labels
                 .as_ref()
                 .map(|l| l.read().unwrap_or_else(PoisonError::into_inner));
-            render_view_reusing(
-                &job.scan.volume,
+            let source = job.scan.grid();
+            let picture = render_view_reusing(
+                source,
                 &job.key,
                 None,
                 &mut values[view.index()],
                 labels.as_deref(),
-            )
+            );
+            if source.whole().is_none()
+                && let RenderKey::Plane(p) = job.key
+            {
+                prefetch_ahead(source, &p, &mut last_plane[view.index()]);
+            }
+            picture
         }
         .map_err(|e| e.to_string());
         let sent = tx.send(Rendered {

@@ -285,7 +285,7 @@ struct Hit {
     crossing: Crossing,
 }
 
-fn finite_point(p: WorldPoint, what: &'static str) -> Result<(), PickError> {
+pub(super) fn finite_point(p: WorldPoint, what: &'static str) -> Result<(), PickError> {
     if p.0.iter().all(|c| c.is_finite()) {
         Ok(())
     } else {
@@ -293,7 +293,7 @@ fn finite_point(p: WorldPoint, what: &'static str) -> Result<(), PickError> {
     }
 }
 
-fn unit(d: Vector3<f64>, what: &'static str) -> Result<Vector3<f64>, PickError> {
+pub(super) fn unit(d: Vector3<f64>, what: &'static str) -> Result<Vector3<f64>, PickError> {
     if !d.iter().all(|c| c.is_finite()) {
         return Err(PickError::ZeroDirection(what));
     }
@@ -821,72 +821,11 @@ pub fn default_iso_value(volume: &Volume) -> IsoValue {
     }
 }
 
-/// The surface a view shows under a pixel: the ray through `through` along `direction` is
-/// started outside the volume's box (a camera may sit inside it, or anywhere on the line), so
-/// the first crossing is the surface the picture shows in front of everything else.
-/// `Ok(None)` when the ray meets no boundary, or enters the volume already in material (the
-/// view shows the volume's face there, not a surface of the specimen).
-pub fn pick_view_ray(
-    volume: &Volume,
-    through: WorldPoint,
-    direction: Vector3<f64>,
-    options: &PickOptions,
-) -> Result<Option<Pick>, PickError> {
-    finite_point(through, "view ray point")?;
-    let dir = unit(direction, "view ray direction")?;
-    let d = volume.dims();
-    let corner = |v: [f64; 3]| volume.voxel_to_world(VoxelPoint::new(v[0], v[1], v[2])).0;
-    let lo = [-0.5; 3];
-    let hi = [d[0] as f64 - 0.5, d[1] as f64 - 0.5, d[2] as f64 - 0.5];
-    // the farthest box corner from `through` bounds how far back the ray must start
-    let mut reach: f64 = 0.0;
-    for c in 0..8 {
-        let v = [
-            if c & 1 == 0 { lo[0] } else { hi[0] },
-            if c & 2 == 0 { lo[1] } else { hi[1] },
-            if c & 4 == 0 { lo[2] } else { hi[2] },
-        ];
-        reach = reach.max((corner(v) - through.0).norm());
-    }
-    let start = WorldPoint(through.0 - dir * (reach * (1.0 + 1e-6) + 1e-9));
-    let pick = pick_along_ray(volume, start, dir, options)?;
-    Ok(pick.filter(|p| p.crossing != Crossing::VolumeFace))
-}
-
-/// How far a click on a plane looks for the boundary to snap to, in voxels (of the smallest
-/// spacing).
-pub const SNAP_REACH_VOXELS: f64 = 10.0;
-
-/// Snaps a point clicked on a plane to the nearest boundary at `iso` within the plane and
-/// within [`SNAP_REACH_VOXELS`], refined to the edge. `Ok(None)` when there is no boundary in
-/// reach (or only the volume's face).
-pub fn snap_to_boundary(
-    volume: &Volume,
-    at: WorldPoint,
-    plane_normal: Vector3<f64>,
-    iso: f64,
-) -> Result<Option<Pick>, PickError> {
-    let options = snap_options(volume, iso);
-    let pick = pick_in_slice(volume, at, plane_normal, SliceSearch::AllAround, &options)?;
-    Ok(pick.filter(|p| p.crossing != Crossing::VolumeFace))
-}
-
-/// The search [`snap_to_boundary`] makes: `iso`, [`SNAP_REACH_VOXELS`] of the smallest voxel
-/// spacing, refined to the edge.
-#[must_use]
-pub fn snap_options(volume: &Volume, iso: f64) -> PickOptions {
-    let sp = volume.spacing_mm();
-    PickOptions {
-        threshold: iso,
-        max_distance_mm: SNAP_REACH_VOXELS * sp[0].min(sp[1]).min(sp[2]),
-        refine_to_edge: true,
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::geometry::Affine3;
+    use crate::landmarks::pick_source::{SNAP_REACH_VOXELS, pick_view_ray, snap_to_boundary};
     use nalgebra::{Point3, Rotation3};
     use statrs::function::erf::erf;
 

@@ -254,3 +254,66 @@ impl SliceReader for Resized {
         self.inner.read_slices(k0, dst, progress)
     }
 }
+
+/// Bytes of a scan's full-resolution voxels, from its header alone (no voxel is read): what a
+/// front end compares with its memory budget before reading a scan whole.
+pub fn scan_voxel_bytes(path: &Path, options: &OpenOptions) -> Result<u64, IoError> {
+    let reader = open_scan_slices_with(path, options)?;
+    let d = reader.dims();
+    Ok(d.iter().map(|&n| n as u64).product::<u64>() * reader.dtype().size_bytes() as u64)
+}
+
+/// Converts the scan at `scan` into an OME-Zarr store at `out`, streaming a slab of slices at
+/// a time ([`crate::store::write::convert`]), with the source's fingerprint recorded in the
+/// store (so that a project's record of the scan still matches, and a resumed conversion
+/// checks it is resuming the same source). `options.source_fingerprint` is filled here.
+pub fn convert_to_store(
+    scan: &Path,
+    open: &OpenOptions,
+    out: &Path,
+    mut options: crate::store::write::ConvertOptions,
+    progress: &Progress<'_>,
+) -> Result<crate::store::write::ConvertReport, IoError> {
+    let mut reader = open_scan_slices_with(scan, open)?;
+    let f = super::fingerprint::file_facts(scan)?;
+    options.source_fingerprint = Some(serde_json::json!({
+        "files": f.files,
+        "bytes": f.bytes,
+        "head_sha256": f.head_sha256,
+    }));
+    Ok(crate::store::write::convert(
+        reader.as_mut(),
+        out,
+        &options,
+        progress,
+    )?)
+}
+
+/// Where a front end keeps the store it builds of a scan too large for its memory, in the
+/// cache folder `cache`: `STEM-HASH.ome.zarr`, `HASH` the first 12 hex digits of the scan's
+/// head fingerprint (two scans of the same name do not share a store).
+pub fn cached_store_path(cache: &Path, scan: &Path) -> Result<std::path::PathBuf, IoError> {
+    let f = super::fingerprint::file_facts(scan)?;
+    let stem = crate::io::names::specimen_id_from_scan(scan);
+    let hash: String = f.head_sha256.chars().take(12).collect();
+    Ok(cache.join(format!("{stem}-{hash}.ome.zarr")))
+}
+
+/// Whether `store` is a complete store converted from the scan at `scan` as it is now (the
+/// source fingerprint the store recorded equals the scan's).
+#[must_use]
+pub fn store_is_of(store: &Path, scan: &Path) -> bool {
+    let Ok(opened) = crate::store::Store::open(store, &crate::store::StoreOptions::default())
+    else {
+        return false;
+    };
+    let (Some(facts), Ok(f)) = (opened.facts(), super::fingerprint::file_facts(scan)) else {
+        return false;
+    };
+    let want = serde_json::json!({
+        "files": f.files,
+        "bytes": f.bytes,
+        "head_sha256": f.head_sha256,
+    });
+    facts.complete && facts.source.fingerprint.as_ref() == Some(&want)
+}

@@ -71,6 +71,10 @@ pub enum RenderError {
         expected: usize,
         got: usize,
     },
+    /// A picture that is rendered from voxels in memory was asked of a scan read through its
+    /// store (read a level of it first, see [`source::volume_for_3d`]).
+    #[error("this picture is rendered from a scan in memory; read a level of the store first")]
+    NotInMemory,
     /// The voxels could not be read from the scan's store.
     #[error(transparent)]
     Read(#[from] crate::volume::ReadError),

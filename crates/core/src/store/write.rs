@@ -142,6 +142,8 @@ impl Default for ConvertOptions {
 #[derive(Clone, Debug)]
 pub struct ConvertReport {
     pub path: PathBuf,
+    /// The stored voxel type.
+    pub dtype: DType,
     pub levels: Vec<Level>,
     /// The level-0 slice a resumed conversion started from.
     pub resumed_from: Option<usize>,
@@ -550,6 +552,7 @@ impl<T: StoreVoxel> Converter<T> {
         }
         Ok(ConvertReport {
             path: out.to_owned(),
+            dtype: T::DTYPE,
             levels: level_infos,
             resumed_from,
             intensity,

@@ -25,7 +25,7 @@
 //! pixel along its finest axis.
 
 use super::{DType, Histogram, Rescale, SpacingOrigin, Stats, Volume};
-use crate::geometry::{Affine3, VoxelPoint, WorldPoint};
+use crate::geometry::{Affine3, VoxelIndex, VoxelPoint, WorldPoint};
 use nalgebra::{Matrix3, Vector3};
 use std::ops::{Deref, Range};
 use std::path::PathBuf;
@@ -228,6 +228,34 @@ pub trait VolumeSource: Send + Sync {
     /// Bytes of the full-resolution voxels.
     fn voxel_bytes(&self) -> u64 {
         self.level(0).voxel_count() * self.dtype().size_bytes() as u64
+    }
+
+    /// A full-resolution voxel coordinate's world position.
+    fn voxel_to_world(&self, p: VoxelPoint) -> WorldPoint {
+        self.world_from_voxel().voxel_to_world(p)
+    }
+
+    /// A world point's full-resolution voxel coordinate.
+    fn world_to_voxel(&self, p: WorldPoint) -> VoxelPoint {
+        self.world_from_voxel().inverse().world_to_voxel(p)
+    }
+
+    /// The rescaled value of one full-resolution voxel (`None` outside the grid), read through
+    /// the source: a cursor read-out on a scan of any size.
+    fn voxel_value(&self, v: VoxelIndex) -> Result<Option<f64>, ReadError> {
+        if let Some(w) = self.whole() {
+            return Ok(w.value(v));
+        }
+        let d = self.dims();
+        if v.i >= d[0] || v.j >= d[1] || v.k >= d[2] {
+            return Ok(None);
+        }
+        let block = self.read_block(0, &[v.i..v.i + 1, v.j..v.j + 1, v.k..v.k + 1])?;
+        // the block is placed in the world: find the voxel in it by its position
+        let at = block
+            .world_to_voxel(self.voxel_to_world(v.centre()))
+            .nearest_index(block.dims());
+        Ok(at.and_then(|i| block.value(i)))
     }
 
     /// The world position of the centre of the grid.

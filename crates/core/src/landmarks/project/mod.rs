@@ -153,9 +153,23 @@ impl ScanRecord {
         project_file: &Path,
         cache_bytes: u64,
     ) -> Result<(SourceBox, Option<Mismatch>), IoError> {
+        self.open_source_from(project_file, None, cache_bytes)
+    }
+
+    /// [`ScanRecord::open_source`] reading the voxels from `store` when given: a store
+    /// converted from the recorded scan (`crate::landmarks::scan::convert_to_store`). The
+    /// recorded scan's files are checked as they are, and the voxels sampled from the store, so
+    /// a store of another scan, or of the scan since changed, shows as a mismatch.
+    pub fn open_source_from(
+        &self,
+        project_file: &Path,
+        store: Option<&Path>,
+        cache_bytes: u64,
+    ) -> Result<(SourceBox, Option<Mismatch>), IoError> {
         let path = self.resolve(project_file);
         let files = self.fingerprint.check_files(&path)?;
-        let source = open_source(&path, self.voxel_size_override(), cache_bytes)?;
+        let read_from = store.unwrap_or(&path);
+        let source = open_source(read_from, self.voxel_size_override(), cache_bytes)?;
         let voxels = self
             .fingerprint
             .check_source(&path, source.as_ref())

@@ -23,7 +23,7 @@ mod surface;
 pub use mip::{MipOptions, mip};
 pub use surface::{Bricks, SurfaceImage, SurfaceOptions, surface};
 
-use super::geom::{PixelGrid, cell_corners, orthonormal_pair};
+use super::geom::{PixelGrid, cell_corners_of, orthonormal_pair};
 use super::{F32Image, RenderError, check_positive, check_size};
 use crate::geometry::WorldPoint;
 use crate::volume::Volume;
@@ -106,7 +106,7 @@ impl Camera {
     /// A camera looking along `view_dir` at the volume's centre, zoomed so that the whole box
     /// fits the smaller image side whatever the direction (its diagonal spans that side).
     pub fn fit(
-        volume: &Volume,
+        volume: &dyn crate::volume::VolumeSource,
         view_dir: Vector3<f64>,
         up: Vector3<f64>,
         width: usize,
@@ -114,7 +114,7 @@ impl Camera {
     ) -> Result<Self, RenderError> {
         check_size(width, height)?;
         // the longest of the four box diagonals (corner n and corner 7 - n are opposite)
-        let c = cell_corners(volume);
+        let c = cell_corners_of(volume.dims(), &volume.world_from_voxel());
         let longest = (0..4).map(|i| (c[i] - c[7 - i]).norm()).fold(0.0, f64::max);
         let cam = Self {
             centre: volume.centre_world(),
