@@ -745,4 +745,110 @@ mod tests {
         assert!(small_aids.pyramid.is_none());
         assert!(!volume_job(&small_aids, &small, &moving).2);
     }
+
+    /// A scan read through its store draws the pictures of the scan in memory: a plane zoomed
+    /// in to its voxels reads level 0 and is the same picture; zoomed out it reads a coarser
+    /// level; the 3D view draws the finest level within its share of the budget.
+    #[test]
+    fn a_scan_read_through_its_store_draws_the_pictures_of_the_scan_in_memory() {
+        use sutura_core::io::Progress;
+        use sutura_core::io::slices::VolumeSlices;
+        use sutura_core::store::{Store, StoreOptions, write};
+        let n = 48;
+        let c = (n as f64 - 1.0) / 2.0;
+        let data: Vec<u16> = (0..n * n * n)
+            .map(|i| {
+                let (x, y, z) = ((i % n) as f64, ((i / n) % n) as f64, (i / n / n) as f64);
+                let r = ((x - c).powi(2) + (y - c).powi(2) + (z - c).powi(2)).sqrt();
+                if r < 15.0 {
+                    3000 + (i % 17) as u16
+                } else {
+                    100 + (i % 13) as u16
+                }
+            })
+            .collect();
+        let vol = Volume::from_vec([n; 3], Affine3::from_spacing([0.01; 3]), data).unwrap();
+        let dir = tempfile::tempdir().unwrap();
+        let out = dir.path().join("ball.ome.zarr");
+        let options = write::ConvertOptions {
+            chunk: 16,
+            coarsest_bytes: 4_000,
+            ..write::ConvertOptions::default()
+        };
+        let mut slices = VolumeSlices::new(&vol, std::path::Path::new("ball"));
+        write::convert(&mut slices, &out, &options, &Progress::none()).unwrap();
+        let store = Store::open(
+            &out,
+            &StoreOptions {
+                cache_bytes: 4 * 16 * 16 * 16 * 2,
+                ..StoreOptions::default()
+            },
+        )
+        .unwrap();
+        assert!(store.level_count() >= 3);
+        let window = WindowLevel {
+            centre: 1500.0,
+            width: 3000.0,
+        };
+        // zoomed in: 4 pixels per voxel, level 0, the same picture
+        let mut fine = key(&vol, window);
+        fine.geometry.pixel_mm = 0.0025;
+        let from_store = render_view(&store, &RenderKey::Plane(fine), None).unwrap();
+        let from_memory = render_view(&vol, &RenderKey::Plane(fine), None).unwrap();
+        assert_eq!(from_store.image, from_memory.image);
+        // zoomed out: a coarser level, the same ball (its rim may differ by a level voxel)
+        let mut coarse = fine;
+        coarse.geometry.pixel_mm = 0.045;
+        assert!(Detail::Screen.level(&store, coarse.geometry.pixel_mm) >= 2);
+        let a = render_view(&store, &RenderKey::Plane(coarse), None).unwrap();
+        let b = render_view(&vol, &RenderKey::Plane(coarse), None).unwrap();
+        let bright =
+            |p: &Picture| -> Vec<bool> { p.image.pixels.iter().map(|c| c.r() > 128).collect() };
+        let (a, b) = (bright(&a), bright(&b));
+        let differ = a.iter().zip(&b).filter(|(x, y)| x != y).count();
+        assert!(b.iter().any(|&x| x) && differ * 10 < a.len(), "{differ}");
+        // the 3D view: the finest level within its bytes, read once per scan
+        let shared: Arc<dyn VolumeSource> = Arc::new(store);
+        let scan = Arc::new(Scan::from_source(9, out.clone(), shared, 24 * 24 * 24 * 2).unwrap());
+        assert!(scan.whole().is_none());
+        let camera = Camera::fit(
+            scan.grid(),
+            Vector3::new(1.0, 0.4, 0.3),
+            Vector3::z(),
+            64,
+            64,
+        )
+        .unwrap();
+        let vkey = VolumeKey {
+            scan: 9,
+            camera,
+            mode: VolumeMode::Surface,
+            iso_value: scan.iso.value,
+            window,
+            colours: ColourMap::Grey,
+            quality: Quality::full(),
+            scale_bar: false,
+            kept: None,
+        };
+        let job = Job {
+            generation: 1,
+            key: RenderKey::Volume(vkey),
+            scan: Arc::clone(&scan),
+            layers: JobLayers::default(),
+            priority: 0,
+        };
+        let (mut aids, mut overview) = (None, None);
+        let picture = render_3d(&job, vkey, &mut aids, &mut overview).unwrap();
+        let level = &overview.as_ref().unwrap().1;
+        assert_eq!(
+            level.dims(),
+            [24; 3],
+            "level 1: the finest within 24³ voxels"
+        );
+        let hits = picture.hits.unwrap();
+        assert!(
+            hits.iter().filter(|h| h.is_some()).count() > 100,
+            "the ball is drawn"
+        );
+    }
 }

@@ -155,6 +155,35 @@ fn blocks_through_a_tiny_cache_evict_and_still_agree() {
     assert!(s.evictions > 0 && s.bytes <= s.budget_bytes, "{s:?}");
 }
 
+/// A cursor read-out and the grid's placement through the volume interface: one voxel read
+/// through the cache equals the in-memory value (rescaled), `None` outside the grid; world and
+/// voxel coordinates map as the volume maps them.
+#[test]
+fn one_voxel_and_the_placement_read_through_the_interface() {
+    let dir = tempfile::tempdir().unwrap();
+    let v = ramp([40, 33, 35], 5);
+    let out = dir.path().join("t.ome.zarr");
+    convert_volume(&v, &out, &small_options());
+    let options = StoreOptions {
+        cache_bytes: 2 * 16 * 16 * 16 * 2,
+        ..StoreOptions::default()
+    };
+    let store = Store::open(&out, &options).unwrap();
+    let source: &dyn VolumeSource = &store;
+    let memory: &dyn VolumeSource = &v;
+    for (i, j, k) in [(0, 0, 0), (39, 32, 34), (17, 16, 15), (31, 2, 20)] {
+        let at = VoxelIndex::new(i, j, k);
+        assert_eq!(source.voxel_value(at).unwrap(), v.value(at));
+        assert_eq!(memory.voxel_value(at).unwrap(), v.value(at));
+        let w = source.voxel_to_world(at.centre());
+        assert!((w.0 - v.voxel_to_world(at.centre()).0).norm() < 1e-12);
+        let back = source.world_to_voxel(w).0;
+        assert!((back - at.centre().0).norm() < 1e-9, "{back:?}");
+    }
+    assert_eq!(source.voxel_value(VoxelIndex::new(40, 0, 0)).unwrap(), None);
+    assert_eq!(source.voxel_value(VoxelIndex::new(0, 0, 35)).unwrap(), None);
+}
+
 #[test]
 fn an_interrupted_conversion_is_never_opened_and_resumes() {
     let dir = tempfile::tempdir().unwrap();
