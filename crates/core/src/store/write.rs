@@ -213,6 +213,10 @@ trait StoreVoxel: Voxel + Element + Into<ArrayBuilderFillValue> {
     const TABLE_MIN: Option<i64>;
     const TABLE_LEN: usize;
     fn from_mean(x: f64) -> Self;
+    /// The sum and count of the numbers in `block` (NaN skipped).
+    fn block_sum(block: &[Self]) -> (f64, u32);
+    /// The smallest and largest number in `values` (NaN skipped); `None` when there is none.
+    fn range(values: &[Self]) -> Option<(f32, f32)>;
 }
 
 macro_rules! store_int {
@@ -231,6 +235,17 @@ macro_rules! store_int {
                         .clamp(f64::from(<$t>::MIN), f64::from(<$t>::MAX)) as $t
                 }
             }
+            #[inline]
+            fn block_sum(block: &[Self]) -> (f64, u32) {
+                // integers add exactly; one conversion per block
+                let s: i64 = block.iter().map(|&v| i64::from(v)).sum();
+                (s as f64, block.len() as u32)
+            }
+            fn range(values: &[Self]) -> Option<(f32, f32)> {
+                let lo = values.iter().copied().min()?;
+                let hi = values.iter().copied().max()?;
+                Some((lo.to_f32(), hi.to_f32()))
+            }
         }
     };
 }
@@ -247,7 +262,34 @@ impl StoreVoxel for f32 {
     fn from_mean(x: f64) -> Self {
         x as f32
     }
+    #[inline]
+    fn block_sum(block: &[Self]) -> (f64, u32) {
+        let (mut s, mut c) = (0.0, 0);
+        for &v in block {
+            if !v.is_nan() {
+                s += f64::from(v);
+                c += 1;
+            }
+        }
+        (s, c)
+    }
+    fn range(values: &[Self]) -> Option<(f32, f32)> {
+        let (lo, hi) = values
+            .iter()
+            .fold((f32::INFINITY, f32::NEG_INFINITY), |(lo, hi), &x| {
+                (lo.min(x), hi.max(x))
+            });
+        (lo <= hi).then_some((lo, hi))
+    }
 }
+
+/// Bytes of slices the reading thread decodes at once (at most 8 slices).
+const READ_GROUP_BYTES: usize = 32 << 20;
+/// Groups of slices in flight between the reading thread and the converter.
+const READ_BUFFERS: usize = 3;
+
+/// Slices `k .. k + n` read into a buffer, or why not.
+type Read<T> = Result<(usize, usize, Vec<T>), crate::io::IoError>;
 
 /// Converts a scan into a store at `out` (a folder, normally `NAME.ome.zarr`); see the module
 /// docs. Refuses an existing `out`.
@@ -446,35 +488,71 @@ impl<T: StoreVoxel> Converter<T> {
         let resumed_from = resume.as_ref().map(|_| k0);
         let coarsest_z = factors.last().expect("level 0")[2] * options.chunk;
         let nz = dims[2];
-        while k0 < nz {
-            let n = options.chunk.min(nz - k0);
-            let slice = dims[0] * dims[1];
-            {
-                let dst: &mut [u8] =
-                    bytemuck::cast_slice_mut(&mut conv.levels[0].layer[..n * slice]);
-                reader.read_slices(k0, dst, progress).map_err(|e| match e {
-                    crate::io::IoError::Cancelled { .. } => StoreError::Cancelled {
+        let slice = dims[0] * dims[1];
+        // Reading overlaps the rest: a reader thread decodes the next slices (a few at a time,
+        // within one chunk layer) while this one counts, averages and compresses the layer.
+        let group = (READ_GROUP_BYTES / (slice * T::DTYPE.size_bytes()).max(1)).clamp(1, 8);
+        let chunk = options.chunk;
+        let source: &mut dyn SliceReader = &mut *reader;
+        std::thread::scope(|scope| -> Result<(), StoreError> {
+            let (full_tx, full_rx) = std::sync::mpsc::sync_channel::<Read<T>>(READ_BUFFERS - 1);
+            let (free_tx, free_rx) = std::sync::mpsc::channel::<Vec<T>>();
+            for _ in 0..READ_BUFFERS {
+                let _ = free_tx.send(vec![T::default(); group * slice]);
+            }
+            let start = k0;
+            scope.spawn(move || {
+                let mut k = start;
+                while k < nz {
+                    let layer_end = ((k / chunk + 1) * chunk).min(nz);
+                    let n = group.min(layer_end - k);
+                    let Ok(mut buf) = free_rx.recv() else { return };
+                    let dst: &mut [u8] = bytemuck::cast_slice_mut(&mut buf[..n * slice]);
+                    let read = source.read_slices(k, dst, progress);
+                    let failed = read.is_err();
+                    if full_tx.send(read.map(|()| (k, n, buf))).is_err() || failed {
+                        return;
+                    }
+                    k += n;
+                }
+            });
+            while k0 < nz {
+                let n = chunk.min(nz - k0);
+                let mut got = 0;
+                while got < n {
+                    let (k, m, buf) = full_rx
+                        .recv()
+                        .map_err(|_| StoreError::corrupt(out, "the reading thread stopped"))?
+                        .map_err(|e| match e {
+                            crate::io::IoError::Cancelled { .. } => StoreError::Cancelled {
+                                path: out.to_owned(),
+                            },
+                            e => StoreError::Source(e),
+                        })?;
+                    debug_assert_eq!(k, k0 + got, "slices arrive in order");
+                    conv.levels[0].layer[got * slice..(got + m) * slice]
+                        .copy_from_slice(&buf[..m * slice]);
+                    let _ = free_tx.send(buf);
+                    conv.count(got * slice..(got + m) * slice);
+                    for s in got..got + m {
+                        conv.feed_from_level0(s, k0 + s == nz - 1)?;
+                    }
+                    got += m;
+                }
+                conv.levels[0].filled = n;
+                conv.flush(0)?;
+                k0 += n;
+                if k0 % coarsest_z == 0 && k0 < nz {
+                    conv.checkpoint(&checkpoint_now, k0)?;
+                }
+                if !progress.report(k0 as u64, nz as u64) {
+                    return Err(StoreError::Cancelled {
                         path: out.to_owned(),
-                    },
-                    e => StoreError::Source(e),
-                })?;
+                    });
+                }
             }
-            conv.count(n * slice);
-            for s in 0..n {
-                conv.feed_from_level0(s, k0 + s == nz - 1)?;
-            }
-            conv.levels[0].filled = n;
-            conv.flush(0)?;
-            k0 += n;
-            if k0 % coarsest_z == 0 && k0 < nz {
-                conv.checkpoint(&checkpoint_now, k0)?;
-            }
-            if !progress.report(k0 as u64, nz as u64) {
-                return Err(StoreError::Cancelled {
-                    path: out.to_owned(),
-                });
-            }
-        }
+            Ok(())
+        })?;
         // intensity
         let rescale = reader.rescale();
         let intensity = match T::TABLE_MIN {
@@ -560,10 +638,10 @@ impl<T: StoreVoxel> Converter<T> {
         })
     }
 
-    /// Adds the first `n` voxels of the level-0 layer to the intensity counts.
-    fn count(&mut self, n: usize) {
+    /// Adds the voxels `range` of the level-0 layer to the intensity counts.
+    fn count(&mut self, range: std::ops::Range<usize>) {
         const PART: usize = 1 << 20;
-        let data = &self.levels[0].layer[..n];
+        let data = &self.levels[0].layer[range];
         if let Some(min) = T::TABLE_MIN {
             {
                 let len = T::TABLE_LEN;
@@ -619,12 +697,12 @@ impl<T: StoreVoxel> Converter<T> {
             .for_each(|(j, (srow, crow))| {
                 for y in j * ry..((j + 1) * ry).min(d0[1]) {
                     let row = &slice[y * d0[0]..(y + 1) * d0[0]];
-                    for (x, &v) in row.iter().enumerate() {
-                        let v = v.to_f64();
-                        if !v.is_nan() {
-                            srow[x / rx] += v;
-                            crow[x / rx] += 1;
-                        }
+                    // one block of `rx` voxels per level voxel (no division per voxel)
+                    for ((s, c), block) in srow.iter_mut().zip(crow.iter_mut()).zip(row.chunks(rx))
+                    {
+                        let (bs, bc) = T::block_sum(block);
+                        *s += bs;
+                        *c += bc;
                     }
                 }
             });
@@ -665,9 +743,17 @@ impl<T: StoreVoxel> Converter<T> {
                     for y in j * ry..((j + 1) * ry).min(d[1]) {
                         let s = &lo.sum[y * d[0]..(y + 1) * d[0]];
                         let c = &lo.cnt[y * d[0]..(y + 1) * d[0]];
-                        for x in 0..d[0] {
-                            srow[x / rx] += s[x];
-                            crow[x / rx] += c[x];
+                        for (((so, co), sb), cb) in srow
+                            .iter_mut()
+                            .zip(crow.iter_mut())
+                            .zip(s.chunks(rx))
+                            .zip(c.chunks(rx))
+                        {
+                            // the same order of additions as voxel by voxel
+                            for (v, n) in sb.iter().zip(cb) {
+                                *so += v;
+                                *co += n;
+                            }
                         }
                     }
                 });
@@ -718,12 +804,11 @@ impl<T: StoreVoxel> Converter<T> {
                         for jj in 0..c.min(d[1] - cj * c) {
                             let src = &layer[i0 + d[0] * (cj * c + jj + d[1] * kk)..][..iw];
                             buf[c * (jj + c * kk)..][..iw].copy_from_slice(src);
-                            if l == 0 {
-                                for &v in src {
-                                    let x = v.to_f32();
-                                    lo = lo.min(x);
-                                    hi = hi.max(x);
-                                }
+                            if l == 0
+                                && let Some((a, b)) = T::range(src)
+                            {
+                                lo = lo.min(a);
+                                hi = hi.max(b);
                             }
                         }
                     }
