@@ -1773,6 +1773,76 @@ fn a_scan_over_the_memory_budget_is_shown_from_a_store_built_for_it() {
         "{e:?} vs {want:?}"
     );
 
+    // the scan is prepared in the window as in memory; its label image lives in the store
+    {
+        use sutura::gui::{GrowSettings, PrepCommand};
+        use sutura_core::labels::region::{Connectivity, GrowOptions, IntensityRange};
+        use sutura_core::labels::{Combine, LabelVolume, ops};
+        h.get_by_label("Prepare").click();
+        h.step();
+        h.get_by_label("New label image").click();
+        h.step();
+        assert!(h.state().prep().is_some(), "{:?}", h.state().status());
+        let store = cache.join(&stores[0]);
+        assert!(store.join("labels/preparation/zarr.json").is_file());
+        let iso = h.state().view_state().iso.value;
+        h.state_mut().send(PrepCommand::SetGrow(GrowSettings {
+            lo: iso,
+            hi: f64::INFINITY,
+            connectivity: Connectivity::Faces6,
+            max_distance_mm: None,
+        }));
+        // the brightest voxel seeds the region
+        let d = whole.dims();
+        let seed = (0..d[2])
+            .flat_map(|k| (0..d[1]).flat_map(move |j| (0..d[0]).map(move |i| [i, j, k])))
+            .max_by(|a, b| {
+                let v = |p: &[usize; 3]| {
+                    whole
+                        .value(sutura_core::geometry::VoxelIndex::new(p[0], p[1], p[2]))
+                        .unwrap()
+                };
+                v(a).total_cmp(&v(b))
+            })
+            .unwrap();
+        let at = whole.voxel_to_world(
+            sutura_core::geometry::VoxelIndex::new(seed[0], seed[1], seed[2]).centre(),
+        );
+        h.state_mut().send(PrepCommand::Grow(at));
+        h.step();
+        let grown = h.state().prep().unwrap().voxels(1);
+        let mut lv = LabelVolume::new(whole.dims(), whole.spacing_mm());
+        let specimen = lv.add_label("specimen").unwrap();
+        let options = GrowOptions {
+            range: IntensityRange::new(iso, f64::INFINITY).unwrap(),
+            connectivity: Connectivity::Faces6,
+            max_distance_mm: None,
+        };
+        ops::grow_label(
+            &mut lv,
+            &whole,
+            specimen,
+            seed,
+            &options,
+            false,
+            Combine::Add,
+            false,
+        )
+        .unwrap();
+        assert!(grown > 1000, "{:?}", h.state().status());
+        assert_eq!(grown, lv.counts()[usize::from(specimen)]);
+        assert!(
+            !h.state().prep().unwrap().scan_in_memory,
+            "the 3D view cannot keep labels of a scan read from its store"
+        );
+        h.get_by_label("Save").click();
+        h.step();
+        let saved = sutura_core::labels::zarr::load(&store.join("labels/preparation")).unwrap();
+        assert_eq!(saved.counts()[1], grown);
+        h.get_by_label("Landmarks").click();
+        h.step();
+    }
+
     // another specimen and back: the store built is opened without asking again
     h.get_by_label("HDC-002").click();
     step_until(&mut h, "the question for HDC-002", |a| {

@@ -695,7 +695,7 @@ impl App {
             Some((d.session.path().to_path_buf(), id))
         });
         super::prep::default_path(
-            &scan.path,
+            scan.voxels_path(),
             project.as_ref().map(|(p, id)| (p.as_path(), id.as_str())),
         )
     }

@@ -290,8 +290,21 @@ impl App {
         };
         let secs = l.started.elapsed().as_secs_f64();
         let path = l.path.clone();
+        let built = (l.opens != l.path).then(|| l.opens.clone());
         let specimen = l.specimen.clone();
         self.loading = None;
+        // a scan read from the store built for it keeps its labels in that store
+        let outcome = match outcome {
+            Outcome::Loaded(mut scan) => {
+                scan.store.clone_from(&built);
+                Outcome::Loaded(scan)
+            }
+            Outcome::Mismatched(mut scan, why) => {
+                scan.store.clone_from(&built);
+                Outcome::Mismatched(scan, why)
+            }
+            other => other,
+        };
         match outcome {
             Outcome::Loaded(scan) => {
                 let msg = format!(

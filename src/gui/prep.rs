@@ -115,21 +115,11 @@ pub struct Prep {
     /// The stroke being painted: what it changed so far and its last point.
     stroke: Option<(Edit, WorldPoint)>,
     kept_volume: Option<(KeptKey, Arc<Volume>)>,
+    /// The scan is in memory (not read through its store): the 3D view can keep ticked labels
+    /// only.
+    pub scan_in_memory: bool,
     /// The last mesh written: its file and what it measures.
     pub last_mesh: Option<(PathBuf, MeshReport)>,
-}
-
-/// The scan's voxels in memory, which a label image in the window is drawn on; a scan read
-/// through its store (over the memory budget) is prepared on the command line, whose `labels`
-/// commands read a scan of any size.
-fn in_memory(scan: &Scan) -> Result<&Volume, String> {
-    scan.whole().ok_or_else(|| {
-        format!(
-            "{} is larger than the window's memory budget and is read from its store: prepare it \
-             with `sutura labels` on the command line, which reads scans of any size",
-            scan.name()
-        )
-    })
 }
 
 /// The name of the label image the window keeps inside a scan's OME-Zarr store.
@@ -166,9 +156,10 @@ impl Prep {
                 path.display()
             ));
         }
-        let v = in_memory(scan)?;
+        let v = scan.grid();
         let mut lv = LabelVolume::new(v.dims(), v.spacing_mm());
-        lv.fingerprint = Some(Fingerprint::of(&scan.path, v).map_err(|e| e.to_string())?);
+        lv.fingerprint =
+            Some(Fingerprint::of_source(scan.voxels_path(), v).map_err(|e| e.to_string())?);
         for name in ["specimen", "matrix"] {
             lv.add_label(name).map_err(|e| e.to_string())?;
         }
@@ -178,7 +169,7 @@ impl Prep {
 
     /// The label image at `path`, checked to be on `scan`'s grid and made on it.
     pub fn open(path: &Path, scan: &Scan) -> Result<Self, String> {
-        let v = in_memory(scan)?;
+        let v = scan.grid();
         let lv = zarr::load(path).map_err(|e| e.to_string())?;
         if lv.dims() != v.dims() {
             return Err(format!(
@@ -189,7 +180,9 @@ impl Prep {
             ));
         }
         if let Some(f) = &lv.fingerprint
-            && let Some(m) = f.check_volume(&scan.path, v)
+            && let Some(m) = f
+                .check_source(scan.voxels_path(), v)
+                .map_err(|e| format!("{}: {e}", scan.voxels_path().display()))?
         {
             return Err(format!("{}: {m}", path.display()));
         }
@@ -240,6 +233,7 @@ impl Prep {
             redo: Vec::new(),
             stroke: None,
             kept_volume: None,
+            scan_in_memory: scan.whole().is_some(),
             last_mesh: None,
         }
     }
@@ -496,7 +490,7 @@ impl Prep {
         if mask.is_empty() {
             return Err(format!("label {name} holds no voxel"));
         }
-        let (mesh, iso) = sutura_core::mesh::iso_surface(in_memory(scan)?, iso, Some(&mask))
+        let (mesh, iso) = sutura_core::mesh::iso_surface(scan.grid(), iso, Some(&mask))
             .map_err(|e| e.to_string())?;
         let path = self.mesh_path(format);
         let title = format!("Sutura mesh of {}, label {name}", scan.name());
@@ -528,7 +522,7 @@ impl Prep {
             // any other command ends the stroke first, so it is one undo step of its own
             self.end_stroke();
         }
-        let volume = in_memory(scan)?;
+        let volume = scan.grid();
         let voxel = |w: WorldPoint| -> Result<[usize; 3], String> {
             volume
                 .world_to_voxel(w)
@@ -616,7 +610,7 @@ impl Prep {
                 };
                 let edit = brush::paint(
                     &mut self.write(),
-                    volume.world_from_voxel(),
+                    &volume.world_from_voxel(),
                     &stroke,
                     value,
                     mode,

@@ -304,12 +304,19 @@ fn labels_ui(ui: &mut Ui, p: &Prep, new_label: &mut String, out: &mut Vec<Comman
             out.push(PrepCommand::SetOutline(outline).into());
         }
     });
-    let mut kept = p.kept_in_3d;
+    let mut kept = p.kept_in_3d && p.scan_in_memory;
     if ui
-        .checkbox(&mut kept, "3D view: ticked labels only")
+        .add_enabled(
+            p.scan_in_memory,
+            egui::Checkbox::new(&mut kept, "3D view: ticked labels only"),
+        )
         .on_hover_text(
             "the 3D view shows only the material inside the labels ticked under 3D, and \
              surface picks land on it",
+        )
+        .on_disabled_hover_text(
+            "this scan is over the memory budget and read from its store: the 3D view shows a \
+             coarser level of the whole scan; export the label's mesh to see it alone",
         )
         .changed()
     {

@@ -139,6 +139,9 @@ pub struct Scan {
     /// Bytes of the level the 3D view reads of a scan that is not in memory (the finest level
     /// within them).
     pub volume_view_bytes: u64,
+    /// The OME-Zarr store the voxels are read from when the window built one for the scan at
+    /// `path` (its label image is kept inside it).
+    pub store: Option<PathBuf>,
 }
 
 impl std::fmt::Debug for Scan {
@@ -166,6 +169,7 @@ impl Scan {
             full_range: (p[0], p[3]),
             iso,
             volume_view_bytes: 0,
+            store: None,
         }
     }
 
@@ -192,7 +196,14 @@ impl Scan {
             full_range: (lo, hi),
             iso,
             volume_view_bytes,
+            store: None,
         })
+    }
+
+    /// Where the voxels are read from: the store built for the scan, else the scan itself.
+    #[must_use]
+    pub fn voxels_path(&self) -> &std::path::Path {
+        self.store.as_deref().unwrap_or(&self.path)
     }
 
     /// The whole scan in memory, when it is (else it is read through [`Self::source`]).
