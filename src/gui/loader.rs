@@ -53,10 +53,19 @@ impl MemoryBudget {
         }
     }
 
-    /// Bytes of decoded chunks a store keeps in memory: a quarter of the budget.
+    /// Bytes of voxels the window holds of a scan read from its store: a quarter of the
+    /// budget, shared by the chunk cache and the 3D view's level (the rest of the budget is
+    /// room for the pictures, a preparation's label bricks and its selections).
+    #[must_use]
+    pub fn voxel_bytes(self) -> u64 {
+        self.bytes / 4
+    }
+
+    /// Bytes of decoded chunks a store keeps in memory: the voxel share less the 3D view's
+    /// level.
     #[must_use]
     pub fn cache_bytes(self) -> u64 {
-        (self.bytes / 4).max(64 << 10)
+        (self.voxel_bytes().saturating_sub(self.volume_view_bytes())).max(64 << 10)
     }
 
     /// How the window builds a store: levels down to one the 3D view can read (within
@@ -76,11 +85,12 @@ impl MemoryBudget {
         }
     }
 
-    /// Bytes of the level the 3D view reads of a store: a quarter of the budget, at most
-    /// 512 MiB (a 2400³ scan's 600³ level, more voxels across than a screen has pixels).
+    /// Bytes of the level the 3D view reads of a store: an eighth of the budget (half the
+    /// voxel share), at most 512 MiB (a 2400³ scan's 600³ level, more voxels across than a
+    /// screen has pixels).
     #[must_use]
     pub fn volume_view_bytes(self) -> u64 {
-        (self.bytes / 4).clamp(64 << 10, 512 << 20)
+        (self.bytes / 8).clamp(64 << 10, 512 << 20)
     }
 }
 

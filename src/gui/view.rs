@@ -45,6 +45,9 @@ pub struct Shown {
     pub key: RenderKey,
     pub generation: u64,
     pub hits: Option<Vec<Option<WorldPoint>>>,
+    /// A first picture from a coarser level, which the finished one of the same generation
+    /// replaces.
+    pub partial: bool,
 }
 
 /// The background behind the pictures.

@@ -99,11 +99,11 @@ impl Views {
             if !r.key.is_coarse() {
                 slot.render_ms = r.elapsed.as_secs_f64() * 1e3;
             }
-            if slot
-                .shown
-                .as_ref()
-                .is_some_and(|s| s.generation >= r.generation)
-            {
+            // newer pictures only; of the same generation, the finished one after a first one
+            if slot.shown.as_ref().is_some_and(|s| {
+                s.generation > r.generation
+                    || (s.generation == r.generation && (!s.partial || r.partial))
+            }) {
                 continue;
             }
             match r.picture {
@@ -113,6 +113,7 @@ impl Views {
                         s.key = r.key;
                         s.generation = r.generation;
                         s.hits = pic.hits;
+                        s.partial = r.partial;
                     } else {
                         let texture = ctx.load_texture(
                             format!("view-{}", r.view.label()),
@@ -124,6 +125,7 @@ impl Views {
                             key: r.key,
                             generation: r.generation,
                             hits: pic.hits,
+                            partial: r.partial,
                         });
                     }
                 }
