@@ -369,6 +369,20 @@ fn scan_facts_ui(ui: &mut Ui, scan: &Scan) {
                 format_value(scan.full_range.1)
             ));
             ui.end_row();
+            if scan.whole().is_none() {
+                ui.label(RichText::new("read").weak());
+                let store = scan
+                    .voxels_path()
+                    .file_name()
+                    .map(|n| n.to_string_lossy().into_owned())
+                    .unwrap_or_default();
+                ui.label(format!("from {store}, {} levels", v.level_count()))
+                    .on_hover_text(
+                        "over the memory budget: read a chunk at a time, each view at the level \
+                         it needs; picks and the read-out at full resolution",
+                    );
+                ui.end_row();
+            }
         });
     for note in v.notes() {
         ui.label(RichText::new(format!("• {note}")).small().weak());

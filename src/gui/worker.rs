@@ -780,7 +780,10 @@ mod tests {
     /// in to its voxels reads level 0 and is the same picture; zoomed out it reads a coarser
     /// level; the 3D view draws the finest level within its share of the budget.
     #[test]
-    #[allow(clippy::too_many_lines, reason = "one scan's planes, then its 3D view, in order")]
+    #[allow(
+        clippy::too_many_lines,
+        reason = "one scan's planes, then its 3D view, in order"
+    )]
     fn a_scan_read_through_its_store_draws_the_pictures_of_the_scan_in_memory() {
         use sutura_core::io::Progress;
         use sutura_core::io::slices::VolumeSlices;
