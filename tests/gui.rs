@@ -1866,3 +1866,61 @@ fn a_scan_over_the_memory_budget_is_shown_from_a_store_built_for_it() {
             .is_none()
     );
 }
+
+/// A scan over the memory budget is added to a project without being read whole: a store is
+/// built for it in the store folder and the specimen recorded from it — the same record (path,
+/// voxel size, placement, fingerprint) as reading the scan whole gives.
+#[test]
+fn a_scan_over_the_budget_is_added_from_a_store_with_the_record_reading_it_whole_gives() {
+    use sutura_core::landmarks::project::create::{NewSpecimen, specimen_from_scan};
+    let dir = tempfile::tempdir().unwrap();
+    let path = project_copy(dir.path());
+    let cache = dir.path().join("stores");
+    let prefs = Preferences {
+        memory_budget_gib: Some(1.0 / 2048.0),
+        store_cache: cache.to_string_lossy().into_owned(),
+        ..Preferences::default()
+    };
+    let app = App::new(prefs, Some(path.clone()));
+    let mut h = Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    step_until(&mut h, "the question about HDC-001's store", |a| {
+        matches!(a.prompt(), Some(Prompt::BuildStore { .. }))
+    });
+    h.key_press(egui::Key::Escape);
+    h.step();
+    let new = NewSpecimen {
+        scan: dir.path().join("HDC-003.nii.gz"),
+        id: "HDC-003-again".into(),
+        voxel_size_mm: None,
+        groups: std::collections::BTreeMap::new(),
+    };
+    h.state_mut()
+        .send(AppCommand::AddSpecimens(vec![new.clone()]));
+    step_until(&mut h, "the specimen added", |a| {
+        !a.is_loading()
+            && a.desk()
+                .is_some_and(|d| d.session.project.specimen("HDC-003-again").is_some())
+    });
+    let added = h
+        .state()
+        .desk()
+        .unwrap()
+        .session
+        .project
+        .specimen("HDC-003-again")
+        .unwrap()
+        .clone();
+    let (whole, _) = specimen_from_scan(&path, &new, &sutura_core::io::Progress::none()).unwrap();
+    assert_eq!(
+        added.scan, whole.scan,
+        "the record reading the scan whole gives"
+    );
+    let stores: Vec<_> = std::fs::read_dir(&cache)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(stores.len(), 1, "{stores:?}");
+    assert!(stores[0].starts_with("HDC-003-"), "{stores:?}");
+}

@@ -2,6 +2,11 @@
 //! the library's rule ([`specimen_from_scan`], as `sutura project add` does) on a worker thread,
 //! one scan at a time so memory holds one scan, with progress and cancel. The UI thread takes
 //! the finished specimens and adds them to the project as one undoable step.
+//!
+//! A store is recorded through the volume interface ([`specimen_from_source`]); a scan over the
+//! memory budget is converted to a store in the store folder first (or the one built for it
+//! before is taken) and recorded from it — the record is the scan's own, so opening the
+//! specimen later finds the same store.
 
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
@@ -9,9 +14,50 @@ use std::sync::mpsc::{Receiver, TryRecvError, channel};
 use std::sync::{Arc, Mutex, PoisonError};
 use std::time::Instant;
 
-use sutura_core::io::Progress;
+use super::loader::MemoryBudget;
+use sutura_core::io::{OpenOptions, Progress};
 use sutura_core::landmarks::project::Specimen;
-use sutura_core::landmarks::project::create::{NewSpecimen, specimen_from_scan};
+use sutura_core::landmarks::project::create::{
+    CreateError, NewSpecimen, specimen_from_scan, specimen_from_source,
+};
+use sutura_core::landmarks::scan::{
+    cached_store_path, convert_to_store, scan_voxel_bytes, store_is_of,
+};
+
+/// One new specimen recorded as the budget allows (see the module docs).
+fn record(
+    project_file: &Path,
+    new: &NewSpecimen,
+    budget: MemoryBudget,
+    cache: &Path,
+    progress: &Progress<'_>,
+) -> Result<Specimen, CreateError> {
+    if sutura_core::store::is_store(&new.scan) {
+        return Ok(specimen_from_source(project_file, new, None)?.0);
+    }
+    let options = OpenOptions {
+        voxel_size_mm: new.voxel_size_mm,
+        ..OpenOptions::default()
+    };
+    if scan_voxel_bytes(&new.scan, &options)? <= budget.bytes {
+        return Ok(specimen_from_scan(project_file, new, progress)?.0);
+    }
+    let store = cached_store_path(cache, &new.scan)?;
+    if !store_is_of(&store, &new.scan) {
+        std::fs::create_dir_all(cache).map_err(|e| sutura_core::io::IoError::Os {
+            path: cache.to_path_buf(),
+            source: e,
+        })?;
+        convert_to_store(
+            &new.scan,
+            &options,
+            &store,
+            budget.convert_options(),
+            progress,
+        )?;
+    }
+    Ok(specimen_from_source(project_file, new, Some(&store))?.0)
+}
 
 /// Specimens that were made, and why the others were not (one line each).
 pub type Added = (Vec<Specimen>, Vec<String>);
@@ -33,6 +79,8 @@ impl Adding {
     pub fn start(
         project_file: &Path,
         new: Vec<NewSpecimen>,
+        budget: MemoryBudget,
+        cache: PathBuf,
         wake: impl Fn() + Send + Sync + 'static,
     ) -> Self {
         let paths = new.iter().map(|n| n.scan.clone()).collect();
@@ -61,8 +109,8 @@ impl Adding {
                         !c.load(Ordering::Relaxed)
                     };
                     let progress = Progress::new(Some(&report));
-                    match specimen_from_scan(&project_file, n, &progress) {
-                        Ok((s, _volume)) => added.push(s),
+                    match record(&project_file, n, budget, &cache, &progress) {
+                        Ok(s) => added.push(s),
                         Err(e) => failed.push(format!("{}: {e}", n.id)),
                     }
                     d.fetch_add(1, Ordering::Relaxed);

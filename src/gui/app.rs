@@ -890,11 +890,17 @@ impl App {
                     return;
                 };
                 let wake = self.ctx.clone();
-                self.adding = Some(Adding::start(d.session.path(), new, move || {
-                    if let Some(c) = &wake {
-                        c.request_repaint();
-                    }
-                }));
+                self.adding = Some(Adding::start(
+                    d.session.path(),
+                    new,
+                    self.prefs.budget(),
+                    self.prefs.store_cache_dir(),
+                    move || {
+                        if let Some(c) = &wake {
+                            c.request_repaint();
+                        }
+                    },
+                ));
             }
         }
     }

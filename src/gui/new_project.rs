@@ -19,10 +19,10 @@ use eframe::egui::{self, Color32, Key, RichText};
 
 use super::command::{AppCommand, Command, DialogKind};
 use sutura_core::geometry::{VoxelSizeMm, format_length_mm};
-use sutura_core::io::{self, OpenOptions, Progress};
+use sutura_core::io;
 use sutura_core::landmarks::Project;
 use sutura_core::landmarks::project::create::{
-    FileVoxelSize, NewSpecimen, parse_group, project_from_scheme_file,
+    FileVoxelSize, NewSpecimen, parse_group, probe_scan, project_from_scheme_file,
 };
 use sutura_core::landmarks::scheme::{Scheme, is_valid_id};
 
@@ -78,13 +78,10 @@ impl NewProjectForm {
         let _ = std::thread::Builder::new()
             .name("sutura-probe".into())
             .spawn(move || {
-                // one scan at a time: memory holds one scan
+                // the header only: a scan of any size is listed at once
                 for path in jobs {
-                    let probe = match io::open(&path, &OpenOptions::default(), &Progress::none()) {
-                        Ok(v) => Probe::Read {
-                            dims: v.dims(),
-                            voxel: FileVoxelSize::of(&v),
-                        },
+                    let probe = match probe_scan(&path) {
+                        Ok((dims, voxel)) => Probe::Read { dims, voxel },
                         Err(e) => Probe::Failed(e.to_string()),
                     };
                     if done_tx.send((path, probe)).is_err() {

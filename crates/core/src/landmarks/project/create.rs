@@ -96,23 +96,53 @@ impl FileVoxelSize {
     /// What a loaded volume says about its voxel size.
     #[must_use]
     pub fn of(volume: &Volume) -> Self {
-        let complete = volume.spacing_origin != SpacingOrigin::Guessed;
+        Self::from_parts(volume.spacing_mm(), volume.spacing_origin, &volume.notes)
+    }
+
+    /// What a scan's header says about its voxel size (no voxel is read).
+    #[must_use]
+    pub fn of_header(reader: &dyn crate::io::slices::SliceReader) -> Self {
+        Self::from_parts(
+            reader.world_from_voxel().column_lengths(),
+            reader.spacing_origin(),
+            &reader.notes(),
+        )
+    }
+
+    fn from_parts(spacing_mm: [f64; 3], origin: SpacingOrigin, notes: &[String]) -> Self {
+        let complete = origin != SpacingOrigin::Guessed;
         let note = if complete {
             "recorded in the file".to_owned()
         } else {
-            volume
-                .notes
+            notes
                 .iter()
                 .find(|n| n.contains("voxel size"))
                 .cloned()
                 .unwrap_or_else(|| "not recorded in the file".to_owned())
         };
         Self {
-            voxel_size_mm: volume.spacing_mm(),
+            voxel_size_mm: spacing_mm,
             complete,
             note,
         }
     }
+}
+
+/// The refusal of a scan that records no full voxel size when none is given.
+fn no_voxel_size(scan: &Path) -> CreateError {
+    IoError::usage(
+        scan,
+        "the scan records no full voxel size (TIFF resolution tags hold no slice spacing): \
+         give it, e.g. 12um or 12um,12um,30um",
+    )
+    .into()
+}
+
+/// A scan's grid and what it says about its voxel size, from its header alone (a front end's
+/// list of scans to add, whatever their size).
+pub fn probe_scan(path: &Path) -> Result<([usize; 3], FileVoxelSize), IoError> {
+    let reader = crate::landmarks::scan::open_scan_slices_with(path, &io::OpenOptions::default())?;
+    Ok((reader.dims(), FileVoxelSize::of_header(reader.as_ref())))
 }
 
 /// Records a scan already loaded (without a voxel size given) as a new specimen of the project
@@ -140,12 +170,7 @@ pub fn specimen_from_loaded(
         }
         set_voxel_size(&mut volume, io::detect(&new.scan)?, s);
     } else if volume.spacing_origin == SpacingOrigin::Guessed {
-        return Err(IoError::usage(
-            &new.scan,
-            "the scan records no full voxel size (TIFF resolution tags hold no slice \
-             spacing): give it, e.g. 12um or 12um,12um,30um",
-        )
-        .into());
+        return Err(no_voxel_size(&new.scan));
     }
     let fingerprint = Fingerprint::of(&new.scan, &volume)?;
     let path = relative_path(&project_dir(project_file), &new.scan)
@@ -178,6 +203,19 @@ pub fn specimen_from_store(
     project_file: &Path,
     new: &NewSpecimen,
 ) -> Result<(Specimen, [usize; 3]), CreateError> {
+    specimen_from_source(project_file, new, None)
+}
+
+/// [`specimen_from_store`] of the scan `new.scan` reading its voxels from `store` when given:
+/// a store converted from it (`crate::landmarks::scan::convert_to_store`, with the same voxel
+/// size). The record is the scan's: its path and file facts, the voxels sampled from the store
+/// (the same voxels), so the specimen is the one [`specimen_from_scan`] would make, without
+/// reading the scan whole.
+pub fn specimen_from_source(
+    project_file: &Path,
+    new: &NewSpecimen,
+    store: Option<&Path>,
+) -> Result<(Specimen, [usize; 3]), CreateError> {
     if !is_valid_id(&new.id) {
         return Err(CreateError::BadId {
             scan: new.scan.clone(),
@@ -185,7 +223,10 @@ pub fn specimen_from_store(
         });
     }
     // a small cache: the fingerprint reads a lattice of single voxels
-    let source = open_source(&new.scan, new.voxel_size_mm, 64 << 20)?;
+    let source = open_source(store.unwrap_or(&new.scan), new.voxel_size_mm, 64 << 20)?;
+    if new.voxel_size_mm.is_none() && source.spacing_origin() == SpacingOrigin::Guessed {
+        return Err(no_voxel_size(&new.scan));
+    }
     let fingerprint = Fingerprint::of_source(&new.scan, source.as_ref())?;
     let path = relative_path(&project_dir(project_file), &new.scan)
         .map_err(|e| IoError::os(&new.scan, e))?;
