@@ -20,9 +20,7 @@ use sutura_core::landmarks::project::Specimen;
 use sutura_core::landmarks::project::create::{
     CreateError, NewSpecimen, specimen_from_scan, specimen_from_source,
 };
-use sutura_core::landmarks::scan::{
-    cached_store_path, convert_to_store, scan_voxel_bytes, store_is_of,
-};
+use sutura_core::landmarks::scan::{build_store_of, cached_store_path, scan_voxel_bytes};
 
 /// One new specimen recorded as the budget allows (see the module docs).
 fn record(
@@ -42,20 +40,14 @@ fn record(
     if scan_voxel_bytes(&new.scan, &options)? <= budget.bytes {
         return Ok(specimen_from_scan(project_file, new, progress)?.0);
     }
-    let store = cached_store_path(cache, &new.scan)?;
-    if !store_is_of(&store, &new.scan) {
-        std::fs::create_dir_all(cache).map_err(|e| sutura_core::io::IoError::Os {
-            path: cache.to_path_buf(),
-            source: e,
-        })?;
-        convert_to_store(
-            &new.scan,
-            &options,
-            &store,
-            budget.convert_options(),
-            progress,
-        )?;
-    }
+    let store = cached_store_path(cache, &new.scan, new.voxel_size_mm)?;
+    build_store_of(
+        &new.scan,
+        &options,
+        &store,
+        budget.convert_options(),
+        progress,
+    )?;
     Ok(specimen_from_source(project_file, new, Some(&store))?.0)
 }
 

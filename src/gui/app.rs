@@ -694,8 +694,10 @@ impl App {
             let id = d.scan_of.clone().or_else(|| d.specimen.clone())?;
             Some((d.session.path().to_path_buf(), id))
         });
+        // the scan's own path, not the store built for it: the label image is found where it
+        // was made whatever the budget (a scan that is itself a store keeps it inside)
         super::prep::default_path(
-            scan.voxels_path(),
+            &scan.path,
             project.as_ref().map(|(p, id)| (p.as_path(), id.as_str())),
         )
     }

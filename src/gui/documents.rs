@@ -349,9 +349,20 @@ impl App {
     /// A scan over the memory budget: opened from its store in the cache folder when one of
     /// it is there, else the user is asked whether to build one.
     fn too_large(&mut self, scan: PathBuf, specimen: Option<String>, bytes: u64) {
+        // the voxel size the scan is opened with: the specimen's recorded one, else the
+        // preference for TIFF scans
+        let voxel_size = match &specimen {
+            Some(id) => self
+                .desk
+                .as_ref()
+                .and_then(|d| d.session.project.specimen(id))
+                .and_then(|sp| sp.scan.voxel_size_override()),
+            None => self.prefs.tiff_voxel_size_mm(),
+        };
         let store = match sutura_core::landmarks::scan::cached_store_path(
             &self.prefs.store_cache_dir(),
             &scan,
+            voxel_size,
         ) {
             Ok(s) => s,
             Err(e) => {

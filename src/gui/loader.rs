@@ -22,7 +22,7 @@ use std::time::Instant;
 use super::state::Scan;
 use sutura_core::io::{self, OpenOptions, Progress};
 use sutura_core::landmarks::project::ScanRecord;
-use sutura_core::landmarks::scan::{convert_to_store, open_source, scan_voxel_bytes};
+use sutura_core::landmarks::scan::{build_store_of, open_source, scan_voxel_bytes};
 use sutura_core::store::write::ConvertOptions;
 use sutura_core::volume::{Volume, VolumeSource};
 
@@ -195,14 +195,8 @@ impl Loading {
         let out = store.to_path_buf();
         let name = specimen.as_ref().map(|(_, s, _)| s.clone());
         let mut loading = Self::spawn(scan, name, id, budget, wake, move |p, progress| {
-            if let Some(parent) = out.parent() {
-                std::fs::create_dir_all(parent)
-                    .map_err(|e| format!("{}: cannot make the folder: {e}", parent.display()))?;
-            }
-            if !out.exists() {
-                convert_to_store(p, &options, &out, budget.convert_options(), progress)
-                    .map_err(|e| e.to_string())?;
-            }
+            build_store_of(p, &options, &out, budget.convert_options(), progress)
+                .map_err(|e| e.to_string())?;
             if progress.is_cancelled() {
                 return Err("cancelled".into());
             }
@@ -451,14 +445,39 @@ mod tests {
         let store = dir.path().join("s.ome.zarr");
         let tiny = MemoryBudget::new(Some(1.0 / 4096.0));
         assert_eq!(tiny.bytes, MemoryBudget::MIN_BYTES);
-        convert_to_store(
-            &p,
-            &OpenOptions::default(),
-            &store,
-            tiny.convert_options(),
-            &Progress::none(),
-        )
-        .unwrap();
+        // a store of another scan at that path is set aside, never deleted, and replaced
+        let other = p.with_file_name("HDC-003.nii.gz");
+        let build = |scan: &Path| {
+            build_store_of(
+                scan,
+                &OpenOptions::default(),
+                &store,
+                tiny.convert_options(),
+                &Progress::none(),
+            )
+            .unwrap();
+        };
+        build(&other);
+        assert!(sutura_core::landmarks::scan::store_is_of(&store, &other));
+        build(&p);
+        assert!(sutura_core::landmarks::scan::store_is_of(&store, &p));
+        let aside: Vec<_> = std::fs::read_dir(dir.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .filter(|n| n.starts_with("s.ome.zarr.stale-"))
+            .collect();
+        assert_eq!(aside.len(), 1, "{aside:?}");
+        // the store of this scan is kept as it is
+        let stamp = std::fs::metadata(store.join("zarr.json"))
+            .unwrap()
+            .modified()
+            .unwrap();
+        build(&p);
+        let again = std::fs::metadata(store.join("zarr.json"))
+            .unwrap()
+            .modified()
+            .unwrap();
+        assert_eq!(stamp, again);
         match wait(&Loading::start(&p, OpenOptions::default(), tiny, 1, || {})) {
             Outcome::TooLarge { bytes } => assert_eq!(bytes, 120 * 88 * 48 * 2),
             o => panic!("expected too large, got {o:?}"),

@@ -158,8 +158,7 @@ impl Prep {
         }
         let v = scan.grid();
         let mut lv = LabelVolume::new(v.dims(), v.spacing_mm());
-        lv.fingerprint =
-            Some(Fingerprint::of_source(scan.voxels_path(), v).map_err(|e| e.to_string())?);
+        lv.fingerprint = Some(Fingerprint::of_source(&scan.path, v).map_err(|e| e.to_string())?);
         for name in ["specimen", "matrix"] {
             lv.add_label(name).map_err(|e| e.to_string())?;
         }
@@ -181,8 +180,8 @@ impl Prep {
         }
         if let Some(f) = &lv.fingerprint
             && let Some(m) = f
-                .check_source(scan.voxels_path(), v)
-                .map_err(|e| format!("{}: {e}", scan.voxels_path().display()))?
+                .check_source(&scan.path, v)
+                .map_err(|e| format!("{}: {e}", scan.path.display()))?
         {
             return Err(format!("{}: {m}", path.display()));
         }

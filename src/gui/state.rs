@@ -140,7 +140,7 @@ pub struct Scan {
     /// within them).
     pub volume_view_bytes: u64,
     /// The OME-Zarr store the voxels are read from when the window built one for the scan at
-    /// `path` (its label image is kept inside it).
+    /// `path` (the scan's records — fingerprints, label images — stay the scan's own).
     pub store: Option<PathBuf>,
 }
 

@@ -489,24 +489,30 @@ fn render_3d(
     overview: &mut Option<(u64, Volume)>,
     first: &dyn Fn(Result<Picture, RenderError>),
 ) -> Result<Picture, RenderError> {
+    // a level read for another scan is let go whatever this scan is
+    if overview.as_ref().is_some_and(|(id, _)| *id != job.scan.id) {
+        *overview = None;
+    }
     // the kept-labels copy, when the key asks for one and it came with the job
     let (volume, kept) = match (&job.layers.kept, k.kept, job.scan.whole()) {
         (Some(v), Some(key), _) => (&**v, Some(key)),
         (_, _, Some(v)) => (v, None),
         (_, _, None) => {
-            if overview.as_ref().is_none_or(|(id, _)| *id != job.scan.id) {
-                *overview = None; // the old scan's level goes before the new one is read
+            if overview.is_none() {
                 let source = job.scan.grid();
                 let coarsest = source.level_count() - 1;
                 if source.level_within(job.scan.volume_view_bytes) < coarsest {
-                    first(
-                        source
-                            .read_block(coarsest, &source.level(coarsest).full_region())
-                            .map_err(RenderError::from)
-                            .and_then(|quick| {
-                                VolumeAids::new(job.scan.id, &quick).render(&quick, &job.key)
-                            }),
-                    );
+                    // a first picture only when it could be made; a failure shows with the
+                    // finished one
+                    let quick = source
+                        .read_block(coarsest, &source.level(coarsest).full_region())
+                        .map_err(RenderError::from)
+                        .and_then(|quick| {
+                            VolumeAids::new(job.scan.id, &quick).render(&quick, &job.key)
+                        });
+                    if quick.is_ok() {
+                        first(quick);
+                    }
                 }
                 let level = match render_source::volume_for_3d(
                     job.scan.grid(),
@@ -551,12 +557,20 @@ fn prefetch_ahead(source: &dyn VolumeSource, p: &PlaneKey, last: &mut Option<Sli
         return;
     }
     let level = Detail::Screen.level(source, g.pixel_mm);
-    for ahead in 1..=2 {
+    // one region holding both planes: a store runs one prefetch at a time
+    let mut ahead: Option<sutura_core::volume::Region> = None;
+    for steps in 1..=2 {
         let mut next = g;
-        next.origin = WorldPoint(g.origin.0 + n * (along * f64::from(ahead)));
-        if let Some(region) = render_source::slice_region(source, level, &next, None) {
-            source.prefetch(level, &region);
+        next.origin = WorldPoint(g.origin.0 + n * (along * f64::from(steps)));
+        if let Some(r) = render_source::slice_region(source, level, &next, None) {
+            ahead = Some(match ahead {
+                None => r,
+                Some(a) => [0, 1, 2].map(|x| a[x].start.min(r[x].start)..a[x].end.max(r[x].end)),
+            });
         }
+    }
+    if let Some(region) = ahead {
+        source.prefetch(level, &region);
     }
 }
 

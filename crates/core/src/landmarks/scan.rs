@@ -291,12 +291,50 @@ pub fn convert_to_store(
 
 /// Where a front end keeps the store it builds of a scan too large for its memory, in the
 /// cache folder `cache`: `STEM-HASH.ome.zarr`, `HASH` the first 12 hex digits of the scan's
-/// head fingerprint (two scans of the same name do not share a store).
-pub fn cached_store_path(cache: &Path, scan: &Path) -> Result<std::path::PathBuf, IoError> {
+/// head fingerprint (two scans of the same name do not share a store), with the voxel size
+/// given, if any, in the name (`STEM-HASH-36x36x50um.ome.zarr`): a store is placed with the
+/// voxel size it was built with.
+pub fn cached_store_path(
+    cache: &Path,
+    scan: &Path,
+    voxel_size_mm: Option<[f64; 3]>,
+) -> Result<std::path::PathBuf, IoError> {
     let f = super::fingerprint::file_facts(scan)?;
     let stem = crate::io::names::specimen_id_from_scan(scan);
     let hash: String = f.head_sha256.chars().take(12).collect();
-    Ok(cache.join(format!("{stem}-{hash}.ome.zarr")))
+    let size = voxel_size_mm.map_or_else(String::new, |s| {
+        let um = s.map(|v| format!("{}", (v * 1e6).round() / 1e3));
+        format!("-{}x{}x{}um", um[0], um[1], um[2])
+    });
+    Ok(cache.join(format!("{stem}-{hash}{size}.ome.zarr")))
+}
+
+/// Makes `out` a complete store of the scan at `scan` ([`convert_to_store`], resuming an
+/// interrupted conversion), unless it is one already ([`store_is_of`]). A store at `out` of
+/// something else (the scan changed since) is set aside as `out.stale-SECONDS`, never deleted:
+/// it may hold label images.
+pub fn build_store_of(
+    scan: &Path,
+    open: &OpenOptions,
+    out: &Path,
+    options: crate::store::write::ConvertOptions,
+    progress: &Progress<'_>,
+) -> Result<(), IoError> {
+    if store_is_of(out, scan) {
+        return Ok(());
+    }
+    if out.exists() {
+        let secs = std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map_or(0, |d| d.as_secs());
+        let mut aside = out.as_os_str().to_owned();
+        aside.push(format!(".stale-{secs}"));
+        std::fs::rename(out, &aside).map_err(|e| IoError::os(out, e))?;
+    }
+    if let Some(parent) = out.parent() {
+        std::fs::create_dir_all(parent).map_err(|e| IoError::os(parent, e))?;
+    }
+    convert_to_store(scan, open, out, options, progress).map(|_| ())
 }
 
 /// Whether `store` is a complete store converted from the scan at `scan` as it is now (the

@@ -213,8 +213,8 @@ trait StoreVoxel: Voxel + Element + Into<ArrayBuilderFillValue> {
     const TABLE_MIN: Option<i64>;
     const TABLE_LEN: usize;
     fn from_mean(x: f64) -> Self;
-    /// The sum and count of the numbers in `block` (NaN skipped).
-    fn block_sum(block: &[Self]) -> (f64, u32);
+    /// Adds the numbers in `block` (NaN skipped) to the running sum and count, in order.
+    fn add_block(block: &[Self], sum: &mut f64, count: &mut u32);
     /// The smallest and largest number in `values` (NaN skipped); `None` when there is none.
     fn range(values: &[Self]) -> Option<(f32, f32)>;
 }
@@ -236,10 +236,11 @@ macro_rules! store_int {
                 }
             }
             #[inline]
-            fn block_sum(block: &[Self]) -> (f64, u32) {
-                // integers add exactly; one conversion per block
+            fn add_block(block: &[Self], sum: &mut f64, count: &mut u32) {
+                // integers add exactly in any order; one conversion per block
                 let s: i64 = block.iter().map(|&v| i64::from(v)).sum();
-                (s as f64, block.len() as u32)
+                *sum += s as f64;
+                *count += block.len() as u32;
             }
             fn range(values: &[Self]) -> Option<(f32, f32)> {
                 let lo = values.iter().copied().min()?;
@@ -263,15 +264,15 @@ impl StoreVoxel for f32 {
         x as f32
     }
     #[inline]
-    fn block_sum(block: &[Self]) -> (f64, u32) {
-        let (mut s, mut c) = (0.0, 0);
+    fn add_block(block: &[Self], sum: &mut f64, count: &mut u32) {
+        // voxel by voxel into the running sum: the rounding of the level's means is the
+        // order of the voxels
         for &v in block {
             if !v.is_nan() {
-                s += f64::from(v);
-                c += 1;
+                *sum += f64::from(v);
+                *count += 1;
             }
         }
-        (s, c)
     }
     fn range(values: &[Self]) -> Option<(f32, f32)> {
         let (lo, hi) = values
@@ -494,6 +495,10 @@ impl<T: StoreVoxel> Converter<T> {
         let group = (READ_GROUP_BYTES / (slice * T::DTYPE.size_bytes()).max(1)).clamp(1, 8);
         let chunk = options.chunk;
         let source: &mut dyn SliceReader = &mut *reader;
+        // the reader only asks whether to go on; progress is the converter's (slices done)
+        let go_on = |_: u64, _: u64| !progress.is_cancelled();
+        let reading = Progress::new(Some(&go_on));
+        let reading = &reading;
         std::thread::scope(|scope| -> Result<(), StoreError> {
             let (full_tx, full_rx) = std::sync::mpsc::sync_channel::<Read<T>>(READ_BUFFERS - 1);
             let (free_tx, free_rx) = std::sync::mpsc::channel::<Vec<T>>();
@@ -508,7 +513,7 @@ impl<T: StoreVoxel> Converter<T> {
                     let n = group.min(layer_end - k);
                     let Ok(mut buf) = free_rx.recv() else { return };
                     let dst: &mut [u8] = bytemuck::cast_slice_mut(&mut buf[..n * slice]);
-                    let read = source.read_slices(k, dst, progress);
+                    let read = source.read_slices(k, dst, reading);
                     let failed = read.is_err();
                     if full_tx.send(read.map(|()| (k, n, buf))).is_err() || failed {
                         return;
@@ -700,9 +705,7 @@ impl<T: StoreVoxel> Converter<T> {
                     // one block of `rx` voxels per level voxel (no division per voxel)
                     for ((s, c), block) in srow.iter_mut().zip(crow.iter_mut()).zip(row.chunks(rx))
                     {
-                        let (bs, bc) = T::block_sum(block);
-                        *s += bs;
-                        *c += bc;
+                        T::add_block(block, s, c);
                     }
                 }
             });
