@@ -258,6 +258,10 @@ impl SliceReader for Resized {
 /// Bytes of a scan's full-resolution voxels, from its header alone (no voxel is read): what a
 /// front end compares with its memory budget before reading a scan whole.
 pub fn scan_voxel_bytes(path: &Path, options: &OpenOptions) -> Result<u64, IoError> {
+    if !crate::store::is_store(path) && io::detect(path)? == Format::Nifti {
+        // a type narrowed when read would be read whole to open its slices
+        return io::nifti::header_voxel_bytes(path);
+    }
     let reader = open_scan_slices_with(path, options)?;
     let d = reader.dims();
     Ok(d.iter().map(|&n| n as u64).product::<u64>() * reader.dtype().size_bytes() as u64)

@@ -31,7 +31,7 @@ mod stream;
 mod write;
 
 pub use header::{Header, HeaderError, Version};
-pub use read::{open, read_header};
+pub use read::{header_voxel_bytes, open, read_header};
 pub use stream::open_slices;
 pub use write::write;
 

@@ -218,6 +218,24 @@ pub fn read_header(path: &Path) -> Result<Header, IoError> {
     Header::parse(&bytes).map_err(|e| IoError::corrupt(&files.header, e.to_string()))
 }
 
+/// Bytes of the voxels a `NIfTI` scan opens to, from its header alone (no voxel is read): the
+/// stored type's size for the types held as they are, 4 (at most `f32`) for a type narrowed
+/// when read. What a front end compares with its memory budget before reading.
+pub fn header_voxel_bytes(path: &Path) -> Result<u64, IoError> {
+    let h = read_header(path)?;
+    let src = Src::from_code(path, h.datatype)?;
+    let (dims3, _) = dim_axis(path, &h)?;
+    let per: u64 = match src {
+        Src::U8 => 1,
+        Src::I16 | Src::U16 => 2,
+        _ => 4,
+    };
+    dims3
+        .iter()
+        .try_fold(per, |acc, &d| acc.checked_mul(d))
+        .ok_or_else(|| IoError::corrupt(path, "voxel byte count overflows"))
+}
+
 /// What the header asks us to read, after every check.
 pub(super) struct Plan {
     pub(super) dims: [usize; 3],

@@ -302,3 +302,43 @@ fn gzip_over_many_chunks_reads_cancels_and_refuses_truncation() {
     let e = open(&p, &opts, &Progress::none()).unwrap_err();
     assert!(matches!(e, IoError::Corrupt { .. }), "{e}");
 }
+
+/// The size a front end weighs against its budget comes from the header alone: a file whose
+/// voxels are missing altogether still gives it, and a type narrowed when read counts 4 bytes
+/// (at most `f32`) per voxel; datatype codes from nifti1.h (`DT_INT32` 8, `DT_FLOAT64` 64).
+#[test]
+fn header_voxel_bytes_reads_no_voxel() {
+    let good = written_bytes();
+    let dir = tempfile::tempdir().unwrap();
+    let at = |name: &str, f: &dyn Fn(&mut Vec<u8>)| {
+        let mut b = good.clone();
+        f(&mut b);
+        let p = dir.path().join(name);
+        std::fs::write(&p, &b).unwrap();
+        p
+    };
+    let v = sample_volume();
+    let n: u64 = v.dims().iter().map(|&d| d as u64).product();
+    let whole = at("whole.nii", &|_| {});
+    assert_eq!(
+        header_voxel_bytes(&whole).unwrap(),
+        n * v.dtype().size_bytes() as u64
+    );
+    // 2400³ claimed, no voxel data at all
+    let big = at("big.nii", &|b| {
+        b.truncate(352);
+        for a in 0..3 {
+            b[42 + 2 * a..44 + 2 * a].copy_from_slice(&2400i16.to_le_bytes());
+        }
+    });
+    assert_eq!(
+        header_voxel_bytes(&big).unwrap(),
+        2400u64.pow(3) * v.dtype().size_bytes() as u64
+    );
+    for code in [8i16, 64] {
+        let p = at(&format!("t{code}.nii"), &|b| {
+            b[70..72].copy_from_slice(&code.to_le_bytes());
+        });
+        assert_eq!(header_voxel_bytes(&p).unwrap(), n * 4, "datatype {code}");
+    }
+}
