@@ -313,6 +313,38 @@ pub fn cached_store_path(
     Ok(cache.join(format!("{stem}-{hash}{size}.ome.zarr")))
 }
 
+/// Stores being built in this process, and a signal when one is done.
+static BUILDING: std::sync::Mutex<Vec<std::path::PathBuf>> = std::sync::Mutex::new(Vec::new());
+static BUILT: std::sync::Condvar = std::sync::Condvar::new();
+
+/// The claim on building one store; released when dropped.
+struct Building(std::path::PathBuf);
+
+impl Building {
+    fn start(out: &Path) -> Self {
+        let mut set = BUILDING
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner);
+        while set.iter().any(|p| p == out) {
+            set = BUILT
+                .wait(set)
+                .unwrap_or_else(std::sync::PoisonError::into_inner);
+        }
+        set.push(out.to_path_buf());
+        Self(out.to_path_buf())
+    }
+}
+
+impl Drop for Building {
+    fn drop(&mut self) {
+        BUILDING
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+            .retain(|p| p != &self.0);
+        BUILT.notify_all();
+    }
+}
+
 /// Makes `out` a complete store of the scan at `scan` ([`convert_to_store`], resuming an
 /// interrupted conversion), unless it is one already ([`store_is_of`]). A store at `out` of
 /// something else (the scan changed since) is set aside as `out.stale-SECONDS`, never deleted:
@@ -324,6 +356,9 @@ pub fn build_store_of(
     options: crate::store::write::ConvertOptions,
     progress: &Progress<'_>,
 ) -> Result<(), IoError> {
+    // one build of a store at a time in this process (a window opening a scan while adding
+    // it to a project): the second waits, then finds the store made
+    let _building = Building::start(out);
     if store_is_of(out, scan) {
         return Ok(());
     }
@@ -358,4 +393,52 @@ pub fn store_is_of(store: &Path, scan: &Path) -> bool {
         "head_sha256": f.head_sha256,
     });
     facts.complete && facts.source.fingerprint.as_ref() == Some(&want)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Two builds of the same store at once (a window opening a scan while adding it to a
+    /// project) make one store: the second waits for the first and finds it made.
+    #[test]
+    fn two_builds_of_one_store_make_one() {
+        let scan =
+            Path::new(env!("CARGO_MANIFEST_DIR")).join("../../sample_volumes/HDC-002.nii.gz");
+        let dir = tempfile::tempdir().unwrap();
+        let out = cached_store_path(dir.path(), &scan, None).unwrap();
+        assert!(
+            out.file_name()
+                .unwrap()
+                .to_string_lossy()
+                .starts_with("HDC-002-")
+        );
+        std::thread::scope(|s| {
+            for _ in 0..2 {
+                s.spawn(|| {
+                    build_store_of(
+                        &scan,
+                        &OpenOptions::default(),
+                        &out,
+                        crate::store::write::ConvertOptions::default(),
+                        &Progress::none(),
+                    )
+                    .unwrap();
+                });
+            }
+        });
+        assert!(store_is_of(&out, &scan));
+        let names: Vec<String> = std::fs::read_dir(dir.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        assert_eq!(names.len(), 1, "one store, nothing set aside: {names:?}");
+        // a voxel size given is part of the name
+        let named = cached_store_path(dir.path(), &scan, Some([0.036, 0.036, 0.05])).unwrap();
+        assert!(
+            named.to_string_lossy().ends_with("-36x36x50um.ome.zarr"),
+            "{}",
+            named.display()
+        );
+    }
 }
