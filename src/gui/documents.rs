@@ -202,6 +202,7 @@ impl App {
             &sp.id,
             sp.scan.clone(),
             self.prefs.budget(),
+            self.prefs.store_cache_dir(),
             self.next_scan_id,
             move || {
                 if let Some(c) = &wake {
@@ -240,6 +241,7 @@ impl App {
             path,
             options,
             self.prefs.budget(),
+            self.prefs.store_cache_dir(),
             self.next_scan_id,
             move || {
                 if let Some(c) = &wake {
@@ -290,21 +292,8 @@ impl App {
         };
         let secs = l.started.elapsed().as_secs_f64();
         let path = l.path.clone();
-        let built = (l.opens != l.path).then(|| l.opens.clone());
         let specimen = l.specimen.clone();
         self.loading = None;
-        // a scan read from the store built for it keeps its labels in that store
-        let outcome = match outcome {
-            Outcome::Loaded(mut scan) => {
-                scan.store.clone_from(&built);
-                Outcome::Loaded(scan)
-            }
-            Outcome::Mismatched(mut scan, why) => {
-                scan.store.clone_from(&built);
-                Outcome::Mismatched(scan, why)
-            }
-            other => other,
-        };
         match outcome {
             Outcome::Loaded(scan) => {
                 let msg = format!(
@@ -335,7 +324,7 @@ impl App {
                     });
                 }
             }
-            Outcome::TooLarge { bytes } => self.too_large(path, specimen, bytes),
+            Outcome::TooLarge { bytes, store } => self.too_large(path, store, specimen, bytes),
             Outcome::Failed(msg) => self.status = Some(Status::error(msg)),
             Outcome::Cancelled => {
                 self.status = Some(Status::info(format!(
@@ -346,34 +335,9 @@ impl App {
         }
     }
 
-    /// A scan over the memory budget: opened from its store in the cache folder when one of
-    /// it is there, else the user is asked whether to build one.
-    fn too_large(&mut self, scan: PathBuf, specimen: Option<String>, bytes: u64) {
-        // the voxel size the scan is opened with: the specimen's recorded one, else the
-        // preference for TIFF scans
-        let voxel_size = match &specimen {
-            Some(id) => self
-                .desk
-                .as_ref()
-                .and_then(|d| d.session.project.specimen(id))
-                .and_then(|sp| sp.scan.voxel_size_override()),
-            None => self.prefs.tiff_voxel_size_mm(),
-        };
-        let store = match sutura_core::landmarks::scan::cached_store_path(
-            &self.prefs.store_cache_dir(),
-            &scan,
-            voxel_size,
-        ) {
-            Ok(s) => s,
-            Err(e) => {
-                self.status = Some(Status::error(e.to_string()));
-                return;
-            }
-        };
-        if sutura_core::landmarks::scan::store_is_of(&store, &scan) {
-            self.build_store(&scan, &store, specimen);
-            return;
-        }
+    /// A scan over the memory budget with no store built for it yet (the loader opens one
+    /// that is there): the user is asked whether to build it.
+    fn too_large(&mut self, scan: PathBuf, store: PathBuf, specimen: Option<String>, bytes: u64) {
         self.ui.prompt = Some(Prompt::BuildStore {
             scan,
             store,

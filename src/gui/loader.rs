@@ -9,9 +9,10 @@
 //!
 //! Memory: a scan is read whole only when its voxels fit the [`MemoryBudget`]. An OME-Zarr
 //! store larger than that is opened as a [`VolumeSource`] and read a chunk at a time
-//! (through a chunk cache of a quarter of the budget); any other scan larger than that is not
-//! read at all: the load ends with [`Outcome::TooLarge`], and the app offers to build a store
-//! of it ([`Loading::build_store`]) in its cache folder.
+//! (through a chunk cache); any other scan larger than that is opened from the store built
+//! for it in the store folder when one is there, else not read at all: the load ends with
+//! [`Outcome::TooLarge`], and the app offers to build the store ([`Loading::build_store`]).
+//! The file checks this takes run here, off the window's thread.
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -22,7 +23,9 @@ use std::time::Instant;
 use super::state::Scan;
 use sutura_core::io::{self, OpenOptions, Progress};
 use sutura_core::landmarks::project::ScanRecord;
-use sutura_core::landmarks::scan::{build_store_of, open_source, scan_voxel_bytes};
+use sutura_core::landmarks::scan::{
+    build_store_of, cached_store_path, open_source, scan_voxel_bytes, store_is_of,
+};
 use sutura_core::store::write::ConvertOptions;
 use sutura_core::volume::{Volume, VolumeSource};
 
@@ -114,9 +117,10 @@ pub enum Outcome {
     /// A specimen's scan that is not the one its record describes: what differs.
     Mismatched(Scan, String),
     /// The scan's voxels take `bytes`, more than the budget: it was not read (see the module
-    /// docs).
+    /// docs); `store` is where the store of it would be built (none of it is there yet).
     TooLarge {
         bytes: u64,
+        store: PathBuf,
     },
     Failed(String),
     Cancelled,
@@ -129,16 +133,15 @@ pub enum Outcome {
 )]
 enum Opened {
     Memory(Volume),
-    Source(Box<dyn VolumeSource + Send + Sync>),
-    TooLarge(u64),
+    /// Read through a store: the scan itself, or the store built for it (its path).
+    Source(Box<dyn VolumeSource + Send + Sync>, Option<PathBuf>),
+    TooLarge(u64, PathBuf),
 }
 
 /// A load in progress.
 pub struct Loading {
     /// The scan asked for.
     pub path: PathBuf,
-    /// What the scan shown will be read from: `path`, or the store built of it.
-    pub opens: PathBuf,
     /// The project specimen whose scan this is.
     pub specimen: Option<String>,
     pub started: Instant,
@@ -151,10 +154,13 @@ pub struct Loading {
 impl Loading {
     /// Starts loading `path` as scan number `id`; `wake` is called on progress and at the end
     /// (the app's repaint).
+    /// A scan file over the budget is opened from the store built for it in `cache` when
+    /// one is there.
     pub fn start(
         path: &Path,
         options: OpenOptions,
         budget: MemoryBudget,
+        cache: PathBuf,
         id: u64,
         wake: impl Fn() + Send + Sync + 'static,
     ) -> Self {
@@ -169,9 +175,17 @@ impl Loading {
                 }
                 .map(Opened::Memory)
             } else if sutura_core::store::is_store(p) {
-                open_source(p, options.voxel_size_mm, budget.cache_bytes()).map(Opened::Source)
+                open_source(p, options.voxel_size_mm, budget.cache_bytes())
+                    .map(|s| Opened::Source(s, None))
             } else {
-                Ok(Opened::TooLarge(bytes))
+                cached_store_path(&cache, p, options.voxel_size_mm).and_then(|store| {
+                    if store_is_of(&store, p) {
+                        open_source(&store, options.voxel_size_mm, budget.cache_bytes())
+                            .map(|s| Opened::Source(s, Some(store)))
+                    } else {
+                        Ok(Opened::TooLarge(bytes, store))
+                    }
+                })
             };
             opened.map(|o| (o, None)).map_err(|e| e.to_string())
         })
@@ -194,7 +208,7 @@ impl Loading {
     ) -> Self {
         let out = store.to_path_buf();
         let name = specimen.as_ref().map(|(_, s, _)| s.clone());
-        let mut loading = Self::spawn(scan, name, id, budget, wake, move |p, progress| {
+        Self::spawn(scan, name, id, budget, wake, move |p, progress| {
             build_store_of(p, &options, &out, budget.convert_options(), progress)
                 .map_err(|e| e.to_string())?;
             if progress.is_cancelled() {
@@ -205,16 +219,14 @@ impl Loading {
                     .open_source_from(&project_file, Some(&out), budget.cache_bytes())
                     .map_err(|e| e.to_string())?;
                 return Ok((
-                    Opened::Source(source),
+                    Opened::Source(source, Some(out)),
                     mismatch.map(|m| m.differences.join("; ")),
                 ));
             }
             let source = open_source(&out, options.voxel_size_mm, budget.cache_bytes())
                 .map_err(|e| e.to_string())?;
-            Ok((Opened::Source(source), None))
-        });
-        loading.opens = store.to_path_buf();
-        loading
+            Ok((Opened::Source(source, Some(out)), None))
+        })
     }
 
     /// Starts loading the scan of project specimen `specimen` as its record says (the recorded
@@ -224,6 +236,7 @@ impl Loading {
         specimen: &str,
         record: ScanRecord,
         budget: MemoryBudget,
+        cache: PathBuf,
         id: u64,
         wake: impl Fn() + Send + Sync + 'static,
     ) -> Self {
@@ -253,9 +266,17 @@ impl Loading {
                     let (source, mismatch) = record
                         .open_source(&project_file, budget.cache_bytes())
                         .map_err(|e| e.to_string())?;
-                    Ok((Opened::Source(source), why(mismatch)))
+                    Ok((Opened::Source(source, None), why(mismatch)))
                 } else {
-                    Ok((Opened::TooLarge(bytes), None))
+                    let store = cached_store_path(&cache, p, options.voxel_size_mm)
+                        .map_err(|e| e.to_string())?;
+                    if !store_is_of(&store, p) {
+                        return Ok((Opened::TooLarge(bytes, store), None));
+                    }
+                    let (source, mismatch) = record
+                        .open_source_from(&project_file, Some(&store), budget.cache_bytes())
+                        .map_err(|e| e.to_string())?;
+                    Ok((Opened::Source(source, Some(store)), why(mismatch)))
                 }
             },
         )
@@ -297,14 +318,20 @@ impl Loading {
                 } else {
                     let scan = |opened: Opened| match opened {
                         Opened::Memory(v) => Ok(Scan::new(id, p.clone(), v)),
-                        Opened::Source(s) => {
+                        Opened::Source(s, built) => {
                             let shared: Arc<dyn VolumeSource + Send + Sync> = Arc::from(s);
                             Scan::from_source(id, p.clone(), shared, budget.volume_view_bytes())
+                                .map(|mut scan| {
+                                    scan.store = built;
+                                    scan
+                                })
                         }
-                        Opened::TooLarge(_) => Err(String::new()),
+                        Opened::TooLarge(..) => Err(String::new()),
                     };
                     match result {
-                        Ok((Opened::TooLarge(bytes), _)) => Outcome::TooLarge { bytes },
+                        Ok((Opened::TooLarge(bytes, store), _)) => {
+                            Outcome::TooLarge { bytes, store }
+                        }
                         Ok((opened, why)) => match (scan(opened), why) {
                             (Ok(s), None) => Outcome::Loaded(s),
                             (Ok(s), Some(why)) => Outcome::Mismatched(s, why),
@@ -328,7 +355,6 @@ impl Loading {
         };
         Self {
             path: path.to_path_buf(),
-            opens: path.to_path_buf(),
             specimen,
             started: Instant::now(),
             done,
@@ -391,6 +417,7 @@ mod tests {
             &p,
             OpenOptions::default(),
             MemoryBudget::new(None),
+            PathBuf::new(),
             7,
             || {},
         );
@@ -411,6 +438,7 @@ mod tests {
             &p,
             OpenOptions::default(),
             MemoryBudget::new(None),
+            PathBuf::new(),
             1,
             || {},
         );
@@ -427,6 +455,7 @@ mod tests {
             &p,
             OpenOptions::default(),
             MemoryBudget::new(None),
+            PathBuf::new(),
             1,
             || {},
         );
@@ -478,17 +507,44 @@ mod tests {
             .modified()
             .unwrap();
         assert_eq!(stamp, again);
-        match wait(&Loading::start(&p, OpenOptions::default(), tiny, 1, || {})) {
-            Outcome::TooLarge { bytes } => assert_eq!(bytes, 120 * 88 * 48 * 2),
+        // over the budget: not read, and where its store would go is said
+        let cache = dir.path().join("cache");
+        let start = |path: &Path, budget, id| {
+            wait(&Loading::start(
+                path,
+                OpenOptions::default(),
+                budget,
+                cache.clone(),
+                id,
+                || {},
+            ))
+        };
+        let built = match start(&p, tiny, 1) {
+            Outcome::TooLarge { bytes, store } => {
+                assert_eq!(bytes, 120 * 88 * 48 * 2);
+                assert!(store.starts_with(&cache) && !store.exists());
+                store
+            }
             o => panic!("expected too large, got {o:?}"),
+        };
+        // once that store is there, the scan opens from it at once
+        build_store_of(
+            &p,
+            &OpenOptions::default(),
+            &built,
+            tiny.convert_options(),
+            &Progress::none(),
+        )
+        .unwrap();
+        match start(&p, tiny, 3) {
+            Outcome::Loaded(s) => {
+                assert!(s.whole().is_none());
+                assert_eq!(s.store.as_deref(), Some(built.as_path()));
+                assert_eq!(s.path, p);
+            }
+            o => panic!("expected a scan, got {o:?}"),
         }
-        match wait(&Loading::start(
-            &store,
-            OpenOptions::default(),
-            tiny,
-            2,
-            || {},
-        )) {
+        match start(&store, tiny, 2) {
             Outcome::Loaded(s) => {
                 assert!(s.whole().is_none());
                 assert!(
@@ -504,6 +560,7 @@ mod tests {
                 path,
                 OpenOptions::default(),
                 roomy,
+                cache.clone(),
                 n as u64,
                 || {},
             )) {
