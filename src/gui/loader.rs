@@ -138,10 +138,35 @@ enum Opened {
     TooLarge(u64, PathBuf),
 }
 
+impl Opened {
+    /// The load's outcome: the scan at `path` summarised as scan number `id`, flagged when
+    /// `why` says it is not the recorded one; or why there is none.
+    fn outcome(self, id: u64, path: PathBuf, budget: MemoryBudget, why: Option<String>) -> Outcome {
+        let scan = match self {
+            Self::TooLarge(bytes, store) => return Outcome::TooLarge { bytes, store },
+            Self::Memory(v) => Ok(Scan::new(id, path, v)),
+            Self::Source(s, built) => {
+                let shared: Arc<dyn VolumeSource + Send + Sync> = Arc::from(s);
+                Scan::from_source(id, path, shared, budget.volume_view_bytes()).map(|mut scan| {
+                    scan.store = built;
+                    scan
+                })
+            }
+        };
+        match (scan, why) {
+            (Ok(s), None) => Outcome::Loaded(s),
+            (Ok(s), Some(why)) => Outcome::Mismatched(s, why),
+            (Err(e), _) => Outcome::Failed(e),
+        }
+    }
+}
+
 /// A load in progress.
 pub struct Loading {
     /// The scan asked for.
     pub path: PathBuf,
+    /// What is being done to it, for the progress window ("Opening", "Building a store of").
+    pub action: &'static str,
     /// The project specimen whose scan this is.
     pub specimen: Option<String>,
     pub started: Instant,
@@ -208,7 +233,7 @@ impl Loading {
     ) -> Self {
         let out = store.to_path_buf();
         let name = specimen.as_ref().map(|(_, s, _)| s.clone());
-        Self::spawn(scan, name, id, budget, wake, move |p, progress| {
+        let mut loading = Self::spawn(scan, name, id, budget, wake, move |p, progress| {
             build_store_of(p, &options, &out, budget.convert_options(), progress)
                 .map_err(|e| e.to_string())?;
             if progress.is_cancelled() {
@@ -226,7 +251,9 @@ impl Loading {
             let source = open_source(&out, options.voxel_size_mm, budget.cache_bytes())
                 .map_err(|e| e.to_string())?;
             Ok((Opened::Source(source, Some(out)), None))
-        })
+        });
+        loading.action = "Building a store of";
+        loading
     }
 
     /// Starts loading the scan of project specimen `specimen` as its record says (the recorded
@@ -316,27 +343,8 @@ impl Loading {
                 let outcome = if c.load(Ordering::Relaxed) {
                     Outcome::Cancelled
                 } else {
-                    let scan = |opened: Opened| match opened {
-                        Opened::Memory(v) => Ok(Scan::new(id, p.clone(), v)),
-                        Opened::Source(s, built) => {
-                            let shared: Arc<dyn VolumeSource + Send + Sync> = Arc::from(s);
-                            Scan::from_source(id, p.clone(), shared, budget.volume_view_bytes())
-                                .map(|mut scan| {
-                                    scan.store = built;
-                                    scan
-                                })
-                        }
-                        Opened::TooLarge(..) => Err(String::new()),
-                    };
                     match result {
-                        Ok((Opened::TooLarge(bytes, store), _)) => {
-                            Outcome::TooLarge { bytes, store }
-                        }
-                        Ok((opened, why)) => match (scan(opened), why) {
-                            (Ok(s), None) => Outcome::Loaded(s),
-                            (Ok(s), Some(why)) => Outcome::Mismatched(s, why),
-                            (Err(e), _) => Outcome::Failed(e),
-                        },
+                        Ok((opened, why)) => opened.outcome(id, p, budget, why),
                         Err(e) => Outcome::Failed(e),
                     }
                 };
@@ -355,6 +363,7 @@ impl Loading {
         };
         Self {
             path: path.to_path_buf(),
+            action: "Opening",
             specimen,
             started: Instant::now(),
             done,
@@ -399,6 +408,18 @@ mod tests {
     use super::*;
     use std::time::Duration;
 
+    /// A load with the machine's default budget (the sample scans are within it).
+    fn start_default(path: &Path, id: u64) -> Loading {
+        Loading::start(
+            path,
+            OpenOptions::default(),
+            MemoryBudget::new(None),
+            PathBuf::new(),
+            id,
+            || {},
+        )
+    }
+
     fn wait(l: &Loading) -> Outcome {
         let t0 = Instant::now();
         loop {
@@ -413,14 +434,7 @@ mod tests {
     #[test]
     fn loads_the_sample_scan_in_the_background() {
         let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz");
-        let l = Loading::start(
-            &p,
-            OpenOptions::default(),
-            MemoryBudget::new(None),
-            PathBuf::new(),
-            7,
-            || {},
-        );
+        let l = start_default(&p, 7);
         match wait(&l) {
             Outcome::Loaded(s) => {
                 assert_eq!(s.id, 7);
@@ -434,14 +448,7 @@ mod tests {
     #[test]
     fn a_cancelled_load_reports_cancelled() {
         let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample_volumes/HDC-002.nii.gz");
-        let l = Loading::start(
-            &p,
-            OpenOptions::default(),
-            MemoryBudget::new(None),
-            PathBuf::new(),
-            1,
-            || {},
-        );
+        let l = start_default(&p, 1);
         l.cancel();
         assert!(matches!(wait(&l), Outcome::Cancelled));
     }
@@ -451,14 +458,7 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let p = dir.path().join("broken.nii");
         std::fs::write(&p, b"not a scan at all").unwrap();
-        let l = Loading::start(
-            &p,
-            OpenOptions::default(),
-            MemoryBudget::new(None),
-            PathBuf::new(),
-            1,
-            || {},
-        );
+        let l = start_default(&p, 1);
         match wait(&l) {
             Outcome::Failed(msg) => assert!(msg.contains("broken.nii"), "{msg}"),
             o => panic!("expected a failure, got {o:?}"),
