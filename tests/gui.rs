@@ -42,11 +42,34 @@ fn step_until(h: &mut Harness<'_, App>, what: &str, done: impl Fn(&App) -> bool)
 }
 
 /// The app on the sample scan, its stage picture on screen.
+/// The window on `app` at 1280 × 800, driven as the tests drive it.
+fn harness(app: App) -> Harness<'static, App> {
+    Harness::builder()
+        .with_size(Vec2::new(1280.0, 800.0))
+        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app)
+}
+
+/// A 0.5 MiB memory budget (each sample scan, 1 MB of voxels, is over it) with stores built
+/// in `cache`.
+fn over_budget(cache: &std::path::Path) -> Preferences {
+    Preferences {
+        memory_budget_gib: Some(1.0 / 2048.0),
+        store_cache: cache.to_string_lossy().into_owned(),
+        ..Preferences::default()
+    }
+}
+
+/// The names of what a folder holds.
+fn names_in(dir: &std::path::Path) -> Vec<String> {
+    std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect()
+}
+
 fn app_on_sample() -> Harness<'static, App> {
     let app = App::new(Preferences::default(), Some(sample()));
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let mut h = harness(app);
     step_until(&mut h, "the sample scan to load", |a| {
         a.document().scan.is_some() && !a.is_loading()
     });
@@ -298,9 +321,7 @@ fn a_bad_file_reports_an_error_and_keeps_the_scan() {
 #[test]
 fn a_slice_folder_opens_with_the_voxel_size_given() {
     let app = App::new(Preferences::default(), None);
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let mut h = harness(app);
     h.step();
     // a bare number is refused by the one voxel-size rule: µm and mm differ by 1000
     assert!("36".parse::<VoxelSizeMm>().is_err());
@@ -379,9 +400,7 @@ fn project_copy(dir: &std::path::Path) -> PathBuf {
 /// The app on a project, its first specimen's scan on the stage.
 fn app_on_project(project: &std::path::Path, prefs: Preferences) -> Harness<'static, App> {
     let app = App::new(prefs, Some(project.to_path_buf()));
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let mut h = harness(app);
     step_until(&mut h, "the project and its first scan", |a| {
         a.desk().is_some() && a.scan_of().is_some() && !a.is_loading()
     });
@@ -919,9 +938,7 @@ fn truth(specimen: &str) -> std::collections::BTreeMap<String, [f64; 3]> {
 fn a_project_is_started_in_the_window_from_the_sample_scans() {
     let dir = tempfile::tempdir().unwrap();
     let app = App::new(named("Ana"), None);
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let mut h = harness(app);
     h.step();
     h.key_press_modifiers(Modifiers::COMMAND, egui::Key::N);
     h.step();
@@ -1383,9 +1400,7 @@ fn the_rock_specimen_is_prepared_in_the_window_as_the_command_line_prepares_it()
     let scan = dir.path().join("RM-001.nii.gz");
     std::os::unix::fs::symlink(root.join("sample_volumes/rock/RM-001.nii.gz"), &scan).unwrap();
     let app = App::new(Preferences::default(), Some(scan.clone()));
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let mut h = harness(app);
     step_until(&mut h, "the rock scan to load", |a| {
         a.document().scan.is_some() && !a.is_loading()
     });
@@ -1679,29 +1694,23 @@ fn a_scan_over_the_memory_budget_is_shown_from_a_store_built_for_it() {
     let cache = dir.path().join("stores");
     let prefs = Preferences {
         operator: "Ana Ruiz".into(),
-        // 0.5 MiB: each sample scan (1 MB of voxels) is over it
-        memory_budget_gib: Some(1.0 / 2048.0),
-        store_cache: cache.to_string_lossy().into_owned(),
-        ..Preferences::default()
+        ..over_budget(&cache)
     };
     let app = App::new(prefs, Some(path.clone()));
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let mut h = harness(app);
     step_until(&mut h, "the question about the store", |a| {
         matches!(a.prompt(), Some(Prompt::BuildStore { .. }))
     });
     assert!(h.state().document().scan.is_none(), "nothing was read");
+    // a dialog takes a frame to lay itself out before its buttons can be clicked
+    h.step();
     h.get_by_label("Build the store and open it").click();
     step_until(&mut h, "the store built and opened", |a| {
         a.scan_of().is_some() && !a.is_loading()
     });
     assert_eq!(h.state().scan_of(), Some("HDC-001"));
     assert!(h.state().prompt().is_none(), "the record's checks pass");
-    let stores: Vec<_> = std::fs::read_dir(&cache)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
+    let stores = names_in(&cache);
     assert_eq!(stores.len(), 1, "{stores:?}");
     assert!(stores[0].starts_with("HDC-001-") && stores[0].ends_with(".ome.zarr"));
     let scan = h.state().document().scan.clone().unwrap();
@@ -1888,15 +1897,8 @@ fn a_scan_over_the_budget_is_added_from_a_store_with_the_record_reading_it_whole
     let dir = tempfile::tempdir().unwrap();
     let path = project_copy(dir.path());
     let cache = dir.path().join("stores");
-    let prefs = Preferences {
-        memory_budget_gib: Some(1.0 / 2048.0),
-        store_cache: cache.to_string_lossy().into_owned(),
-        ..Preferences::default()
-    };
-    let app = App::new(prefs, Some(path.clone()));
-    let mut h = Harness::builder()
-        .with_size(Vec2::new(1280.0, 800.0))
-        .build_ui_state(|ui, app: &mut App| app.ui_for_test(ui), app);
+    let app = App::new(over_budget(&cache), Some(path.clone()));
+    let mut h = harness(app);
     step_until(&mut h, "the question about HDC-001's store", |a| {
         matches!(a.prompt(), Some(Prompt::BuildStore { .. }))
     });
@@ -1929,10 +1931,57 @@ fn a_scan_over_the_budget_is_added_from_a_store_with_the_record_reading_it_whole
         added.scan, whole.scan,
         "the record reading the scan whole gives"
     );
-    let stores: Vec<_> = std::fs::read_dir(&cache)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
+    let stores = names_in(&cache);
     assert_eq!(stores.len(), 1, "{stores:?}");
     assert!(stores[0].starts_with("HDC-003-"), "{stores:?}");
+}
+
+/// The memory budget is typed in File ▸ Settings: a number of GiB sets it, a word is refused
+/// with a message under the field (the budget unchanged), an empty field is automatic again.
+#[test]
+fn the_memory_budget_is_typed_in_the_file_menu() {
+    let mut h = harness(App::new(Preferences::default(), None));
+    h.step();
+    let field = "Memory budget, GiB";
+    let enter = |h: &mut Harness<'_, App>, text: &str| {
+        // the menu as a user opens it: File, then Settings
+        if h.query_by_label(field).is_none() {
+            if h.query_by_label("Settings").is_none() {
+                h.get_by_label("File").click();
+                h.step();
+                h.step(); // a menu lays itself out for a frame before its entries can be clicked
+            }
+            h.get_by_label("Settings").click();
+            h.step();
+            h.step();
+        }
+        h.get_by_label(field).focus();
+        h.step();
+        h.key_press_modifiers(Modifiers::COMMAND, egui::Key::A);
+        h.key_press(egui::Key::Backspace);
+        h.step();
+        if !text.is_empty() {
+            h.get_by_label(field).type_text(text);
+            h.step();
+        }
+        h.key_press(egui::Key::Tab); // the field loses the focus
+        h.step();
+        h.step();
+    };
+    enter(&mut h, "0.5");
+    assert_eq!(h.state().preferences().memory_budget_gib, Some(0.5));
+    assert_eq!(h.state().preferences().budget().bytes, 1 << 29);
+    enter(&mut h, "lots");
+    assert_eq!(h.state().preferences().memory_budget_gib, Some(0.5));
+    assert!(
+        h.query_by_label_contains("a memory budget is a number of GiB")
+            .is_some(),
+        "the refusal is shown"
+    );
+    enter(&mut h, "");
+    assert_eq!(h.state().preferences().memory_budget_gib, None);
+    assert!(
+        h.query_by_label_contains("a memory budget is a number")
+            .is_none()
+    );
 }

@@ -366,6 +366,7 @@ impl App {
         if let Some(l) = &self.loading {
             cmds.extend(panels::loading_ui(
                 &ctx,
+                l.action,
                 &l.path,
                 l.fraction(),
                 l.started,
@@ -374,6 +375,7 @@ impl App {
         } else if let Some(a) = &self.adding {
             cmds.extend(panels::loading_ui(
                 &ctx,
+                "Adding",
                 &a.current_path(),
                 Some(a.fraction()),
                 a.started,

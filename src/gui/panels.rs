@@ -92,42 +92,13 @@ pub fn top_bar_ui(
                 out.push(DeskCommand::Save.into());
             }
             ui.separator();
-            let id = ui.scope_id().with("tiff_voxel_size");
-            let mut text = ui.data_mut(|d| {
-                d.get_temp::<String>(id)
-                    .unwrap_or_else(|| prefs.tiff_voxel_size.clone())
-            });
-            ui.horizontal(|ui| {
-                let l = ui.label("Voxel size for TIFF scans");
-                let r = ui
-                    .add(
-                        egui::TextEdit::singleline(&mut text)
-                            .hint_text("from the file")
-                            .desired_width(120.0),
-                    )
-                    .labelled_by(l.id)
-                    .on_hover_text(
-                        "for TIFF scans without a voxel size: 36um, or 36um,36um,50um for x,y,z",
-                    );
-                if r.lost_focus() && text.trim() != prefs.tiff_voxel_size {
-                    match VoxelSizeMm::parse_optional(&text) {
-                        Ok(v) => out.push(PrefsCommand::SetTiffVoxelSize(v).into()),
-                        Err(e) => {
-                            ui.ctx()
-                                .data_mut(|d| d.insert_temp(id.with("error"), e.to_string()));
-                        }
-                    }
-                }
-            });
-            if let Some(e) = ui.ctx().data(|d| d.get_temp::<String>(id.with("error"))) {
-                ui.label(
-                    RichText::new(e)
-                        .small()
-                        .color(Color32::from_rgb(240, 120, 100)),
-                );
-            }
-            ui.data_mut(|d| d.insert_temp(id, text));
-            memory_ui(ui, prefs, &mut out);
+            // typed settings: a click in their fields keeps the menu open
+            egui::containers::menu::SubMenuButton::new("Settings")
+                .config(
+                    egui::containers::menu::MenuConfig::new()
+                        .close_behavior(egui::PopupCloseBehavior::CloseOnClickOutside),
+                )
+                .ui(ui, |ui| settings_ui(ui, prefs, &mut out));
             if !prefs.recent.is_empty() {
                 ui.separator();
                 ui.label(RichText::new("Recent").weak());
@@ -276,57 +247,126 @@ pub fn controls_ui(
     cmd
 }
 
-/// The memory budget and the folder of stores built for scans over it (File menu).
-fn memory_ui(ui: &mut Ui, prefs: &Preferences, out: &mut Vec<Command>) {
-    let budget = prefs.budget();
-    ui.horizontal(|ui| {
-        let l = ui.label("Memory budget");
-        let mut gib = budget.bytes as f64 / f64::from(1u32 << 30);
-        let r = ui
-            .add(
-                egui::DragValue::new(&mut gib)
-                    .range(0.0625..=4096.0)
-                    .speed(0.25)
-                    .max_decimals(2)
-                    .suffix(" GiB"),
-            )
-            .labelled_by(l.id)
-            .on_hover_text(
-                "scans up to this size are read whole into memory; larger ones are read from \
-                 an OME-Zarr store, a chunk at a time",
-            );
-        if r.changed() {
-            out.push(PrefsCommand::SetMemoryBudget(Some(gib)).into());
-        }
-        if prefs.memory_budget_gib.is_some()
-            && ui
-                .small_button("automatic")
-                .on_hover_text("a quarter of this machine's memory")
-                .clicked()
-        {
-            out.push(PrefsCommand::SetMemoryBudget(None).into());
-        }
-    });
-    let id = ui.scope_id().with("store_cache");
+/// A setting typed in a menu: a label, a text field (what is typed is kept until it loses the
+/// focus; `hint` shows when it is empty) and, when the text then differs from `current`, the
+/// command `parse` makes of it, or its message under the field until a text parses.
+struct TextSetting<'a> {
+    key: &'a str,
+    label: &'a str,
+    current: &'a str,
+    hint: String,
+    width: f32,
+    tip: &'a str,
+}
+
+fn text_setting(
+    ui: &mut Ui,
+    s: &TextSetting<'_>,
+    parse: impl Fn(&str) -> Result<Command, String>,
+    out: &mut Vec<Command>,
+) {
+    let id = ui.scope_id().with(s.key);
     let mut text = ui.data_mut(|d| {
         d.get_temp::<String>(id)
-            .unwrap_or_else(|| prefs.store_cache.clone())
+            .unwrap_or_else(|| s.current.to_owned())
     });
     ui.horizontal(|ui| {
-        let l = ui.label("Store folder");
+        let l = ui.label(s.label);
         let r = ui
             .add(
                 egui::TextEdit::singleline(&mut text)
-                    .hint_text(prefs.store_cache_dir().display().to_string())
-                    .desired_width(220.0),
+                    .hint_text(s.hint.as_str())
+                    .desired_width(s.width),
             )
             .labelled_by(l.id)
-            .on_hover_text("where stores of scans over the memory budget are built and kept");
-        if r.lost_focus() && text.trim() != prefs.store_cache {
-            out.push(PrefsCommand::SetStoreCache(text.clone()).into());
+            .on_hover_text(s.tip);
+        if r.lost_focus() && text.trim() != s.current {
+            match parse(text.trim()) {
+                Ok(cmd) => {
+                    out.push(cmd);
+                    ui.ctx().data_mut(|d| {
+                        d.remove::<String>(id.with("error"));
+                    });
+                }
+                Err(e) => {
+                    ui.ctx().data_mut(|d| d.insert_temp(id.with("error"), e));
+                }
+            }
         }
     });
+    if let Some(e) = ui.ctx().data(|d| d.get_temp::<String>(id.with("error"))) {
+        ui.label(
+            RichText::new(e)
+                .small()
+                .color(Color32::from_rgb(240, 120, 100)),
+        );
+    }
     ui.data_mut(|d| d.insert_temp(id, text));
+}
+
+/// The typed settings (File → Settings): the voxel size for TIFF scans, the memory budget and
+/// the folder of stores built for scans over it.
+fn settings_ui(ui: &mut Ui, prefs: &Preferences, out: &mut Vec<Command>) {
+    text_setting(
+        ui,
+        &TextSetting {
+            key: "tiff_voxel_size",
+            label: "Voxel size for TIFF scans",
+            current: &prefs.tiff_voxel_size,
+            hint: "from the file".into(),
+            width: 120.0,
+            tip: "for TIFF scans without a voxel size: 36um, or 36um,36um,50um for x,y,z",
+        },
+        |text| {
+            VoxelSizeMm::parse_optional(text)
+                .map(|v| PrefsCommand::SetTiffVoxelSize(v).into())
+                .map_err(|e| e.to_string())
+        },
+        out,
+    );
+    let automatic = super::loader::MemoryBudget::new(None).bytes as f64 / f64::from(1u32 << 30);
+    let current = prefs
+        .memory_budget_gib
+        .map_or_else(String::new, |g| format!("{g}"));
+    text_setting(
+        ui,
+        &TextSetting {
+            key: "memory_budget",
+            label: "Memory budget, GiB",
+            current: &current,
+            hint: format!("automatic: {automatic:.2}"),
+            width: 120.0,
+            tip: "scans up to this size are read whole into memory; larger ones are read from an \
+                  OME-Zarr store, a chunk at a time (empty: a quarter of this machine's memory)",
+        },
+        |text| {
+            if text.is_empty() {
+                return Ok(PrefsCommand::SetMemoryBudget(None).into());
+            }
+            match text.parse::<f64>() {
+                Ok(g) if g.is_finite() && g > 0.0 => {
+                    Ok(PrefsCommand::SetMemoryBudget(Some(g)).into())
+                }
+                _ => Err(format!(
+                    "{text}: a memory budget is a number of GiB, e.g. 8 (empty: automatic)"
+                )),
+            }
+        },
+        out,
+    );
+    text_setting(
+        ui,
+        &TextSetting {
+            key: "store_cache",
+            label: "Store folder",
+            current: &prefs.store_cache,
+            hint: prefs.store_cache_dir().display().to_string(),
+            width: 220.0,
+            tip: "where stores of scans over the memory budget are built and kept",
+        },
+        |text| Ok(PrefsCommand::SetStoreCache(text.to_owned()).into()),
+        out,
+    );
 }
 
 fn heading(ui: &mut Ui, text: &str) {
@@ -376,11 +416,11 @@ fn scan_facts_ui(ui: &mut Ui, scan: &Scan) {
                     .file_name()
                     .map(|n| n.to_string_lossy().into_owned())
                     .unwrap_or_default();
-                ui.label(format!("from {store}, {} levels", v.level_count()))
-                    .on_hover_text(
-                        "over the memory budget: read a chunk at a time, each view at the level \
-                         it needs; picks and the read-out at full resolution",
-                    );
+                ui.label(format!("from its store, {} levels", v.level_count()))
+                    .on_hover_text(format!(
+                        "{store}: over the memory budget, read a chunk at a time, each view at \
+                         the level it needs; picks and the read-out at full resolution"
+                    ));
                 ui.end_row();
             }
         });
@@ -656,6 +696,7 @@ pub fn status_ui(ui: &mut Ui, doc: &Document, vs: &ViewState, status: Option<&St
 #[must_use]
 pub fn loading_ui(
     ctx: &egui::Context,
+    action: &str,
     path: &Path,
     fraction: Option<f32>,
     started: Instant,
@@ -669,7 +710,7 @@ pub fn loading_ui(
         .anchor(egui::Align2::CENTER_CENTER, egui::Vec2::ZERO)
         .show(ctx, |ui| {
             ui.set_width(360.0);
-            ui.label(RichText::new("Opening").strong());
+            ui.label(RichText::new(action).strong());
             ui.label(
                 RichText::new(path.display().to_string())
                     .monospace()

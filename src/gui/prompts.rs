@@ -42,9 +42,13 @@ pub enum Prompt {
     },
 }
 
-/// Bytes in GB (10⁹, as disks are sold) with one decimal.
-fn gigabytes(bytes: u64) -> String {
-    format!("{:.1} GB", bytes as f64 / 1e9)
+/// Bytes in GB (10⁹, as disks are sold) with one decimal, or in MB below a gigabyte.
+fn size_text(bytes: u64) -> String {
+    if bytes >= 1_000_000_000 {
+        format!("{:.1} GB", bytes as f64 / 1e9)
+    } else {
+        format!("{:.0} MB", bytes as f64 / 1e6)
+    }
 }
 
 fn ago_text(secs: u64) -> String {
@@ -154,8 +158,8 @@ pub fn prompt_ui(
                      The window reads a scan this size from an OME-Zarr store: a copy in \
                      chunks and levels of detail, built once in one pass over the file \
                      (resumed if stopped), then opened at once every time.",
-                    gigabytes(*bytes),
-                    gigabytes(*budget)
+                    size_text(*bytes),
+                    size_text(*budget)
                 ));
                 ui.label(
                     RichText::new(format!("store: {}", store.display()))
@@ -164,7 +168,7 @@ pub fn prompt_ui(
                 );
                 ui.label(
                     RichText::new(
-                        "The memory budget and the store folder are set in the File menu.",
+                        "The memory budget and the store folder are set in the File menu, under Settings.",
                     )
                     .small()
                     .weak(),
