@@ -28,6 +28,7 @@ pub mod cache;
 pub mod labels;
 pub mod meta;
 pub mod write;
+mod write_behind;
 
 pub use cache::{CacheStats, ChunkCache};
 pub use labels::{LabelImage, LabelValue};
@@ -183,6 +184,102 @@ struct LevelArray {
     chunk: [usize; 3],
     /// Axes before `z`, `y`, `x` (each of extent 1).
     leading: usize,
+    /// The chunks are little-endian voxels compressed by zstd alone (the layout Sutura
+    /// writes): decoded by [`decode_zstd`] instead of zarrs' codec chain.
+    zstd_only: bool,
+}
+
+/// Whether an array's chunks are little-endian voxels compressed by zstd and nothing else
+/// (Zarr v3 codecs `bytes` then `zstd`, no storage transformer).
+fn is_zstd_only(array: &ZArray) -> bool {
+    let zarrs::metadata::ArrayMetadata::V3(m) = array.metadata() else {
+        return false;
+    };
+    let [bytes, zstd] = m.codecs.as_slice() else {
+        return false;
+    };
+    let little = bytes
+        .configuration()
+        .and_then(|c| c.get("endian"))
+        .is_none_or(|e| e == "little");
+    m.storage_transformers.is_empty()
+        && bytes.name() == "bytes"
+        && little
+        && cfg!(target_endian = "little")
+        && zstd.name() == "zstd"
+}
+
+thread_local! {
+    /// This thread's zstd context for decoding chunks and its buffer for a chunk's file (made
+    /// once, not per chunk).
+    static ZSTD_DECODER: std::cell::RefCell<Option<(zstd::bulk::Decompressor<'static>, Vec<u8>)>> =
+        const { std::cell::RefCell::new(None) };
+}
+
+/// The spare capacity of a voxel vector as zstd's output: the decoded bytes become voxels in
+/// place, without zeroing the buffer first.
+struct SpareVoxels<'a, T>(&'a mut Vec<T>);
+
+// SAFETY: `as_slice` covers the vector's initialised voxels and `capacity` / `as_mut_ptr` its
+// whole allocation; `filled_until(n)` is called once zstd has written the first `n` bytes, and
+// marks the voxels those bytes hold initialised (every bit pattern is a voxel: `T: Pod`).
+unsafe impl<T: Voxel> zstd::zstd_safe::WriteBuf for SpareVoxels<'_, T> {
+    fn as_slice(&self) -> &[u8] {
+        bytemuck::cast_slice(self.0.as_slice())
+    }
+    fn capacity(&self) -> usize {
+        self.0.capacity() * size_of::<T>()
+    }
+    fn as_mut_ptr(&mut self) -> *mut u8 {
+        self.0.as_mut_ptr().cast()
+    }
+    unsafe fn filled_until(&mut self, n: usize) {
+        // SAFETY: the first `n` bytes, so the first `n / size_of::<T>()` voxels, are written,
+        // and `n` is within the capacity (zstd-safe checks it)
+        unsafe { self.0.set_len(n / size_of::<T>()) }
+    }
+}
+
+/// Decodes one zstd-compressed chunk of `voxels` little-endian voxels straight into its
+/// buffer with this thread's context (the codec chain would make a context per chunk, zero
+/// the buffer and copy between its steps). `Ok(None)`: the chunk is not stored (it holds the
+/// fill value).
+fn decode_zstd<T: Voxel>(
+    array: &ZArray,
+    idx: &[u64],
+    voxels: usize,
+) -> Result<Option<VoxelBuffer<T>>, String> {
+    use std::io::Read;
+    let path = array.storage().key_to_fspath(&array.chunk_key(idx));
+    let mut out: Vec<T> = Vec::with_capacity(voxels);
+    let got = ZSTD_DECODER.with(|d| -> Result<Option<usize>, String> {
+        let mut d = d.borrow_mut();
+        let (decoder, encoded) = match &mut *d {
+            Some(d) => d,
+            empty => empty.insert((
+                zstd::bulk::Decompressor::new().map_err(|e| format!("zstd: {e}"))?,
+                Vec::new(),
+            )),
+        };
+        // the file into this thread's buffer (no new memory per chunk)
+        encoded.clear();
+        match std::fs::File::open(&path) {
+            Ok(mut f) => f.read_to_end(encoded).map_err(|e| e.to_string())?,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
+            Err(e) => return Err(e.to_string()),
+        };
+        decoder
+            .decompress_to_buffer(encoded.as_slice(), &mut SpareVoxels(&mut out))
+            .map(Some)
+            .map_err(|e| format!("zstd: {e}"))
+    })?;
+    let Some(n) = got else { return Ok(None) };
+    let expected = voxels * size_of::<T>();
+    if n == expected && out.len() == voxels {
+        Ok(Some(VoxelBuffer::from_vec(out)))
+    } else {
+        Err(format!("decodes to {n} bytes, {expected} expected"))
+    }
 }
 
 struct Inner {
@@ -323,6 +420,7 @@ impl Store {
                 ));
             }
             arrays.push(LevelArray {
+                zstd_only: is_zstd_only(&array),
                 array,
                 chunk: [cs[l + 2], cs[l + 1], cs[l]],
                 leading: l,
@@ -479,10 +577,31 @@ impl Inner {
         let a = &self.arrays[level];
         let mut idx = vec![0u64; a.leading];
         idx.extend([c[2] as u64, c[1] as u64, c[0] as u64]);
+        let corrupt =
+            |e: String| StoreError::corrupt(&self.path, format!("level {level} chunk {c:?}: {e}"));
+        if a.zstd_only {
+            let n = a.chunk.iter().product::<usize>();
+            let direct =
+                match self.dtype {
+                    DType::U8 => {
+                        decode_zstd::<u8>(&a.array, &idx, n).map(|v| v.map(IntoVoxels::into_voxels))
+                    }
+                    DType::I16 => decode_zstd::<i16>(&a.array, &idx, n)
+                        .map(|v| v.map(IntoVoxels::into_voxels)),
+                    DType::U16 => decode_zstd::<u16>(&a.array, &idx, n)
+                        .map(|v| v.map(IntoVoxels::into_voxels)),
+                    DType::F32 => decode_zstd::<f32>(&a.array, &idx, n)
+                        .map(|v| v.map(IntoVoxels::into_voxels)),
+                }
+                .map_err(corrupt)?;
+            if let Some(voxels) = direct {
+                let chunk = Arc::new(voxels);
+                self.cache.insert(key, chunk.clone());
+                return Ok(chunk);
+            }
+        }
         let opts = CodecOptions::default().with_concurrent_target(1);
-        let err = |e: zarrs::array::ArrayError| {
-            StoreError::corrupt(&self.path, format!("level {level} chunk {c:?}: {e}"))
-        };
+        let err = |e: zarrs::array::ArrayError| corrupt(e.to_string());
         let voxels = match self.dtype {
             DType::U8 => VoxelBuffer::from_vec(
                 a.array

