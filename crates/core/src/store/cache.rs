@@ -83,6 +83,12 @@ impl ChunkCache {
         self.lock().entries.contains_key(key)
     }
 
+    /// How many voxels of the chunk are held (a chunk may be held in part: its leading
+    /// slices); does not count as a use.
+    pub fn voxels_of(&self, key: &ChunkKey) -> Option<usize> {
+        self.lock().entries.get(key).map(|e| e.chunk.len())
+    }
+
     /// Keeps a chunk, evicting the least recently used until the budget holds. A chunk larger
     /// than the whole budget is not kept.
     pub fn insert(&self, key: ChunkKey, chunk: Arc<Voxels>) {

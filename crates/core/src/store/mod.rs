@@ -209,77 +209,132 @@ fn is_zstd_only(array: &ZArray) -> bool {
         && zstd.name() == "zstd"
 }
 
+/// A thread's zstd contexts (whole chunks; leading parts) and file buffer.
+struct Decoders {
+    bulk: zstd::bulk::Decompressor<'static>,
+    stream: zstd::zstd_safe::DCtx<'static>,
+    file: Vec<u8>,
+}
+
 thread_local! {
-    /// This thread's zstd context for decoding chunks and its buffer for a chunk's file (made
+    /// This thread's zstd contexts for decoding chunks and its buffer for a chunk's file (made
     /// once, not per chunk).
-    static ZSTD_DECODER: std::cell::RefCell<Option<(zstd::bulk::Decompressor<'static>, Vec<u8>)>> =
+    static ZSTD_DECODER: std::cell::RefCell<Option<Decoders>> =
         const { std::cell::RefCell::new(None) };
 }
 
-/// The spare capacity of a voxel vector as zstd's output: the decoded bytes become voxels in
-/// place, without zeroing the buffer first.
-struct SpareVoxels<'a, T>(&'a mut Vec<T>);
+/// The spare capacity of a voxel vector as zstd's output, up to `limit` bytes: the decoded
+/// bytes become voxels in place, without zeroing the buffer first.
+struct SpareVoxels<'a, T> {
+    voxels: &'a mut Vec<T>,
+    limit: usize,
+}
 
-// SAFETY: `as_slice` covers the vector's initialised voxels and `capacity` / `as_mut_ptr` its
-// whole allocation; `filled_until(n)` is called once zstd has written the first `n` bytes, and
-// marks the voxels those bytes hold initialised (every bit pattern is a voxel: `T: Pod`).
+// SAFETY: `as_slice` covers the vector's initialised voxels and `capacity` / `as_mut_ptr` at
+// most its whole allocation; `filled_until(n)` is called once zstd has written the first `n`
+// bytes, and marks the voxels those bytes hold initialised (every bit pattern is a voxel:
+// `T: Pod`).
 unsafe impl<T: Voxel> zstd::zstd_safe::WriteBuf for SpareVoxels<'_, T> {
     fn as_slice(&self) -> &[u8] {
-        bytemuck::cast_slice(self.0.as_slice())
+        bytemuck::cast_slice(self.voxels.as_slice())
     }
     fn capacity(&self) -> usize {
-        self.0.capacity() * size_of::<T>()
+        (self.voxels.capacity() * size_of::<T>()).min(self.limit)
     }
     fn as_mut_ptr(&mut self) -> *mut u8 {
-        self.0.as_mut_ptr().cast()
+        self.voxels.as_mut_ptr().cast()
     }
     unsafe fn filled_until(&mut self, n: usize) {
         // SAFETY: the first `n` bytes, so the first `n / size_of::<T>()` voxels, are written,
         // and `n` is within the capacity (zstd-safe checks it)
-        unsafe { self.0.set_len(n / size_of::<T>()) }
+        unsafe { self.voxels.set_len(n / size_of::<T>()) }
     }
 }
 
-/// Decodes one zstd-compressed chunk of `voxels` little-endian voxels straight into its
-/// buffer with this thread's context (the codec chain would make a context per chunk, zero
-/// the buffer and copy between its steps). `Ok(None)`: the chunk is not stored (it holds the
-/// fill value).
+/// Decodes one zstd-compressed chunk of `whole` little-endian voxels straight into its
+/// buffer with this thread's context (the codec chain would make a context per chunk, zero the
+/// buffer and copy between its steps). With `want < whole`, decodes only the frame's leading
+/// blocks (zstd blocks hold at most 128 KiB) until `want` voxels are out, and keeps everything
+/// those blocks held. `Ok(None)`: the chunk is not stored (it holds the fill value).
 fn decode_zstd<T: Voxel>(
     array: &ZArray,
     idx: &[u64],
-    voxels: usize,
-) -> Result<Option<VoxelBuffer<T>>, String> {
+    whole: usize,
+    want: usize,
+) -> Result<Option<Vec<T>>, String> {
     use std::io::Read;
+    use zstd::zstd_safe::{InBuffer, OutBuffer, ResetDirective};
     let path = array.storage().key_to_fspath(&array.chunk_key(idx));
-    let mut out: Vec<T> = Vec::with_capacity(voxels);
-    let got = ZSTD_DECODER.with(|d| -> Result<Option<usize>, String> {
+    let mut out: Vec<T> = Vec::with_capacity(whole);
+    let whole_bytes = whole * size_of::<T>();
+    let zstd = |e: usize| format!("zstd: {}", zstd::zstd_safe::get_error_name(e));
+    let found = ZSTD_DECODER.with(|d| -> Result<bool, String> {
         let mut d = d.borrow_mut();
-        let (decoder, encoded) = match &mut *d {
+        let Decoders { bulk, stream, file } = match &mut *d {
             Some(d) => d,
-            empty => empty.insert((
-                zstd::bulk::Decompressor::new().map_err(|e| format!("zstd: {e}"))?,
-                Vec::new(),
-            )),
+            empty => empty.insert(Decoders {
+                bulk: zstd::bulk::Decompressor::new().map_err(|e| format!("zstd: {e}"))?,
+                stream: zstd::zstd_safe::DCtx::create(),
+                file: Vec::new(),
+            }),
         };
         // the file into this thread's buffer (no new memory per chunk)
-        encoded.clear();
+        file.clear();
         match std::fs::File::open(&path) {
-            Ok(mut f) => f.read_to_end(encoded).map_err(|e| e.to_string())?,
-            Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
+            Ok(mut f) => f.read_to_end(file).map_err(|e| e.to_string())?,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(false),
             Err(e) => return Err(e.to_string()),
         };
-        decoder
-            .decompress_to_buffer(encoded.as_slice(), &mut SpareVoxels(&mut out))
-            .map(Some)
-            .map_err(|e| format!("zstd: {e}"))
+        if want >= whole {
+            let mut sink = SpareVoxels {
+                voxels: &mut out,
+                limit: whole_bytes,
+            };
+            bulk.decompress_to_buffer(file.as_slice(), &mut sink)
+                .map_err(|e| format!("zstd: {e}"))?;
+            return Ok(true);
+        }
+        stream.reset(ResetDirective::SessionOnly).map_err(zstd)?;
+        let want_bytes = want * size_of::<T>();
+        let mut sink = SpareVoxels {
+            voxels: &mut out,
+            limit: want_bytes,
+        };
+        let mut input = InBuffer::around(file.as_slice());
+        let mut output = OutBuffer::around(&mut sink);
+        while output.pos() < want_bytes && input.pos() < input.src.len() {
+            stream
+                .decompress_stream(&mut output, &mut input)
+                .map_err(zstd)?;
+        }
+        let (pos, used) = (output.pos(), input.pos());
+        // what the decoded blocks still hold, without decoding more
+        sink.limit = whole_bytes;
+        let mut rest = InBuffer::around(&file[..used]);
+        rest.pos = used;
+        let mut output = OutBuffer::around_pos(&mut sink, pos);
+        stream
+            .decompress_stream(&mut output, &mut rest)
+            .map_err(zstd)?;
+        Ok(true)
     })?;
-    let Some(n) = got else { return Ok(None) };
-    let expected = voxels * size_of::<T>();
-    if n == expected && out.len() == voxels {
-        Ok(Some(VoxelBuffer::from_vec(out)))
-    } else {
-        Err(format!("decodes to {n} bytes, {expected} expected"))
+    if !found {
+        return Ok(None);
     }
+    if out.len() < want.min(whole) {
+        return Err(format!(
+            "decodes to {} bytes, {} expected",
+            out.len() * size_of::<T>(),
+            whole_bytes
+        ));
+    }
+    if want >= whole && out.len() != whole {
+        return Err(format!(
+            "decodes to {} bytes, {whole_bytes} expected",
+            out.len() * size_of::<T>()
+        ));
+    }
+    Ok(Some(out))
 }
 
 struct Inner {
@@ -570,30 +625,56 @@ impl Store {
 
 impl Inner {
     fn chunk(&self, level: usize, c: [usize; 3]) -> Result<Arc<Voxels>, StoreError> {
+        self.chunk_slices(level, c, usize::MAX)
+    }
+
+    /// Chunk `c` of a level through the cache, holding at least its first `slices` slices
+    /// along `k` (every slice for `usize::MAX`). Read cold for fewer slices than it has, a
+    /// chunk of zstd alone (the layout Sutura writes) is decoded only as far as its leading
+    /// zstd blocks reach — a plane across `k` decodes about half of each chunk on average —
+    /// and that part is cached; a cached part too short for a later read is replaced by the
+    /// whole chunk, so scrolling decodes each chunk once plus a part.
+    fn chunk_slices(
+        &self,
+        level: usize,
+        c: [usize; 3],
+        slices: usize,
+    ) -> Result<Arc<Voxels>, StoreError> {
         let key = (level, c);
-        if let Some(v) = self.cache.get(&key) {
-            return Ok(v);
-        }
         let a = &self.arrays[level];
+        let per_slice = a.chunk[0] * a.chunk[1];
+        let whole = per_slice * a.chunk[2];
+        let held = self.cache.get(&key);
+        let want = per_slice.saturating_mul(slices).min(whole);
+        if let Some(v) = &held
+            && v.len() >= want
+        {
+            return Ok(v.clone());
+        }
+        let want = if held.is_some() { whole } else { want };
         let mut idx = vec![0u64; a.leading];
         idx.extend([c[2] as u64, c[1] as u64, c[0] as u64]);
         let corrupt =
             |e: String| StoreError::corrupt(&self.path, format!("level {level} chunk {c:?}: {e}"));
         if a.zstd_only {
-            let n = a.chunk.iter().product::<usize>();
-            let direct =
-                match self.dtype {
-                    DType::U8 => {
-                        decode_zstd::<u8>(&a.array, &idx, n).map(|v| v.map(IntoVoxels::into_voxels))
-                    }
-                    DType::I16 => decode_zstd::<i16>(&a.array, &idx, n)
-                        .map(|v| v.map(IntoVoxels::into_voxels)),
-                    DType::U16 => decode_zstd::<u16>(&a.array, &idx, n)
-                        .map(|v| v.map(IntoVoxels::into_voxels)),
-                    DType::F32 => decode_zstd::<f32>(&a.array, &idx, n)
-                        .map(|v| v.map(IntoVoxels::into_voxels)),
-                }
-                .map_err(corrupt)?;
+            fn slices_of<T: Voxel>(mut v: Vec<T>, per_slice: usize) -> Voxels
+            where
+                VoxelBuffer<T>: IntoVoxels,
+            {
+                v.truncate(v.len() / per_slice * per_slice);
+                VoxelBuffer::from_vec(v).into_voxels()
+            }
+            let direct = match self.dtype {
+                DType::U8 => decode_zstd::<u8>(&a.array, &idx, whole, want)
+                    .map(|v| v.map(|v| slices_of(v, per_slice))),
+                DType::I16 => decode_zstd::<i16>(&a.array, &idx, whole, want)
+                    .map(|v| v.map(|v| slices_of(v, per_slice))),
+                DType::U16 => decode_zstd::<u16>(&a.array, &idx, whole, want)
+                    .map(|v| v.map(|v| slices_of(v, per_slice))),
+                DType::F32 => decode_zstd::<f32>(&a.array, &idx, whole, want)
+                    .map(|v| v.map(|v| slices_of(v, per_slice))),
+            }
+            .map_err(corrupt)?;
             if let Some(voxels) = direct {
                 let chunk = Arc::new(voxels);
                 self.cache.insert(key, chunk.clone());
@@ -696,17 +777,18 @@ impl Inner {
             .flat_map(|cj| cr[0].clone().map(move |ci| [ci, cj]))
             .collect();
         for ck in cr[2].clone() {
+            let k_lo = r[2].start.max(ck * cs[2]);
+            let k_hi = r[2].end.min((ck + 1) * cs[2]);
+            // the chunks' slices up to the region's last one in this layer
             let chunks: Vec<Arc<Voxels>> = layer_keys
                 .par_iter()
-                .map(|&[ci, cj]| self.chunk(level, [ci, cj, ck]))
+                .map(|&[ci, cj]| self.chunk_slices(level, [ci, cj, ck], k_hi - ck * cs[2]))
                 .collect::<Result<_, _>>()
                 .map_err(ReadError::from)?;
             let typed: Vec<&[T]> = chunks
                 .iter()
                 .map(|c| crate::with_voxels!(c.as_ref(), |s| bytemuck::cast_slice::<_, T>(s)))
                 .collect();
-            let k_lo = r[2].start.max(ck * cs[2]);
-            let k_hi = r[2].end.min((ck + 1) * cs[2]);
             let slice = nx * ny;
             let dst =
                 &mut out.as_mut_slice()[(k_lo - r[2].start) * slice..(k_hi - r[2].start) * slice];
@@ -742,6 +824,7 @@ impl Inner {
             return;
         };
         let cr = self.chunk_ranges(level, &r);
+        let whole = self.arrays[level].chunk.iter().product::<usize>();
         let [ri, rj, rk] = cr;
         let keys: Vec<[usize; 3]> = rk
             .flat_map(|k| {
@@ -749,7 +832,7 @@ impl Inner {
                 rj.clone()
                     .flat_map(move |j| ri.clone().map(move |i| [i, j, k]))
             })
-            .filter(|c| !self.cache.contains(&(level, *c)))
+            .filter(|c| self.cache.voxels_of(&(level, *c)) != Some(whole))
             .collect();
         // at most half the budget, so a prefetch never evicts what the view shows
         let per =

@@ -328,3 +328,89 @@ fn refuses_what_is_not_a_store() {
     assert_eq!(e.to_string(), "broken.nii: truncated at slice 0");
     assert!(!out.exists());
 }
+
+/// The voxels of a block as the scan's type, for comparing whole regions.
+fn u16s(v: &Volume) -> Vec<u16> {
+    crate::with_voxels!(v.voxels(), |a| a
+        .iter()
+        .map(|x| x.to_f64() as u16)
+        .collect())
+}
+
+fn region_of(v: &Volume, r: &Region) -> Vec<u16> {
+    let mut out = Vec::new();
+    for k in r[2].clone() {
+        for j in r[1].clone() {
+            for i in r[0].clone() {
+                out.push(crate::with_voxels!(v.voxels(), |a| a
+                    [v.linear_index(VoxelIndex::new(i, j, k))]
+                .to_f64()) as u16);
+            }
+        }
+    }
+    out
+}
+
+/// A plane across `k` read cold decodes only the leading zstd blocks (at most 128 KiB each)
+/// of its chunks, and the cache holds just that part; a read deeper into the chunk decodes it
+/// whole. Every read equals the scan, and a damaged chunk is an error naming it.
+#[test]
+fn a_plane_across_k_decodes_only_the_leading_blocks_of_its_chunks() {
+    let dir = tempfile::tempdir().unwrap();
+    let v = ramp([64, 64, 128], 7);
+    let out = dir.path().join("deep.ome.zarr");
+    let options = ConvertOptions {
+        chunk: 64, // 512 KiB chunks of u16: at least four zstd blocks each
+        coarsest_bytes: 1 << 30,
+        ..ConvertOptions::default()
+    };
+    convert_volume(&v, &out, &options);
+    let whole = 64 * 64 * 64 * 2;
+    let store = Store::open(&out, &StoreOptions::default()).unwrap();
+    let plane = |k: usize| [0..64, 0..64, k..k + 1];
+    // slice 2 of the second chunk layer
+    let b = store.read_block(0, &plane(66)).unwrap();
+    assert_eq!(u16s(&b), region_of(&v, &plane(66)));
+    let held = store.cache_stats().bytes;
+    assert!(
+        held >= 3 * 64 * 64 * 2 && held < whole,
+        "the chunk's leading part only: {held} bytes"
+    );
+    // within the part held: no decoding
+    let misses = store.cache_stats().misses;
+    let b = store.read_block(0, &plane(65)).unwrap();
+    assert_eq!(u16s(&b), region_of(&v, &plane(65)));
+    assert_eq!(store.cache_stats().bytes, held);
+    assert_eq!(store.cache_stats().misses, misses);
+    // the chunk's last slice: the whole chunk replaces the part
+    let b = store.read_block(0, &plane(127)).unwrap();
+    assert_eq!(u16s(&b), region_of(&v, &plane(127)));
+    assert_eq!(store.cache_stats().bytes, whole);
+    // a slab across both layers on a fresh store, and every voxel through the chunk interface
+    let fresh = Store::open(&out, &StoreOptions::default()).unwrap();
+    let slab = [5..60, 0..64, 60..70];
+    assert_eq!(
+        u16s(&fresh.read_block(0, &slab).unwrap()),
+        region_of(&v, &slab)
+    );
+    assert_eq!(
+        fresh.chunk(0, [0, 0, 0]).unwrap().len(),
+        64 * 64 * 64,
+        "a chunk asked for whole is whole"
+    );
+    let all = [0..64, 0..64, 0..128];
+    assert_eq!(
+        u16s(&fresh.read_block(0, &all).unwrap()),
+        region_of(&v, &all)
+    );
+    // a chunk cut short: its leading blocks may still serve a plane, the whole read fails
+    let file = out.join("0/c/1/0/0");
+    let bytes = std::fs::read(&file).unwrap();
+    std::fs::write(&file, &bytes[..bytes.len() / 2]).unwrap();
+    let damaged = Store::open(&out, &StoreOptions::default()).unwrap();
+    let e = damaged.read_block(0, &all).unwrap_err().to_string();
+    assert!(
+        e.contains("deep.ome.zarr") && e.contains("level 0 chunk [0, 0, 1]"),
+        "{e}"
+    );
+}

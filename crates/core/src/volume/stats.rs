@@ -624,6 +624,31 @@ mod tests {
         assert_eq!(p, vec![-30.0, 0.0, -22.5]);
     }
 
+    /// The four interleaved tables count what one table counts, for every remainder of four
+    /// and for runs of one value.
+    #[test]
+    fn count_into_counts_every_voxel_once() {
+        for n in [0usize, 1, 2, 3, 4, 5, 7, 1001] {
+            let data: Vec<i16> = (0..n)
+                .map(|i| {
+                    if i % 5 == 0 {
+                        -7
+                    } else {
+                        ((i * 97) % 400) as i16 - 200
+                    }
+                })
+                .collect();
+            let mut table = vec![0u64; 65536];
+            super::count_into(&mut table, &data, -32768);
+            super::count_into(&mut table, &data[..n / 2], -32768); // adds to what is there
+            let mut want = vec![0u64; 65536];
+            for &v in data.iter().chain(&data[..n / 2]) {
+                want[(i64::from(v) + 32768) as usize] += 1;
+            }
+            assert_eq!(table, want, "{n} voxels");
+        }
+    }
+
     #[test]
     fn intensity_from_counts_equals_the_volume_s_own() {
         let data: Vec<i16> = (0..3000).map(|n| ((n * 37) % 1001 - 300) as i16).collect();
