@@ -662,6 +662,8 @@ impl Inner {
                 VoxelBuffer<T>: IntoVoxels,
             {
                 v.truncate(v.len() / per_slice * per_slice);
+                // a part holds only its own memory (the cache counts it so)
+                v.shrink_to_fit();
                 VoxelBuffer::from_vec(v).into_voxels()
             }
             let direct = match self.dtype {
