@@ -53,18 +53,7 @@ fn main() {
         rayon::current_num_threads()
     );
 
-    // the bound: read and decode slab by slab
-    let t = Instant::now();
-    let mut r = open_slices(&src, &OpenOptions::default()).expect("open");
-    let mut slab = vec![0u8; r.slice_bytes() * 64];
-    let mut k = 0;
-    while k < n {
-        let m = 64.min(n - k);
-        r.read_slices(k, &mut slab[..m * r.slice_bytes()], &Progress::none())
-            .expect("read");
-        k += m;
-    }
-    let bound = secs(t);
+    let bound = read_bound(&src, n);
     println!("read bound            {bound:7.2} s");
 
     let mut default_store = None;
@@ -110,6 +99,21 @@ fn main() {
     python(&src, &out, n);
 }
 
+/// The bound of a conversion: reading and decoding the source slab by slab, in seconds.
+fn read_bound(src: &Path, n: usize) -> f64 {
+    let t = Instant::now();
+    let mut r = open_slices(src, &OpenOptions::default()).expect("open");
+    let mut slab = vec![0u8; r.slice_bytes() * 64];
+    let mut k = 0;
+    while k < n {
+        let m = 64.min(n - k);
+        r.read_slices(k, &mut slab[..m * r.slice_bytes()], &Progress::none())
+            .expect("read");
+        k += m;
+    }
+    secs(t)
+}
+
 /// The same scan as `.nii.gz` (gzip level 1, made once): inflating it is most of the bound,
 /// and the conversion's reading thread overlaps it with counting, averaging, compressing and
 /// writing.
@@ -124,17 +128,7 @@ fn compressed_source(src: &Path, dir: &Path, n: usize) {
         e.finish().expect("gz copy");
         std::fs::rename(&tmp, &gz).expect("gz copy");
     }
-    let t = Instant::now();
-    let mut r = open_slices(&gz, &OpenOptions::default()).expect("open");
-    let mut slab = vec![0u8; r.slice_bytes() * 64];
-    let mut k = 0;
-    while k < n {
-        let m = 64.min(n - k);
-        r.read_slices(k, &mut slab[..m * r.slice_bytes()], &Progress::none())
-            .expect("read");
-        k += m;
-    }
-    let bound = secs(t);
+    let bound = read_bound(&gz, n);
     let out = dir.join(format!("vol_{n}_from_gz.ome.zarr"));
     let _ = std::fs::remove_dir_all(&out);
     let _ = std::fs::remove_dir_all(sutura_core::store::partial_path(&out));
