@@ -306,7 +306,8 @@ proptest! {
         let rec = &p.scores * p.loadings.transpose();
         for i in 0..t.nrows() {
             let r = rec.row(i).transpose() + &p.center;
-            prop_assert!((r - t.row(i).transpose()).norm() < 1e-9);
+            let e = (r - t.row(i).transpose()).norm();
+            prop_assert!(e < 1e-9, "specimen {}: reconstruction off by {:e}; variances {:?} of total {}", i, e, p.variances, p.total_variance);
         }
     }
 }

@@ -304,8 +304,11 @@ impl StoreVoxel for f32 {
 
 /// Bytes of slices the reading thread decodes at once (at most 8 slices).
 const READ_GROUP_BYTES: usize = 32 << 20;
-/// Groups of slices in flight between the reading thread and the converter.
-const READ_BUFFERS: usize = 3;
+/// Groups of slices in flight between the reading thread and the converter: enough for the
+/// reader to run a whole 64-slice layer of 1024² u16 slices ahead while a layer is compressed
+/// (at most 256 MiB). With three, a `.nii.gz` reader waited for buffers during each layer's
+/// compression: 1024³ converted in 9.2–9.7 s against 7.6–7.7 s with eight (measured).
+const READ_BUFFERS: usize = 8;
 
 /// Slices `k .. k + n` read into a buffer, or why not.
 type Read<T> = Result<(usize, usize, Vec<T>), crate::io::IoError>;
