@@ -12,7 +12,6 @@
 use super::StoreError;
 use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
-use std::sync::Mutex;
 use std::sync::mpsc;
 use zarrs::filesystem::FilesystemStore;
 use zarrs::storage::byte_range::ByteRangeIterator;
@@ -35,8 +34,9 @@ enum Job {
 pub(crate) struct WriteBehind {
     fs: FilesystemStore,
     root: PathBuf,
-    jobs: Mutex<Option<mpsc::Sender<Job>>>,
-    flusher: Mutex<Option<std::thread::JoinHandle<()>>>,
+    /// `None` only while dropping (closing the channel ends the flushing thread).
+    jobs: Option<mpsc::Sender<Job>>,
+    flusher: Option<std::thread::JoinHandle<()>>,
 }
 
 impl WriteBehind {
@@ -52,17 +52,13 @@ impl WriteBehind {
         Ok(Self {
             fs,
             root: root.to_owned(),
-            jobs: Mutex::new(Some(tx)),
-            flusher: Mutex::new(Some(flusher)),
+            jobs: Some(tx),
+            flusher: Some(flusher),
         })
     }
 
     fn send(&self, job: Job) -> bool {
-        let jobs = self
-            .jobs
-            .lock()
-            .unwrap_or_else(std::sync::PoisonError::into_inner);
-        jobs.as_ref().is_some_and(|tx| tx.send(job).is_ok())
+        self.jobs.as_ref().is_some_and(|tx| tx.send(job).is_ok())
     }
 
     /// Waits until every file written so far, and its folders, are on disk.
@@ -87,16 +83,8 @@ impl WriteBehind {
 
 impl Drop for WriteBehind {
     fn drop(&mut self) {
-        let jobs = self
-            .jobs
-            .get_mut()
-            .unwrap_or_else(std::sync::PoisonError::into_inner);
-        drop(jobs.take());
-        let flusher = self
-            .flusher
-            .get_mut()
-            .unwrap_or_else(std::sync::PoisonError::into_inner);
-        if let Some(h) = flusher.take() {
+        drop(self.jobs.take());
+        if let Some(h) = self.flusher.take() {
             let _ = h.join();
         }
     }
